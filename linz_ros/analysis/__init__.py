@@ -1,0 +1,27 @@
+"""Linearizability analysis of a plant: the verdicts behind ``linz check``.
+
+Public names
+------------
+analyse               run every analysis and return a Report
+render_text           the Report as readable text (verdict first)
+Report                the result, with ``to_json()`` for the command-line contract
+analyse_input_state   input-state verdict, distributions D_k, indices, linearizing output
+analyse_input_output  relative degree, decoupling matrix, singular set, zero dynamics
+sample_envelope       conditioning of a matrix over the operating envelope
+invariant_zeros       finite zeros of a square linear system
+controllability_indices  Kronecker indices from the ranks of D_k
+"""
+
+from linz_ros.analysis._envelope import EnvelopeResult, sample_envelope
+from linz_ros.analysis._input_output import (InputOutputResult, ZeroDynamics, analyse_input_output,
+                                             decoupling_terms, invariant_zeros)
+from linz_ros.analysis._input_state import (DistributionInfo, InputStateResult, analyse_input_state,
+                                            controllability_indices, relative_degree_of)
+from linz_ros.analysis._report import Report, analyse, render_text
+
+__all__ = [
+    "analyse", "render_text", "Report", "analyse_input_state", "analyse_input_output",
+    "sample_envelope", "invariant_zeros", "controllability_indices", "relative_degree_of",
+    "decoupling_terms", "DistributionInfo", "InputStateResult", "InputOutputResult",
+    "ZeroDynamics", "EnvelopeResult",
+]

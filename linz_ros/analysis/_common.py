@@ -1,0 +1,38 @@
+"""Helpers shared by the analyses: the numeric context of a plant and expression tidying."""
+
+from __future__ import annotations
+
+import sympy as sp
+
+from linz_ros.geometry import NumericContext
+from linz_ros.model import Plant
+
+#: Expressions with more operations than this are shown as computed, not simplified.
+TIDY_BUDGET = 250
+
+
+def plant_context(plant: Plant, count: int = 5) -> NumericContext:
+    """Numeric context of a plant: nominal parameters, random points in its envelope."""
+    bounds = {i: plant.envelope[s.name] for i, s in enumerate(plant.states) if s.name in plant.envelope}
+    return NumericContext.around(plant.states, plant.nominal, plant.operating_vector(), bounds, count)
+
+
+def tidy(expr: sp.Expr) -> sp.Expr:
+    """Simplify an expression for display, within a size budget (simplify is costly)."""
+    expr = sp.sympify(expr)
+    ops = sp.count_ops(expr)
+    if ops > TIDY_BUDGET:
+        return expr
+    if ops > TIDY_BUDGET // 5:
+        return sp.cancel(expr)
+    return sp.simplify(expr)
+
+
+def show(expr: sp.Expr) -> str:
+    """Text form of an expression, in the plant-file grammar (``**`` for powers)."""
+    return str(expr)
+
+
+def depends_on_states(expr: sp.Expr, plant: Plant) -> bool:
+    """True when ``expr`` contains a state symbol."""
+    return bool(sp.sympify(expr).free_symbols & set(plant.states))

@@ -1,0 +1,228 @@
+"""Input-output linearization: relative degree, decoupling matrix, singular set, zero dynamics."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import scipy.linalg
+import sympy as sp
+
+from linz_ros.analysis._common import show, tidy
+from linz_ros.analysis._input_state import relative_degree_of, state_factors
+from linz_ros.geometry import NumericContext, evaluate, generic_rank, lie_derivative, rank_at
+from linz_ros.model import Plant
+
+__all__ = ["InputOutputResult", "ZeroDynamics", "analyse_input_output", "decoupling_terms"]
+
+#: Finite invariant zeros are generalized eigenvalues below this magnitude.
+_FINITE_ZERO = 1e8
+#: Real parts within this distance of the imaginary axis are "critical".
+_CRITICAL_RE = 1e-9
+
+
+@dataclass
+class ZeroDynamics:
+    """Linearization of the zero dynamics at an equilibrium."""
+
+    equilibrium_input: list[float] | None
+    eigenvalues: list[complex] = field(default_factory=list)
+    stability: str | None = None
+    reason: str = ""
+
+    def to_json(self) -> dict[str, Any]:
+        return {
+            "equilibrium_input": self.equilibrium_input,
+            "eigenvalues": [[float(e.real), float(e.imag)] for e in self.eigenvalues],
+            "stability": self.stability,
+            "reason": self.reason,
+        }
+
+
+@dataclass
+class InputOutputResult:
+    """Input-output linearization of the plant's outputs at the operating point."""
+
+    outputs: list[str]
+    relative_degree: list[int] | None
+    relative_degree_generic: list[int | None]
+    reason: str
+    decoupling_matrix: sp.Matrix | None = None
+    drift_terms: sp.Matrix | None = None
+    singular_set: sp.Expr | None = None
+    singular_set_note: str = ""
+    zero_dynamics_order: int | None = None
+    zero_dynamics: ZeroDynamics | None = None
+
+    def to_json(self) -> dict[str, Any]:
+        A = self.decoupling_matrix
+        return {
+            "outputs": self.outputs,
+            "relative_degree": self.relative_degree,
+            "relative_degree_generic": self.relative_degree_generic,
+            "reason": self.reason,
+            "decoupling_matrix": None if A is None else [[show(A[i, j]) for j in range(A.shape[1])]
+                                                          for i in range(A.shape[0])],
+            "singular_set": None if self.singular_set is None else show(self.singular_set),
+            "singular_set_empty": None if self.singular_set is None else self.singular_set == 1,
+            "singular_set_note": self.singular_set_note,
+            "zero_dynamics_order": self.zero_dynamics_order,
+            "zero_dynamics": None if self.zero_dynamics is None else self.zero_dynamics.to_json(),
+        }
+
+
+def decoupling_terms(plant: Plant, ctx: NumericContext
+                     ) -> tuple[list[int | None], sp.Matrix | None, sp.Matrix | None]:
+    """Generic relative degrees, decoupling matrix A(x) and stacked b(x) = L_f^r_i h_i.
+
+    Row i of A is ``L_G L_f^(r_i - 1) h_i``; A and b are None when some output is
+    not reached by any input (infinite relative degree).
+    """
+    degrees, rows, drift = [], [], []
+    for i in range(plant.h.shape[0]):
+        degree, row = relative_degree_of(plant.h[i], plant, ctx)
+        degrees.append(degree)
+        if degree is None:
+            continue
+        phi = plant.h[i]
+        for _ in range(degree):
+            phi = lie_derivative(phi, plant.f, plant.states)
+        rows.append(row)
+        drift.append(phi)
+    if any(d is None for d in degrees):
+        return degrees, None, None
+    A = sp.Matrix.vstack(*rows).applyfunc(tidy)
+    return degrees, A, sp.Matrix(drift)
+
+
+def analyse_input_output(plant: Plant, ctx: NumericContext) -> InputOutputResult | None:
+    """Relative degree, decoupling matrix, singular set and zero dynamics of the outputs.
+
+    Definitions follow Isidori, Nonlinear Control Systems, sec. 5.1: the vector
+    relative degree exists at x0 when L_gj L_f^k h_i vanishes near x0 for k < r_i - 1
+    and the decoupling matrix A(x0) is nonsingular (full row rank).
+
+    Parameters
+    ----------
+    plant : Plant
+    ctx : NumericContext
+
+    Returns
+    -------
+    InputOutputResult or None
+        None when the plant declares no outputs.
+    """
+    p, m = plant.h.shape[0], plant.m
+    if p == 0:
+        return None
+    names = list(plant.output_names)
+    degrees, A, b = decoupling_terms(plant, ctx)
+    if A is None:
+        lost = [names[i] for i, d in enumerate(degrees) if d is None]
+        return InputOutputResult(names, None, degrees,
+                                 f"output(s) {', '.join(lost)} are not affected by any input "
+                                 f"within {plant.n} derivatives (infinite relative degree)")
+    result = InputOutputResult(names, None, degrees, "", decoupling_matrix=A, drift_terms=b)
+    if p > m:
+        result.reason = f"{p} outputs but only {m} inputs: the decoupling matrix cannot have full row rank"
+        return result
+    result.singular_set, result.singular_set_note = _singular_set(A, plant, ctx)
+    generic = generic_rank(A, ctx)
+    at_point = rank_at(A, ctx, plant.operating_vector())
+    if generic.rank is None or at_point is None:
+        result.reason = "could not decide: the decoupling matrix is not finite at the operating point"
+        return result
+    if generic.rank < p:
+        result.reason = (f"the decoupling matrix has rank {generic.rank} < {p} everywhere: the outputs "
+                         "cannot be decoupled by static feedback (dynamic extension may help)")
+        return result
+    total = sum(degrees)
+    result.zero_dynamics_order = plant.n - total
+    if at_point < p:
+        what = ("L_g L_f^(r-1) h vanishes" if p == 1 else
+                f"the decoupling matrix has rank {at_point} < {p}")
+        result.reason = (f"relative degree not defined at the operating point: {what} there "
+                         f"(it lies on the singular set); generic relative degree {degrees}")
+        return result
+    result.relative_degree = list(degrees)
+    result.reason = (f"relative degree {degrees} at the operating point; "
+                     f"zero dynamics of order {result.zero_dynamics_order}")
+    result.zero_dynamics = _zero_dynamics(plant, result.zero_dynamics_order, ctx)
+    return result
+
+
+def _singular_set(A: sp.Matrix, plant: Plant, ctx: NumericContext) -> tuple[sp.Expr | None, str]:
+    p, m = A.shape
+    if sum(sp.count_ops(e) for e in A) > 1500:
+        return None, "could not decide: decoupling matrix too large for a symbolic determinant"
+    square = A if p == m else A * A.T
+    determinant = square.det(method="berkowitz")
+    if p != m:
+        note = "where det(A A^T) = 0 (A has fewer rows than columns)"
+    else:
+        note = "where det A = 0" if p > 1 else "where L_g L_f^(r-1) h = 0"
+    return state_factors(determinant, plant), note
+
+
+def _zero_dynamics(plant: Plant, order: int, ctx: NumericContext) -> ZeroDynamics:
+    if order == 0:
+        return ZeroDynamics(None, [], "none", "no zero dynamics (sum of relative degrees = n)")
+    x0 = plant.operating_vector()
+    f0 = evaluate(plant.f, ctx, x0)[:, 0]
+    G0 = evaluate(plant.G, ctx, x0)
+    if not (np.all(np.isfinite(f0)) and np.all(np.isfinite(G0))):
+        return ZeroDynamics(None, [], None, "the model is not finite at the operating point")
+    u0, *_ = np.linalg.lstsq(G0, -f0, rcond=None)
+    if np.linalg.norm(f0 + G0 @ u0) > 1e-9 * (1 + np.linalg.norm(f0)):
+        return ZeroDynamics(None, [], None, "the operating point is not an equilibrium for any "
+                                            "constant input; zero-dynamics linearization not stated")
+    if plant.h.shape[0] != plant.m:
+        return ZeroDynamics([float(v) for v in u0], [], None,
+                            "zero-dynamics linearization is stated for as many outputs as inputs")
+    X = sp.Matrix(plant.states)
+    closed = plant.f + plant.G * sp.Matrix([sp.Float(v) for v in u0])
+    A_lin = evaluate(closed.jacobian(X), ctx, x0)
+    C_lin = evaluate(plant.h.jacobian(X), ctx, x0)
+    zeros = invariant_zeros(A_lin, G0, C_lin)
+    zd = ZeroDynamics([float(v) for v in u0], zeros)
+    if len(zeros) != order:
+        zd.reason = (f"the linearization has {len(zeros)} finite zeros but the zero dynamics have "
+                     f"order {order}; stability not stated")
+        return zd
+    real = np.array([z.real for z in zeros])
+    if np.all(real < -_CRITICAL_RE):
+        zd.stability = "asymptotically stable"
+        zd.reason = "all eigenvalues of the linearized zero dynamics in the open left half-plane"
+    elif np.any(real > _CRITICAL_RE):
+        zd.stability = "unstable"
+        zd.reason = ("an eigenvalue of the linearized zero dynamics in the right half-plane "
+                     "(non-minimum phase): an exact linearizing law would be unsafe")
+    else:
+        zd.stability = "critical"
+        zd.reason = "eigenvalues on the imaginary axis: the linearization does not decide stability"
+    return zd
+
+
+def invariant_zeros(A: np.ndarray, B: np.ndarray, C: np.ndarray) -> list[complex]:
+    """Finite invariant zeros of a square linear system (no feedthrough).
+
+    The zeros are the finite generalized eigenvalues of the Rosenbrock pencil
+    ``[[A, B], [C, 0]] - s [[I, 0], [0, 0]]`` (common practice; e.g. Emami-Naeini and
+    Van Dooren, Automatica 1982). For a relative degree defined at an equilibrium they
+    are the eigenvalues of the linearized zero dynamics (Isidori, sec. 4.3).
+
+    Examples
+    --------
+    >>> A = np.array([[0., 1.], [-2., -3.]]); B = np.array([[0.], [1.]]); C = np.array([[1., 1.]])
+    >>> [round(z.real, 9) for z in invariant_zeros(A, B, C)]
+    [-1.0]
+    """
+    n, m = B.shape
+    p = C.shape[0]
+    pencil = np.block([[A, B], [C, np.zeros((p, m))]])
+    mass = np.block([[np.eye(n), np.zeros((n, m))], [np.zeros((p, n)), np.zeros((p, m))]])
+    with np.errstate(all="ignore"):
+        values = scipy.linalg.eigvals(pencil, mass)
+    finite = [complex(v) for v in values if np.isfinite(v) and abs(v) < _FINITE_ZERO]
+    return sorted(finite, key=lambda z: (z.real, z.imag))

@@ -1,0 +1,291 @@
+"""Input-state (full-state) linearizability: distributions, indices, linearizing output."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import sympy as sp
+
+from linz_ros.analysis._common import depends_on_states, show, tidy
+from linz_ros.geometry import (NumericContext, distribution, evaluate, generic_rank, involutivity,
+                               is_identically_zero, lie_derivative, rank_at)
+from linz_ros.model import Plant
+
+__all__ = ["DistributionInfo", "InputStateResult", "analyse_input_state", "relative_degree_of"]
+
+
+@dataclass
+class DistributionInfo:
+    """One distribution D_k = span{ad_f^j g_i : j <= k}."""
+
+    order: int
+    rank: int | None            # at the operating point
+    rank_generic: int | None
+    involutive: bool | None
+    method: str = ""
+    witness: str = ""           # the bracket that leaves D_k, when not involutive
+
+    def to_json(self) -> dict[str, Any]:
+        out = {"order": self.order, "rank": self.rank, "rank_generic": self.rank_generic,
+               "involutive": self.involutive, "method": self.method}
+        if self.witness:
+            out["witness"] = self.witness
+        return out
+
+
+@dataclass
+class InputStateResult:
+    """Verdict on input-state linearizability at the operating point."""
+
+    linearizable: bool | None
+    reason: str
+    distributions: list[DistributionInfo] = field(default_factory=list)
+    controllability_indices: list[int] = field(default_factory=list)
+    linearizing_outputs: list[sp.Expr] = field(default_factory=list)
+    linearizing_output_note: str = ""
+    singular_set: sp.Expr | None = None      # single input: det[g, ..., ad_f^(n-1) g]
+
+    def to_json(self) -> dict[str, Any]:
+        return {
+            "linearizable": self.linearizable,
+            "reason": self.reason,
+            "distributions": [d.to_json() for d in self.distributions],
+            "controllability_indices": self.controllability_indices,
+            "linearizing_outputs": [show(e) for e in self.linearizing_outputs],
+            "linearizing_output_note": self.linearizing_output_note,
+            "singular_set": None if self.singular_set is None else show(self.singular_set),
+        }
+
+
+def _generator_name(index: int, m: int, input_names: list[str]) -> str:
+    j, i = divmod(index, m)
+    g = f"g_{input_names[i]}" if m > 1 else "g"
+    return g if j == 0 else (f"ad_f {g}" if j == 1 else f"ad_f^{j} {g}")
+
+
+def controllability_indices(ranks: list[int], m: int) -> list[int]:
+    """Kronecker indices from the ranks r_k of D_k (Isidori sec. 5.2, Brunovsky).
+
+    The number of indices larger than k equals r_k - r_(k-1), so index i (sorted in
+    decreasing order) is the number of k with r_k - r_(k-1) >= i.
+
+    Examples
+    --------
+    >>> controllability_indices([2, 4, 5], 2)
+    [3, 2]
+    """
+    increments = [ranks[0]] + [b - a for a, b in zip(ranks, ranks[1:])]
+    return [sum(1 for d in increments if d >= i) for i in range(1, m + 1)]
+
+
+def analyse_input_state(plant: Plant, ctx: NumericContext) -> InputStateResult:
+    """Decide input-state linearizability at the operating point.
+
+    Conditions (Isidori, Nonlinear Control Systems, Thm. 4.2.3 for one input and
+    Thm. 5.2.3 for several): each D_k has constant rank near x0, D_k is involutive for
+    k <= n-2, and rank D_(n-1)(x0) = n.
+
+    Parameters
+    ----------
+    plant : Plant
+    ctx : NumericContext
+
+    Returns
+    -------
+    InputStateResult
+    """
+    n, m, x = plant.n, plant.m, plant.states
+    x0 = plant.operating_vector()
+    generators = distribution(plant.f, plant.G, x, n - 1)
+    infos: list[DistributionInfo] = []
+    for k in range(n):
+        cols = generators[: (k + 1) * m]
+        D = sp.Matrix.hstack(*cols)
+        at_point = rank_at(D, ctx, x0)
+        generic = generic_rank(D, ctx)
+        info = DistributionInfo(k, at_point, generic.rank, None, generic.method)
+        if generic.rank == n:
+            info.involutive, info.method = True, "full rank"
+        elif k <= n - 2:
+            result = involutivity(cols, x, ctx)
+            info.involutive, info.method = result.involutive, result.method
+            if result.witness:
+                a, b = (_generator_name(i, m, plant.input_names) for i in result.witness)
+                info.witness = f"[{a}, {b}]"
+        infos.append(info)
+        if generic.rank == n and k < n - 1:
+            # the remaining D_k are all of full rank
+            for later in range(k + 1, n):
+                D_later = sp.Matrix.hstack(*generators[: (later + 1) * m])
+                infos.append(DistributionInfo(later, rank_at(D_later, ctx, x0), n, True, "full rank"))
+            break
+    result = InputStateResult(*_verdict(plant, infos), distributions=infos)
+    ranks = [d.rank for d in infos]
+    if all(r is not None for r in ranks):
+        result.controllability_indices = controllability_indices(ranks, m)
+    if m == 1:
+        result.singular_set = _controllability_singular_set(plant, generators, ctx)
+        if result.linearizable:
+            outputs, note = find_linearizing_output(plant, generators, ctx)
+            result.linearizing_outputs, result.linearizing_output_note = outputs, note
+    else:
+        result.linearizing_output_note = "the search for linearizing outputs covers single-input plants"
+    return result
+
+
+def _verdict(plant: Plant, infos: list[DistributionInfo]) -> tuple[bool | None, str]:
+    """All failed conditions, joined; undecided conditions make the verdict None."""
+    n = plant.n
+    last = infos[-1]
+    if any(d.rank is None for d in infos):
+        return None, "could not decide: the vector fields are not finite at the operating point"
+    failures, undecided = [], []
+    if last.rank < n:
+        elsewhere = f" (generic rank {last.rank_generic})" if last.rank_generic != last.rank else ""
+        failures.append(f"rank D_{n - 1} = rank [g, ad_f g, ..., ad_f^{n - 1} g] is {last.rank} < {n} "
+                        f"at the operating point{elsewhere}")
+    for d in infos:
+        if d.rank_generic is None:
+            undecided.append(f"the generic rank of D_{d.order} ({d.method})")
+        elif d.rank != d.rank_generic and last.rank == n:
+            failures.append(f"D_{d.order} changes rank at the operating point "
+                            f"({d.rank} there, {d.rank_generic} nearby)")
+    for d in infos[: n - 1]:
+        if d.involutive is None:
+            undecided.append(f"whether D_{d.order} is involutive ({d.method})")
+        elif d.involutive is False:
+            failures.append(f"D_{d.order} is not involutive: {d.witness} is not in D_{d.order}")
+            break  # D_k involutive fails for the first k; later ones add nothing
+    if failures:
+        return False, "; ".join(failures)
+    if undecided:
+        return None, "could not decide " + "; ".join(undecided)
+    involutive = "D_0 involutive" if n == 2 else f"D_0..D_{n - 2} involutive"
+    if n == 1:
+        return True, "rank D_0 = 1 at the operating point"
+    return True, f"rank D_{n - 1} = {n} at the operating point; {involutive} and of constant rank"
+
+
+def _controllability_singular_set(plant: Plant, generators: list[sp.Matrix], ctx: NumericContext
+                                  ) -> sp.Expr | None:
+    C = sp.Matrix.hstack(*generators)
+    if sum(sp.count_ops(e) for e in C) > 4 * 250:
+        return None
+    return state_factors(C.det(method="berkowitz"), plant)
+
+
+def state_factors(expr: sp.Expr, plant: Plant) -> sp.Expr:
+    """The state-dependent factors of the numerator of ``expr``: where it vanishes.
+
+    Constant and parameter-only factors are dropped, and so are factors that sympy
+    proves positive or negative for all real states at the nominal parameters (sums of
+    squares such as det M); ``1`` means "nowhere".
+    """
+    numerator, _ = sp.fraction(sp.cancel(sp.together(expr)))
+    _, factors = sp.factor_list(numerator)
+    kept = sp.Integer(1)
+    for factor, _power in factors:
+        factor = tidy(factor)
+        if not depends_on_states(factor, plant):
+            continue
+        nominal = factor.subs(plant.nominal)
+        if nominal.is_positive or nominal.is_negative:
+            continue
+        kept *= factor
+    return -kept if kept.could_extract_minus_sign() else kept
+
+
+def relative_degree_of(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[int | None, sp.Expr]:
+    """Generic relative degree of a scalar output and the coefficient L_G L_f^(r-1) h.
+
+    Returns ``(None, 0)`` when no input reaches the output within n derivatives.
+    """
+    phi = h
+    for k in range(plant.n):
+        row = [lie_derivative(phi, plant.G[:, j], plant.states) for j in range(plant.m)]
+        if not all(is_identically_zero(e, ctx).value for e in row):
+            return k + 1, sp.Matrix([row])
+        phi = lie_derivative(phi, plant.f, plant.states)
+    return None, sp.Integer(0)
+
+
+def find_linearizing_output(plant: Plant, generators: list[sp.Matrix], ctx: NumericContext
+                            ) -> tuple[list[sp.Expr], str]:
+    """Find T1 with dT1 annihilating D_(n-2) and relative degree n (single input).
+
+    Candidates: the coordinate functions, the plant's own output, then the potential of
+    the annihilating covector of D_(n-2) normalised on each nonzero component (tried as
+    an exact one-form, Poincare's lemma). Every candidate is kept only after its
+    relative degree has been verified to be n, with L_g L_f^(n-1) T1 nonzero at x0.
+    """
+    n = plant.n
+    candidates: list[sp.Expr] = list(plant.states)
+    if plant.h.shape[0] == 1:
+        candidates.append(plant.h[0])
+    D = sp.Matrix.hstack(*generators[: n - 1]) if n > 1 else sp.zeros(n, 0)
+    unique = list(dict.fromkeys(candidates))
+    found = [c for c in unique if _is_linearizing_output(c, plant, ctx)]
+    if not found and n > 1:
+        for potential in _annihilator_potentials(D, plant, ctx):
+            if _is_linearizing_output(potential, plant, ctx):
+                found.append(potential)
+                break
+    if found:
+        return found[:3], "verified: relative degree n with L_g L_f^(n-1) T1 nonzero at the operating point"
+    return [], ("none found by the search (coordinates, the plant's output, exact annihilators); "
+                "supply a candidate output in the plant file's outputs to have it checked")
+
+
+def _is_linearizing_output(candidate: sp.Expr, plant: Plant, ctx: NumericContext) -> bool:
+    degree, coefficient = relative_degree_of(candidate, plant, ctx)
+    if degree != plant.n:
+        return False
+    value = evaluate(coefficient, ctx, plant.operating_vector())
+    return bool(abs(value[0, 0]) > 1e-9)
+
+
+def _annihilator_potentials(D: sp.Matrix, plant: Plant, ctx: NumericContext):
+    """Yield functions T with dT proportional to the covector annihilating D."""
+    x = plant.states
+    if sum(sp.count_ops(e) for e in D) > 600:
+        return
+    null = D.T.nullspace(simplify=False)
+    if len(null) != 1:
+        return
+    w = [sp.cancel(e) for e in null[0]]
+    for k, wk in enumerate(w):
+        if is_identically_zero(wk, ctx).value:
+            continue
+        omega = [sp.cancel(e / wk) for e in w]
+        if not _is_closed(omega, x, ctx):
+            continue
+        potential = _integrate_exact(omega, x, ctx)
+        if potential is not None:
+            yield potential
+
+
+def _is_closed(omega: list[sp.Expr], x, ctx: NumericContext) -> bool:
+    for i in range(len(x)):
+        for j in range(i + 1, len(x)):
+            curl = sp.diff(omega[i], x[j]) - sp.diff(omega[j], x[i])
+            if not is_identically_zero(curl, ctx).value:
+                return False
+    return True
+
+
+def _integrate_exact(omega: list[sp.Expr], x, ctx: NumericContext) -> sp.Expr | None:
+    """Potential of a closed one-form by successive partial integration."""
+    potential = sp.Integer(0)
+    for i, xi in enumerate(x):
+        residual = sp.cancel(omega[i] - sp.diff(potential, xi))
+        if is_identically_zero(residual, ctx).value:
+            continue
+        term = sp.integrate(residual, xi)
+        if term.has(sp.Integral):
+            return None
+        potential += term
+    for i, xi in enumerate(x):
+        if not is_identically_zero(sp.diff(potential, xi) - omega[i], ctx).value:
+            return None
+    return tidy(potential)

@@ -1,0 +1,161 @@
+"""The analysis report: run every analysis on a plant, then render it as JSON or text."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+from linz_ros.analysis._common import plant_context, show
+from linz_ros.analysis._envelope import EnvelopeResult, sample_envelope
+from linz_ros.analysis._input_output import InputOutputResult, analyse_input_output
+from linz_ros.analysis._input_state import InputStateResult, analyse_input_state, relative_degree_of
+from linz_ros.model import Plant
+
+__all__ = ["Report", "analyse", "render_text"]
+
+
+@dataclass
+class Report:
+    """Everything ``linz check`` finds about a plant."""
+
+    plant: Plant
+    input_state: InputStateResult
+    input_output: InputOutputResult | None
+    envelope: EnvelopeResult | None
+
+    def to_json(self) -> dict[str, Any]:
+        """The contract object of ``linz check --json``."""
+        p = self.plant
+        return {
+            "plant": p.name,
+            "description": p.description,
+            "source": p.source,
+            "sha256": p.sha256,
+            "states": p.state_names,
+            "inputs": p.input_names,
+            "parameters": {s.name: v for s, v in p.parameters.items()},
+            "control_affine": True,
+            "drift": [show(e) for e in p.f],
+            "input_matrix": [[show(p.G[i, j]) for j in range(p.m)] for i in range(p.n)],
+            "operating_point": dict(p.operating_point),
+            "input_state": self.input_state.to_json(),
+            "input_output": None if self.input_output is None else self.input_output.to_json(),
+            "envelope": None if self.envelope is None else self.envelope.to_json(),
+        }
+
+
+def analyse(plant: Plant, samples: int = 1024) -> Report:
+    """Run the linearizability analyses on a plant.
+
+    Parameters
+    ----------
+    plant : Plant
+    samples : int
+        Number of envelope samples for the conditioning sweep.
+
+    Returns
+    -------
+    Report
+
+    Examples
+    --------
+    >>> from linz_ros.model import plant_from_text
+    >>> plant = plant_from_text("plant: p\\nstates: [x1, x2]\\ninputs: [u]\\n"
+    ...                         "dynamics: {x1: sin(x2), x2: -x1**2 + u}")
+    >>> analyse(plant).input_state.linearizable
+    True
+    """
+    ctx = plant_context(plant)
+    input_state = analyse_input_state(plant, ctx)
+    input_output = analyse_input_output(plant, ctx)
+    envelope = None
+    if plant.envelope:
+        subject_matrix, subject = _envelope_subject(plant, input_state, input_output, ctx)
+        if subject_matrix is not None:
+            envelope = sample_envelope(plant, subject_matrix, subject, samples)
+    return Report(plant, input_state, input_output, envelope)
+
+
+def _envelope_subject(plant, input_state, input_output, ctx):
+    if input_output is not None and input_output.decoupling_matrix is not None:
+        return input_output.decoupling_matrix, "decoupling matrix of the outputs"
+    if input_state.linearizing_outputs:
+        T1 = input_state.linearizing_outputs[0]
+        _, coefficient = relative_degree_of(T1, plant, ctx)
+        return coefficient, f"L_g L_f^{plant.n - 1} T1 for T1 = {show(T1)}"
+    return None, ""
+
+
+def _yes_no(value: bool | None) -> str:
+    return {True: "yes", False: "no", None: "could not decide"}[value]
+
+
+def _fmt(value: float | None) -> str:
+    return "n/a" if value is None else f"{value:.4g}"
+
+
+def render_text(report: Report) -> str:
+    """The human-readable report: verdicts first, then the reasons and the details."""
+    p = report.plant
+    iss, io, env = report.input_state, report.input_output, report.envelope
+    at = ", ".join(f"{k}={v:g}" for k, v in p.operating_point.items())
+    lines = [f"plant {p.name}: {p.n} states, {p.m} input(s), "
+             f"{len(p.output_names)} output(s)  [{p.source}]",
+             f"operating point: {at}", "", "VERDICT"]
+    lines.append(f"  input-state linearizable:  {_yes_no(iss.linearizable)}")
+    if io is not None:
+        ok = io.relative_degree is not None
+        degree = io.relative_degree if ok else "not defined here"
+        lines.append(f"  input-output linearizable: {'yes' if ok else 'no'} "
+                     f"(relative degree {degree})")
+    if env is not None and env.min_sigma is not None:
+        lines.append(f"  envelope: min sigma {_fmt(env.min_sigma)}, "
+                     f"max condition {_fmt(env.max_condition)}")
+    lines += ["", "INPUT-STATE", f"  {iss.reason}"]
+    for d in iss.distributions:
+        inv = {True: "involutive", False: "NOT involutive", None: "-"}[d.involutive]
+        witness = f" ({d.witness} leaves it)" if d.witness else ""
+        lines.append(f"  D_{d.order}: rank {d.rank} here, {d.rank_generic} generic, {inv}{witness}")
+    if iss.controllability_indices:
+        lines.append(f"  controllability indices: {iss.controllability_indices}")
+    if iss.singular_set is not None:
+        where = "nowhere" if iss.singular_set == 1 else f"where {show(iss.singular_set)} = 0"
+        lines.append(f"  [g, ..., ad_f^{p.n - 1} g] loses rank {where}")
+    for T1 in iss.linearizing_outputs:
+        lines.append(f"  linearizing output T1 = {show(T1)}")
+    if iss.linearizing_output_note:
+        lines.append(f"  ({iss.linearizing_output_note})")
+    if io is not None:
+        lines += ["", "INPUT-OUTPUT", f"  {io.reason}",
+                  f"  generic relative degree: {io.relative_degree_generic}"]
+        if io.decoupling_matrix is not None:
+            lines.append("  decoupling matrix A(x):")
+            for i in range(io.decoupling_matrix.shape[0]):
+                row = ", ".join(show(e) for e in io.decoupling_matrix.row(i))
+                lines.append(f"    [{row}]")
+        if io.singular_set is not None:
+            where = "nowhere" if io.singular_set == 1 else f"{show(io.singular_set)} = 0"
+            lines.append(f"  singular set: {where}  ({io.singular_set_note})")
+        elif io.singular_set_note:
+            lines.append(f"  singular set: {io.singular_set_note}")
+        if io.zero_dynamics_order is not None:
+            lines.append(f"  zero dynamics order: {io.zero_dynamics_order}")
+        zd = io.zero_dynamics
+        if zd is not None and zd.eigenvalues:
+            eig = ", ".join(f"{z.real:.4g}{z.imag:+.4g}j" for z in zd.eigenvalues)
+            lines.append(f"  zero dynamics at the equilibrium: {zd.stability}; eigenvalues {eig}")
+        if zd is not None and zd.reason and not zd.eigenvalues:
+            lines.append(f"  zero dynamics: {zd.reason}")
+    if env is not None:
+        lines += ["", "ENVELOPE", f"  {env.subject}; {env.method}"]
+        if env.min_sigma is None:
+            lines.append("  not finite at any sample")
+        else:
+            worst = ", ".join(f"{k}={v:.4g}" for k, v in (env.worst_state or {}).items())
+            lines.append(f"  smallest singular value {_fmt(env.min_sigma)} at {worst}")
+            lines.append(f"  largest condition number {_fmt(env.max_condition)}"
+                         f"{' (singular sample)' if env.max_condition is None else ''}")
+            lines.append(f"  median smallest singular value {_fmt(env.median_sigma)}")
+        if env.skipped:
+            lines.append(f"  {env.skipped} sample(s) where the matrix is not finite were skipped")
+    return "\n".join(lines)

@@ -1,0 +1,59 @@
+"""The exceptions of linz_ros: every user mistake is one of these, with a one-line message.
+
+Each subclasses :class:`ValueError` so callers may catch either; the command line turns
+any :class:`LinzError` into a single line on stderr and exit code 2.
+"""
+
+from __future__ import annotations
+
+__all__ = ["LinzError", "ExpressionSyntaxError", "PlantFileError", "AnalysisError"]
+
+
+class LinzError(ValueError):
+    """Base class of all errors caused by user input (files, parameters, options)."""
+
+
+class ExpressionSyntaxError(LinzError):
+    """An expression that the whitelisted arithmetic grammar does not accept.
+
+    Parameters
+    ----------
+    text : str
+        The expression as written.
+    column : int
+        1-based column of the offending character (0 when not about one place).
+    problem : str
+        What is wrong, in a few words.
+    """
+
+    def __init__(self, text: str, column: int, problem: str) -> None:
+        self.text = text
+        self.column = column
+        self.problem = problem
+        where = f" at column {column}" if column else ""
+        super().__init__(f"cannot read {text!r}: {problem}{where}")
+
+
+class PlantFileError(LinzError):
+    """A plant file that cannot be loaded; names the file, the field and the problem.
+
+    Parameters
+    ----------
+    source : str
+        The file name (or ``<string>`` for text given directly).
+    field : str
+        Dotted path of the offending field, e.g. ``dynamics.x2``; empty for the file.
+    problem : str
+        What is wrong, in one line.
+    """
+
+    def __init__(self, source: str, field: str, problem: str) -> None:
+        self.source = source
+        self.field = field
+        self.problem = problem
+        parts = [source] + ([field] if field else []) + [problem]
+        super().__init__(": ".join(parts))
+
+
+class AnalysisError(LinzError):
+    """A request to the analysis that does not make sense for the plant (e.g. a bad point)."""

@@ -1,0 +1,431 @@
+"""Differential geometry of control-affine systems: Lie derivatives, brackets, distributions.
+
+Vector fields are sympy column matrices, covector fields are row matrices, and ``x`` is
+the ordered tuple of coordinates. Decisions that need "is this expression zero?" or
+"what is the rank?" go through a :class:`NumericContext`, which holds the parameter
+values and the random sample points used when simplification alone cannot decide.
+
+Conventions (Isidori, Nonlinear Control Systems, 3rd ed., sec. 1.2):
+``L_f h = dh . f``, ``[f, g] = (dg/dx) f - (df/dx) g``, ``ad_f^0 g = g``,
+``ad_f^k g = [f, ad_f^(k-1) g]``.
+
+Public names
+------------
+lie_derivative, lie_derivative_covector, lie_bracket, ad, distribution
+NumericContext, Decision, is_identically_zero, evaluate, rank_at, generic_rank,
+Involutivity, involutivity
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+from dataclasses import dataclass, field
+from typing import Sequence
+
+import numpy as np
+import sympy as sp
+
+__all__ = [
+    "lie_derivative", "lie_derivative_covector", "lie_bracket", "ad", "distribution",
+    "NumericContext", "Decision", "is_identically_zero", "evaluate", "rank_at",
+    "generic_rank", "Involutivity", "involutivity",
+]
+
+#: Relative tolerance on singular values for ranks at a point: sigma_i > RANK_RTOL * sigma_1.
+RANK_RTOL = 1e-9
+#: Absolute floor below which a matrix counts as zero.
+RANK_ATOL = 1e-12
+#: Digits used when deciding "identically zero" by evaluation at random points.
+ZERO_DIGITS = 30
+#: |value| below this at every sample point, evaluated with ZERO_DIGITS digits, is zero.
+ZERO_ATOL = 1e-15
+#: Matrices whose entries together exceed this many operations get a numeric generic rank.
+SYMBOLIC_RANK_BUDGET = 400
+
+
+# -- Lie algebra ---------------------------------------------------------------------
+def lie_derivative(h: sp.Expr, f: sp.Matrix, x: Sequence[sp.Symbol]) -> sp.Expr:
+    """Lie derivative of a function along a vector field, ``L_f h = (dh/dx) f``.
+
+    Parameters
+    ----------
+    h : sympy.Expr
+        Scalar function of ``x``.
+    f : sympy.Matrix
+        Vector field, n x 1.
+    x : sequence of sympy.Symbol
+        Coordinates, length n.
+
+    Returns
+    -------
+    sympy.Expr
+
+    Examples
+    --------
+    >>> x1, x2 = sp.symbols("x1 x2")
+    >>> lie_derivative(x1**2, sp.Matrix([x2, 0]), (x1, x2))
+    2*x1*x2
+    """
+    return sp.Add(*[sp.diff(h, xi) * fi for xi, fi in zip(x, f)])
+
+
+def lie_derivative_covector(w: sp.Matrix, f: sp.Matrix, x: Sequence[sp.Symbol]) -> sp.Matrix:
+    """Lie derivative of a covector field, ``L_f w = f^T (dw^T/dx)^T + w (df/dx)``.
+
+    Parameters
+    ----------
+    w : sympy.Matrix
+        Covector field, 1 x n.
+    f : sympy.Matrix
+        Vector field, n x 1.
+    x : sequence of sympy.Symbol
+
+    Returns
+    -------
+    sympy.Matrix
+        1 x n. For an exact covector ``w = dh`` this equals ``d(L_f h)``.
+
+    Examples
+    --------
+    >>> x1, x2 = sp.symbols("x1 x2")
+    >>> lie_derivative_covector(sp.Matrix([[x2, 0]]), sp.Matrix([0, x1]), (x1, x2))
+    Matrix([[x1, 0]])
+    """
+    X = sp.Matrix(x)
+    return (w.T.jacobian(X) * f).T + w * f.jacobian(X)
+
+
+def lie_bracket(f: sp.Matrix, g: sp.Matrix, x: Sequence[sp.Symbol]) -> sp.Matrix:
+    """Lie bracket of two vector fields, ``[f, g] = (dg/dx) f - (df/dx) g``.
+
+    Parameters
+    ----------
+    f, g : sympy.Matrix
+        Vector fields, n x 1.
+    x : sequence of sympy.Symbol
+
+    Returns
+    -------
+    sympy.Matrix
+        n x 1.
+
+    Examples
+    --------
+    >>> x1, x2 = sp.symbols("x1 x2")
+    >>> lie_bracket(sp.Matrix([x2, 0]), sp.Matrix([0, 1]), (x1, x2)).T
+    Matrix([[-1, 0]])
+    """
+    X = sp.Matrix(x)
+    return g.jacobian(X) * f - f.jacobian(X) * g
+
+
+def ad(f: sp.Matrix, g: sp.Matrix, x: Sequence[sp.Symbol], k: int) -> sp.Matrix:
+    """Iterated bracket ``ad_f^k g`` (``ad_f^0 g = g``).
+
+    Parameters
+    ----------
+    f, g : sympy.Matrix
+    x : sequence of sympy.Symbol
+    k : int
+        Order, k >= 0.
+
+    Returns
+    -------
+    sympy.Matrix
+    """
+    if k < 0:
+        raise ValueError(f"k must be >= 0, got {k}")
+    result = g
+    for _ in range(k):
+        result = lie_bracket(f, result, x)
+    return result
+
+
+def distribution(f: sp.Matrix, G: sp.Matrix, x: Sequence[sp.Symbol], k: int) -> list[sp.Matrix]:
+    """Generators of ``D_k = span{ad_f^j g_i : 0 <= j <= k, all inputs i}``.
+
+    Parameters
+    ----------
+    f : sympy.Matrix
+        Drift, n x 1.
+    G : sympy.Matrix
+        Input matrix, n x m.
+    x : sequence of sympy.Symbol
+    k : int
+
+    Returns
+    -------
+    list of sympy.Matrix
+        Ordered by j, then by input: g_1, ..., g_m, ad_f g_1, ..., ad_f^k g_m.
+    """
+    columns = []
+    current = [G[:, i] for i in range(G.shape[1])]
+    for j in range(k + 1):
+        if j:
+            current = [lie_bracket(f, c, x) for c in current]
+        columns.extend(current)
+    return columns
+
+
+# -- numeric decisions ---------------------------------------------------------------
+@dataclass(frozen=True)
+class NumericContext:
+    """Parameter values and sample points for the numeric side of symbolic decisions.
+
+    Attributes
+    ----------
+    coordinates : tuple of sympy.Symbol
+        The state coordinates, in order.
+    constants : dict
+        Symbol -> value for every other symbol (the plant's parameters).
+    samples : numpy.ndarray
+        K x n random points (in the operating envelope) where "identically zero" and
+        "generic rank" are checked numerically.
+    """
+
+    coordinates: tuple[sp.Symbol, ...]
+    constants: dict[sp.Symbol, sp.Expr] = field(default_factory=dict)
+    samples: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+
+    @property
+    def constant_symbols(self) -> tuple[sp.Symbol, ...]:
+        """The constants' symbols, in a fixed order."""
+        return tuple(self.constants)
+
+    @property
+    def constant_values(self) -> np.ndarray:
+        """The constants' values as floats, in the order of :attr:`constant_symbols`."""
+        return np.array([float(v) for v in self.constants.values()], dtype=float)
+
+    @classmethod
+    def around(cls, coordinates: Sequence[sp.Symbol], constants: dict, center: Sequence[float],
+               bounds: dict[int, tuple[float, float]] | None = None, count: int = 5,
+               seed: int = 20261202) -> "NumericContext":
+        """Context with ``count`` random samples in ``bounds`` (index -> interval),
+        or within +-1 of ``center`` for coordinates without bounds."""
+        rng = np.random.default_rng(seed)
+        n = len(coordinates)
+        samples = np.empty((count, n))
+        for i in range(n):
+            lo, hi = (bounds or {}).get(i, (center[i] - 1.0, center[i] + 1.0))
+            samples[:, i] = rng.uniform(lo, hi, size=count)
+        return cls(tuple(coordinates), dict(constants), samples)
+
+    def point(self, values: Sequence[float]) -> dict[sp.Symbol, sp.Expr]:
+        """Substitution dict for one point, constants included."""
+        subs: dict[sp.Symbol, sp.Expr] = dict(self.constants)
+        subs.update(zip(self.coordinates, (sp.Float(float(v), ZERO_DIGITS) for v in values)))
+        return subs
+
+
+@dataclass(frozen=True)
+class Decision:
+    """A yes/no answer with how it was reached; ``value`` is None when undecided."""
+
+    value: bool | None
+    method: str
+
+
+def is_identically_zero(expr: sp.Expr, ctx: NumericContext) -> Decision:
+    """Decide whether ``expr`` vanishes for all coordinates (at the nominal parameters).
+
+    First exactly (sympy's structural and assumption-based checks); otherwise by
+    evaluation with
+    :data:`ZERO_DIGITS` digits at the context's random sample points, where an analytic
+    function that vanishes at every random point is zero with probability one.
+
+    Parameters
+    ----------
+    expr : sympy.Expr
+    ctx : NumericContext
+
+    Returns
+    -------
+    Decision
+        ``value`` is None when no sample point gave a finite value.
+    """
+    expr = sp.sympify(expr)
+    if not expr.free_symbols & set(ctx.coordinates):
+        expr = expr.subs(ctx.constants)
+    if expr == 0 or expr.is_zero is True:
+        return Decision(True, "symbolic")
+    if expr.is_zero is False:
+        return Decision(False, "symbolic")
+    if not expr.free_symbols:
+        value = complex(expr.evalf(ZERO_DIGITS))
+        return Decision(abs(value) <= ZERO_ATOL, "exact evaluation")
+    finite = 0
+    for row in ctx.samples:
+        try:
+            value = complex(expr.evalf(ZERO_DIGITS, subs=ctx.point(row)))
+        except (TypeError, ValueError):
+            continue
+        if not (math.isfinite(value.real) and math.isfinite(value.imag)):
+            continue
+        finite += 1
+        if abs(value) > ZERO_ATOL:
+            return Decision(False, "numeric")
+    if finite == 0:
+        return Decision(None, "not finite at any sample point")
+    return Decision(True, f"numeric ({finite} random points, {ZERO_DIGITS} digits)")
+
+
+@functools.lru_cache(maxsize=512)
+def _compiled(matrix: sp.ImmutableMatrix, coordinates: tuple[sp.Symbol, ...],
+              constants: tuple[sp.Symbol, ...]):
+    return sp.lambdify([coordinates, constants], matrix, modules="numpy", dummify=True, cse=True)
+
+
+def evaluate(matrix: sp.Matrix, ctx: NumericContext, point: Sequence[float]) -> np.ndarray:
+    """Evaluate a symbolic matrix at one point, in float64.
+
+    Parameters
+    ----------
+    matrix : sympy.Matrix
+    ctx : NumericContext
+    point : sequence of float
+        Coordinates, in the order of ``ctx.coordinates``.
+
+    Returns
+    -------
+    numpy.ndarray
+        Same shape as ``matrix``; entries are nan where undefined.
+    """
+    compiled = _compiled(sp.ImmutableMatrix(matrix), ctx.coordinates, ctx.constant_symbols)
+    with np.errstate(all="ignore"):
+        value = np.asarray(compiled(np.asarray(point, float), ctx.constant_values), dtype=complex)
+    if np.any(np.abs(value.imag) > 1e-12 * (1 + np.abs(value.real))):
+        value = np.full(value.shape, np.nan, dtype=complex)
+    return np.real(value).astype(float).reshape(matrix.shape)
+
+
+def rank_at(matrix: sp.Matrix, ctx: NumericContext, point: Sequence[float],
+            rtol: float = RANK_RTOL, atol: float = RANK_ATOL) -> int | None:
+    """Numeric rank at a point: singular values above ``max(rtol * sigma_1, atol)``.
+
+    Parameters
+    ----------
+    matrix : sympy.Matrix
+    ctx : NumericContext
+    point : sequence of float
+    rtol, atol : float
+        Relative and absolute tolerances on the singular values.
+
+    Returns
+    -------
+    int or None
+        None when the matrix is not finite at the point.
+    """
+    return _numeric_rank(evaluate(matrix, ctx, point), rtol, atol)
+
+
+def _numeric_rank(values: np.ndarray, rtol: float = RANK_RTOL, atol: float = RANK_ATOL) -> int | None:
+    if values.size == 0:
+        return 0
+    if not np.all(np.isfinite(values)):
+        return None
+    sigma = np.linalg.svd(values, compute_uv=False)
+    return int(np.sum(sigma > max(rtol * sigma[0], atol)))
+
+
+@dataclass(frozen=True)
+class RankResult:
+    """A generic rank with how it was found."""
+
+    rank: int | None
+    method: str
+
+
+def generic_rank(matrix: sp.Matrix, ctx: NumericContext) -> RankResult:
+    """Rank of a matrix of functions at a generic point.
+
+    Small matrices are row-reduced symbolically, with :func:`is_identically_zero` as
+    the pivot test; larger ones are ranked numerically at the context's random points
+    (the largest rank seen, which is the generic rank with probability one).
+
+    Parameters
+    ----------
+    matrix : sympy.Matrix
+    ctx : NumericContext
+
+    Returns
+    -------
+    RankResult
+    """
+    matrix = sp.Matrix(matrix)
+    if matrix.is_zero_matrix:
+        return RankResult(0, "symbolic")
+    if sum(sp.count_ops(e) for e in matrix) <= SYMBOLIC_RANK_BUDGET:
+        methods: set[str] = set()
+        undecided = False
+
+        def zero_test(e: sp.Expr) -> bool | None:
+            nonlocal undecided
+            decision = is_identically_zero(e, ctx)
+            methods.add(decision.method.split(" (")[0])
+            undecided |= decision.value is None
+            return decision.value
+
+        rank = matrix.rank(iszerofunc=zero_test, simplify=False)
+        if not undecided:
+            method = "symbolic" if methods <= {"symbolic", "exact evaluation"} else \
+                "symbolic elimination, numeric zero tests"
+            return RankResult(rank, method)
+    ranks = [r for r in (rank_at(matrix, ctx, row) for row in ctx.samples) if r is not None]
+    if not ranks:
+        return RankResult(None, "not finite at any sample point")
+    return RankResult(max(ranks), f"numeric, largest rank at {len(ranks)} random points")
+
+
+@dataclass(frozen=True)
+class Involutivity:
+    """Whether a distribution is involutive, how it was decided, and a witness pair.
+
+    ``witness`` is ``(i, j)`` such that ``[X_i, X_j]`` is not in the distribution.
+    """
+
+    involutive: bool | None
+    method: str
+    witness: tuple[int, int] | None = None
+
+
+def involutivity(columns: Sequence[sp.Matrix], x: Sequence[sp.Symbol], ctx: NumericContext) -> Involutivity:
+    """Decide whether ``span(columns)`` is involutive (closed under Lie brackets).
+
+    A distribution of generic rank r is involutive when, for every pair of generators,
+    ``rank [X_1 ... X_k  [X_i, X_j]] = r`` generically (Frobenius; Isidori, Thm. 1.4.1).
+
+    Parameters
+    ----------
+    columns : sequence of sympy.Matrix
+        Generators, each n x 1.
+    x : sequence of sympy.Symbol
+    ctx : NumericContext
+
+    Returns
+    -------
+    Involutivity
+    """
+    columns = list(columns)
+    if not columns:
+        return Involutivity(True, "empty distribution")
+    D = sp.Matrix.hstack(*columns)
+    base = generic_rank(D, ctx)
+    if base.rank is None:
+        return Involutivity(None, base.method)
+    if base.rank == len(x):
+        return Involutivity(True, "full rank")
+    methods = {base.method}
+    for i in range(len(columns)):
+        for j in range(i + 1, len(columns)):
+            bracket = lie_bracket(columns[i], columns[j], x)
+            if all(is_identically_zero(e, ctx).value for e in bracket):
+                continue
+            augmented = generic_rank(sp.Matrix.hstack(D, bracket), ctx)
+            methods.add(augmented.method)
+            if augmented.rank is None:
+                return Involutivity(None, augmented.method)
+            if augmented.rank > base.rank:
+                return Involutivity(False, "; ".join(sorted(methods)), (i, j))
+    return Involutivity(True, "; ".join(sorted(methods)))

@@ -1,0 +1,427 @@
+"""Read and validate plant files; every mistake becomes a one-line PlantFileError."""
+
+from __future__ import annotations
+
+import hashlib
+import math
+import re
+from pathlib import Path
+from typing import Any, Mapping
+
+import sympy as sp
+import yaml
+
+from linz_ros.artifact.grammar import RESERVED_NAMES, FUNCTIONS, names_in, parse_expression
+from linz_ros.errors import ExpressionSyntaxError, PlantFileError
+from linz_ros.model._plant import Plant
+from linz_ros.model._symbolic import UnknownName, tree_to_sympy
+
+__all__ = ["load_plant", "plant_from_text"]
+
+_IDENTIFIER = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+_TOP_LEVEL = ("plant", "description", "states", "inputs", "parameters", "definitions",
+              "dynamics", "outputs", "input_limits", "envelope", "operating_point", "design")
+_REQUIRED = ("plant", "states", "inputs", "dynamics")
+_DESIGN_KEYS = ("rate", "poles", "lqr", "integral")
+_MAX_FILE_BYTES = 5_000_000
+
+
+class _StrictLoader(yaml.SafeLoader):
+    """A safe YAML loader that refuses duplicate keys instead of keeping the last one."""
+
+
+def _construct_unique_mapping(loader: _StrictLoader, node: yaml.MappingNode, deep: bool = False):
+    seen: dict[Any, int] = {}
+    for key_node, _ in node.value:
+        key = loader.construct_object(key_node, deep=deep)
+        if key in seen:
+            raise yaml.constructor.ConstructorError(
+                None, None, f"duplicate key {key!r} (first at line {seen[key]})", key_node.start_mark)
+        seen[key] = key_node.start_mark.line + 1
+    return yaml.SafeLoader.construct_mapping(loader, node, deep)
+
+
+_StrictLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _construct_unique_mapping)
+
+
+class _Reader:
+    """Validates one plant document; ``fail`` raises with the file name attached."""
+
+    def __init__(self, source: str) -> None:
+        self.source = source
+        self.names: dict[str, str] = {}  # name -> what it is (state, input, ...)
+        self.table: dict[str, sp.Expr] = {}
+
+    def fail(self, field: str, problem: str) -> PlantFileError:
+        return PlantFileError(self.source, field, problem)
+
+    # -- small typed readers -------------------------------------------------------
+    def mapping(self, doc: Mapping, key: str, required: bool = False) -> dict:
+        value = doc.get(key)
+        if value is None:
+            if required:
+                raise self.fail(key, "missing (required)")
+            return {}
+        if not isinstance(value, dict):
+            raise self.fail(key, f"expected a mapping of name: value, got {_kind(value)}")
+        return value
+
+    def number(self, field: str, value: Any) -> float:
+        if isinstance(value, bool) or value is None:
+            raise self.fail(field, f"expected a number, got {_describe(value)}")
+        if isinstance(value, (int, float)):
+            number = float(value)
+        elif isinstance(value, str):
+            try:
+                number = float(value)  # YAML 1.1 reads 1e3 as text
+            except ValueError:
+                raise self.fail(field, f"expected a number, got {value!r}") from None
+        else:
+            raise self.fail(field, f"expected a number, got {_kind(value)}")
+        if not math.isfinite(number):
+            raise self.fail(field, f"expected a finite number, got {value!r}")
+        return number
+
+    def interval(self, field: str, value: Any) -> tuple[float, float]:
+        if not isinstance(value, (list, tuple)) or len(value) != 2:
+            raise self.fail(field, f"expected [lower, upper], got {_describe(value)}")
+        lower = self.number(f"{field}[0]", value[0])
+        upper = self.number(f"{field}[1]", value[1])
+        if lower >= upper:
+            raise self.fail(field, f"lower bound {lower:g} is not below upper bound {upper:g}")
+        return lower, upper
+
+    def declare(self, field: str, name: Any, kind: str) -> str:
+        if not isinstance(name, str) or not _IDENTIFIER.match(name):
+            raise self.fail(field, f"{_describe(name)} is not a valid name "
+                                   "(letters, digits and _; starting with a letter)")
+        if name in FUNCTIONS:
+            raise self.fail(field, f"{name!r} is the name of a function; choose another name")
+        if name in RESERVED_NAMES:
+            raise self.fail(field, f"{name!r} is a reserved constant; choose another name")
+        if name in self.names:
+            raise self.fail(field, f"duplicate name {name!r} (already a {self.names[name]})")
+        self.names[name] = kind
+        return name
+
+    def name_list(self, doc: Mapping, key: str, kind: str) -> list[str]:
+        value = doc.get(key)
+        if not isinstance(value, list) or not value:
+            raise self.fail(key, f"expected a non-empty list of names, got {_describe(value)}")
+        return [self.declare(f"{key}[{i}]", name, kind) for i, name in enumerate(value)]
+
+    def expression(self, field: str, text: Any, allowed: set[str]) -> sp.Expr:
+        try:
+            tree = parse_expression(text)
+        except ExpressionSyntaxError as err:
+            raise self.fail(field, str(err)) from None
+        for name in sorted(names_in(tree)):
+            if name not in allowed and name not in RESERVED_NAMES:
+                if name in self.names:
+                    raise self.fail(field, f"{self.names[name]} {name!r} may not appear here")
+                raise self.fail(field, f"unknown symbol {name!r} (not a declared "
+                                       "state, input, parameter or definition)")
+        try:
+            expr = tree_to_sympy(tree, self.table)
+        except UnknownName as err:  # pragma: no cover - names were checked above
+            raise self.fail(field, f"unknown symbol {err.args[0]!r}") from None
+        except (ZeroDivisionError, ValueError, TypeError) as err:
+            raise self.fail(field, f"cannot evaluate {text!r}: {err}") from None
+        if expr.has(sp.zoo, sp.oo, -sp.oo, sp.nan):
+            raise self.fail(field, f"{text!r} is infinite or undefined (division by zero?)")
+        return expr
+
+
+def _kind(value: Any) -> str:
+    return {dict: "a mapping", list: "a list", str: "text", bool: "true/false",
+            type(None): "nothing"}.get(type(value), type(value).__name__)
+
+
+def _describe(value: Any) -> str:
+    if isinstance(value, (str, int, float)) and not isinstance(value, bool):
+        return repr(value)
+    return _kind(value)
+
+
+def _split_affine(reader: _Reader, state: str, rhs: sp.Expr, inputs: list[sp.Symbol]
+                  ) -> tuple[sp.Expr, list[sp.Expr]]:
+    """Split one right-hand side into f_i + sum_j G_ij u_j, or name the non-affine term."""
+    input_set = set(inputs)
+    columns = []
+    for u in inputs:
+        coefficient = sp.diff(rhs, u)
+        if coefficient.free_symbols & input_set:
+            raise reader.fail(f"dynamics.{state}", _non_affine_problem(rhs, inputs))
+        columns.append(coefficient)
+    drift = rhs.subs({u: 0 for u in inputs})
+    if drift.free_symbols & input_set or drift.has(sp.nan, sp.zoo):
+        raise reader.fail(f"dynamics.{state}", _non_affine_problem(rhs, inputs))
+    return drift, columns
+
+
+def _non_affine_problem(rhs: sp.Expr, inputs: list[sp.Symbol]) -> str:
+    input_set = set(inputs)
+    for term in sp.Add.make_args(rhs):
+        used = sorted((term.free_symbols & input_set), key=str)
+        if any(sp.diff(term, u).free_symbols & input_set for u in used):
+            names = ", ".join(u.name for u in used)
+            return f"not affine in the inputs: term '{term}' is nonlinear in {names}"
+    return f"not affine in the inputs: '{rhs}'"
+
+
+def _read_parameters(reader: _Reader, doc: Mapping) -> tuple[dict[sp.Symbol, float], dict[str, str]]:
+    values: dict[sp.Symbol, float] = {}
+    units: dict[str, str] = {}
+    for name, spec in reader.mapping(doc, "parameters").items():
+        field = f"parameters.{name}"
+        reader.declare(field, name, "parameter")
+        if isinstance(spec, dict):
+            extra = set(spec) - {"value", "unit"}
+            if extra or "value" not in spec:
+                raise reader.fail(field, "expected a number or {value: number, unit: text}")
+            if "unit" in spec:
+                units[name] = str(spec["unit"])
+            spec = spec["value"]
+        symbol = sp.Symbol(name, real=True)
+        values[symbol] = reader.number(field, spec)
+        reader.table[name] = symbol
+    return values, units
+
+
+def _read_definitions(reader: _Reader, doc: Mapping) -> None:
+    """Named sub-expressions, each usable by the later ones and by dynamics and outputs."""
+    for name, text in reader.mapping(doc, "definitions").items():
+        field = f"definitions.{name}"
+        reader.declare(field, name, "definition")
+        allowed = {k for k, kind in reader.names.items() if k != name}
+        reader.table[name] = reader.expression(field, text, allowed)
+
+
+def _read_dynamics(reader: _Reader, doc: Mapping, states: list[str], inputs: list[sp.Symbol]
+                   ) -> tuple[sp.Matrix, sp.Matrix]:
+    dynamics = reader.mapping(doc, "dynamics", required=True)
+    missing = [s for s in states if s not in dynamics]
+    if missing:
+        raise reader.fail("dynamics", "missing an entry for state(s) " + ", ".join(missing))
+    extra = [str(k) for k in dynamics if k not in states]
+    if extra:
+        raise reader.fail("dynamics", "entries for names that are not states: " + ", ".join(extra))
+    allowed = set(reader.names)
+    drift, columns = [], []
+    for state in states:
+        rhs = reader.expression(f"dynamics.{state}", dynamics[state], allowed)
+        f_i, g_i = _split_affine(reader, state, rhs, inputs)
+        drift.append(f_i)
+        columns.append(g_i)
+    return sp.Matrix(drift), sp.Matrix(columns)
+
+
+def _read_outputs(reader: _Reader, doc: Mapping) -> tuple[tuple[str, ...], sp.Matrix]:
+    outputs = reader.mapping(doc, "outputs")
+    allowed = set(reader.names)  # inputs are refused below, with the reason
+    names, exprs = [], []
+    for name, text in outputs.items():
+        field = f"outputs.{name}"
+        reader.declare(field, name, "output")
+        expr = reader.expression(field, text, allowed)
+        uses_input = [k for k in sorted(map(str, expr.free_symbols)) if reader.names.get(k) == "input"]
+        if uses_input:
+            raise reader.fail(field, f"depends on input {uses_input[0]!r}; "
+                                     "outputs with direct feedthrough are not supported")
+        names.append(name)
+        exprs.append(expr)
+    return tuple(names), sp.Matrix(exprs) if exprs else sp.zeros(0, 1)
+
+
+def _read_bounds(reader: _Reader, doc: Mapping, key: str, allowed: list[str], what: str
+                 ) -> dict[str, tuple[float, float]]:
+    bounds = {}
+    for name, value in reader.mapping(doc, key).items():
+        if name not in allowed:
+            raise reader.fail(f"{key}.{name}", f"{name!r} is not {what}")
+        bounds[name] = reader.interval(f"{key}.{name}", value)
+    return bounds
+
+
+def _read_operating_point(reader: _Reader, doc: Mapping, states: list[str],
+                          envelope: dict[str, tuple[float, float]]) -> dict[str, float]:
+    point = {s: 0.0 for s in states}
+    for name, value in reader.mapping(doc, "operating_point").items():
+        field = f"operating_point.{name}"
+        if name not in states:
+            raise reader.fail(field, f"{name!r} is not a state")
+        point[name] = reader.number(field, value)
+        if name in envelope and not envelope[name][0] <= point[name] <= envelope[name][1]:
+            lo, hi = envelope[name]
+            raise reader.fail(field, f"{point[name]:g} lies outside the envelope [{lo:g}, {hi:g}]")
+    return point
+
+
+def _read_design(reader: _Reader, doc: Mapping, outputs: tuple[str, ...], states: list[str],
+                 inputs: list[str]) -> dict[str, Any]:
+    design = reader.mapping(doc, "design")
+    unknown = [str(k) for k in design if k not in _DESIGN_KEYS]
+    if unknown:
+        raise reader.fail(f"design.{unknown[0]}", "unknown key; expected one of " + ", ".join(_DESIGN_KEYS))
+    result: dict[str, Any] = {}
+    if "rate" in design:
+        rate = reader.number("design.rate", design["rate"])
+        if rate <= 0:
+            raise reader.fail("design.rate", f"control rate must be positive, got {rate:g}")
+        result["rate"] = rate
+    if "poles" in design and "lqr" in design:
+        raise reader.fail("design", "give either poles or lqr, not both")
+    if "poles" in design:
+        poles = design["poles"]
+        if not isinstance(poles, dict):
+            raise reader.fail("design.poles", "expected a mapping of output: [poles]")
+        result["poles"] = {}
+        for name, values in poles.items():
+            field = f"design.poles.{name}"
+            if name not in outputs:
+                raise reader.fail(field, f"{name!r} is not an output")
+            if not isinstance(values, list) or not values:
+                raise reader.fail(field, "expected a non-empty list of poles")
+            result["poles"][name] = [_read_pole(reader, f"{field}[{i}]", v) for i, v in enumerate(values)]
+    if "lqr" in design:
+        lqr = design["lqr"]
+        if not isinstance(lqr, dict) or set(lqr) - {"q", "r"}:
+            raise reader.fail("design.lqr", "expected {q: [weights], r: [weights]}")
+        result["lqr"] = {}
+        for key in ("q", "r"):
+            weights = lqr.get(key)
+            if weights is None:
+                continue
+            if not isinstance(weights, list) or not weights:
+                raise reader.fail(f"design.lqr.{key}", "expected a non-empty list of weights")
+            values = [reader.number(f"design.lqr.{key}[{i}]", w) for i, w in enumerate(weights)]
+            if any(w < 0 for w in values) or (key == "r" and any(w == 0 for w in values)):
+                raise reader.fail(f"design.lqr.{key}", "weights must be positive" + ("" if key == "r" else " or zero"))
+            result["lqr"][key] = values
+    if "integral" in design:
+        if not isinstance(design["integral"], bool):
+            raise reader.fail("design.integral", "expected true or false")
+        result["integral"] = design["integral"]
+    return result
+
+
+def _read_pole(reader: _Reader, field: str, value: Any) -> complex:
+    if isinstance(value, str):
+        try:
+            pole = complex(value.replace(" ", "").replace("i", "j"))
+        except ValueError:
+            raise reader.fail(field, f"expected a number, got {value!r}") from None
+    else:
+        pole = complex(reader.number(field, value))
+    if pole.real >= 0:
+        raise reader.fail(field, f"pole {value} is not in the open left half-plane")
+    return pole
+
+
+def _read_document(doc: Any, source: str, digest: str) -> Plant:
+    reader = _Reader(source)
+    if not isinstance(doc, dict):
+        raise reader.fail("", f"expected a mapping at the top level, got {_kind(doc)}")
+    unknown = [str(k) for k in doc if k not in _TOP_LEVEL]
+    if unknown:
+        raise reader.fail(unknown[0], "unknown field; expected one of " + ", ".join(_TOP_LEVEL))
+    for key in _REQUIRED:
+        if doc.get(key) is None:
+            raise reader.fail(key, "missing (required)")
+    name = doc["plant"]
+    if not isinstance(name, str) or not _IDENTIFIER.match(name):
+        raise reader.fail("plant", f"{_describe(name)} is not a valid identifier")
+    description = doc.get("description") or ""
+    states = reader.name_list(doc, "states", "state")
+    inputs = reader.name_list(doc, "inputs", "input")
+    state_symbols = [sp.Symbol(s, real=True) for s in states]
+    input_symbols = [sp.Symbol(u, real=True) for u in inputs]
+    reader.table.update({s.name: s for s in state_symbols + input_symbols})
+    parameters, units = _read_parameters(reader, doc)
+    _read_definitions(reader, doc)
+    f, G = _read_dynamics(reader, doc, states, input_symbols)
+    output_names, h = _read_outputs(reader, doc)
+    input_limits = _read_bounds(reader, doc, "input_limits", inputs, "an input")
+    envelope = _read_bounds(reader, doc, "envelope", states, "a state")
+    operating_point = _read_operating_point(reader, doc, states, envelope)
+    design = _read_design(reader, doc, output_names, states, inputs)
+    return Plant(
+        name=name, description=str(description), states=tuple(state_symbols),
+        inputs=tuple(input_symbols), parameters=parameters, units=units, f=f, G=G,
+        output_names=output_names, h=h, input_limits=input_limits, envelope=envelope,
+        operating_point=operating_point, design=design, source=source, sha256=digest)
+
+
+def plant_from_text(text: str, source: str = "<string>") -> Plant:
+    """Load a plant from the text of a plant file.
+
+    Parameters
+    ----------
+    text : str
+        YAML text in the plant-file format.
+    source : str
+        Name used in error messages.
+
+    Returns
+    -------
+    Plant
+
+    Raises
+    ------
+    PlantFileError
+        One line naming the source, the field and the problem.
+
+    Examples
+    --------
+    >>> p = plant_from_text("plant: p\\nstates: [x]\\ninputs: [u]\\ndynamics: {x: -x + u}")
+    >>> p.f, p.G
+    (Matrix([[-x]]), Matrix([[1]]))
+    """
+    digest = hashlib.sha256(text.encode("utf-8")).hexdigest()
+    try:
+        doc = yaml.load(text, Loader=_StrictLoader)  # noqa: S506 - a SafeLoader subclass
+    except yaml.MarkedYAMLError as err:
+        mark = err.problem_mark
+        where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
+        raise PlantFileError(source, "", f"not valid YAML{where}: {err.problem}") from None
+    except yaml.YAMLError as err:
+        raise PlantFileError(source, "", f"not valid YAML: {err}") from None
+    return _read_document(doc, source, digest)
+
+
+def load_plant(path: str | Path) -> Plant:
+    """Load and validate a plant file.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        The YAML plant file.
+
+    Returns
+    -------
+    Plant
+        With f, G and h split out and the file's SHA-256 recorded.
+
+    Raises
+    ------
+    PlantFileError
+        For a missing, unreadable or invalid file; one line naming the file, the field
+        and the problem.
+    """
+    source = str(path)
+    try:
+        raw = Path(path).read_bytes()
+    except FileNotFoundError:
+        raise PlantFileError(source, "", "no such file") from None
+    except IsADirectoryError:
+        raise PlantFileError(source, "", "is a folder, not a plant file") from None
+    except OSError as err:
+        raise PlantFileError(source, "", f"cannot read: {err.strerror}") from None
+    if len(raw) > _MAX_FILE_BYTES:
+        raise PlantFileError(source, "", f"larger than {_MAX_FILE_BYTES // 1_000_000} MB")
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as err:
+        raise PlantFileError(source, "", f"not UTF-8 text (byte {err.start})") from None
+    plant = plant_from_text(text, source)
+    return plant

@@ -1,0 +1,42 @@
+"""Build script of the linz_ros ROS 2 package (ament_python; also pip-installable)."""
+
+from glob import glob
+
+from setuptools import find_packages, setup
+
+package_name = "linz_ros"
+
+setup(
+    name=package_name,
+    version="0.1.0",
+    packages=find_packages(exclude=["tests", "tests.*", "benchmarks"]),
+    data_files=[
+        ("share/ament_index/resource_index/packages", ["resource/" + package_name]),
+        ("share/" + package_name, ["package.xml"]),
+        ("share/" + package_name + "/launch", glob("launch/*.py")),
+        ("share/" + package_name + "/config", glob("config/*.yaml")),
+        ("share/" + package_name + "/config/plants", glob("config/plants/*.yaml")),
+    ],
+    python_requires=">=3.10",
+    # rclpy and the message packages come from the ROS 2 distribution; never pin them here.
+    install_requires=["numpy>=1.24", "scipy>=1.10", "sympy>=1.12", "PyYAML>=6.0", "setuptools"],
+    extras_require={
+        # for pip-only machines (CI): the ROS 2 Kilted client library wheels from PyPI
+        "ros": [
+            "ros-kilted-rclpy", "ros-kilted-rmw-fastrtps-cpp", "ros-kilted-std-msgs",
+            "ros-kilted-sensor-msgs", "ros-kilted-geometry-msgs", "ros-kilted-nav-msgs",
+            "ros-kilted-diagnostic-msgs", "ros-kilted-lifecycle-msgs", "ros-kilted-rosgraph-msgs",
+        ],
+        "test": ["pytest>=7", "hypothesis>=6", "control>=0.10"],
+    },
+    zip_safe=True,
+    maintainer="linz_ros developers",
+    maintainer_email="linz-ros@example.org",
+    description="Feedback linearization from plant file to ROS 2 node: analysis, synthesis, runtime.",
+    license="Apache-2.0",
+    entry_points={
+        "console_scripts": [
+            "linz = linz_ros.cli:main",
+        ],
+    },
+)

@@ -1,0 +1,141 @@
+"""Tests of plant-file loading: the affine split, user-owned names, and every refusal."""
+
+import sympy as sp
+import pytest
+
+from conftest import BUNDLED, MINIMAL
+from linz_ros.errors import PlantFileError
+from linz_ros.model import load_plant, plant_from_text
+
+
+def test_affine_split_of_a_general_right_hand_side():
+    plant = plant_from_text("""
+plant: p
+states: [x1, x2]
+inputs: [u1, u2]
+parameters: {c: 3}
+dynamics:
+  x1: x2 + sin(x1)*u1
+  x2: c*(x1 + u2)*cos(x2) - u1
+""")
+    x1, x2 = plant.states
+    c = list(plant.parameters)[0]
+    assert sp.simplify(plant.f - sp.Matrix([x2, c * x1 * sp.cos(x2)])) == sp.zeros(2, 1)
+    assert sp.simplify(plant.G - sp.Matrix([[sp.sin(x1), 0], [-1, c * sp.cos(x2)]])) == sp.zeros(2, 2)
+
+
+def test_names_that_sympy_would_treat_specially_stay_user_symbols():
+    plant = plant_from_text("""
+plant: p
+states: [E, I, S, N, beta, lambda]
+inputs: [Q]
+dynamics: {E: I, I: S, S: N, N: beta, beta: lambda, lambda: Q - E}
+""")
+    E, I, S, N, beta, lam = plant.states
+    assert all(isinstance(s, sp.Symbol) for s in plant.states)
+    assert plant.f[0] == I and plant.f[5] == -E      # not Euler's number, not sqrt(-1)
+    assert plant.G[5, 0] == 1
+    assert [s.name for s in plant.states] == ["E", "I", "S", "N", "beta", "lambda"]
+
+
+def test_decimals_become_exact_rationals_and_definitions_are_inlined():
+    plant = plant_from_text("""
+plant: p
+states: [x]
+inputs: [u]
+definitions: {half: 0.5*x, twice: 2*half}
+dynamics: {x: twice + 1e-3*u}
+""")
+    assert plant.f[0] == plant.states[0]
+    assert plant.G[0, 0] == sp.Rational(1, 1000)
+
+
+def test_parameters_with_units_and_numeric_strings():
+    plant = plant_from_text(MINIMAL.replace("{k: 2.0}", "{k: {value: 2.0, unit: N m/rad}, c: '1e3'}"))
+    assert {s.name: v for s, v in plant.parameters.items()} == {"k": 2.0, "c": 1000.0}
+    assert plant.units == {"k": "N m/rad"}
+
+
+def test_defaults_and_hash():
+    plant = plant_from_text(MINIMAL)
+    assert plant.operating_point == {"x1": 0.0, "x2": 0.0}
+    assert plant.h.shape == (0, 1) and plant.output_names == ()
+    assert len(plant.sha256) == 64
+    assert plant_from_text(MINIMAL + "# comment\n").sha256 != plant.sha256
+
+
+@pytest.mark.parametrize("path", sorted(BUNDLED.glob("*.yaml")), ids=lambda p: p.stem)
+def test_bundled_plants_load(path):
+    plant = load_plant(path)
+    assert plant.n == len(plant.f) and plant.G.shape == (plant.n, plant.m)
+    assert plant.h.shape[0] == len(plant.output_names) > 0
+    assert plant.design["rate"] > 0
+    assert plant.source == str(path)
+
+
+# -- every refusal: (change to the minimal file, field named, words of the problem) --
+BAD = [
+    ("unknown symbol", MINIMAL.replace("-k*sin(x1)", "-q*sin(x1)"), "dynamics.x2", "unknown symbol 'q'"),
+    ("missing dynamics", MINIMAL.replace("  x1: x2\n", ""), "dynamics", "missing an entry for state(s) x1"),
+    ("extra dynamics", MINIMAL + "  x3: x1\n", "dynamics", "not states: x3"),
+    ("non-affine term", MINIMAL.replace("+ u", "+ x1*u**2"), "dynamics.x2", "term 'u**2*x1' is nonlinear in u"),
+    ("input inside a function", MINIMAL.replace("+ u", "+ sin(u)"), "dynamics.x2", "term 'sin(u)' is nonlinear in u"),
+    ("duplicate state", MINIMAL.replace("[x1, x2]", "[x1, x1]"), "states[1]", "duplicate name 'x1' (already a state)"),
+    ("input named like a state", MINIMAL.replace("inputs: [u]", "inputs: [x2]"), "inputs[0]", "duplicate name 'x2'"),
+    ("duplicate YAML key", MINIMAL + "  x2: u\n", "", "duplicate key 'x2'"),
+    ("name is a function", MINIMAL.replace("{k: 2.0}", "{sin: 2.0}"), "parameters.sin", "'sin' is the name of a function"),
+    ("state is a function", MINIMAL.replace("[x1, x2]", "[x1, exp]"), "states[1]", "'exp' is the name of a function"),
+    ("reserved constant", MINIMAL.replace("{k: 2.0}", "{pi: 3.0}"), "parameters.pi", "reserved constant"),
+    ("lower above upper", MINIMAL + "input_limits: {u: [2.0, -2.0]}\n", "input_limits.u", "lower bound 2 is not below upper bound -2"),
+    ("limit of a non-input", MINIMAL + "input_limits: {w: [-1, 1]}\n", "input_limits.w", "'w' is not an input"),
+    ("non-numeric parameter", MINIMAL.replace("{k: 2.0}", "{k: fast}"), "parameters.k", "expected a number, got 'fast'"),
+    ("boolean parameter", MINIMAL.replace("{k: 2.0}", "{k: true}"), "parameters.k", "expected a number, got true/false"),
+    ("infinite parameter", MINIMAL.replace("{k: 2.0}", "{k: .inf}"), "parameters.k", "expected a finite number"),
+    ("envelope bound not a number", MINIMAL + "envelope: {x1: [-1, wide]}\n", "envelope.x1[1]", "expected a number, got 'wide'"),
+    ("envelope not a pair", MINIMAL + "envelope: {x1: 3}\n", "envelope.x1", "expected [lower, upper], got 3"),
+    ("envelope of a non-state", MINIMAL + "envelope: {u: [-1, 1]}\n", "envelope.u", "'u' is not a state"),
+    ("operating point outside envelope", MINIMAL + "envelope: {x1: [-1, 1]}\noperating_point: {x1: 2}\n",
+     "operating_point.x1", "2 lies outside the envelope [-1, 1]"),
+    ("syntax error", MINIMAL.replace("-k*sin(x1)", "-k*sin(x1"), "dynamics.x2", "expected ')'"),
+    ("forbidden construct", MINIMAL.replace("-k*sin(x1)", "x1.__class__"), "dynamics.x2", "unexpected character '.'"),
+    ("unknown function", MINIMAL.replace("sin(x1)", "system(x1)"), "dynamics.x2", "'system' is not a known function"),
+    ("division by zero", MINIMAL.replace("-k*sin(x1)", "1/0"), "dynamics.x2", "infinite or undefined"),
+    ("output with feedthrough", MINIMAL + "outputs: {y: x1 + u}\n", "outputs.y", "depends on input 'u'"),
+    ("unknown top-level field", MINIMAL + "dynamic: {}\n", "dynamic", "unknown field"),
+    ("missing inputs", MINIMAL.replace("inputs: [u]\n", ""), "inputs", "missing (required)"),
+    ("states not a list", MINIMAL.replace("[x1, x2]", "x1"), "states", "expected a non-empty list of names"),
+    ("invalid name", MINIMAL.replace("[x1, x2]", "[x1, 2x]"), "states[1]", "'2x' is not a valid name"),
+    ("top level not a mapping", "- just\n- a list\n", "", "expected a mapping at the top level"),
+    ("YAML syntax", "plant: [unclosed\n", "", "not valid YAML at line"),
+    ("pole in right half-plane", MINIMAL + "outputs: {y: x1}\ndesign: {poles: {y: [-1, 2]}}\n",
+     "design.poles.y[1]", "not in the open left half-plane"),
+    ("pole for unknown output", MINIMAL + "outputs: {y: x1}\ndesign: {poles: {z: [-1, -2]}}\n",
+     "design.poles.z", "'z' is not an output"),
+    ("negative rate", MINIMAL + "design: {rate: -5}\n", "design.rate", "must be positive"),
+]
+
+
+@pytest.mark.parametrize("text, field, problem", [b[1:] for b in BAD], ids=[b[0] for b in BAD])
+def test_bad_plant_files_name_file_field_and_problem(write_plant, text, field, problem):
+    path = write_plant(text)
+    with pytest.raises(PlantFileError) as info:
+        load_plant(path)
+    message = str(info.value)
+    assert "\n" not in message
+    assert message.startswith(str(path) + ": ")
+    assert info.value.field == field
+    assert problem in message
+
+
+def test_missing_file_and_folder(tmp_path):
+    with pytest.raises(PlantFileError, match="no such file"):
+        load_plant(tmp_path / "absent.yaml")
+    with pytest.raises(PlantFileError, match="is a folder"):
+        load_plant(tmp_path)
+
+
+def test_binary_file_is_refused(write_plant, tmp_path):
+    path = tmp_path / "blob.yaml"
+    path.write_bytes(b"\xff\xfe\x00garbage")
+    with pytest.raises(PlantFileError, match="not UTF-8"):
+        load_plant(path)
