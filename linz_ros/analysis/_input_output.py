@@ -76,8 +76,19 @@ def decoupling_terms(plant: Plant, ctx: NumericContext
                      ) -> tuple[list[int | None], sp.Matrix | None, sp.Matrix | None]:
     """Generic relative degrees, decoupling matrix A(x) and stacked b(x) = L_f^r_i h_i.
 
-    Row i of A is ``L_G L_f^(r_i - 1) h_i``; A and b are None when some output is
-    not reached by any input (infinite relative degree).
+    Parameters
+    ----------
+    plant : Plant
+    ctx : NumericContext
+
+    Returns
+    -------
+    degrees : list of int or None
+        Generic relative degree of each output (None: not reached by any input).
+    A : sympy.Matrix or None
+        Row i is ``L_G L_f^(r_i - 1) h_i``; None when some degree is None.
+    b : sympy.Matrix or None
+        Column of ``L_f^(r_i) h_i``.
     """
     degrees, rows, drift = [], [], []
     for i in range(plant.h.shape[0]):
@@ -206,6 +217,16 @@ def _zero_dynamics(plant: Plant, order: int, ctx: NumericContext) -> ZeroDynamic
 
 def invariant_zeros(A: np.ndarray, B: np.ndarray, C: np.ndarray) -> list[complex]:
     """Finite invariant zeros of a square linear system (no feedthrough).
+
+    Parameters
+    ----------
+    A, B, C : numpy.ndarray
+        n x n, n x m and m x n matrices of dx = A x + B u, y = C x.
+
+    Returns
+    -------
+    list of complex
+        Sorted by real part, then imaginary part.
 
     The zeros are the finite generalized eigenvalues of the Rosenbrock pencil
     ``[[A, B], [C, 0]] - s [[I, 0], [0, 0]]`` (common practice; e.g. Emami-Naeini and

@@ -70,6 +70,18 @@ def controllability_indices(ranks: list[int], m: int) -> list[int]:
     The number of indices larger than k equals r_k - r_(k-1), so index i (sorted in
     decreasing order) is the number of k with r_k - r_(k-1) >= i.
 
+    Parameters
+    ----------
+    ranks : list of int
+        r_0, r_1, ... the ranks of D_0, D_1, ...
+    m : int
+        Number of inputs.
+
+    Returns
+    -------
+    list of int
+        m indices, largest first.
+
     Examples
     --------
     >>> controllability_indices([2, 4, 5], 2)
@@ -199,7 +211,19 @@ def state_factors(expr: sp.Expr, plant: Plant) -> sp.Expr:
 def relative_degree_of(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[int | None, sp.Expr]:
     """Generic relative degree of a scalar output and the coefficient L_G L_f^(r-1) h.
 
-    Returns ``(None, 0)`` when no input reaches the output within n derivatives.
+    Parameters
+    ----------
+    h : sympy.Expr
+        Output function of the states.
+    plant : Plant
+    ctx : NumericContext
+
+    Returns
+    -------
+    degree : int or None
+        None when no input reaches the output within n derivatives.
+    coefficient : sympy.Matrix or sympy.Integer
+        The row ``L_G L_f^(r-1) h`` (1 x m), or 0 when ``degree`` is None.
     """
     phi = h
     for k in range(plant.n):

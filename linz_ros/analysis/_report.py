@@ -95,7 +95,17 @@ def _fmt(value: float | None) -> str:
 
 
 def render_text(report: Report) -> str:
-    """The human-readable report: verdicts first, then the reasons and the details."""
+    """The human-readable report: verdicts first, then the reasons and the details.
+
+    Parameters
+    ----------
+    report : Report
+
+    Returns
+    -------
+    str
+        Several lines; the fourth is ``VERDICT``.
+    """
     p = report.plant
     iss, io, env = report.input_state, report.input_output, report.envelope
     at = ", ".join(f"{k}={v:g}" for k, v in p.operating_point.items())

@@ -1,0 +1,146 @@
+"""Tests of the Lie-algebra layer, including an independent finite-difference cross-check."""
+
+import numpy as np
+import pytest
+import sympy as sp
+
+from linz_ros.geometry import (NumericContext, ad, distribution, evaluate, generic_rank,
+                               involutivity, is_identically_zero, lie_bracket, lie_derivative,
+                               lie_derivative_covector, rank_at)
+
+x1, x2, x3 = sp.symbols("x1 x2 x3", real=True)
+X = (x1, x2, x3)
+
+
+def _ctx(coords=X, constants=None, count=5):
+    return NumericContext.around(coords, constants or {}, [0.3] * len(coords), count=count)
+
+
+def test_bracket_of_textbook_fields():
+    # [f, g] for f = (x2, -sin x1), g = (0, 1): -(df/dx) g = (-1, 0)
+    f = sp.Matrix([x2, -sp.sin(x1), 0])
+    g = sp.Matrix([0, 1, 0])
+    assert lie_bracket(f, g, X) == sp.Matrix([-1, 0, 0])
+    assert ad(f, g, X, 0) == g
+    assert ad(f, g, X, 2) == lie_bracket(f, lie_bracket(f, g, X), X)
+
+
+def test_bracket_is_antisymmetric_and_satisfies_jacobi():
+    f = sp.Matrix([x2 * x3, sp.sin(x1), x1 ** 2])
+    g = sp.Matrix([sp.cos(x3), x1, 1])
+    h = sp.Matrix([x1 * x2, 0, sp.exp(x2)])
+    assert sp.simplify(lie_bracket(f, g, X) + lie_bracket(g, f, X)) == sp.zeros(3, 1)
+    jacobi = (lie_bracket(f, lie_bracket(g, h, X), X) + lie_bracket(g, lie_bracket(h, f, X), X)
+              + lie_bracket(h, lie_bracket(f, g, X), X))
+    assert sp.simplify(jacobi) == sp.zeros(3, 1)
+
+
+def test_covector_derivative_commutes_with_d():
+    # L_f dh = d(L_f h) (Isidori, Nonlinear Control Systems, Prop. 1.2.x; common practice)
+    f = sp.Matrix([x2, -x1 + x3 ** 2, sp.sin(x2)])
+    h = x1 * sp.cos(x3) + x2 ** 2
+    dh = sp.Matrix([[sp.diff(h, v) for v in X]])
+    lhs = lie_derivative_covector(dh, f, X)
+    rhs = sp.Matrix([[sp.diff(lie_derivative(h, f, X), v) for v in X]])
+    assert sp.simplify(lhs - rhs) == sp.zeros(1, 3)
+
+
+def test_leibniz_identity_for_brackets():
+    # L_[f,g] h = L_f L_g h - L_g L_f h (common practice)
+    f = sp.Matrix([x2, x1 * x3, 1])
+    g = sp.Matrix([sp.sin(x3), 0, x1])
+    h = x1 * x2 + x3 ** 3
+    lhs = lie_derivative(h, lie_bracket(f, g, X), X)
+    rhs = lie_derivative(lie_derivative(h, g, X), f, X) - lie_derivative(lie_derivative(h, f, X), g, X)
+    assert sp.expand(lhs - rhs) == 0
+
+
+def _numeric_field(expr_matrix):
+    fn = sp.lambdify([X], expr_matrix, "numpy")
+    return lambda p: np.asarray(fn(p), dtype=float).reshape(-1)
+
+
+def _jacobian_fd(field, p, eps=1e-6):
+    cols = []
+    for i in range(len(p)):
+        step = np.zeros(len(p))
+        step[i] = eps
+        cols.append((field(p + step) - field(p - step)) / (2 * eps))
+    return np.column_stack(cols)
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_brackets_and_lie_derivatives_match_finite_differences(seed):
+    """Independent check: numeric fields differentiated by central differences."""
+    f = sp.Matrix([x2 * sp.cos(x3), -sp.sin(x1) + x3 ** 2, x1 * x2 - sp.exp(-x3)])
+    g = sp.Matrix([1 + x2 ** 2, sp.tanh(x1), sp.cos(x1 * x3)])
+    h = sp.atan2(x2, 2 + x1) + x3 * x1
+    p = np.random.default_rng(seed).uniform(-1, 1, 3)
+    f_num, g_num = _numeric_field(f), _numeric_field(g)
+    expected = _jacobian_fd(g_num, p) @ f_num(p) - _jacobian_fd(f_num, p) @ g_num(p)
+    got = _numeric_field(lie_bracket(f, g, X))(p)
+    np.testing.assert_allclose(got, expected, rtol=1e-6, atol=1e-8)
+    h_num = sp.lambdify([X], h, "numpy")
+    eps = 1e-6
+    expected_lf = (h_num(p + eps * f_num(p)) - h_num(p - eps * f_num(p))) / (2 * eps)
+    assert float(sp.lambdify([X], lie_derivative(h, f, X))(p)) == pytest.approx(expected_lf, rel=1e-6)
+    # second order: ad_f^2 g from the numeric bracket field
+    bracket_num = _numeric_field(lie_bracket(f, g, X))
+    expected2 = _jacobian_fd(bracket_num, p) @ f_num(p) - _jacobian_fd(f_num, p) @ bracket_num(p)
+    np.testing.assert_allclose(_numeric_field(ad(f, g, X, 2))(p), expected2, rtol=1e-5, atol=1e-7)
+
+
+def test_distribution_generator_order():
+    f = sp.Matrix([x2, x3, 0])
+    G = sp.Matrix([[0, 1], [0, 0], [1, 0]])
+    cols = distribution(f, G, X, 1)
+    assert cols[:2] == [G[:, 0], G[:, 1]]
+    assert cols[2] == lie_bracket(f, G[:, 0], X)
+    assert len(cols) == 4
+
+
+def test_identically_zero_decides_trig_identities_and_parameters():
+    ctx = _ctx()
+    assert is_identically_zero(sp.sin(x1) ** 2 + sp.cos(x1) ** 2 - 1, ctx).value is True
+    assert is_identically_zero(sp.sin(2 * x1) - 2 * sp.sin(x1) * sp.cos(x1), ctx).value is True
+    assert is_identically_zero(sp.sin(x1) - x1, ctx).value is False
+    a = sp.Symbol("a", real=True)
+    with_param = NumericContext.around(X, {a: sp.Integer(0)}, [0, 0, 0])
+    assert is_identically_zero(a * x1, with_param).value is True      # a = 0 nominally
+    assert is_identically_zero(a * x1, _ctx(constants={a: sp.Integer(2)})).value is False
+
+
+def test_rank_at_a_point_with_stated_tolerance():
+    ctx = _ctx()
+    M = sp.Matrix([[1, 0], [0, sp.sin(x2)]])
+    assert rank_at(M, ctx, [0, 0, 0]) == 1
+    assert rank_at(M, ctx, [0, 0.5, 0]) == 2
+    assert rank_at(M, ctx, [0, 1e-12, 0]) == 1                  # below 1e-9 relative
+    assert rank_at(sp.Matrix([[1 / x1]]), ctx, [0, 0, 0]) is None
+    np.testing.assert_allclose(evaluate(M, ctx, [0, 0.5, 0]), [[1, 0], [0, np.sin(0.5)]])
+
+
+def test_generic_rank_symbolic_and_numeric_agree():
+    ctx = _ctx()
+    M = sp.Matrix([[sp.sin(x1), sp.cos(x1)], [sp.cos(x1), -sp.sin(x1)], [x2, x3]])
+    assert generic_rank(M, ctx).rank == 2
+    dependent = sp.Matrix([[sp.sin(x1), 2 * sp.sin(x1)], [x2, 2 * x2]])
+    result = generic_rank(dependent, ctx)
+    assert result.rank == 1
+    big = sp.Matrix(3, 3, lambda i, j: sp.expand((x1 + i + 1) ** (12 + j) * sp.cos(x2 + j)))
+    assert generic_rank(big, ctx).method.startswith("numeric")
+    assert generic_rank(big, ctx).rank == 3
+
+
+def test_involutivity_of_classic_distributions():
+    ctx = _ctx()
+    # span{d/dx1, d/dx2} is involutive
+    assert involutivity([sp.Matrix([1, 0, 0]), sp.Matrix([0, 1, 0])], X, ctx).involutive is True
+    # the Heisenberg (contact) pair is not: [X1, X2] = d/dx3 leaves the plane
+    X1, X2 = sp.Matrix([1, 0, -x2 / 2]), sp.Matrix([0, 1, x1 / 2])
+    result = involutivity([X1, X2], X, ctx)
+    assert result.involutive is False and result.witness == (0, 1)
+    # a rank-2 distribution whose generators do not commute but close: rotations about x3
+    R = sp.Matrix([-x2, x1, 0])
+    radial = sp.Matrix([x1, x2, 0])
+    assert involutivity([R, radial], X, ctx).involutive is True
