@@ -29,7 +29,8 @@ import sympy as sp
 __all__ = [
     "lie_derivative", "lie_derivative_covector", "lie_bracket", "ad", "distribution",
     "NumericContext", "Decision", "is_identically_zero", "evaluate", "rank_at",
-    "generic_rank", "Involutivity", "involutivity",
+    "generic_rank", "Involutivity", "involutivity", "evaluate_many", "numeric_rank",
+    "sampled_rank", "fits_symbolic_budget", "RankResult",
 ]
 
 #: Relative tolerance on singular values for ranks at a point: sigma_i > RANK_RTOL * sigma_1.
@@ -292,12 +293,35 @@ def evaluate(matrix: sp.Matrix, ctx: NumericContext, point: Sequence[float]) -> 
     numpy.ndarray
         Same shape as ``matrix``; entries are nan where undefined.
     """
+    return evaluate_many(matrix, ctx, [point])[0]
+
+
+def evaluate_many(matrix: sp.Matrix, ctx: NumericContext, points: Sequence[Sequence[float]]) -> np.ndarray:
+    """Evaluate a symbolic matrix at several points with one compiled function.
+
+    Parameters
+    ----------
+    matrix : sympy.Matrix
+    ctx : NumericContext
+    points : sequence of sequences of float
+
+    Returns
+    -------
+    numpy.ndarray
+        K x rows x cols.
+    """
+    if len(points) == 0:
+        return np.zeros((0, *matrix.shape))
     compiled = _compiled(sp.ImmutableMatrix(matrix), ctx.coordinates, ctx.constant_symbols)
-    with np.errstate(all="ignore"):
-        value = np.asarray(compiled(np.asarray(point, float), ctx.constant_values), dtype=complex)
-    if np.any(np.abs(value.imag) > 1e-12 * (1 + np.abs(value.real))):
-        value = np.full(value.shape, np.nan, dtype=complex)
-    return np.real(value).astype(float).reshape(matrix.shape)
+    constants = ctx.constant_values
+    out = np.empty((len(points), *matrix.shape))
+    for index, point in enumerate(points):
+        with np.errstate(all="ignore"):
+            value = np.asarray(compiled(np.asarray(point, float), constants), dtype=complex)
+        if np.any(np.abs(value.imag) > 1e-12 * (1 + np.abs(value.real))):
+            value = np.full(value.shape, np.nan, dtype=complex)
+        out[index] = np.real(value).reshape(matrix.shape)
+    return out
 
 
 def rank_at(matrix: sp.Matrix, ctx: NumericContext, point: Sequence[float],
@@ -317,16 +341,65 @@ def rank_at(matrix: sp.Matrix, ctx: NumericContext, point: Sequence[float],
     int or None
         None when the matrix is not finite at the point.
     """
-    return _numeric_rank(evaluate(matrix, ctx, point), rtol, atol)
+    return numeric_rank(evaluate(matrix, ctx, point), rtol, atol)
 
 
-def _numeric_rank(values: np.ndarray, rtol: float = RANK_RTOL, atol: float = RANK_ATOL) -> int | None:
+def numeric_rank(values: np.ndarray, rtol: float = RANK_RTOL, atol: float = RANK_ATOL) -> int | None:
+    """Rank of a numeric matrix: singular values above ``max(rtol * sigma_1, atol)``.
+
+    Parameters
+    ----------
+    values : numpy.ndarray
+    rtol, atol : float
+
+    Returns
+    -------
+    int or None
+        None when an entry is not finite.
+    """
     if values.size == 0:
         return 0
     if not np.all(np.isfinite(values)):
         return None
     sigma = np.linalg.svd(values, compute_uv=False)
     return int(np.sum(sigma > max(rtol * sigma[0], atol)))
+
+
+def fits_symbolic_budget(matrix: sp.Matrix) -> bool:
+    """True when a matrix is small enough for symbolic elimination.
+
+    Parameters
+    ----------
+    matrix : sympy.Matrix
+
+    Returns
+    -------
+    bool
+        Whether the entries together have at most :data:`SYMBOLIC_RANK_BUDGET` operations.
+    """
+    total = 0
+    for entry in matrix:
+        total += sp.count_ops(entry)
+        if total > SYMBOLIC_RANK_BUDGET:
+            return False
+    return True
+
+
+def sampled_rank(values: np.ndarray) -> RankResult:
+    """Generic rank from a stack of numeric evaluations (K x rows x cols): the largest rank.
+
+    Parameters
+    ----------
+    values : numpy.ndarray
+
+    Returns
+    -------
+    RankResult
+    """
+    ranks = [r for r in (numeric_rank(v) for v in values) if r is not None]
+    if not ranks:
+        return RankResult(None, "not finite at any sample point")
+    return RankResult(max(ranks), f"numeric, largest rank at {len(ranks)} random points")
 
 
 @dataclass(frozen=True)
@@ -356,7 +429,7 @@ def generic_rank(matrix: sp.Matrix, ctx: NumericContext) -> RankResult:
     matrix = sp.Matrix(matrix)
     if matrix.is_zero_matrix:
         return RankResult(0, "symbolic")
-    if sum(sp.count_ops(e) for e in matrix) <= SYMBOLIC_RANK_BUDGET:
+    if fits_symbolic_budget(matrix):
         methods: set[str] = set()
         undecided = False
 
@@ -372,10 +445,7 @@ def generic_rank(matrix: sp.Matrix, ctx: NumericContext) -> RankResult:
             method = "symbolic" if methods <= {"symbolic", "exact evaluation"} else \
                 "symbolic elimination, numeric zero tests"
             return RankResult(rank, method)
-    ranks = [r for r in (rank_at(matrix, ctx, row) for row in ctx.samples) if r is not None]
-    if not ranks:
-        return RankResult(None, "not finite at any sample point")
-    return RankResult(max(ranks), f"numeric, largest rank at {len(ranks)} random points")
+    return sampled_rank(evaluate_many(matrix, ctx, ctx.samples))
 
 
 @dataclass(frozen=True)
@@ -411,21 +481,48 @@ def involutivity(columns: Sequence[sp.Matrix], x: Sequence[sp.Symbol], ctx: Nume
     if not columns:
         return Involutivity(True, "empty distribution")
     D = sp.Matrix.hstack(*columns)
+    pairs = [(i, j) for i in range(len(columns)) for j in range(i + 1, len(columns))]
+    brackets = [lie_bracket(columns[i], columns[j], x) for i, j in pairs]
+    if fits_symbolic_budget(sp.Matrix.hstack(D, *brackets)):
+        return _involutivity_symbolic(D, pairs, brackets, len(x), ctx)
+    return _involutivity_sampled(D, pairs, brackets, len(x), ctx)
+
+
+def _involutivity_symbolic(D, pairs, brackets, n, ctx) -> Involutivity:
     base = generic_rank(D, ctx)
     if base.rank is None:
         return Involutivity(None, base.method)
-    if base.rank == len(x):
+    if base.rank == n:
         return Involutivity(True, "full rank")
     methods = {base.method}
-    for i in range(len(columns)):
-        for j in range(i + 1, len(columns)):
-            bracket = lie_bracket(columns[i], columns[j], x)
-            if all(is_identically_zero(e, ctx).value for e in bracket):
-                continue
-            augmented = generic_rank(sp.Matrix.hstack(D, bracket), ctx)
-            methods.add(augmented.method)
-            if augmented.rank is None:
-                return Involutivity(None, augmented.method)
-            if augmented.rank > base.rank:
-                return Involutivity(False, "; ".join(sorted(methods)), (i, j))
+    for pair, bracket in zip(pairs, brackets):
+        if all(is_identically_zero(e, ctx).value for e in bracket):
+            continue
+        augmented = generic_rank(sp.Matrix.hstack(D, bracket), ctx)
+        methods.add(augmented.method)
+        if augmented.rank is None:
+            return Involutivity(None, augmented.method)
+        if augmented.rank > base.rank:
+            return Involutivity(False, "; ".join(sorted(methods)), pair)
     return Involutivity(True, "; ".join(sorted(methods)))
+
+
+def _involutivity_sampled(D, pairs, brackets, n, ctx) -> Involutivity:
+    """Each bracket against D at the random points where D has its generic rank."""
+    k = D.shape[1]
+    values = evaluate_many(sp.Matrix.hstack(D, *brackets), ctx, ctx.samples)
+    finite = [v for v in values if np.all(np.isfinite(v))]
+    if not finite:
+        return Involutivity(None, "not finite at any sample point")
+    ranks = [numeric_rank(v[:, :k]) for v in finite]
+    generic = max(ranks)
+    if generic == n:
+        return Involutivity(True, "full rank")
+    regular = [v for v, r in zip(finite, ranks) if r == generic]
+    method = f"numeric at {len(regular)} random points (rtol {RANK_RTOL:g})"
+    for index, pair in enumerate(pairs):
+        column = k + index
+        for v in regular:
+            if numeric_rank(np.column_stack([v[:, :k], v[:, column]])) > generic:
+                return Involutivity(False, method, pair)
+    return Involutivity(True, method)

@@ -8,8 +8,9 @@ from typing import Any
 import sympy as sp
 
 from linz_ros.analysis._common import depends_on_states, show, tidy
-from linz_ros.geometry import (NumericContext, distribution, evaluate, generic_rank, involutivity,
-                               is_identically_zero, lie_derivative, rank_at)
+from linz_ros.geometry import (NumericContext, distribution, evaluate, evaluate_many,
+                               fits_symbolic_budget, generic_rank, involutivity, is_identically_zero,
+                               lie_derivative, numeric_rank, sampled_rank)
 from linz_ros.model import Plant
 
 __all__ = ["DistributionInfo", "InputStateResult", "analyse_input_state", "relative_degree_of"]
@@ -108,15 +109,19 @@ def analyse_input_state(plant: Plant, ctx: NumericContext) -> InputStateResult:
     InputStateResult
     """
     n, m, x = plant.n, plant.m, plant.states
-    x0 = plant.operating_vector()
     generators = distribution(plant.f, plant.G, x, n - 1)
+    # one compiled evaluation of all generators serves every D_k (they are nested)
+    everything = sp.Matrix.hstack(*generators)
+    at_point = evaluate_many(everything, ctx, [plant.operating_vector()])[0]
+    at_samples = evaluate_many(everything, ctx, ctx.samples)
     infos: list[DistributionInfo] = []
     for k in range(n):
-        cols = generators[: (k + 1) * m]
+        width = (k + 1) * m
+        cols = generators[:width]
         D = sp.Matrix.hstack(*cols)
-        at_point = rank_at(D, ctx, x0)
-        generic = generic_rank(D, ctx)
-        info = DistributionInfo(k, at_point, generic.rank, None, generic.method)
+        generic = (generic_rank(D, ctx) if fits_symbolic_budget(D)
+                   else sampled_rank(at_samples[:, :, :width]))
+        info = DistributionInfo(k, numeric_rank(at_point[:, :width]), generic.rank, None, generic.method)
         if generic.rank == n:
             info.involutive, info.method = True, "full rank"
         elif k <= n - 2:
@@ -126,11 +131,10 @@ def analyse_input_state(plant: Plant, ctx: NumericContext) -> InputStateResult:
                 a, b = (_generator_name(i, m, plant.input_names) for i in result.witness)
                 info.witness = f"[{a}, {b}]"
         infos.append(info)
-        if generic.rank == n and k < n - 1:
-            # the remaining D_k are all of full rank
-            for later in range(k + 1, n):
-                D_later = sp.Matrix.hstack(*generators[: (later + 1) * m])
-                infos.append(DistributionInfo(later, rank_at(D_later, ctx, x0), n, True, "full rank"))
+        if generic.rank == n:
+            # the remaining D_k contain this one: all of full rank, involutive
+            infos.extend(DistributionInfo(later, numeric_rank(at_point[:, :(later + 1) * m]), n, True,
+                                          "full rank") for later in range(k + 1, n))
             break
     result = InputStateResult(*_verdict(plant, infos), distributions=infos)
     ranks = [d.rank for d in infos]
