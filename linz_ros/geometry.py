@@ -275,7 +275,9 @@ def is_identically_zero(expr: sp.Expr, ctx: NumericContext) -> Decision:
 @functools.lru_cache(maxsize=512)
 def _compiled(matrix: sp.ImmutableMatrix, coordinates: tuple[sp.Symbol, ...],
               constants: tuple[sp.Symbol, ...]):
-    return sp.lambdify([coordinates, constants], matrix, modules="numpy", dummify=True, cse=True)
+    # no cse and no blanket dummify: these functions run a handful of times, and both
+    # cost more than they save on large matrices (unsafe names are still replaced)
+    return sp.lambdify([coordinates, constants], matrix, modules="numpy", dummify=False)
 
 
 def evaluate(matrix: sp.Matrix, ctx: NumericContext, point: Sequence[float]) -> np.ndarray:

@@ -5,11 +5,12 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
+import numpy as np
 import sympy as sp
 
 from linz_ros.analysis._common import depends_on_states, show, tidy
-from linz_ros.geometry import (NumericContext, distribution, evaluate, evaluate_many,
-                               fits_symbolic_budget, generic_rank, involutivity, is_identically_zero,
+from linz_ros.geometry import (NumericContext, evaluate, evaluate_many, fits_symbolic_budget,
+                               generic_rank, involutivity, is_identically_zero, lie_bracket,
                                lie_derivative, numeric_rank, sampled_rank)
 from linz_ros.model import Plant
 
@@ -109,33 +110,35 @@ def analyse_input_state(plant: Plant, ctx: NumericContext) -> InputStateResult:
     InputStateResult
     """
     n, m, x = plant.n, plant.m, plant.states
-    generators = distribution(plant.f, plant.G, x, n - 1)
-    # one compiled evaluation of all generators serves every D_k (they are nested)
-    everything = sp.Matrix.hstack(*generators)
-    at_point = evaluate_many(everything, ctx, [plant.operating_vector()])[0]
-    at_samples = evaluate_many(everything, ctx, ctx.samples)
+    generators: list[sp.Matrix] = []
+    point_blocks: list[np.ndarray] = []
+    sample_blocks: list[np.ndarray] = []
+    block = [plant.G[:, i] for i in range(m)]
     infos: list[DistributionInfo] = []
+    full_from: int | None = None      # first k with D_k of full generic rank
     for k in range(n):
-        width = (k + 1) * m
-        cols = generators[:width]
-        D = sp.Matrix.hstack(*cols)
-        generic = (generic_rank(D, ctx) if fits_symbolic_budget(D)
-                   else sampled_rank(at_samples[:, :, :width]))
-        info = DistributionInfo(k, numeric_rank(at_point[:, :width]), generic.rank, None, generic.method)
-        if generic.rank == n:
-            info.involutive, info.method = True, "full rank"
-        elif k <= n - 2:
-            result = involutivity(cols, x, ctx)
-            info.involutive, info.method = result.involutive, result.method
-            if result.witness:
-                a, b = (_generator_name(i, m, plant.input_names) for i in result.witness)
-                info.witness = f"[{a}, {b}]"
-        infos.append(info)
-        if generic.rank == n:
-            # the remaining D_k contain this one: all of full rank, involutive
-            infos.extend(DistributionInfo(later, numeric_rank(at_point[:, :(later + 1) * m]), n, True,
-                                          "full rank") for later in range(k + 1, n))
+        if k:
+            block = [lie_bracket(plant.f, c, x) for c in block]
+        generators.extend(block)
+        # D_k are nested: evaluate only the new generators, once, and keep the numbers
+        new = sp.Matrix.hstack(*block)
+        point_blocks.append(evaluate_many(new, ctx, [plant.operating_vector()])[0])
+        sample_blocks.append(evaluate_many(new, ctx, ctx.samples))
+        rank_here = numeric_rank(np.hstack(point_blocks))
+        if full_from is None:
+            infos.append(_distribution_info(k, generators, np.concatenate(sample_blocks, axis=2),
+                                            rank_here, plant, ctx))
+            if infos[-1].rank_generic == n:
+                full_from = k
+        else:
+            # contains a distribution of full generic rank: full rank and involutive
+            infos.append(DistributionInfo(k, rank_here, n, True, f"contains D_{full_from}"))
+        if full_from is not None and rank_here == n:
+            infos.extend(DistributionInfo(later, n, n, True, f"contains D_{k}")
+                         for later in range(k + 1, n))
             break
+    at_point = np.hstack(point_blocks)
+    at_samples = np.concatenate(sample_blocks, axis=2)
     result = InputStateResult(*_verdict(plant, infos), distributions=infos)
     ranks = [d.rank for d in infos]
     if all(r is not None for r in ranks):
@@ -143,11 +146,32 @@ def analyse_input_state(plant: Plant, ctx: NumericContext) -> InputStateResult:
     if m == 1:
         result.singular_set = _controllability_singular_set(plant, generators, ctx)
         if result.linearizable:
-            outputs, note = find_linearizing_output(plant, generators, ctx)
+            # a coordinate x_i can only work if row i of D_(n-2) vanishes at the samples
+            annihilating = [i for i in range(n) if np.allclose(at_samples[:, i, : n - 1], 0.0)
+                            and abs(at_point[i, n - 1]) > 0]
+            outputs, note = find_linearizing_output(plant, generators, ctx, annihilating)
             result.linearizing_outputs, result.linearizing_output_note = outputs, note
     else:
         result.linearizing_output_note = "the search for linearizing outputs covers single-input plants"
     return result
+
+
+def _distribution_info(k: int, generators: list[sp.Matrix], samples: np.ndarray, rank_here: int | None,
+                       plant: Plant, ctx: NumericContext) -> DistributionInfo:
+    """Ranks and involutivity of D_k from its generators and their values at the samples."""
+    n, m = plant.n, plant.m
+    D = sp.Matrix.hstack(*generators)
+    generic = generic_rank(D, ctx) if fits_symbolic_budget(D) else sampled_rank(samples)
+    info = DistributionInfo(k, rank_here, generic.rank, None, generic.method)
+    if generic.rank == n:
+        info.involutive, info.method = True, "full rank"
+    elif k <= n - 2:
+        result = involutivity(generators, plant.states, ctx)
+        info.involutive, info.method = result.involutive, result.method
+        if result.witness:
+            a, b = (_generator_name(i, m, plant.input_names) for i in result.witness)
+            info.witness = f"[{a}, {b}]"
+    return info
 
 
 def _verdict(plant: Plant, infos: list[DistributionInfo]) -> tuple[bool | None, str]:
@@ -238,17 +262,19 @@ def relative_degree_of(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[i
     return None, sp.Integer(0)
 
 
-def find_linearizing_output(plant: Plant, generators: list[sp.Matrix], ctx: NumericContext
-                            ) -> tuple[list[sp.Expr], str]:
+def find_linearizing_output(plant: Plant, generators: list[sp.Matrix], ctx: NumericContext,
+                            coordinates: list[int] | None = None) -> tuple[list[sp.Expr], str]:
     """Find T1 with dT1 annihilating D_(n-2) and relative degree n (single input).
 
-    Candidates: the coordinate functions, the plant's own output, then the potential of
+    Candidates: the coordinate functions (those listed in ``coordinates`` when given,
+    e.g. after a numeric pre-screen), the plant's own output, then the potential of
     the annihilating covector of D_(n-2) normalised on each nonzero component (tried as
     an exact one-form, Poincare's lemma). Every candidate is kept only after its
     relative degree has been verified to be n, with L_g L_f^(n-1) T1 nonzero at x0.
     """
     n = plant.n
-    candidates: list[sp.Expr] = list(plant.states)
+    indices = range(n) if coordinates is None else coordinates
+    candidates: list[sp.Expr] = [plant.states[i] for i in indices]
     if plant.h.shape[0] == 1:
         candidates.append(plant.h[0])
     D = sp.Matrix.hstack(*generators[: n - 1]) if n > 1 else sp.zeros(n, 0)
