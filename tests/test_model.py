@@ -139,3 +139,36 @@ def test_binary_file_is_refused(write_plant, tmp_path):
     path.write_bytes(b"\xff\xfe\x00garbage")
     with pytest.raises(PlantFileError, match="not UTF-8"):
         load_plant(path)
+
+
+# -- property: whatever the text, the loader answers with a Plant or a PlantFileError -----------
+from hypothesis import given, settings, strategies as st  # noqa: E402
+
+_EXPRESSION_TEXT = st.text(alphabet="x12u+-*/^().,k sincoexp_E", max_size=30)
+
+
+@settings(max_examples=150, deadline=None)
+@given(rhs=_EXPRESSION_TEXT)
+def test_any_right_hand_side_loads_or_is_refused_cleanly(rhs):
+    text = MINIMAL.replace("-k*sin(x1) + u", rhs.replace("\n", " ") or "0")
+    try:
+        plant = plant_from_text(text)
+    except PlantFileError as err:
+        assert "\n" not in str(err) and str(err).startswith("<string>")
+    else:
+        assert plant.f.shape == (2, 1)
+
+
+@settings(max_examples=150, deadline=None)
+@given(doc=st.recursive(st.none() | st.booleans() | st.integers() | st.floats() | st.text(max_size=8),
+                        lambda inner: st.lists(inner, max_size=3)
+                        | st.dictionaries(st.sampled_from(["plant", "states", "inputs", "dynamics",
+                                                           "x1", "u", "parameters", "envelope"]),
+                                          inner, max_size=4),
+                        max_leaves=12))
+def test_any_yaml_document_loads_or_is_refused_cleanly(doc):
+    import yaml
+    try:
+        plant_from_text(yaml.safe_dump(doc))
+    except PlantFileError as err:
+        assert "\n" not in str(err)
