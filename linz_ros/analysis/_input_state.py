@@ -137,6 +137,7 @@ def analyse_input_state(plant: Plant, ctx: NumericContext) -> InputStateResult:
             infos.extend(DistributionInfo(later, n, n, True, f"contains D_{k}")
                          for later in range(k + 1, n))
             break
+    _decide_involutivity(infos, generators, plant, ctx)
     at_point = np.hstack(point_blocks)
     at_samples = np.concatenate(sample_blocks, axis=2)
     result = InputStateResult(*_verdict(plant, infos), distributions=infos)
@@ -158,20 +159,56 @@ def analyse_input_state(plant: Plant, ctx: NumericContext) -> InputStateResult:
 
 def _distribution_info(k: int, generators: list[sp.Matrix], samples: np.ndarray, rank_here: int | None,
                        plant: Plant, ctx: NumericContext) -> DistributionInfo:
-    """Ranks and involutivity of D_k from its generators and their values at the samples."""
-    n, m = plant.n, plant.m
+    """Ranks of D_k from its generators and their values at the samples."""
     D = sp.Matrix.hstack(*generators)
     generic = generic_rank(D, ctx) if fits_symbolic_budget(D) else sampled_rank(samples)
     info = DistributionInfo(k, rank_here, generic.rank, None, generic.method)
-    if generic.rank == n:
+    if generic.rank == plant.n:
         info.involutive, info.method = True, "full rank"
-    elif k <= n - 2:
-        result = involutivity(generators, plant.states, ctx)
-        info.involutive, info.method = result.involutive, result.method
-        if result.witness:
-            a, b = (_generator_name(i, m, plant.input_names) for i in result.witness)
-            info.witness = f"[{a}, {b}]"
     return info
+
+
+def _check_involutive(info: DistributionInfo, generators: list[sp.Matrix], plant: Plant,
+                      ctx: NumericContext) -> None:
+    width = (info.order + 1) * plant.m
+    result = involutivity(generators[:width], plant.states, ctx)
+    info.involutive, info.method = result.involutive, result.method
+    if result.witness:
+        a, b = (_generator_name(i, plant.m, plant.input_names) for i in result.witness)
+        info.witness = f"[{a}, {b}]"
+
+
+def _decide_involutivity(infos: list[DistributionInfo], generators: list[sp.Matrix], plant: Plant,
+                         ctx: NumericContext) -> None:
+    """Involutivity of D_0 .. D_(n-2), cheapest route first.
+
+    With one input only D_(n-2) matters (Isidori, Thm. 4.2.3); when it is involutive
+    and rank D_(n-1) = n the plant is linearizable, and since the D_k are invariant
+    under regular static feedback the lower ones are then involutive too. With several
+    inputs every D_k is checked in order. After the first failure the rest are left
+    unchecked (``involutive`` None, saying so).
+    """
+    n = plant.n
+    pending = [d for d in infos if d.order <= n - 2 and d.involutive is None]
+    if not pending:
+        return
+    top = pending[-1]
+    if plant.m == 1 and top.order == n - 2 and infos[-1].rank == n:
+        _check_involutive(top, generators, plant, ctx)
+        if top.involutive:
+            for d in pending[:-1]:
+                d.involutive = True
+                d.method = f"implied: D_{n - 2} involutive with one input (feedback invariance)"
+            return
+        pending = pending[:-1]
+    failed: int | None = None
+    for d in pending:
+        if failed is not None:
+            d.method = f"not checked: D_{failed} is already not involutive"
+            continue
+        _check_involutive(d, generators, plant, ctx)
+        if d.involutive is False:
+            failed = d.order
 
 
 def _verdict(plant: Plant, infos: list[DistributionInfo]) -> tuple[bool | None, str]:
