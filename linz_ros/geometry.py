@@ -11,7 +11,7 @@ Conventions (Isidori, Nonlinear Control Systems, 3rd ed., sec. 1.2):
 
 Public names
 ------------
-lie_derivative, lie_derivative_covector, lie_bracket, ad, distribution
+lie_derivative, lie_derivative_covector, lie_bracket, ad, distribution, bracket_blocks
 NumericContext, Decision, is_identically_zero, evaluate, rank_at, generic_rank,
 Involutivity, involutivity
 """
@@ -19,15 +19,16 @@ Involutivity, involutivity
 from __future__ import annotations
 
 import functools
+import itertools
 import math
 from dataclasses import dataclass, field
-from typing import Sequence
+from typing import Iterator, Sequence
 
 import numpy as np
 import sympy as sp
 
 __all__ = [
-    "lie_derivative", "lie_derivative_covector", "lie_bracket", "ad", "distribution",
+    "lie_derivative", "lie_derivative_covector", "lie_bracket", "ad", "distribution", "bracket_blocks",
     "NumericContext", "Decision", "is_identically_zero", "evaluate", "rank_at",
     "generic_rank", "Involutivity", "involutivity", "evaluate_many", "numeric_rank",
     "sampled_rank", "fits_symbolic_budget", "RankResult",
@@ -143,6 +144,29 @@ def ad(f: sp.Matrix, g: sp.Matrix, x: Sequence[sp.Symbol], k: int) -> sp.Matrix:
     return result
 
 
+def bracket_blocks(f: sp.Matrix, G: sp.Matrix, x: Sequence[sp.Symbol]) -> Iterator[list[sp.Matrix]]:
+    """Yield ``[ad_f^j g_1, ..., ad_f^j g_m]`` for j = 0, 1, 2, ... (computed on demand).
+
+    Parameters
+    ----------
+    f : sympy.Matrix
+        Drift, n x 1.
+    G : sympy.Matrix
+        Input matrix, n x m.
+    x : sequence of sympy.Symbol
+
+    Returns
+    -------
+    iterator of list of sympy.Matrix
+        Block j holds the m fields ``ad_f^j g_i``; the next block is only computed
+        when asked for.
+    """
+    block = [G[:, i] for i in range(G.shape[1])]
+    while True:
+        yield block
+        block = [lie_bracket(f, c, x) for c in block]
+
+
 def distribution(f: sp.Matrix, G: sp.Matrix, x: Sequence[sp.Symbol], k: int) -> list[sp.Matrix]:
     """Generators of ``D_k = span{ad_f^j g_i : 0 <= j <= k, all inputs i}``.
 
@@ -160,13 +184,7 @@ def distribution(f: sp.Matrix, G: sp.Matrix, x: Sequence[sp.Symbol], k: int) -> 
     list of sympy.Matrix
         Ordered by j, then by input: g_1, ..., g_m, ad_f g_1, ..., ad_f^k g_m.
     """
-    columns = []
-    current = [G[:, i] for i in range(G.shape[1])]
-    for j in range(k + 1):
-        if j:
-            current = [lie_bracket(f, c, x) for c in current]
-        columns.extend(current)
-    return columns
+    return [field for block in itertools.islice(bracket_blocks(f, G, x), k + 1) for field in block]
 
 
 # -- numeric decisions ---------------------------------------------------------------

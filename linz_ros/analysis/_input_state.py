@@ -9,8 +9,8 @@ import numpy as np
 import sympy as sp
 
 from linz_ros.analysis._common import depends_on_states, show, tidy
-from linz_ros.geometry import (NumericContext, evaluate, evaluate_many, fits_symbolic_budget,
-                               generic_rank, involutivity, is_identically_zero, lie_bracket,
+from linz_ros.geometry import (NumericContext, bracket_blocks, evaluate, evaluate_many,
+                               fits_symbolic_budget, generic_rank, involutivity, is_identically_zero,
                                lie_derivative, numeric_rank, sampled_rank)
 from linz_ros.model import Plant
 
@@ -113,12 +113,9 @@ def analyse_input_state(plant: Plant, ctx: NumericContext) -> InputStateResult:
     generators: list[sp.Matrix] = []
     point_blocks: list[np.ndarray] = []
     sample_blocks: list[np.ndarray] = []
-    block = [plant.G[:, i] for i in range(m)]
     infos: list[DistributionInfo] = []
     full_from: int | None = None      # first k with D_k of full generic rank
-    for k in range(n):
-        if k:
-            block = [lie_bracket(plant.f, c, x) for c in block]
+    for k, block in zip(range(n), bracket_blocks(plant.f, plant.G, x)):
         generators.extend(block)
         # D_k are nested: evaluate only the new generators, once, and keep the numbers
         new = sp.Matrix.hstack(*block)
