@@ -6,7 +6,7 @@ every distribution up to D_(2n-1) is built). Times are printed as seconds and as
 ratios to the smallest chain measured in the same run; the machine is noisy, so only
 the ratios and the fitted growth exponent mean anything.
 
-Run:  python benchmarks/check_scaling.py [--max-pendulums 6] [--repeat 1]
+Run:  python benchmarks/check_scaling.py [--max-pendulums 5] [--repeat 1]
 """
 
 from __future__ import annotations
@@ -52,7 +52,8 @@ def _time(fn, repeat: int) -> float:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--max-pendulums", type=int, default=6)
+    parser.add_argument("--max-pendulums", type=int, default=5,
+                        help="largest chain (6 and more take minutes: see DEVELOPERS.md)")
     parser.add_argument("--repeat", type=int, default=1)
     parser.add_argument("--samples", type=int, default=256)
     args = parser.parse_args()
