@@ -346,7 +346,8 @@ def evaluate_many(matrix: sp.Matrix, ctx: NumericContext, points: Sequence[Seque
 
 def rank_at(matrix: sp.Matrix, ctx: NumericContext, point: Sequence[float],
             rtol: float = RANK_RTOL, atol: float = RANK_ATOL) -> int | None:
-    """Numeric rank at a point: singular values above ``max(rtol * sigma_1, atol)``.
+    """Numeric rank at a point: singular values above ``max(rtol * sigma_1, atol)``,
+    after scaling columns to unit norm (see :func:`numeric_rank`).
 
     Parameters
     ----------
@@ -365,7 +366,8 @@ def rank_at(matrix: sp.Matrix, ctx: NumericContext, point: Sequence[float],
 
 
 def numeric_rank(values: np.ndarray, rtol: float = RANK_RTOL, atol: float = RANK_ATOL) -> int | None:
-    """Rank of a numeric matrix: singular values above ``max(rtol * sigma_1, atol)``.
+    """Rank of a numeric matrix: singular values above ``max(rtol * sigma_1, atol)``,
+    after scaling columns to unit norm.
 
     Parameters
     ----------
@@ -381,8 +383,20 @@ def numeric_rank(values: np.ndarray, rtol: float = RANK_RTOL, atol: float = RANK
         return 0
     if not np.all(np.isfinite(values)):
         return None
-    sigma = np.linalg.svd(values, compute_uv=False)
+    sigma = np.linalg.svd(_equilibrate(values, atol), compute_uv=False)
     return int(np.sum(sigma > max(rtol * sigma[0], atol)))
+
+
+def _equilibrate(values: np.ndarray, atol: float) -> np.ndarray:
+    """Scale every column to unit norm; columns with norm up to ``atol`` become zero.
+
+    Rank is invariant under nonsingular column scaling, and iterated brackets differ
+    in size by many orders of magnitude (ad_f^k g grows like a rate to the k-th power),
+    so an unscaled relative tolerance would drop real directions. Rows are left alone:
+    scaling a row of rounding noise would turn noise into a direction.
+    """
+    norms = np.linalg.norm(values, axis=0, keepdims=True)
+    return np.where(norms > atol, values / np.where(norms > atol, norms, 1.0), 0.0)
 
 
 def fits_symbolic_budget(matrix: sp.Matrix) -> bool:
@@ -502,10 +516,11 @@ def involutivity(columns: Sequence[sp.Matrix], x: Sequence[sp.Symbol], ctx: Nume
         return Involutivity(True, "empty distribution")
     D = sp.Matrix.hstack(*columns)
     pairs = [(i, j) for i in range(len(columns)) for j in range(i + 1, len(columns))]
-    brackets = [lie_bracket(columns[i], columns[j], x) for i, j in pairs]
-    if fits_symbolic_budget(sp.Matrix.hstack(D, *brackets)):
-        return _involutivity_symbolic(D, pairs, brackets, len(x), ctx)
-    return _involutivity_sampled(D, pairs, brackets, len(x), ctx)
+    if fits_symbolic_budget(D):
+        brackets = [lie_bracket(columns[i], columns[j], x) for i, j in pairs]
+        if fits_symbolic_budget(sp.Matrix.hstack(D, *brackets)):
+            return _involutivity_symbolic(D, pairs, brackets, len(x), ctx)
+    return _involutivity_sampled(columns, pairs, x, ctx)
 
 
 def _involutivity_symbolic(D, pairs, brackets, n, ctx) -> Involutivity:
@@ -527,10 +542,17 @@ def _involutivity_symbolic(D, pairs, brackets, n, ctx) -> Involutivity:
     return Involutivity(True, "; ".join(sorted(methods)))
 
 
-def _involutivity_sampled(D, pairs, brackets, n, ctx) -> Involutivity:
-    """Each bracket against D at the random points where D has its generic rank."""
-    k = D.shape[1]
-    values = evaluate_many(sp.Matrix.hstack(D, *brackets), ctx, ctx.samples)
+def _involutivity_sampled(columns, pairs, x, ctx) -> Involutivity:
+    """Each bracket against D at the random points where D has its generic rank.
+
+    The brackets are formed numerically, ``[X_i, X_j] = (dX_j/dx) X_i - (dX_i/dx) X_j``,
+    from the compiled fields and their Jacobians: compiling k Jacobians costs far less
+    than compiling k(k-1)/2 symbolic brackets, each about 2n times larger.
+    """
+    n, k = len(x), len(columns)
+    X = sp.Matrix(x)
+    stacked = sp.Matrix.hstack(*columns, *(c.jacobian(X) for c in columns))
+    values = evaluate_many(stacked, ctx, ctx.samples)
     finite = [v for v in values if np.all(np.isfinite(v))]
     if not finite:
         return Involutivity(None, "not finite at any sample point")
@@ -540,9 +562,13 @@ def _involutivity_sampled(D, pairs, brackets, n, ctx) -> Involutivity:
         return Involutivity(True, "full rank")
     regular = [v for v, r in zip(finite, ranks) if r == generic]
     method = f"numeric at {len(regular)} random points (rtol {RANK_RTOL:g})"
-    for index, pair in enumerate(pairs):
-        column = k + index
+    for pair in pairs:
+        i, j = pair
         for v in regular:
-            if numeric_rank(np.column_stack([v[:, :k], v[:, column]])) > generic:
+            fields = v[:, :k]
+            jac_i = v[:, k + i * n: k + (i + 1) * n]
+            jac_j = v[:, k + j * n: k + (j + 1) * n]
+            bracket = jac_j @ fields[:, i] - jac_i @ fields[:, j]
+            if numeric_rank(np.column_stack([fields, bracket])) > generic:
                 return Involutivity(False, method, pair)
     return Involutivity(True, method)

@@ -6,7 +6,7 @@ import sympy as sp
 
 from linz_ros.geometry import (NumericContext, ad, distribution, evaluate, generic_rank,
                                involutivity, is_identically_zero, lie_bracket, lie_derivative,
-                               lie_derivative_covector, rank_at)
+                               lie_derivative_covector, numeric_rank, rank_at)
 
 x1, x2, x3 = sp.symbols("x1 x2 x3", real=True)
 X = (x1, x2, x3)
@@ -144,3 +144,22 @@ def test_involutivity_of_classic_distributions():
     R = sp.Matrix([-x2, x1, 0])
     radial = sp.Matrix([x1, x2, 0])
     assert involutivity([R, radial], X, ctx).involutive is True
+
+
+def test_numeric_rank_ignores_the_scale_of_each_column():
+    # iterated brackets differ by many orders of magnitude; both directions are real
+    assert numeric_rank(np.diag([1e-5, 1e6])) == 2
+    assert numeric_rank(np.array([[1e-5, 2e-5], [1e6, 2e6]]).T) == 1
+    assert numeric_rank(np.array([[1.0, 1e-13], [0.0, 1e-13]])) == 1    # second column is below atol
+
+
+def test_sampled_involutivity_matches_the_symbolic_decision():
+    ctx = _ctx()
+    # large generators force the sampled path; the contact pair stays non-involutive
+    pad = sp.expand((x1 + x2 + x3 + 2) ** 5)
+    X1 = sp.Matrix([pad, 0, -x2 * pad / 2])
+    X2 = sp.Matrix([0, pad, x1 * pad / 2])
+    result = involutivity([X1, X2], X, ctx)
+    assert result.method.startswith("numeric") and result.involutive is False
+    flat = involutivity([sp.Matrix([pad, 0, 0]), sp.Matrix([0, pad, 0])], X, ctx)
+    assert flat.method.startswith("numeric") and flat.involutive is True
