@@ -10,7 +10,7 @@ import scipy.linalg
 import sympy as sp
 
 from linz_ros.analysis._common import show, tidy
-from linz_ros.analysis._input_state import relative_degree_of, state_factors
+from linz_ros.analysis._input_state import lie_chain, state_factors
 from linz_ros.geometry import NumericContext, evaluate, generic_rank, lie_derivative, rank_at
 from linz_ros.model import Plant
 
@@ -92,15 +92,12 @@ def decoupling_terms(plant: Plant, ctx: NumericContext
     """
     degrees, rows, drift = [], [], []
     for i in range(plant.h.shape[0]):
-        degree, row = relative_degree_of(plant.h[i], plant, ctx)
+        degree, row, last = lie_chain(plant.h[i], plant, ctx)
         degrees.append(degree)
         if degree is None:
             continue
-        phi = plant.h[i]
-        for _ in range(degree):
-            phi = lie_derivative(phi, plant.f, plant.states)
         rows.append(row)
-        drift.append(phi)
+        drift.append(lie_derivative(last, plant.f, plant.states))
     if any(d is None for d in degrees):
         return degrees, None, None
     A = sp.Matrix.vstack(*rows).applyfunc(tidy)

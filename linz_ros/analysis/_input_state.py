@@ -287,13 +287,35 @@ def relative_degree_of(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[i
     coefficient : sympy.Matrix or sympy.Integer
         The row ``L_G L_f^(r-1) h`` (1 x m), or 0 when ``degree`` is None.
     """
+    degree, row, _ = lie_chain(h, plant, ctx)
+    return degree, row
+
+
+def lie_chain(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[int | None, sp.Expr, sp.Expr]:
+    """Relative degree r of ``h``, the row L_G L_f^(r-1) h, and L_f^(r-1) h itself.
+
+    Parameters
+    ----------
+    h : sympy.Expr
+    plant : Plant
+    ctx : NumericContext
+
+    Returns
+    -------
+    degree : int or None
+    coefficient : sympy.Matrix or sympy.Integer
+    last : sympy.Expr
+        L_f^(r-1) h, the last derivative not reached by the inputs (so that
+        L_f^r h is one more Lie derivative); L_f^(n-1) h when ``degree`` is None.
+    """
     phi = h
     for k in range(plant.n):
         row = [lie_derivative(phi, plant.G[:, j], plant.states) for j in range(plant.m)]
         if not all(is_identically_zero(e, ctx).value for e in row):
-            return k + 1, sp.Matrix([row])
-        phi = lie_derivative(phi, plant.f, plant.states)
-    return None, sp.Integer(0)
+            return k + 1, sp.Matrix([row]), phi
+        if k < plant.n - 1:
+            phi = lie_derivative(phi, plant.f, plant.states)
+    return None, sp.Integer(0), phi
 
 
 def find_linearizing_output(plant: Plant, generators: list[sp.Matrix], ctx: NumericContext,
