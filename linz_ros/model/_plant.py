@@ -85,10 +85,6 @@ class Plant:
         """Parameter substitution with exact rationals of the nominal values."""
         return {p: sp.Rational(repr(v)) for p, v in self.parameters.items()}
 
-    def vector_field(self, j: int) -> sp.Matrix:
-        """Column ``j`` of G, the input vector field g_j."""
-        return self.G[:, j]
-
     def operating_vector(self) -> list[float]:
         """The operating point as a list in state order."""
         return [self.operating_point[s.name] for s in self.states]
