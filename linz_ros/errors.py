@@ -6,7 +6,8 @@ any :class:`LinzError` into a single line on stderr and exit code 2.
 
 from __future__ import annotations
 
-__all__ = ["LinzError", "ExpressionSyntaxError", "PlantFileError", "AnalysisError"]
+__all__ = ["LinzError", "ExpressionSyntaxError", "LocatedError", "PlantFileError", "AnalysisError", "DesignError",
+           "ArtifactError", "ConfigError"]
 
 
 class LinzError(ValueError):
@@ -34,15 +35,15 @@ class ExpressionSyntaxError(LinzError):
         super().__init__(f"cannot read {text!r}: {problem}{where}")
 
 
-class PlantFileError(LinzError):
-    """A plant file that cannot be loaded; names the file, the field and the problem.
+class LocatedError(LinzError):
+    """A mistake at one place of one input: ``source: field: problem``.
 
     Parameters
     ----------
     source : str
-        The file name (or ``<string>`` for text given directly).
+        The file name (``<string>`` for text given directly, ``<command line>`` for options).
     field : str
-        Dotted path of the offending field, e.g. ``dynamics.x2``; empty for the file.
+        Dotted path of the offending field, e.g. ``dynamics.x2``; empty for the whole input.
     problem : str
         What is wrong, in one line.
     """
@@ -55,5 +56,48 @@ class PlantFileError(LinzError):
         super().__init__(": ".join(parts))
 
 
+class PlantFileError(LocatedError):
+    """A plant file that cannot be loaded; names the file, the field and the problem."""
+
+
 class AnalysisError(LinzError):
     """A request to the analysis that does not make sense for the plant (e.g. a bad point)."""
+
+
+class DesignError(LocatedError):
+    """A design that cannot be synthesised (wrong pole count, unreachable outputs, ...);
+    names the plant file or ``<command line>``, the field and the problem."""
+
+
+class ArtifactError(LinzError):
+    """A controller artifact that cannot be loaded or written; names the file and the problem.
+
+    Parameters
+    ----------
+    source : str
+        The artifact file.
+    problem : str
+        What is wrong, in one line.
+    """
+
+    def __init__(self, source: str, problem: str) -> None:
+        self.source = source
+        self.problem = problem
+        super().__init__(f"{source}: {problem}")
+
+
+class ConfigError(LinzError):
+    """A runtime or simulation setting that is out of range or inconsistent.
+
+    Parameters
+    ----------
+    field : str
+        The setting, e.g. ``sigma_act`` or ``--mismatch``.
+    problem : str
+        What is wrong, in one line.
+    """
+
+    def __init__(self, field: str, problem: str) -> None:
+        self.field = field
+        self.problem = problem
+        super().__init__(f"{field}: {problem}")

@@ -1,0 +1,136 @@
+"""The artifact compiler: grammar text -> Python, same numbers as sympy, nothing else runs."""
+
+import math
+
+import numpy as np
+import pytest
+import sympy as sp
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from linz_ros.artifact.compiler import compile_program
+from linz_ros.codegen import to_grammar
+from linz_ros.errors import ArtifactError
+
+
+def _one(text, names=("a", "b"), backend="math"):
+    return compile_program("t", [("x", list(names))], [], [("y", [1], [text])], backend=backend)
+
+
+@pytest.mark.parametrize("text, a, b, expected", [
+    ("a - b - a", 2.0, 3.0, -3.0),                 # left association kept
+    ("a - (b - a)", 2.0, 3.0, 1.0),
+    ("a / b / a", 2.0, 4.0, 0.25),
+    ("a / (b / a)", 2.0, 4.0, 1.0),
+    ("-a**2", 3.0, 0.0, -9.0),                    # unary minus binds looser than powers
+    ("(-a)**2", 3.0, 0.0, 9.0),
+    ("a**b**0.5", 2.0, 4.0, 4.0),                 # right-associative powers
+    ("2**-a", 1.0, 0.0, 0.5),
+    ("a^2 + b^-1", 3.0, 2.0, 9.5),
+    ("atan2(a, b) + abs(-b) + sign(-a) + sign(0*a)", 1.0, 1.0, math.pi / 4 + 1.0 - 1.0),
+    ("sqrt(a) * exp(log(b)) + pi", 4.0, 3.0, 6.0 + math.pi),
+    ("a**0.5", 2.25, 0.0, 1.5),
+    ("1e-3*a + .5", 2.0, 0.0, 0.502),
+])
+def test_precedence_and_functions_match_the_grammar(text, a, b, expected):
+    for backend in ("math", "numpy"):
+        value = _one(text, backend=backend)([a, b])[0]
+        assert value == pytest.approx(expected, rel=1e-14, abs=1e-15), backend
+
+
+def test_temporaries_chain_and_outputs_have_shapes():
+    program = compile_program("t", [("x", ["q"]), ("p", ["k"])], [("_t0", "k*q"), ("_t1", "_t0 + 1")],
+                              [("A", [2, 2], ["_t0", "_t1", "0", "q"]), ("s", [1], ["_t1**2"])])
+    assert program([2.0], [3.0]) == (6.0, 7.0, 0.0, 2.0, 49.0)
+    out = program.evaluate([2.0], [3.0])
+    assert out["A"].shape == (2, 2) and out["A"][0, 1] == 7.0 and out["s"].tolist() == [49.0]
+
+
+def test_numpy_backend_evaluates_many_points_at_once():
+    program = compile_program("t", [("x", ["a", "b"])], [("_t0", "sin(a)")],
+                              [("y", [2], ["_t0*b", "1"])], backend="numpy")
+    points = np.array([[0.0, 1.0, 2.0], [1.0, 2.0, 3.0]])  # row i = state i at three points
+    out = program.evaluate(points)["y"]
+    np.testing.assert_allclose(out[0], np.sin(points[0]) * points[1])
+    np.testing.assert_allclose(out[1], [1.0, 1.0, 1.0])
+
+
+@pytest.mark.parametrize("text", ["sqrt(a - 5)", "log(a - a)", "a/(b - b)", "(a - 5)**0.5", "exp(1000*a)",
+                                  "acos(a + 3)"])
+def test_domain_errors_raise_arithmetic_or_value_errors_on_the_math_backend(text):
+    program = _one(text)
+    with pytest.raises((ArithmeticError, ValueError)):
+        program([1.0, 2.0])
+    assert math.isnan(program.evaluate([1.0, 2.0])["y"][0])
+
+
+@pytest.mark.parametrize("text, words", [
+    ("__import__('os')", "unexpected character"),
+    ("a.__class__", "unexpected character"),
+    ("eval(a)", "'eval' is not a known function"),
+    ("getattr(a, b)", "'getattr' is not a known function"),
+    ("lambda: a", "unexpected character"),
+    ("[a for a in b]", "unexpected character"),
+    ("a; import os", "unexpected character"),
+    ("c + a", "unknown name 'c'"),
+    ("open", "unknown name 'open'"),
+    ("__builtins__", "unknown name '__builtins__'"),
+    ("1e999*a", "out of range"),
+    ("sin(a, b)", "takes 1 argument"),
+])
+def test_anything_outside_the_grammar_is_refused_before_compiling(text, words):
+    with pytest.raises(ArtifactError, match="t: y\\[0\\]") as info:
+        _one(text)
+    assert words in str(info.value)
+
+
+def test_names_are_checked():
+    with pytest.raises(ArtifactError, match="declared twice"):
+        compile_program("t", [("x", ["a", "a"])], [], [("y", [1], ["a"])])
+    with pytest.raises(ArtifactError, match="not a valid name"):
+        compile_program("t", [("x", ["a-b"])], [], [("y", [1], ["1"])])
+    with pytest.raises(ArtifactError, match="reserved constant"):
+        compile_program("t", [("x", ["pi"])], [], [("y", [1], ["1"])])
+    with pytest.raises(ArtifactError, match="shape \\[2\\] needs 2"):
+        compile_program("t", [("x", ["a"])], [], [("y", [2], ["a"])])
+    with pytest.raises(ArtifactError, match="temporary _t1: .*unknown name '_t2'"):
+        compile_program("t", [("x", ["a"])], [("_t1", "_t2"), ("_t2", "a")], [("y", [1], ["_t1"])])
+
+
+def test_the_emitted_source_only_uses_its_own_names():
+    program = compile_program("t", [("x", ["lambda", "E"])], [("_t0", "lambda*E")], [("y", [1], ["_t0 + E"])])
+    assert "lambda" not in program.source.split("def _program")[1].replace("_program", "")
+    assert program([2.0, 3.0]) == (9.0,)
+
+
+def test_a_long_sum_compiles_without_deep_nesting():
+    text = " + ".join(f"{k}*a" for k in range(3000))
+    assert _one(text)([1.0, 0.0])[0] == sum(range(3000))
+
+
+# -- property: printed sympy expressions evaluate like sympy ----------------------------------
+_x, _y = sp.symbols("x y", real=True)
+_leaves = st.sampled_from([_x, _y, sp.Integer(2), sp.Rational(3, 7), sp.Float(0.37), sp.pi, -_x])
+_unary = [sp.sin, sp.cos, sp.atan, sp.exp, sp.tanh, lambda e: sp.sqrt(e ** 2 + 1), lambda e: sp.log(e ** 2 + 1)]
+
+
+def _combine(children):
+    pairs = st.tuples(children, children)
+    return st.one_of(
+        pairs.map(lambda p: p[0] + p[1]), pairs.map(lambda p: p[0] - p[1]), pairs.map(lambda p: p[0] * p[1]),
+        pairs.map(lambda p: p[0] / (p[1] ** 2 + 1)), children.map(lambda e: e ** 3), children.map(lambda e: -e),
+        st.tuples(st.sampled_from(_unary), children).map(lambda p: p[0](p[1])))
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.recursive(_leaves, _combine, max_leaves=12), st.floats(-2, 2), st.floats(-2, 2))
+def test_printed_expressions_compile_to_the_same_numbers_as_sympy(expr, a, b):
+    expected = complex(expr.evalf(30, subs={_x: a, _y: b}))
+    if not (math.isfinite(expected.real) and abs(expected.imag) < 1e-12 and abs(expected.real) < 1e12):
+        return
+    program = compile_program("t", [("x", ["x", "y"])], [], [("y", [1], [to_grammar(expr)])])
+    try:
+        got = program([a, b])[0]
+    except OverflowError:
+        return
+    assert got == pytest.approx(expected.real, rel=1e-9, abs=1e-9)
