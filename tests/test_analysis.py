@@ -257,8 +257,9 @@ def test_drift_terms_and_decoupling_matrix_give_the_output_second_derivative():
     # f + G u (u held constant) with sympy directly and compare at random points
     from linz_ros.analysis import decoupling_terms
     plant = load_plant(BUNDLED / "mast_camera.yaml")
-    degrees, A, b = decoupling_terms(plant, plant_context(plant))
+    degrees, A, b, chains = decoupling_terms(plant, plant_context(plant))
     assert degrees == [2, 2]
+    assert [len(c) for c in chains] == [2, 2] and chains[0][0] == plant.h[0]
     X, U = sp.Matrix(plant.states), sp.Matrix(plant.inputs)
     F = plant.closed_form_dynamics()
     y_dot = plant.h.jacobian(X) * F

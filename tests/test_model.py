@@ -112,6 +112,23 @@ BAD = [
     ("pole for unknown output", MINIMAL + "outputs: {y: x1}\ndesign: {poles: {z: [-1, -2]}}\n",
      "design.poles.z", "'z' is not an output"),
     ("negative rate", MINIMAL + "design: {rate: -5}\n", "design.rate", "must be positive"),
+    ("pole list with two outputs", MINIMAL + "outputs: {y: x1, z: x2}\ndesign: {poles: [-1, -2]}\n",
+     "design.poles", "with several outputs, give a mapping"),
+    ("unknown watchdog key", MINIMAL + "design: {watchdog: {sigma_wran: 1}}\n", "design.watchdog.sigma_wran",
+     "unknown key; expected one of sigma_warn"),
+    ("watchdog levels out of order", MINIMAL + "design: {watchdog: {sigma_warn: 0.1, sigma_act: 0.2}}\n",
+     "design.watchdog.sigma_act", "0.2 is above sigma_warn 0.1"),
+    ("negative stale time", MINIMAL + "design: {watchdog: {stale_after: -1}}\n", "design.watchdog.stale_after",
+     "must be positive"),
+    ("rate limit of a non-input", MINIMAL + "design: {watchdog: {rate_limits: {w: 1}}}\n",
+     "design.watchdog.rate_limits.w", "'w' is not an input"),
+    ("zero rate limit", MINIMAL + "design: {watchdog: {rate_limits: {u: 0}}}\n",
+     "design.watchdog.rate_limits.u", "must be positive"),
+    ("safe command of a non-input", MINIMAL + "design: {watchdog: {safe_command: {w: 0}}}\n",
+     "design.watchdog.safe_command.w", "'w' is not an input"),
+    ("safe command word", MINIMAL + "design: {watchdog: {safe_command: brake}}\n",
+     "design.watchdog.safe_command", "expected zero, hold, or a mapping"),
+    ("reference not text", MINIMAL + "design: {reference: 5}\n", "design.reference", "expected text"),
 ]
 
 
@@ -125,6 +142,17 @@ def test_bad_plant_files_name_file_field_and_problem(write_plant, text, field, p
     assert message.startswith(str(path) + ": ")
     assert info.value.field == field
     assert problem in message
+
+
+def test_design_section_reads_poles_lists_watchdog_and_reference():
+    plant = plant_from_text(MINIMAL + "outputs: {y: x1}\ndesign:\n  poles: [-1, -2+1j, -2-1j]\n"
+                            "  reference: ' step:amplitude=1 '\n  watchdog: {sigma_warn: 0.5, sigma_stop: 0,"
+                            " safe_command: {u: 0.25}, rate_limits: {u: 10}, hold_time: 0.2}\n")
+    assert plant.design["poles"] == [-1, complex(-2, 1), complex(-2, -1)]
+    assert plant.design["reference"] == "step:amplitude=1"
+    assert plant.design["watchdog"] == {"sigma_warn": 0.5, "sigma_stop": 0.0, "hold_time": 0.2,
+                                        "safe_command": {"kind": "fixed", "value": [0.25]},
+                                        "rate_limits": {"u": 10.0}}
 
 
 def test_missing_file_and_folder(tmp_path):

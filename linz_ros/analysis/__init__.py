@@ -10,18 +10,22 @@ analyse_input_output  relative degree, decoupling matrix, singular set, zero dyn
 sample_envelope       conditioning of a matrix over the operating envelope
 invariant_zeros       finite zeros of a square linear system
 controllability_indices  Kronecker indices from the ranks of D_k
+plant_context         parameters and random envelope points for numeric decisions
+lie_chain             relative degree of one output and its derivatives h, L_f h, ...
 """
 
+from linz_ros.analysis._common import plant_context
 from linz_ros.analysis._envelope import EnvelopeResult, sample_envelope
 from linz_ros.analysis._input_output import (InputOutputResult, ZeroDynamics, analyse_input_output,
                                              decoupling_terms, invariant_zeros)
 from linz_ros.analysis._input_state import (DistributionInfo, InputStateResult, analyse_input_state,
-                                            controllability_indices, relative_degree_of)
+                                            controllability_indices, lie_chain,
+                                            relative_degree_of)
 from linz_ros.analysis._report import Report, analyse, render_text
 
 __all__ = [
     "analyse", "render_text", "Report", "analyse_input_state", "analyse_input_output",
     "sample_envelope", "invariant_zeros", "controllability_indices", "relative_degree_of",
-    "decoupling_terms", "DistributionInfo", "InputStateResult", "InputOutputResult",
-    "ZeroDynamics", "EnvelopeResult",
+    "decoupling_terms", "lie_chain", "DistributionInfo", "InputStateResult", "InputOutputResult",
+    "ZeroDynamics", "EnvelopeResult", "plant_context",
 ]

@@ -12,7 +12,18 @@ TIDY_BUDGET = 250
 
 
 def plant_context(plant: Plant, count: int = 5) -> NumericContext:
-    """Numeric context of a plant: nominal parameters, random points in its envelope."""
+    """Numeric context of a plant: nominal parameters, random points in its envelope.
+
+    Parameters
+    ----------
+    plant : Plant
+    count : int
+        Number of random points (within +-1 of the operating point where unbounded).
+
+    Returns
+    -------
+    NumericContext
+    """
     bounds = {i: plant.envelope[s.name] for i, s in enumerate(plant.states) if s.name in plant.envelope}
     return NumericContext.around(plant.states, plant.nominal, plant.operating_vector(), bounds, count)
 

@@ -50,6 +50,7 @@ class InputOutputResult:
     reason: str
     decoupling_matrix: sp.Matrix | None = None
     drift_terms: sp.Matrix | None = None
+    chains: list[list[sp.Expr]] = field(default_factory=list)
     singular_set: sp.Expr | None = None
     singular_set_note: str = ""
     zero_dynamics_order: int | None = None
@@ -73,8 +74,8 @@ class InputOutputResult:
 
 
 def decoupling_terms(plant: Plant, ctx: NumericContext
-                     ) -> tuple[list[int | None], sp.Matrix | None, sp.Matrix | None]:
-    """Generic relative degrees, decoupling matrix A(x) and stacked b(x) = L_f^r_i h_i.
+                     ) -> tuple[list[int | None], sp.Matrix | None, sp.Matrix | None, list[list[sp.Expr]]]:
+    """Generic relative degrees, decoupling matrix A(x), stacked b(x) = L_f^r_i h_i, chains.
 
     Parameters
     ----------
@@ -89,19 +90,22 @@ def decoupling_terms(plant: Plant, ctx: NumericContext
         Row i is ``L_G L_f^(r_i - 1) h_i``; None when some degree is None.
     b : sympy.Matrix or None
         Column of ``L_f^(r_i) h_i``.
+    chains : list of list of sympy.Expr
+        For each output, ``[h_i, L_f h_i, ..., L_f^(r_i - 1) h_i]``.
     """
-    degrees, rows, drift = [], [], []
+    degrees, rows, drift, chains = [], [], [], []
     for i in range(plant.h.shape[0]):
-        degree, row, last = lie_chain(plant.h[i], plant, ctx)
+        degree, row, chain = lie_chain(plant.h[i], plant, ctx)
         degrees.append(degree)
+        chains.append(chain)
         if degree is None:
             continue
         rows.append(row)
-        drift.append(lie_derivative(last, plant.f, plant.states))
+        drift.append(lie_derivative(chain[-1], plant.f, plant.states))
     if any(d is None for d in degrees):
-        return degrees, None, None
+        return degrees, None, None, chains
     A = sp.Matrix.vstack(*rows).applyfunc(tidy)
-    return degrees, A, sp.Matrix(drift)
+    return degrees, A, sp.Matrix(drift), chains
 
 
 def analyse_input_output(plant: Plant, ctx: NumericContext) -> InputOutputResult | None:
@@ -125,13 +129,13 @@ def analyse_input_output(plant: Plant, ctx: NumericContext) -> InputOutputResult
     if p == 0:
         return None
     names = list(plant.output_names)
-    degrees, A, b = decoupling_terms(plant, ctx)
+    degrees, A, b, chains = decoupling_terms(plant, ctx)
     if A is None:
         lost = [names[i] for i, d in enumerate(degrees) if d is None]
         return InputOutputResult(names, None, degrees,
                                  f"output(s) {', '.join(lost)} are not affected by any input "
                                  f"within {plant.n} derivatives (infinite relative degree)")
-    result = InputOutputResult(names, None, degrees, "", decoupling_matrix=A, drift_terms=b)
+    result = InputOutputResult(names, None, degrees, "", decoupling_matrix=A, drift_terms=b, chains=chains)
     if p > m:
         result.reason = f"{p} outputs but only {m} inputs: the decoupling matrix cannot have full row rank"
         return result

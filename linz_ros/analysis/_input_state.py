@@ -14,7 +14,7 @@ from linz_ros.geometry import (NumericContext, bracket_blocks, evaluate, evaluat
                                lie_derivative, numeric_rank, sampled_rank)
 from linz_ros.model import Plant
 
-__all__ = ["DistributionInfo", "InputStateResult", "analyse_input_state", "relative_degree_of"]
+__all__ = ["DistributionInfo", "InputStateResult", "analyse_input_state", "relative_degree_of", "lie_chain"]
 
 
 @dataclass
@@ -291,8 +291,8 @@ def relative_degree_of(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[i
     return degree, row
 
 
-def lie_chain(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[int | None, sp.Expr, sp.Expr]:
-    """Relative degree r of ``h``, the row L_G L_f^(r-1) h, and L_f^(r-1) h itself.
+def lie_chain(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[int | None, sp.Expr, list[sp.Expr]]:
+    """Relative degree r of ``h``, the row L_G L_f^(r-1) h, and the chain h, ..., L_f^(r-1) h.
 
     Parameters
     ----------
@@ -304,18 +304,20 @@ def lie_chain(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[int | None
     -------
     degree : int or None
     coefficient : sympy.Matrix or sympy.Integer
-    last : sympy.Expr
-        L_f^(r-1) h, the last derivative not reached by the inputs (so that
-        L_f^r h is one more Lie derivative); L_f^(n-1) h when ``degree`` is None.
+    chain : list of sympy.Expr
+        ``[h, L_f h, ..., L_f^(r-1) h]``: the derivatives of the output that the inputs
+        do not reach (so L_f^r h is one more Lie derivative of the last);
+        ``[h, ..., L_f^(n-1) h]`` when ``degree`` is None.
     """
-    phi = h
+    chain = [sp.sympify(h)]
     for k in range(plant.n):
+        phi = chain[-1]
         row = [lie_derivative(phi, plant.G[:, j], plant.states) for j in range(plant.m)]
         if not all(is_identically_zero(e, ctx).value for e in row):
-            return k + 1, sp.Matrix([row]), phi
+            return k + 1, sp.Matrix([row]), chain
         if k < plant.n - 1:
-            phi = lie_derivative(phi, plant.f, plant.states)
-    return None, sp.Integer(0), phi
+            chain.append(lie_derivative(phi, plant.f, plant.states))
+    return None, sp.Integer(0), chain
 
 
 def find_linearizing_output(plant: Plant, generators: list[sp.Matrix], ctx: NumericContext,

@@ -16,13 +16,15 @@ from linz_ros.errors import ExpressionSyntaxError, PlantFileError
 from linz_ros.model._plant import Plant
 from linz_ros.model._symbolic import UnknownName, tree_to_sympy
 
-__all__ = ["load_plant", "plant_from_text"]
+__all__ = ["load_plant", "plant_from_text", "expression_in"]
 
 _IDENTIFIER = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
 _TOP_LEVEL = ("plant", "description", "states", "inputs", "parameters", "definitions",
               "dynamics", "outputs", "input_limits", "envelope", "operating_point", "design")
 _REQUIRED = ("plant", "states", "inputs", "dynamics")
-_DESIGN_KEYS = ("rate", "poles", "lqr", "integral")
+_DESIGN_KEYS = ("rate", "poles", "lqr", "integral", "watchdog", "reference")
+_WATCHDOG_KEYS = ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "rate_limits",
+                  "safe_command", "integral_limit", "hold_time")
 _MAX_FILE_BYTES = 5_000_000
 
 
@@ -272,17 +274,7 @@ def _read_design(reader: _Reader, doc: Mapping, outputs: tuple[str, ...], states
     if "poles" in design and "lqr" in design:
         raise reader.fail("design", "give either poles or lqr, not both")
     if "poles" in design:
-        poles = design["poles"]
-        if not isinstance(poles, dict):
-            raise reader.fail("design.poles", "expected a mapping of output: [poles]")
-        result["poles"] = {}
-        for name, values in poles.items():
-            field = f"design.poles.{name}"
-            if name not in outputs:
-                raise reader.fail(field, f"{name!r} is not an output")
-            if not isinstance(values, list) or not values:
-                raise reader.fail(field, "expected a non-empty list of poles")
-            result["poles"][name] = [_read_pole(reader, f"{field}[{i}]", v) for i, v in enumerate(values)]
+        result["poles"] = _read_poles(reader, design["poles"], outputs)
     if "lqr" in design:
         lqr = design["lqr"]
         if not isinstance(lqr, dict) or set(lqr) - {"q", "r"}:
@@ -302,7 +294,88 @@ def _read_design(reader: _Reader, doc: Mapping, outputs: tuple[str, ...], states
         if not isinstance(design["integral"], bool):
             raise reader.fail("design.integral", "expected true or false")
         result["integral"] = design["integral"]
+    if "watchdog" in design:
+        result["watchdog"] = _read_watchdog(reader, design["watchdog"], inputs)
+    if "reference" in design:
+        if not isinstance(design["reference"], str) or not design["reference"].strip():
+            raise reader.fail("design.reference", "expected text such as 'step:amplitude=0.1,at=0.5'")
+        result["reference"] = design["reference"].strip()
     return result
+
+
+def _read_poles(reader: _Reader, poles: Any, outputs: tuple[str, ...]) -> dict[str, list[complex]] | list[complex]:
+    """Poles per output chain (a mapping), or one list for a single chain."""
+    if isinstance(poles, list):
+        if len(outputs) > 1:
+            raise reader.fail("design.poles", "with several outputs, give a mapping of output: [poles]")
+        if not poles:
+            raise reader.fail("design.poles", "expected a non-empty list of poles")
+        return [_read_pole(reader, f"design.poles[{i}]", v) for i, v in enumerate(poles)]
+    if not isinstance(poles, dict):
+        raise reader.fail("design.poles", "expected a mapping of output: [poles]")
+    result = {}
+    for name, values in poles.items():
+        field = f"design.poles.{name}"
+        if name not in outputs:
+            raise reader.fail(field, f"{name!r} is not an output")
+        if not isinstance(values, list) or not values:
+            raise reader.fail(field, "expected a non-empty list of poles")
+        result[name] = [_read_pole(reader, f"{field}[{i}]", v) for i, v in enumerate(values)]
+    return result
+
+
+def _read_watchdog(reader: _Reader, section: Any, inputs: list[str]) -> dict[str, Any]:
+    """Watchdog thresholds: sigma levels (units of the decoupling matrix), damping, limits."""
+    if not isinstance(section, dict):
+        raise reader.fail("design.watchdog", f"expected a mapping, got {_kind(section)}")
+    unknown = [str(k) for k in section if k not in _WATCHDOG_KEYS]
+    if unknown:
+        raise reader.fail(f"design.watchdog.{unknown[0]}",
+                          "unknown key; expected one of " + ", ".join(_WATCHDOG_KEYS))
+    result: dict[str, Any] = {}
+    for key in ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "integral_limit", "hold_time"):
+        if key in section:
+            value = reader.number(f"design.watchdog.{key}", section[key])
+            if value < 0 or (value == 0 and key not in ("sigma_stop",)):
+                raise reader.fail(f"design.watchdog.{key}", f"must be positive, got {value:g}")
+            result[key] = value
+    levels = [(k, result[k]) for k in ("sigma_warn", "sigma_act", "sigma_stop") if k in result]
+    for (high_key, high), (low_key, low) in zip(levels, levels[1:]):
+        if low > high:
+            raise reader.fail(f"design.watchdog.{low_key}", f"{low:g} is above {high_key} {high:g}; "
+                                                            "expected sigma_warn >= sigma_act >= sigma_stop")
+    if "rate_limits" in section:
+        limits = section["rate_limits"]
+        if not isinstance(limits, dict):
+            raise reader.fail("design.watchdog.rate_limits", "expected a mapping of input: units per second")
+        result["rate_limits"] = {}
+        for name, value in limits.items():
+            field = f"design.watchdog.rate_limits.{name}"
+            if name not in inputs:
+                raise reader.fail(field, f"{name!r} is not an input")
+            number = reader.number(field, value)
+            if number <= 0:
+                raise reader.fail(field, f"must be positive, got {number:g}")
+            result["rate_limits"][name] = number
+    if "safe_command" in section:
+        result["safe_command"] = _read_safe_command(reader, section["safe_command"], inputs)
+    return result
+
+
+def _read_safe_command(reader: _Reader, value: Any, inputs: list[str]) -> dict[str, Any]:
+    field = "design.watchdog.safe_command"
+    if value in ("zero", "hold"):
+        return {"kind": value}
+    if isinstance(value, dict):
+        missing = [u for u in inputs if u not in value]
+        extra = [str(k) for k in value if k not in inputs]
+        if extra:
+            raise reader.fail(f"{field}.{extra[0]}", f"{extra[0]!r} is not an input")
+        if missing:
+            raise reader.fail(field, "a fixed safe command needs a value for every input; missing "
+                                     + ", ".join(missing))
+        return {"kind": "fixed", "value": [reader.number(f"{field}.{u}", value[u]) for u in inputs]}
+    raise reader.fail(field, f"expected zero, hold, or a mapping of input: value, got {_describe(value)}")
 
 
 def _read_pole(reader: _Reader, field: str, value: Any) -> complex:
@@ -425,3 +498,42 @@ def load_plant(path: str | Path) -> Plant:
         raise PlantFileError(source, "", f"not UTF-8 text (byte {err.start})") from None
     plant = plant_from_text(text, source)
     return plant
+
+
+def expression_in(plant: Plant, text: Any, source: str, field: str) -> sp.Expr:
+    """Read an expression over a plant's states and parameters (e.g. a candidate output).
+
+    Parameters
+    ----------
+    plant : Plant
+    text : str
+        An expression in the plant-file grammar.
+    source, field : str
+        Named in the error message (e.g. ``"<command line>"``, ``"--linearizing-output"``).
+
+    Returns
+    -------
+    sympy.Expr
+
+    Raises
+    ------
+    PlantFileError
+        For text outside the grammar or a name that is not a state or parameter.
+
+    Examples
+    --------
+    >>> p = plant_from_text("plant: p\\nstates: [x]\\ninputs: [u]\\nparameters: {k: 2}\\ndynamics: {x: u}")
+    >>> expression_in(p, "k*sin(x)", "<test>", "T1")
+    k*sin(x)
+    """
+    reader = _Reader(source)
+    for symbol in plant.states:
+        reader.names[symbol.name] = "state"
+        reader.table[symbol.name] = symbol
+    for symbol in plant.inputs:
+        reader.names[symbol.name] = "input"
+    for symbol in plant.parameters:
+        reader.names[symbol.name] = "parameter"
+        reader.table[symbol.name] = symbol
+    allowed = {s.name for s in plant.states} | {s.name for s in plant.parameters}
+    return reader.expression(field, text, allowed)
