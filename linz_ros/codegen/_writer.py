@@ -1,0 +1,277 @@
+"""Assemble the artifact document from a Design: CSE'd programs, metadata, verification."""
+
+from __future__ import annotations
+
+import datetime
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import sympy as sp
+
+from linz_ros import __version__
+from linz_ros.artifact.document import FORMAT, FORMAT_VERSION, seal
+from linz_ros.codegen._printer import to_grammar
+from linz_ros.codegen._verify import DEFAULT_TOLERANCE, Verification, verify_programs
+from linz_ros.errors import ArtifactError
+from linz_ros.synthesis import Design, transformed_symbols
+
+__all__ = ["SymbolicProgram", "symbolic_programs", "build_document", "write_artifact", "artifact_path"]
+
+
+@dataclass
+class SymbolicProgram:
+    """One program before printing: argument symbols and named symbolic outputs."""
+
+    name: str
+    arguments: list[tuple[str, list[sp.Symbol]]]
+    outputs: list[tuple[str, tuple[int, ...], list[sp.Expr]]]
+
+
+def symbolic_programs(design: Design) -> list[SymbolicProgram]:
+    """The programs an artifact carries, as sympy expressions (before CSE and printing).
+
+    Parameters
+    ----------
+    design : Design
+
+    Returns
+    -------
+    list of SymbolicProgram
+        ``law`` (A, b, chain), ``dynamics`` (f, G), and for input-state designs
+        ``transform`` (T and its Jacobian) and, when found, ``inverse`` (x of z); and
+        ``singular_set`` when the analysis gave one.
+    """
+    plant = design.plant
+    x = list(plant.states)
+    p = list(plant.parameters)
+    state_args = [("x", x), ("p", p)]
+    chain = [e for c in design.chains for e in c.derivatives]
+    programs = [
+        SymbolicProgram("law", state_args, [
+            ("A", tuple(design.A.shape), list(design.A)),
+            ("b", (design.b.shape[0],), list(design.b)),
+            ("chain", (len(chain),), chain)]),
+        SymbolicProgram("dynamics", state_args, [
+            ("f", (plant.n,), list(plant.f)),
+            ("G", (plant.n, plant.m), list(plant.G))]),
+    ]
+    if design.kind == "input_state":
+        T = sp.Matrix(design.transform)
+        programs.append(SymbolicProgram("transform", state_args, [
+            ("T", (plant.n,), list(T)), ("jacobian", (plant.n, plant.n), list(T.jacobian(sp.Matrix(x))))]))
+        if design.transform_inverse is not None:
+            z = list(transformed_symbols(plant.n))
+            programs.append(SymbolicProgram("inverse", [("z", z), ("p", p)],
+                                            [("x", (plant.n,), list(design.transform_inverse))]))
+    singular = _singular_set_expression(design)
+    if singular is not None:
+        programs.append(SymbolicProgram("singular_set", state_args, [("s", (1,), [singular])]))
+    return programs
+
+
+def _singular_set_expression(design: Design) -> sp.Expr | None:
+    if design.kind == "input_output":
+        io = design.report.input_output
+        expr = None if io is None else io.singular_set
+    else:
+        expr = design.report.input_state.singular_set
+    if expr is None or expr == 1:
+        return None
+    return expr
+
+
+def _printed_program(program: SymbolicProgram) -> dict[str, Any]:
+    """CSE over all outputs of one program, then print every piece in the grammar."""
+    entries = [e for _, _, values in program.outputs for e in values]
+    temporaries, reduced = sp.cse(entries, symbols=sp.numbered_symbols("_t"), order="none")
+    printed = [to_grammar(e) for e in reduced]
+    outputs, start = [], 0
+    for name, shape, values in program.outputs:
+        outputs.append([name, list(shape), printed[start:start + len(values)]])
+        start += len(values)
+    return {
+        "arguments": [[vector, [s.name for s in symbols]] for vector, symbols in program.arguments],
+        "temporaries": [[t.name, to_grammar(e)] for t, e in temporaries],
+        "outputs": outputs,
+    }
+
+
+def _complex_pairs(values) -> list[list[float]]:
+    return [[float(complex(v).real), float(complex(v).imag)] for v in values]
+
+
+def _design_section(design: Design) -> dict[str, Any]:
+    return {
+        "kind": design.kind,
+        "outputs": [c.name for c in design.chains],
+        "output_expressions": [to_grammar(c.expression) for c in design.chains],
+        "relative_degree": design.relative_degree,
+        "integral": design.integral,
+        "rate": design.rate,
+        "method": design.method,
+        "lqr": design.lqr_weights,
+        "reference": design.reference,
+        "chains": [{
+            "name": c.name, "degree": c.degree, "gains": [float(k) for k in c.gains],
+            "poles": _complex_pairs(c.poles),
+            "sampled": {"spectral_radius": c.sampled.spectral_radius,
+                        "equivalent_decay": c.sampled.equivalent_decay,
+                        "designed_decay": c.sampled.designed_decay,
+                        "fastest_pole_times_period": c.sampled.fastest_pole_times_period},
+        } for c in design.chains],
+        "warnings": list(design.warnings),
+        "notes": list(design.notes),
+    }
+
+
+def _analysis_section(design: Design) -> dict[str, Any]:
+    report = design.report
+    io = report.input_output
+    singular = _singular_set_expression(design)
+    zd = None if io is None else io.zero_dynamics
+    return {
+        "input_state_linearizable": report.input_state.linearizable,
+        "input_state_reason": report.input_state.reason,
+        "input_output_reason": None if io is None else io.reason,
+        "singular_set": None if singular is None else to_grammar(singular),
+        "singular_set_note": ("where L_g L_f^(n-1) T1 vanishes" if design.kind == "input_state"
+                              else (io.singular_set_note if io is not None else "")),
+        "zero_dynamics_order": None if io is None or design.kind == "input_state" else io.zero_dynamics_order,
+        "zero_dynamics_stability": None if zd is None or design.kind == "input_state" else zd.stability,
+        "sigma_reference": design.sigma_reference,
+        "sigma_reference_note": design.sigma_reference_note,
+        "envelope": None if report.envelope is None else report.envelope.to_json(),
+    }
+
+
+def _plant_section(design: Design) -> dict[str, Any]:
+    plant = design.plant
+    return {
+        "name": plant.name,
+        "description": plant.description,
+        "source": plant.source,
+        "source_sha256": plant.sha256,
+        "states": plant.state_names,
+        "inputs": plant.input_names,
+        "parameters": [[s.name, float(v)] for s, v in plant.parameters.items()],
+        "units": dict(plant.units),
+        "input_limits": {k: [float(a), float(b)] for k, (a, b) in plant.input_limits.items()},
+        "envelope": {k: [float(a), float(b)] for k, (a, b) in plant.envelope.items()},
+        "operating_point": {k: float(v) for k, v in plant.operating_point.items()},
+    }
+
+
+def _watchdog_section(design: Design) -> dict[str, Any]:
+    w = design.watchdog
+    return {
+        "sigma_warn": float(w["sigma_warn"]), "sigma_act": float(w["sigma_act"]),
+        "sigma_stop": float(w["sigma_stop"]), "damping": float(w["damping"]),
+        "stale_after": float(w["stale_after"]),
+        "integral_limit": None if w["integral_limit"] is None else float(w["integral_limit"]),
+        "hold_time": float(w["hold_time"]),
+        "rate_limits": [None if r is None else float(r) for r in w["rate_limits"]],
+        "safe_command": dict(w["safe_command"]),
+        "defaults": list(w["defaults"]),
+        "defaults_note": "default sigma levels are fractions 0.25, 0.1, 0.02 of sigma_reference; "
+                         "damping defaults to sigma_act; stale_after to 10 control periods",
+    }
+
+
+def build_document(design: Design, tolerance: float = DEFAULT_TOLERANCE, points: int = 64,
+                   created: str | None = None) -> tuple[dict[str, Any], Verification]:
+    """Assemble the artifact document and verify its programs against sympy.
+
+    Parameters
+    ----------
+    design : Design
+    tolerance : float
+        Largest accepted normwise relative residual of any generated output.
+    points : int
+        Random points in the envelope for the verification.
+    created : str, optional
+        Creation time (ISO 8601, UTC); now when not given.
+
+    Returns
+    -------
+    document : dict
+        Without ``sha256`` (see :func:`linz_ros.artifact.document.seal`).
+    verification : Verification
+
+    Raises
+    ------
+    CodegenError
+        When an expression cannot be written in the grammar, or the residual exceeds
+        ``tolerance`` (the artifact is then not written).
+    """
+    programs = symbolic_programs(design)
+    printed = {program.name: _printed_program(program) for program in programs}
+    verification = verify_programs(design, programs, printed, tolerance=tolerance, points=points)
+    document = {
+        "format": FORMAT,
+        "format_version": FORMAT_VERSION,
+        "created": created or datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
+        "linz_ros_version": __version__,
+        "plant": _plant_section(design),
+        "design": _design_section(design),
+        "analysis": _analysis_section(design),
+        "watchdog": _watchdog_section(design),
+        "programs": printed,
+        "verification": verification.to_json(),
+    }
+    return document, verification
+
+
+def artifact_path(out_dir: str | Path, plant_name: str) -> Path:
+    """Where ``linz build`` writes the artifact of a plant: ``OUT/<plant>.artifact.json``.
+
+    Parameters
+    ----------
+    out_dir : str or pathlib.Path
+    plant_name : str
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    return Path(out_dir) / f"{plant_name}.artifact.json"
+
+
+def write_artifact(document: dict[str, Any], path: str | Path) -> Path:
+    """Seal the document with its hash and write it (atomically: temporary file, rename).
+
+    The plant file's location relative to the artifact is recorded, so a moved pair of
+    files still finds each other.
+
+    Parameters
+    ----------
+    document : dict
+        From :func:`build_document`.
+    path : str or pathlib.Path
+
+    Returns
+    -------
+    pathlib.Path
+        The written file.
+
+    Raises
+    ------
+    ArtifactError
+        When the folder cannot be created or written.
+    """
+    path = Path(path)
+    source = document["plant"].get("source", "")
+    document = dict(document, plant=dict(document["plant"]))
+    if source and Path(source).is_file():
+        document["plant"]["source_from_artifact"] = os.path.relpath(Path(source).resolve(),
+                                                                    path.resolve().parent)
+    text = seal(document)
+    temporary = path.with_name(path.name + ".partial")
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        temporary.write_text(text)
+        os.replace(temporary, path)
+    except OSError as err:
+        raise ArtifactError(str(path), f"cannot write: {err.strerror}") from None
+    return path
