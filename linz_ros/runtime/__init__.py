@@ -1,0 +1,23 @@
+"""The runtime tower: the controller core and its watchdogs, numpy only (no ROS, no sympy).
+
+Public names
+------------
+ControllerCore    one guarded linearizing control step: ``step(x, ref, t) -> (u, record)``
+WatchdogConfig    singularity levels, limits, staleness, safe command
+StepRecord        what one step did (mode, reason, sigma_min, condition, saturation, cost)
+Reference         y_ref and its derivatives per chain; ``make_reference``, ``parse_reference``
+NumericPlant      dx/dt = f(x) + G(x) u from the artifact, with RK4 and RK45 integrators
+Transform         z = T(x) and its inverse (closed form or warm-started Newton)
+simulate          the sampled closed loop offline; SimSettings, SimResult, fit_decay_rate
+"""
+
+from linz_ros.runtime.closed_loop import INTEGRATORS, SimResult, SimSettings, fit_decay_rate, simulate
+from linz_ros.runtime.core import MODES, REASONS, ControllerCore, StepRecord, WatchdogConfig
+from linz_ros.runtime.plant import NumericPlant, mismatched_parameters, parse_assignments
+from linz_ros.runtime.reference import KINDS, Reference, make_reference, parse_reference
+from linz_ros.runtime.transform import InverseResult, Transform
+
+__all__ = ["ControllerCore", "WatchdogConfig", "StepRecord", "MODES", "REASONS", "Reference",
+           "make_reference", "parse_reference", "KINDS", "NumericPlant", "mismatched_parameters",
+           "parse_assignments", "Transform", "InverseResult", "simulate", "SimSettings", "SimResult",
+           "fit_decay_rate", "INTEGRATORS"]

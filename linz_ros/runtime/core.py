@@ -1,0 +1,526 @@
+"""The ROS-free controller core: one linearizing control step, guarded by its watchdogs.
+
+Each step evaluates the artifact's law at the measured state, closes the outer loop on
+the Brunovsky chains, solves ``A(x) u = v - b(x)`` and passes the command through the
+watchdogs:
+
+- singularity: sigma_min of A below ``sigma_warn`` flags the record; below
+  ``sigma_act`` the solve becomes a damped least-squares one whose damping grows as
+  sigma_min falls, ``lambda^2 = lambda_max^2 (1 - (sigma_min / sigma_act)^2)``
+  (variable damping of Chiaverini, Siciliano and Egeland, IEEE TCST 2(2), 1994, built
+  on Nakamura and Hanafusa 1986); below ``sigma_stop`` the configured safe command;
+- saturation: rate limits, then box limits, per input; integral action is frozen on
+  steps that saturate or leave the nominal mode (conditional integration);
+- bad input: a state of the wrong length, non-finite, older than the last one used,
+  or older than ``stale_after``, and a model that is not finite at the state, all give
+  the safe command and a record saying why; a step never raises.
+
+Modes: ``nominal``, ``damped``, ``held`` (the safe command is "hold the last command",
+within ``hold_time``), ``safe``.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass, field, fields, replace
+from typing import Any, Sequence
+
+from linz_ros.artifact.document import Artifact
+from linz_ros.errors import ConfigError
+from linz_ros.runtime._linalg import damped_solve, singular_values, solve
+
+__all__ = ["ControllerCore", "StepRecord", "WatchdogConfig", "MODES", "REASONS"]
+
+MODES = ("nominal", "damped", "held", "safe")
+#: Why a step ended as it did (``ok`` for a nominal step).
+REASONS = ("ok", "near_singular", "singular", "wrong_length", "non_finite_state", "bad_reference",
+           "bad_time", "out_of_order", "stale", "model_not_finite", "non_finite_command", "no_state")
+_isfinite = math.isfinite
+
+
+@dataclass(frozen=True)
+class WatchdogConfig:
+    """Watchdog settings; start from :meth:`from_artifact` and override what you need.
+
+    Attributes
+    ----------
+    sigma_warn, sigma_act, sigma_stop : float
+        Levels of the smallest singular value of A (units of A).
+    damping : float
+        lambda_max of the damped least-squares inverse (reached at sigma_min = 0).
+    stale_after : float
+        A state older than this (now - stamp, seconds) is refused.
+    input_limits : tuple of (float, float)
+        Box limits per input.
+    rate_limits : tuple of float
+        Largest change per second per input (``inf`` for none).
+    safe_kind : {"zero", "hold", "fixed"}
+    safe_value : tuple of float
+        The fixed safe command (zeros for ``zero``).
+    hold_time : float
+        How long ``hold`` may repeat the last command before falling back to zero.
+    integral_limit : float
+        Bound on each integrator state (``inf`` for none).
+    anti_windup : bool
+        Freeze the integrators on steps that saturate or leave the nominal mode.
+    max_dt : float
+        Longest interval credited to the integrators in one step (seconds).
+    """
+
+    sigma_warn: float
+    sigma_act: float
+    sigma_stop: float
+    damping: float
+    stale_after: float
+    input_limits: tuple[tuple[float, float], ...]
+    rate_limits: tuple[float, ...]
+    safe_kind: str = "zero"
+    safe_value: tuple[float, ...] = ()
+    hold_time: float = 0.5
+    integral_limit: float = math.inf
+    anti_windup: bool = True
+    max_dt: float = 0.1
+
+    @classmethod
+    def from_artifact(cls, artifact: Artifact, **overrides: Any) -> "WatchdogConfig":
+        """The artifact's watchdog levels and limits, with checked overrides.
+
+        Parameters
+        ----------
+        artifact : Artifact
+        **overrides
+            Any attribute of this class.
+
+        Returns
+        -------
+        WatchdogConfig
+
+        Raises
+        ------
+        ConfigError
+            For an unknown setting or a value out of range.
+        """
+        w = artifact.watchdog
+        m = len(artifact.inputs)
+        safe = w["safe_command"]
+        config = cls(
+            sigma_warn=float(w["sigma_warn"]), sigma_act=float(w["sigma_act"]),
+            sigma_stop=float(w["sigma_stop"]), damping=float(w["damping"]),
+            stale_after=float(w["stale_after"]),
+            input_limits=tuple((float(a), float(b)) for a, b in artifact.input_limits),
+            rate_limits=tuple(math.inf if r is None else float(r) for r in w["rate_limits"]),
+            safe_kind=safe["kind"],
+            safe_value=tuple(float(v) for v in safe.get("value", [0.0] * m)),
+            hold_time=float(w.get("hold_time", 0.5)),
+            integral_limit=math.inf if w.get("integral_limit") is None else float(w["integral_limit"]),
+            max_dt=max(0.1, 10.0 / artifact.rate))
+        return config.with_overrides(**overrides)
+
+    def with_overrides(self, **overrides: Any) -> "WatchdogConfig":
+        """A copy with some settings changed, checked as a whole.
+
+        Parameters
+        ----------
+        **overrides
+            Any attribute of this class.
+
+        Returns
+        -------
+        WatchdogConfig
+
+        Raises
+        ------
+        ConfigError
+        """
+        known = {f.name for f in fields(self)}
+        for key in overrides:
+            if key not in known:
+                raise ConfigError(key, f"unknown watchdog setting; expected one of {', '.join(sorted(known))}")
+        config = replace(self, **overrides)
+        config.validate()
+        return config
+
+    def validate(self) -> None:
+        """Check ranges and consistency.
+
+        Raises
+        ------
+        ConfigError
+            Naming the first setting that is wrong.
+        """
+        m = len(self.input_limits)
+        for key in ("sigma_warn", "sigma_act", "sigma_stop", "stale_after", "hold_time", "max_dt"):
+            value = getattr(self, key)
+            if not (isinstance(value, (int, float)) and _isfinite(value) and value >= 0):
+                raise ConfigError(key, f"expected a finite number >= 0, got {value!r}")
+        if not (_isfinite(self.damping) and self.damping > 0):
+            raise ConfigError("damping", f"expected a positive number, got {self.damping!r}")
+        if not self.sigma_warn >= self.sigma_act >= self.sigma_stop:
+            raise ConfigError("sigma_act", f"expected sigma_warn >= sigma_act >= sigma_stop, got "
+                                           f"{self.sigma_warn:g}, {self.sigma_act:g}, {self.sigma_stop:g}")
+        if self.stale_after <= 0:
+            raise ConfigError("stale_after", "must be positive")
+        if len(self.rate_limits) != m:
+            raise ConfigError("rate_limits", f"expected {m} values, one per input")
+        if any(not r > 0 for r in self.rate_limits):
+            raise ConfigError("rate_limits", "every rate limit must be positive (inf for none)")
+        for i, (lo, hi) in enumerate(self.input_limits):
+            if not lo < hi:
+                raise ConfigError("input_limits", f"input {i}: lower {lo:g} is not below upper {hi:g}")
+        if self.safe_kind not in ("zero", "hold", "fixed"):
+            raise ConfigError("safe_kind", f"expected zero, hold or fixed, got {self.safe_kind!r}")
+        if len(self.safe_value) != m or not all(_isfinite(v) for v in self.safe_value):
+            raise ConfigError("safe_value", f"expected {m} finite numbers")
+        if not self.integral_limit > 0:
+            raise ConfigError("integral_limit", "must be positive (inf for none)")
+
+
+@dataclass(slots=True)
+class StepRecord:
+    """What one step did: the command, the conditioning, the mode and why, the cost.
+
+    Attributes
+    ----------
+    t : float
+        The state's time stamp (seconds).
+    command : tuple of float
+        The command sent.
+    mode : str
+        One of :data:`MODES`.
+    reason : str
+        One of :data:`REASONS`.
+    sigma_min, condition : float
+        Of the decoupling matrix at the state (nan when not evaluated).
+    warn : bool
+        sigma_min below ``sigma_warn``.
+    damping : float
+        lambda of the damped solve (0 in nominal mode).
+    saturated : tuple of bool
+        Per input, whether a rate or box limit cut the command.
+    compute_time : float
+        Seconds spent in the step.
+    """
+
+    t: float
+    command: tuple[float, ...]
+    mode: str
+    reason: str
+    sigma_min: float
+    condition: float
+    warn: bool
+    damping: float
+    saturated: tuple[bool, ...]
+    compute_time: float
+
+
+class ControllerCore:
+    """One feedback-linearizing control step with watchdogs; no ROS, no sympy.
+
+    Parameters
+    ----------
+    artifact : Artifact
+        A loaded controller artifact.
+    config : WatchdogConfig, optional
+        Defaults to the artifact's levels.
+    parameters : sequence of float, optional
+        Model parameters for the law (the artifact's nominal values by default).
+
+    Examples
+    --------
+    A pendulum-like plant x1'' = -sin(x1) + u with output x1 and poles -2, -3, built in
+    memory (artifacts usually come from ``linz build``):
+
+    >>> from linz_ros.artifact import artifact_from_text, seal
+    >>> from linz_ros.codegen import build_document
+    >>> from linz_ros.model import plant_from_text
+    >>> from linz_ros.synthesis import synthesise
+    >>> plant = plant_from_text("plant: p\\nstates: [x1, x2]\\ninputs: [u]\\n"
+    ...     "dynamics: {x1: x2, x2: -sin(x1) + u}\\noutputs: {y: x1}\\ndesign: {poles: {y: [-2, -3]}}")
+    >>> core = ControllerCore(artifact_from_text(seal(build_document(synthesise(plant))[0])))
+    >>> u, record = core.step([0.1, 0.0], [0.0, 0.0, 0.0], t=0.0)   # u = v - b = -6 (0.1) + sin(0.1)
+    >>> round(u[0], 6), record.mode, record.reason
+    (-0.500167, 'nominal', 'ok')
+    """
+
+    def __init__(self, artifact: Artifact, config: WatchdogConfig | None = None,
+                 parameters: Sequence[float] | None = None) -> None:
+        self.artifact = artifact
+        self.config = config or WatchdogConfig.from_artifact(artifact)
+        self.config.validate()
+        self.n = len(artifact.states)
+        self.m = len(artifact.inputs)
+        self.orders = artifact.relative_degree
+        self.integral = artifact.integral
+        self.gains = [[float(k) for k in g] for g in artifact.gains]
+        self.reference_size = sum(r + 1 for r in self.orders)
+        nominal = artifact.nominal_parameters.tolist()
+        if parameters is None:
+            parameters = nominal
+        parameters = [float(v) for v in parameters]
+        if len(parameters) != len(nominal) or not all(_isfinite(v) for v in parameters):
+            raise ConfigError("parameters", f"expected {len(nominal)} finite values "
+                                            f"({', '.join(artifact.parameter_names)})")
+        self.parameters = parameters
+        self._law = artifact.programs["law"]
+        slots = self._law.slots
+        self._a_slice = slice(slots["A"].offset, slots["A"].offset + slots["A"].size)
+        self._b_slice = slice(slots["b"].offset, slots["b"].offset + slots["b"].size)
+        self._chain_offset = slots["chain"].offset
+        self._period = 1.0 / artifact.rate
+        # per chain: offset in the law's output, offset in the reference, degree, K_I, K_0..K_(r-1)
+        self._layout = []
+        k, j = self._chain_offset, 0
+        for r, gains in zip(self.orders, self.gains):
+            k_integral = gains[0] if self.integral else 0.0
+            self._layout.append((k, j, r, k_integral, gains[1:] if self.integral else gains))
+            k += r
+            j += r + 1
+        self.reset()
+
+    # -- state ------------------------------------------------------------------------
+    def reset(self) -> None:
+        """Forget the integrators, the last command and the last time stamp."""
+        self.integrators = [0.0] * len(self.orders)
+        self.last_command = [0.0] * self.m
+        self.last_good_command = [0.0] * self.m
+        self.last_t: float | None = None          # stamp of the last accepted state
+        self.last_good_t: float | None = None     # stamp of the last nominal or damped command
+        self._last_errors: list[float] | None = None
+        self._integrate_next = False
+
+    def hold_reference(self, x: Sequence[float]) -> list[float]:
+        """The reference that holds the outputs where they are at state ``x``.
+
+        Parameters
+        ----------
+        x : sequence of float
+
+        Returns
+        -------
+        list of float
+            ``[y_i, 0, ..., 0]`` per chain.
+        """
+        chain = self.outputs(x)
+        ref, k = [], 0
+        for r in self.orders:
+            ref.extend([chain[k]] + [0.0] * r)
+            k += r
+        return ref
+
+    def outputs(self, x: Sequence[float]) -> list[float]:
+        """The chains' values ``y_i, ..., y_i^(r_i - 1)`` at ``x``, flat.
+
+        Parameters
+        ----------
+        x : sequence of float
+
+        Returns
+        -------
+        list of float
+        """
+        values = self._law([float(v) for v in x], self.parameters)
+        return list(values[self._chain_offset:self._chain_offset + sum(self.orders)])
+
+    # -- the step ---------------------------------------------------------------------
+    def step(self, x: Sequence[float], ref: Sequence[float], t: float,
+             now: float | None = None) -> tuple[list[float], StepRecord]:
+        """Compute the command for state ``x`` measured at time ``t``.
+
+        Parameters
+        ----------
+        x : sequence of float
+            The state, in the artifact's order.
+        ref : sequence of float
+            ``[y_ref_i, y_ref_i', ..., y_ref_i^(r_i)]`` for every chain, flat.
+        t : float
+            The state's time stamp, seconds.
+        now : float, optional
+            The current time, for the staleness check (``t`` when not given).
+
+        Returns
+        -------
+        command : list of float
+        record : StepRecord
+        """
+        start = time.perf_counter()
+        config = self.config
+        try:
+            if len(x) != self.n:
+                return self._refuse("wrong_length", t, start)
+            x = list(map(float, x))
+        except (TypeError, ValueError):
+            return self._refuse("wrong_length", t, start)
+        if not all(map(_isfinite, x)):
+            return self._refuse("non_finite_state", t, start)
+        try:
+            t = float(t)
+            now = t if now is None else float(now)
+        except (TypeError, ValueError):
+            return self._refuse("bad_time", t, start)
+        if not (_isfinite(t) and _isfinite(now)):
+            return self._refuse("bad_time", t, start)
+        last_t = self.last_t
+        if last_t is not None and t <= last_t:
+            return self._refuse("out_of_order", t, start, now)
+        if now - t > config.stale_after:
+            return self._refuse("stale", t, start, now)
+        try:
+            if len(ref) != self.reference_size:
+                return self._refuse("bad_reference", t, start, now)
+            ref = list(map(float, ref))
+        except (TypeError, ValueError):
+            return self._refuse("bad_reference", t, start, now)
+        if not all(map(_isfinite, ref)):
+            return self._refuse("bad_reference", t, start, now)
+        try:
+            values = self._law(x, self.parameters)
+        except (ArithmeticError, ValueError):
+            return self._refuse("model_not_finite", t, start, now)
+        if not all(map(_isfinite, values)):
+            return self._refuse("model_not_finite", t, start, now)
+        m = self.m
+        A = values[self._a_slice]
+        b = values[self._b_slice]
+        sigma_min, sigma_max = singular_values(A, m)
+        condition = sigma_max / sigma_min if sigma_min > 0.0 else math.inf
+        dt = 0.0 if last_t is None else min(t - last_t, config.max_dt)
+        if self.integral and self._integrate_next and self._last_errors is not None:
+            self._advance_integrators(dt)
+        v, errors = self._outer_loop(values, ref)
+        rhs = [v[i] - b[i] for i in range(m)]
+        warn = sigma_min < config.sigma_warn
+        damping = 0.0
+        if sigma_min < config.sigma_stop:
+            self.last_t = t
+            return self._safe("singular", t, start, sigma_min, condition, warn, now)
+        try:
+            if sigma_min < config.sigma_act:
+                ratio = sigma_min / config.sigma_act
+                damping = config.damping * math.sqrt(1.0 - ratio * ratio)
+                u = damped_solve(A, rhs, m, damping)
+                mode, reason = "damped", "near_singular"
+            else:
+                u = solve(A, rhs, m)
+                mode, reason = "nominal", "ok"
+        except (ArithmeticError, ValueError):
+            self.last_t = t
+            return self._safe("singular", t, start, sigma_min, condition, warn, now)
+        # the first step after a reset is rate-limited from the resting (zero) command
+        u, saturated = self._limit(u, dt if last_t is not None else self._period)
+        if not all(map(_isfinite, u)):
+            self.last_t = t
+            return self._safe("non_finite_command", t, start, sigma_min, condition, warn, now)
+        self.last_t = t
+        self.last_good_t = t
+        self.last_command = u
+        self.last_good_command = u
+        self._last_errors = errors
+        self._integrate_next = not (config.anti_windup and (mode != "nominal" or any(saturated)))
+        record = StepRecord(t, tuple(u), mode, reason, sigma_min, condition, warn, damping,
+                            tuple(saturated), time.perf_counter() - start)
+        return u, record
+
+    def safe_step(self, now: float, reason: str = "no_state") -> tuple[list[float], StepRecord]:
+        """The safe command when no usable state arrived (a node's timer calls this).
+
+        Parameters
+        ----------
+        now : float
+            Current time, seconds.
+        reason : str
+            One of :data:`REASONS`, recorded.
+
+        Returns
+        -------
+        command : list of float
+        record : StepRecord
+        """
+        return self._refuse(reason, now, time.perf_counter(), now)
+
+    def is_stale(self, now: float) -> bool:
+        """Whether the last accepted state (stamp) is older than ``stale_after`` at ``now``.
+
+        Parameters
+        ----------
+        now : float
+
+        Returns
+        -------
+        bool
+        """
+        return self.last_t is None or now - self.last_t > self.config.stale_after
+
+    # -- pieces -------------------------------------------------------------------------
+    def _outer_loop(self, values: Sequence[float], ref: list[float]) -> tuple[list[float], list[float]]:
+        """v_i = y_ref_i^(r_i) - K_i . (eta_i, e_i, ..., e_i^(r_i - 1)); also the errors e_i."""
+        v, errors = [], []
+        integrators = self.integrators
+        for i, (k, j, r, k_integral, gains) in enumerate(self._layout):
+            acc = ref[j + r] - k_integral * integrators[i]
+            for d in range(r):
+                acc -= gains[d] * (values[k + d] - ref[j + d])
+            errors.append(values[k] - ref[j])
+            v.append(acc)
+        return v, errors
+
+    def _advance_integrators(self, dt: float) -> None:
+        limit = self.config.integral_limit
+        for i, e in enumerate(self._last_errors or ()):
+            value = self.integrators[i] + e * dt
+            self.integrators[i] = max(-limit, min(limit, value))
+
+    def _limit(self, u: list[float], dt: float) -> tuple[list[float], list[bool]]:
+        """Rate limits against the last command, then box limits; which inputs were cut."""
+        config = self.config
+        out, saturated = [], []
+        for i, value in enumerate(u):
+            cut = False
+            rate = config.rate_limits[i]
+            if rate != math.inf:
+                previous = self.last_command[i]
+                step = rate * dt
+                if value > previous + step:
+                    value, cut = previous + step, True
+                elif value < previous - step:
+                    value, cut = previous - step, True
+            lo, hi = config.input_limits[i]
+            if value > hi:
+                value, cut = hi, True
+            elif value < lo:
+                value, cut = lo, True
+            out.append(value)
+            saturated.append(cut)
+        return out, saturated
+
+    def _safe_command(self, now: float) -> tuple[list[float], str]:
+        config = self.config
+        if config.safe_kind == "hold" and self.last_good_t is not None \
+                and now - self.last_good_t <= config.hold_time:
+            return list(self.last_good_command), "held"
+        if config.safe_kind == "fixed":
+            return list(config.safe_value), "safe"
+        return [0.0] * self.m, "safe"
+
+    def _safe(self, reason: str, t: float, start: float, sigma_min: float = math.nan,
+              condition: float = math.nan, warn: bool = False, now: float | None = None
+              ) -> tuple[list[float], StepRecord]:
+        """The safe command (or the held one), clipped to the box limits, and its record."""
+        when = now if now is not None and _isfinite(now) else t
+        if not _isfinite(when):
+            when = self.last_good_t if self.last_good_t is not None else 0.0
+        u, mode = self._safe_command(when)
+        u = [min(max(value, lo), hi) for value, (lo, hi) in zip(u, self.config.input_limits)]
+        self.last_command = u
+        self._integrate_next = False
+        record = StepRecord(t, tuple(u), mode, reason, sigma_min, condition, warn, 0.0,
+                            (False,) * self.m, time.perf_counter() - start)
+        return u, record
+
+    def _refuse(self, reason: str, t: Any, start: float, now: float | None = None
+                ) -> tuple[list[float], StepRecord]:
+        try:
+            stamp = float(t)
+        except (TypeError, ValueError):
+            stamp = math.nan
+        return self._safe(reason, stamp, start, now=now)

@@ -1,0 +1,178 @@
+"""The plant model carried by an artifact, as numbers: dx/dt = f(x) + G(x) u, and integrators.
+
+Used by the offline closed loop and by the plant simulator node. Parameters may differ
+from the nominal ones (model mismatch) while the controller keeps the nominal values.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Mapping, Sequence
+
+import numpy as np
+
+from linz_ros.artifact.document import Artifact
+from linz_ros.errors import ConfigError
+
+__all__ = ["NumericPlant", "mismatched_parameters", "parse_assignments"]
+
+
+def parse_assignments(items: Sequence[str], option: str) -> dict[str, float]:
+    """Read ``name=value`` pairs (from repeated options or comma lists) into a mapping.
+
+    Parameters
+    ----------
+    items : sequence of str
+        e.g. ``["m2=10", "I2=-5,l1=2"]``.
+    option : str
+        Named in errors, e.g. ``"--mismatch"``.
+
+    Returns
+    -------
+    dict of str -> float
+
+    Raises
+    ------
+    ConfigError
+
+    Examples
+    --------
+    >>> parse_assignments(["a=1", "b=2,c=-0.5"], "--x")
+    {'a': 1.0, 'b': 2.0, 'c': -0.5}
+    """
+    result: dict[str, float] = {}
+    for item in items:
+        for part in filter(None, (p.strip() for p in item.split(","))):
+            name, equals, value = part.partition("=")
+            if not equals or not name.strip():
+                raise ConfigError(option, f"expected name=value, got {part!r}")
+            try:
+                number = float(value)
+            except ValueError:
+                raise ConfigError(option, f"{name.strip()}: expected a number, got {value.strip()!r}") from None
+            if not math.isfinite(number):
+                raise ConfigError(option, f"{name.strip()}: expected a finite number, got {value.strip()!r}")
+            result[name.strip()] = number
+    return result
+
+
+def mismatched_parameters(artifact: Artifact, percent: Mapping[str, float]) -> list[float]:
+    """Nominal parameters changed by the given percentages (``all`` applies to every one).
+
+    Parameters
+    ----------
+    artifact : Artifact
+    percent : mapping of str -> float
+        Parameter name (or ``all``) -> change in percent.
+
+    Returns
+    -------
+    list of float
+
+    Raises
+    ------
+    ConfigError
+        For a name that is not a parameter.
+    """
+    names = artifact.parameter_names
+    unknown = [k for k in percent if k not in names and k != "all"]
+    if unknown:
+        raise ConfigError("--mismatch", f"{unknown[0]!r} is not a parameter of {artifact.name} "
+                                        f"({', '.join(names) or 'it has none'})")
+    common = percent.get("all", 0.0)
+    return [value * (1.0 + percent.get(name, common) / 100.0)
+            for name, value in zip(names, artifact.nominal_parameters.tolist())]
+
+
+class NumericPlant:
+    """``dx/dt = f(x) + G(x) u`` from an artifact's ``dynamics`` program.
+
+    Parameters
+    ----------
+    artifact : Artifact
+    parameters : sequence of float, optional
+        The plant's parameters (nominal by default).
+    """
+
+    def __init__(self, artifact: Artifact, parameters: Sequence[float] | None = None) -> None:
+        self.artifact = artifact
+        self.n = len(artifact.states)
+        self.m = len(artifact.inputs)
+        self.parameters = list(artifact.nominal_parameters.tolist() if parameters is None else parameters)
+        self._dynamics = artifact.programs["dynamics"]
+        slots = self._dynamics.slots
+        self._f = slots["f"].offset
+        self._g = slots["G"].offset
+
+    def derivative(self, x: Sequence[float], u: Sequence[float]) -> list[float]:
+        """dx/dt at state x under input u.
+
+        Parameters
+        ----------
+        x, u : sequence of float
+
+        Returns
+        -------
+        list of float
+
+        Raises
+        ------
+        ArithmeticError, ValueError
+            Where the model is not defined (e.g. a square root of a negative number).
+        """
+        values = self._dynamics(x, self.parameters)
+        n, m, f0, g0 = self.n, self.m, self._f, self._g
+        out = []
+        for i in range(n):
+            acc = values[f0 + i]
+            row = g0 + i * m
+            for j in range(m):
+                acc += values[row + j] * u[j]
+            out.append(acc)
+        return out
+
+    def rk4(self, x: Sequence[float], u: Sequence[float], h: float, steps: int = 1) -> list[float]:
+        """Advance by ``steps`` classical Runge-Kutta steps of size h with u held constant.
+
+        Parameters
+        ----------
+        x, u : sequence of float
+        h : float
+        steps : int
+
+        Returns
+        -------
+        list of float
+        """
+        x = list(x)
+        n = self.n
+        for _ in range(steps):
+            k1 = self.derivative(x, u)
+            k2 = self.derivative([x[i] + 0.5 * h * k1[i] for i in range(n)], u)
+            k3 = self.derivative([x[i] + 0.5 * h * k2[i] for i in range(n)], u)
+            k4 = self.derivative([x[i] + h * k3[i] for i in range(n)], u)
+            x = [x[i] + h / 6.0 * (k1[i] + 2.0 * k2[i] + 2.0 * k3[i] + k4[i]) for i in range(n)]
+        return x
+
+    def adaptive(self, x: Sequence[float], u: Sequence[float], duration: float,
+                 rtol: float = 1e-9, atol: float = 1e-12) -> list[float]:
+        """Advance by ``duration`` with scipy's adaptive Runge-Kutta (RK45), u held constant.
+
+        Parameters
+        ----------
+        x, u : sequence of float
+        duration : float
+        rtol, atol : float
+
+        Returns
+        -------
+        list of float
+        """
+        from scipy.integrate import solve_ivp  # the runtime core never needs scipy
+
+        u = list(u)
+        solution = solve_ivp(lambda _t, y: self.derivative(y.tolist(), u), (0.0, duration),
+                             np.asarray(x, dtype=float), method="RK45", rtol=rtol, atol=atol)
+        if not solution.success:
+            raise ArithmeticError(solution.message)
+        return solution.y[:, -1].tolist()

@@ -1,0 +1,232 @@
+"""Reference generators: y_ref and its derivatives up to each chain's relative degree.
+
+A reference for chains of relative degrees ``r_1 .. r_p`` is sampled as one flat list:
+``[y1, y1', ..., y1^(r1), y2, ..., y2^(r2), ...]`` (``r_i + 1`` numbers per chain), which is
+what :meth:`linz_ros.runtime.ControllerCore.step` takes.
+
+Kinds
+-----
+hold     constant at the base value (derivatives zero)
+step     base, then base + amplitude from time ``at`` (derivatives zero)
+sine     base + amplitude sin(2 pi (t - at) / period) from time ``at``
+smooth   base to base + amplitude over ``duration`` from ``at`` along the polynomial
+         of degree 2k+1 whose first k derivatives vanish at both ends (k = the largest
+         relative degree, so every derivative the law uses is continuous)
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Sequence
+
+import numpy as np
+
+from linz_ros.errors import ConfigError
+
+__all__ = ["Reference", "make_reference", "parse_reference", "KINDS"]
+
+KINDS = ("hold", "step", "sine", "smooth")
+_OPTIONS = {"hold": (), "step": ("amplitude", "at"), "sine": ("amplitude", "period", "at"),
+            "smooth": ("amplitude", "duration", "at")}
+
+
+def _smoothstep_coefficients(k: int) -> np.ndarray:
+    """Coefficients (lowest first) of the degree-(2k+1) polynomial s on [0, 1] with s(0) = 0,
+    s(1) = 1 and s^(j)(0) = s^(j)(1) = 0 for j = 1..k (the 'smoothstep' family)."""
+    degree = 2 * k + 1
+    rows, rhs = [], []
+    for j in range(k + 1):
+        for end in (0.0, 1.0):
+            row = np.zeros(degree + 1)
+            for i in range(j, degree + 1):
+                falling = math.prod(range(i - j + 1, i + 1))
+                row[i] = falling * (end ** (i - j) if i - j > 0 else 1.0)
+            rows.append(row)
+            rhs.append(1.0 if (j == 0 and end == 1.0) else 0.0)
+    return np.linalg.solve(np.array(rows), np.array(rhs))
+
+
+@dataclass
+class Reference:
+    """A reference for several chains; :meth:`sample` gives the flat vector at time t.
+
+    Attributes
+    ----------
+    kind : str
+        One of :data:`KINDS`.
+    orders : list of int
+        Relative degree of each chain.
+    base : list of float
+        Value of each output before the reference moves (usually y at the start).
+    amplitude : list of float
+        Per chain.
+    at : float
+        Start time of the move, seconds.
+    period, duration : float
+        For ``sine`` and ``smooth``.
+    """
+
+    kind: str
+    orders: list[int]
+    base: list[float]
+    amplitude: list[float]
+    at: float = 0.0
+    period: float = 2.0
+    duration: float = 2.0
+    _poly: list[np.ndarray] = field(default_factory=list, repr=False)
+
+    def __post_init__(self) -> None:
+        if self.kind == "smooth":
+            coefficients = _smoothstep_coefficients(max(self.orders))
+            self._poly = [coefficients]
+            for _ in range(max(self.orders)):
+                c = self._poly[-1]
+                self._poly.append(c[1:] * np.arange(1, len(c)))
+
+    @property
+    def size(self) -> int:
+        """Length of the sampled vector, ``sum(r_i + 1)``."""
+        return sum(r + 1 for r in self.orders)
+
+    def sample(self, t: float) -> list[float]:
+        """The flat reference vector at time ``t``.
+
+        Parameters
+        ----------
+        t : float
+
+        Returns
+        -------
+        list of float
+        """
+        out: list[float] = []
+        for r, base, amp in zip(self.orders, self.base, self.amplitude):
+            out.extend(self._chain(t, r, base, amp))
+        return out
+
+    def _chain(self, t: float, r: int, base: float, amp: float) -> list[float]:
+        values = [base] + [0.0] * r
+        tau = t - self.at
+        if self.kind == "hold" or tau < 0:
+            return values
+        if self.kind == "step":
+            values[0] = base + amp
+            return values
+        if self.kind == "sine":
+            w = 2.0 * math.pi / self.period
+            for j in range(r + 1):
+                # d^j/dt^j sin(w tau) = w^j sin(w tau + j pi/2)
+                values[j] += amp * w ** j * math.sin(w * tau + j * math.pi / 2)
+            return values
+        s = min(tau / self.duration, 1.0)
+        for j in range(r + 1):
+            if tau >= self.duration and j > 0:
+                break
+            c = self._poly[j]
+            values[j] += amp * float(np.polyval(c[::-1], s)) / self.duration ** j
+        return values
+
+
+def make_reference(kind: str, orders: Sequence[int], base: Sequence[float],
+                   amplitude: Sequence[float] | float = 0.0, at: float = 0.0, period: float = 2.0,
+                   duration: float = 2.0) -> Reference:
+    """Build a reference, checking every setting.
+
+    Parameters
+    ----------
+    kind : str
+        One of :data:`KINDS`.
+    orders : sequence of int
+        Relative degree per chain.
+    base : sequence of float
+        Per chain.
+    amplitude : float or sequence of float
+        One value for every chain, or one per chain.
+    at, period, duration : float
+        Seconds; period and duration must be positive.
+
+    Returns
+    -------
+    Reference
+
+    Raises
+    ------
+    ConfigError
+        Naming the setting that is out of range.
+
+    Examples
+    --------
+    >>> ref = make_reference("smooth", [2], [0.0], 1.0, duration=2.0)
+    >>> [round(v, 6) for v in ref.sample(1.0)], ref.sample(5.0)
+    ([0.5, 0.9375, 0.0], [1.0, 0.0, 0.0])
+    """
+    if kind not in KINDS:
+        raise ConfigError("reference", f"unknown kind {kind!r}; expected one of {', '.join(KINDS)}")
+    orders = [int(r) for r in orders]
+    if isinstance(amplitude, (int, float)):
+        amplitude = [float(amplitude)] * len(orders)
+    amplitude = [float(a) for a in amplitude]
+    if len(amplitude) != len(orders) or len(base) != len(orders):
+        raise ConfigError("reference", f"expected {len(orders)} amplitude and base values, one per output")
+    for name, value in (("at", at), ("period", period), ("duration", duration), *zip(["amplitude"] * len(amplitude), amplitude)):
+        if not math.isfinite(value):
+            raise ConfigError(f"reference {name}", f"expected a finite number, got {value}")
+    if period <= 0 or duration <= 0:
+        raise ConfigError("reference", "period and duration must be positive")
+    return Reference(kind, orders, [float(b) for b in base], amplitude, float(at), float(period), float(duration))
+
+
+def parse_reference(text: str, orders: Sequence[int], base: Sequence[float], outputs: Sequence[str]) -> Reference:
+    """Read a reference from text such as ``"sine:amplitude=0.05,period=2"``.
+
+    Amplitudes may be given per output: ``"step:tool_x=0.05,tool_y=-0.02,at=0.5"``.
+
+    Parameters
+    ----------
+    text : str
+        ``KIND[:key=value,...]``.
+    orders : sequence of int
+    base : sequence of float
+    outputs : sequence of str
+        Chain names, for per-output amplitudes.
+
+    Returns
+    -------
+    Reference
+
+    Raises
+    ------
+    ConfigError
+        For an unknown kind or key, or a value that is not a number.
+
+    Examples
+    --------
+    >>> parse_reference("step:y=2,at=1", [1], [0.0], ["y"]).sample(2.0)
+    [2.0, 0.0]
+    """
+    kind, _, rest = text.partition(":")
+    kind = kind.strip()
+    if kind not in KINDS:
+        raise ConfigError("--reference", f"unknown kind {kind!r}; expected one of {', '.join(KINDS)}")
+    settings: dict[str, float] = {}
+    per_output: dict[str, float] = {}
+    for item in filter(None, (part.strip() for part in rest.split(","))):
+        key, equals, value = item.partition("=")
+        key = key.strip()
+        if not equals:
+            raise ConfigError("--reference", f"expected key=value, got {item!r}")
+        try:
+            number = float(value)
+        except ValueError:
+            raise ConfigError("--reference", f"{key}: expected a number, got {value.strip()!r}") from None
+        if key in outputs:
+            per_output[key] = number
+        elif key in _OPTIONS[kind]:
+            settings[key] = number
+        else:
+            allowed = ", ".join(list(_OPTIONS[kind]) + list(outputs)) or "none"
+            raise ConfigError("--reference", f"unknown key {key!r} for {kind}; expected one of {allowed}")
+    common = settings.pop("amplitude", 0.0)
+    amplitude = [per_output.get(name, common) for name in outputs]
+    return make_reference(kind, orders, base, amplitude, **settings)

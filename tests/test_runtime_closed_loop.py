@@ -1,0 +1,128 @@
+"""The offline closed loop: designed error dynamics on every bundled plant, and the effects of
+mismatch, noise, delay, integrators and divergence."""
+
+import csv
+
+import numpy as np
+import pytest
+
+from conftest import BUNDLED, MINIMAL, REFERENCE, built_artifact, sampled_chain_error
+from linz_ros.errors import ConfigError
+from linz_ros.runtime import (ControllerCore, SimSettings, fit_decay_rate, make_reference, mismatched_parameters,
+                              simulate)
+
+STEPS = {"pick_arm": (0.03, 3.0), "mast_camera": (0.2, 3.0), "survey_boat": (0.5, 16.0)}
+
+
+@pytest.mark.parametrize("name", sorted(STEPS))
+def test_tracking_error_follows_the_designed_error_dynamics(name):
+    artifact = built_artifact(BUNDLED / f"{name}.yaml")
+    amplitude, duration = STEPS[name]
+    core = ControllerCore(artifact)
+    x0 = [artifact.document["plant"]["operating_point"][s] for s in artifact.states]
+    base = [core.outputs(x0)[2 * i] for i in range(2)]
+    reference = make_reference("step", artifact.relative_degree, base, amplitude, at=0.0)
+    result = simulate(artifact, SimSettings(duration=duration, reference=reference))
+    assert result.diverged_at is None and set(result.mode) == {"nominal"}
+    summary = result.summary()
+    for i, (output, gains) in enumerate(zip(artifact.outputs, artifact.gains)):
+        expected = sampled_chain_error(gains, 1 / artifact.rate, -amplitude, len(result.t))
+        error = result.errors()[:, i]
+        assert np.max(np.abs(error - expected)) < 0.02 * amplitude, output
+        expected_rate = fit_decay_rate(result.t, expected)
+        assert summary["outputs"][output]["decay_rate"] == pytest.approx(expected_rate, rel=0.03), output
+        # and the sampled design decays like the slowest continuous pole (within sampling effects)
+        slowest = -max(np.real(np.roots(np.r_[1.0, gains[::-1]])))
+        assert expected_rate == pytest.approx(slowest, rel=0.1)
+        assert summary["outputs"][output]["final_error"] < 1e-3 * amplitude
+
+
+def test_input_state_design_tracks_the_linearizing_output_and_reports_state_references():
+    artifact = built_artifact(REFERENCE / "khalil_two_state.yaml")
+    reference = make_reference("smooth", [2], [0.0], 0.5, duration=2.0)
+    result = simulate(artifact, SimSettings(duration=6.0, reference=reference, initial=[0.0, 0.0]))
+    assert np.max(np.abs(result.errors())) < 0.005 * 0.5        # sampling error at 100 Hz, under 0.5 %
+    assert result.ref_state is not None
+    # x_ref = T^-1(z_ref): x1 = z1 and a sin(x2) = z1' (Khalil, ch. 13)
+    z = result.ref[:, :2]
+    np.testing.assert_allclose(result.ref_state[:, 0], z[:, 0], atol=1e-12)
+    np.testing.assert_allclose(1.5 * np.sin(result.ref_state[:, 1]), z[:, 1], atol=1e-12)
+
+
+def test_mismatch_noise_and_delay_degrade_tracking_but_stay_bounded():
+    artifact = built_artifact(BUNDLED / "mast_camera.yaml")
+    reference = make_reference("smooth", [2, 2], [0.0, 0.0], [0.6, -0.3], duration=1.5, at=0.1)
+    nominal = simulate(artifact, SimSettings(duration=4.0, reference=reference)).summary()
+    mismatch = simulate(artifact, SimSettings(duration=4.0, reference=reference, plant_parameters=
+                        mismatched_parameters(artifact, {"J_cam": 40.0, "J_tilt": 25.0}))).summary()
+    noisy = simulate(artifact, SimSettings(duration=4.0, reference=reference,
+                                           noise=[1e-3, 1e-3, 1e-2, 1e-2])).summary()
+    delayed = simulate(artifact, SimSettings(duration=4.0, reference=reference, delay=0.01)).summary()
+    for summary in (mismatch, noisy, delayed):
+        for output in ("pan_angle", "tilt_angle"):
+            assert nominal["outputs"][output]["rms_error"] < summary["outputs"][output]["rms_error"] < 0.05
+    assert nominal["outputs"]["tilt_angle"]["rms_error"] < 1e-4
+
+
+def test_a_fractional_delay_shifts_the_response_by_that_delay():
+    artifact = built_artifact(MINIMAL + "outputs: {y: x1}\ndesign: {rate: 100, poles: {y: [-3, -4]}}\n")
+    reference = make_reference("step", [2], [0.0], 0.1, at=0.2)
+    runs = [simulate(artifact, SimSettings(duration=1.0, reference=reference, initial=[0.0, 0.0], delay=d))
+            for d in (0.0, 0.025, 0.05)]
+    def first_move(r):
+        return r.t[np.argmax(np.abs(r.y[:, 0]) > 1e-6)]
+    assert first_move(runs[0]) < first_move(runs[1]) < first_move(runs[2])
+    assert first_move(runs[2]) - first_move(runs[0]) == pytest.approx(0.05, abs=0.011)
+
+
+def test_rk4_and_adaptive_integrators_agree():
+    artifact = built_artifact(BUNDLED / "pick_arm.yaml")
+    core = ControllerCore(artifact)
+    x0 = [0.4, 1.2, 0.0, 0.0]
+    reference = make_reference("smooth", [2, 2], [core.outputs(x0)[0], core.outputs(x0)[2]], 0.05, duration=1.0)
+    rk4 = simulate(artifact, SimSettings(duration=1.5, reference=reference))
+    adaptive = simulate(artifact, SimSettings(duration=1.5, reference=reference, integrator="scipy"))
+    np.testing.assert_allclose(rk4.x, adaptive.x, atol=1e-8)
+
+
+def test_divergence_stops_the_run_and_says_when():
+    # a plant that escapes in finite time once the controller is off: x' = x^2 + u, no input limits
+    artifact = built_artifact("plant: blow\nstates: [x]\ninputs: [u]\ndynamics: {x: x**2 + u}\n"
+                              "outputs: {y: x}\ndesign: {rate: 100, poles: {y: [-1]}}\n"
+                              "operating_point: {x: 0.5}\n")
+    from linz_ros.runtime import WatchdogConfig
+    config = WatchdogConfig.from_artifact(artifact, sigma_warn=2.0, sigma_act=2.0, sigma_stop=2.0)  # always safe
+    result = simulate(artifact, SimSettings(duration=5.0, initial=[0.5], config=config))
+    assert result.diverged_at is not None and 1.5 < result.diverged_at < 2.5       # x = 1/(2 - t)
+    assert "stopped being finite" in result.summary()["notes"][0]
+
+
+def test_csv_holds_every_step_with_named_columns(tmp_path):
+    artifact = built_artifact(BUNDLED / "mast_camera.yaml")
+    result = simulate(artifact, SimSettings(duration=0.2))
+    path = result.write_csv(tmp_path / "run.csv")
+    rows = list(csv.reader(path.open()))
+    assert rows[0][:5] == ["t", "pan", "tilt", "pan_rate", "tilt_rate"]
+    for column in ("ref_pan_angle", "ref_pan_angle_d2", "tau_pan", "sigma_min", "mode", "saturated_tau_tilt",
+                   "compute_time_us"):
+        assert column in rows[0]
+    assert len(rows) == 1 + len(result.t) == 1 + 51
+    assert rows[-1][rows[0].index("mode")] == "nominal"
+
+
+@pytest.mark.parametrize("settings, words", [
+    (SimSettings(duration=0.0), "--duration"), (SimSettings(integrator="euler"), "--integrator"),
+    (SimSettings(substeps=0), "--substeps"), (SimSettings(delay=-1.0), "--delay"),
+    (SimSettings(initial=[0.0]), "--initial: expected 4 values"), (SimSettings(noise=[-1.0] * 4), "--noise"),
+])
+def test_settings_out_of_range_are_refused(settings, words):
+    with pytest.raises(ConfigError, match=words):
+        simulate(built_artifact(BUNDLED / "mast_camera.yaml"), settings)
+
+
+def test_fit_decay_rate_ignores_transient_and_noise_floor():
+    t = np.linspace(0, 6, 3001)
+    e = np.exp(-2.0 * t) * np.cos(5 * t) + 1e-7 * np.sin(300 * t)
+    assert fit_decay_rate(t, e) == pytest.approx(2.0, rel=0.03)
+    assert fit_decay_rate(t, np.ones_like(t)) is None
+    assert fit_decay_rate(t[:3], e[:3]) is None

@@ -1,0 +1,215 @@
+"""The controller core and its watchdogs: singularity, saturation, bad input, hold, staleness."""
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from conftest import BUNDLED, MINIMAL, built_artifact
+from linz_ros.errors import ConfigError
+from linz_ros.runtime import ControllerCore, SimSettings, WatchdogConfig, make_reference, simulate
+
+
+@pytest.fixture(scope="module")
+def arm():
+    return built_artifact(BUNDLED / "pick_arm.yaml")
+
+
+def _sigma_numpy(core, x):
+    A = core.artifact.programs["law"].evaluate(x, core.parameters)["A"]
+    s = np.linalg.svd(A, compute_uv=False)
+    return s[-1], s[0] / s[-1]
+
+
+def test_a_trajectory_through_the_singular_set_switches_modes_as_specified(arm):
+    # the stretched arm (q2 = 0) is singular for the tool point: sigma_min ~ |sin q2|
+    core = ControllerCore(arm)
+    c = core.config
+    q2_path = np.concatenate([np.linspace(0.9, -0.4, 400), np.linspace(-0.4, 0.9, 400)])
+    ref = core.hold_reference([0.4, 0.9, 0.0, 0.0])
+    seen, previous = [], None
+    for k, q2 in enumerate(q2_path):
+        x = [0.4, q2, 0.05, -0.1]
+        u, record = core.step(x, ref, t=0.002 * (k + 1))
+        sigma, condition = _sigma_numpy(core, x)
+        assert record.sigma_min == pytest.approx(sigma, rel=1e-9, abs=1e-15)
+        if math.isfinite(condition):
+            assert record.condition == pytest.approx(condition, rel=1e-8)
+        expected = ("safe" if sigma < c.sigma_stop else "damped" if sigma < c.sigma_act else "nominal")
+        assert record.mode == expected, (q2, sigma)
+        assert record.warn == (sigma < c.sigma_warn)
+        assert record.reason == {"safe": "singular", "damped": "near_singular", "nominal": "ok"}[expected]
+        assert all(math.isfinite(v) for v in u) and len(u) == 2
+        assert record.compute_time > 0
+        if expected == "safe":
+            assert u == [0.0, 0.0]
+        if record.mode != previous:
+            seen.append(record.mode)
+            previous = record.mode
+    assert seen == ["nominal", "damped", "safe", "damped", "nominal", "damped", "safe", "damped", "nominal"]
+
+
+def test_damped_command_is_continuous_at_the_act_threshold_and_bounded_near_the_stop(arm):
+    core = ControllerCore(arm, WatchdogConfig.from_artifact(arm, input_limits=((-1e9, 1e9), (-1e9, 1e9))))
+    # q2 near the value where sigma_min crosses sigma_act, in fine steps: no jump in the command
+    q2s = np.linspace(0.2, 0.02, 2000)
+    ref = core.hold_reference([0.4, 0.5, 0.0, 0.0])
+    commands, modes = [], []
+    for k, q2 in enumerate(q2s):
+        u, record = core.step([0.4, q2, 0.0, 0.0], ref, t=1e-3 * (k + 1))
+        commands.append(u)
+        modes.append(record.mode)
+        if record.mode == "damped":
+            # |u| <= |v - b| / (2 lambda) for the damped least-squares solution
+            law = core.artifact.programs["law"].evaluate([0.4, q2, 0.0, 0.0], core.parameters)
+            v = np.array(ref[2::3]) - 42 * (law["chain"][0::2] - np.array(ref[0::3])) - 13 * law["chain"][1::2]
+            assert np.linalg.norm(u) <= np.linalg.norm(v - law["b"]) / (2 * record.damping) * (1 + 1e-9)
+    assert "damped" in modes and "nominal" in modes
+    switch = modes.index("damped")
+    jumps = np.abs(np.diff(np.array(commands), axis=0)).max(axis=1)
+    assert jumps[switch - 1] < 5 * np.median(jumps[max(0, switch - 50):switch - 1]) + 1e-9
+
+
+def test_box_and_rate_limits_clip_and_say_which_input(arm):
+    wide = ((-1e6, 1e6), (-1e6, 1e6))
+    free = ControllerCore(arm, WatchdogConfig.from_artifact(arm, input_limits=wide))
+    boxed = ControllerCore(arm, WatchdogConfig.from_artifact(arm, input_limits=((-2.0, 2.0), (-1.0, 1.0))))
+    rated = ControllerCore(arm, WatchdogConfig.from_artifact(arm, input_limits=wide, rate_limits=(100.0, math.inf)))
+    x = [0.4, 1.2, 0.0, 0.0]
+    ref = free.hold_reference(x)
+    ref[0] += 0.05                                    # a step in tool_x
+    u_free, _ = free.step(x, ref, t=0.01)
+    u_box, record = boxed.step(x, ref, t=0.01)
+    assert u_box == [min(max(u_free[0], -2.0), 2.0), min(max(u_free[1], -1.0), 1.0)]
+    assert record.saturated == (abs(u_free[0]) > 2.0, abs(u_free[1]) > 1.0)
+    # rate limits: the first step starts from the resting command (zero) with dt = 1/rate
+    commands = [rated.step(x, ref, t=0.002 * k) for k in range(1, 40)]
+    u1, record1 = commands[0]
+    assert u1[0] == pytest.approx(math.copysign(100.0 * 0.002, u_free[0])) and record1.saturated == (True, False)
+    steps = np.abs(np.diff([u[0] for u, _ in commands]))
+    assert np.all(steps <= 100.0 * 0.002 + 1e-12)
+    assert all(r.saturated[0] for _, r in commands[:10]) and not any(r.saturated[1] for _, r in commands)
+
+
+def test_integral_action_with_anti_windup_overshoots_less(tmp_path):
+    text = (MINIMAL + "outputs: {y: x1}\ninput_limits: {u: [-3, 3]}\n"
+            "design: {rate: 200, integral: true, poles: {y: [-3, -4, -5]}}\n")
+    artifact = built_artifact(text)
+    reference = make_reference("step", [2], [0.0], 1.2, at=0.05)
+    runs = {}
+    for anti_windup in (True, False):
+        config = WatchdogConfig.from_artifact(artifact, anti_windup=anti_windup)
+        result = simulate(artifact, SimSettings(duration=6.0, reference=reference, config=config,
+                                                initial=[0.0, 0.0]))
+        runs[anti_windup] = result
+    overshoot = {k: float(np.max(r.y[:, 0]) - 1.2) for k, r in runs.items()}
+    assert runs[True].saturated.any() and runs[False].saturated.any()
+    assert overshoot[True] < 0.5 * overshoot[False]
+    assert abs(runs[True].errors()[-1, 0]) < 1e-3          # integral action still removes the offset
+
+
+def test_integral_action_removes_a_constant_model_error():
+    text = (MINIMAL + "outputs: {y: x1}\n"
+            "design: {rate: 200, integral: true, poles: {y: [-3, -4, -5]}}\n")
+    artifact = built_artifact(text)
+    reference = make_reference("hold", [2], [0.3])
+    with_integral = simulate(artifact, SimSettings(duration=8.0, reference=reference, initial=[0.3, 0.0],
+                                                   plant_parameters=[2.6]))        # k 30 % off
+    assert abs(with_integral.errors()[-1, 0]) < 1e-4
+
+
+@pytest.mark.parametrize("x, ref, t, now, reason", [
+    ([0.4, 1.2, 0.0], None, 1.0, None, "wrong_length"),
+    ([0.4, 1.2, 0.0, 0.0, 0.0], None, 1.0, None, "wrong_length"),
+    ([0.4, math.nan, 0.0, 0.0], None, 1.0, None, "non_finite_state"),
+    ([0.4, 1.2, math.inf, 0.0], None, 1.0, None, "non_finite_state"),
+    (["a", 1.2, 0.0, 0.0], None, 1.0, None, "wrong_length"),
+    (None, None, 1.0, None, "wrong_length"),
+    ([0.4, 1.2, 0.0, 0.0], [0.0] * 5, 1.0, None, "bad_reference"),
+    ([0.4, 1.2, 0.0, 0.0], [math.nan] * 6, 1.0, None, "bad_reference"),
+    ([0.4, 1.2, 0.0, 0.0], None, math.nan, None, "bad_time"),
+    ([0.4, 1.2, 0.0, 0.0], None, "soon", None, "bad_time"),
+    ([0.4, 1.2, 0.0, 0.0], None, 0.5, None, "out_of_order"),       # older than the last one used
+    ([0.4, 1.2, 0.0, 0.0], None, 0.9, None, "out_of_order"),       # the same stamp again
+    ([0.4, 1.2, 0.0, 0.0], None, 1.0, 1.5, "stale"),               # 0.5 s old at 'now'
+])
+def test_bad_input_gives_the_safe_command_and_a_reason(arm, x, ref, t, now, reason):
+    core = ControllerCore(arm)
+    good = [0.4, 1.2, 0.0, 0.0]
+    core.step(good, core.hold_reference(good), t=0.9)
+    u, record = core.step(x, core.hold_reference(good) if ref is None else ref, t=t, now=now)
+    assert record.reason == reason and record.mode == "safe" and u == [0.0, 0.0]
+    u, record = core.step(good, core.hold_reference(good), t=2.0)       # and it recovers
+    assert record.mode == "nominal"
+
+
+def test_a_model_that_is_not_finite_at_the_state_is_refused():
+    text = ("plant: root\nstates: [x]\ninputs: [u]\ndynamics: {x: sqrt(x) + u}\noutputs: {y: sqrt(x)}\n"
+            "operating_point: {x: 1.0}\nenvelope: {x: [0.5, 2]}\ndesign: {poles: {y: [-1]}}\n")
+    core = ControllerCore(built_artifact(text))
+    u, record = core.step([-1.0], [1.0, 0.0], t=0.1)
+    assert record.reason == "model_not_finite" and u == [0.0]
+    u, record = core.step([1.0], [1.0, 0.0], t=0.2)
+    assert record.mode == "nominal"
+
+
+def test_hold_repeats_the_last_good_command_within_hold_time_then_goes_safe(arm):
+    core = ControllerCore(arm, WatchdogConfig.from_artifact(arm, safe_kind="hold", hold_time=0.1))
+    good = [0.4, 1.2, 0.3, 0.0]
+    ref = core.hold_reference([0.4, 1.25, 0.0, 0.0])
+    u, record = core.step(good, ref, t=1.0)
+    assert record.mode == "nominal" and u != [0.0, 0.0]
+    held, record = core.step([math.nan] * 4, ref, t=1.05)
+    assert record.mode == "held" and held == u and record.reason == "non_finite_state"
+    later, record = core.step([math.nan] * 4, ref, t=1.2)
+    assert record.mode == "safe" and later == [0.0, 0.0]
+
+
+def test_fixed_safe_command_and_staleness(arm):
+    core = ControllerCore(arm, WatchdogConfig.from_artifact(arm, safe_kind="fixed", safe_value=(1.0, -0.5)))
+    assert core.is_stale(0.0)
+    x = [0.4, 1.2, 0.0, 0.0]
+    core.step(x, core.hold_reference(x), t=1.0)
+    assert not core.is_stale(1.0 + 0.5 * core.config.stale_after)
+    assert core.is_stale(1.0 + 2 * core.config.stale_after)
+    u, record = core.safe_step(1.5, "stale")
+    assert u == [1.0, -0.5] and record.mode == "safe" and record.reason == "stale"
+
+
+def test_watchdog_settings_are_checked(arm):
+    with pytest.raises(ConfigError, match="sigma_act: expected sigma_warn >= sigma_act >= sigma_stop"):
+        WatchdogConfig.from_artifact(arm, sigma_act=100.0)
+    with pytest.raises(ConfigError, match="unknown watchdog setting"):
+        WatchdogConfig.from_artifact(arm, sigma_wran=1.0)
+    with pytest.raises(ConfigError, match="rate_limits: expected 2 values"):
+        WatchdogConfig.from_artifact(arm, rate_limits=(1.0,))
+    with pytest.raises(ConfigError, match="damping: expected a positive number"):
+        WatchdogConfig.from_artifact(arm, damping=0.0)
+    with pytest.raises(ConfigError, match="parameters: expected 9 finite values"):
+        ControllerCore(arm, parameters=[1.0])
+
+
+_junk = st.one_of(st.floats(allow_nan=True, allow_infinity=True), st.integers(-10**6, 10**6),
+                  st.none(), st.text(max_size=3), st.booleans())
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.one_of(st.lists(_junk, max_size=6), st.none(), st.text(max_size=4)),
+       st.one_of(st.lists(_junk, max_size=7), st.none()), _junk, _junk)
+def test_the_step_never_raises_and_the_command_is_always_finite_and_within_limits(x, ref, t, now):
+    core = _shared_core()
+    u, record = core.step(x, ref, t, now)
+    assert len(u) == 2 and all(math.isfinite(v) for v in u)
+    assert all(lo <= v <= hi for v, (lo, hi) in zip(u, core.config.input_limits))
+    assert record.mode in ("nominal", "damped", "held", "safe")
+
+
+_CORE = []
+
+
+def _shared_core():
+    if not _CORE:
+        _CORE.append(ControllerCore(built_artifact(BUNDLED / "pick_arm.yaml")))
+    return _CORE[0]

@@ -1,0 +1,36 @@
+"""Closed-form small linear algebra of the control step against numpy's LAPACK routines."""
+
+import numpy as np
+import pytest
+
+from linz_ros.runtime._linalg import damped_solve, singular_values, solve
+
+
+@pytest.mark.parametrize("m", [1, 2, 3, 4])
+def test_singular_values_solve_and_damped_solve_match_numpy(m):
+    rng = np.random.default_rng(m)
+    for _ in range(200):
+        A = rng.normal(size=(m, m)) * rng.uniform(0.01, 100)
+        rhs = rng.normal(size=m)
+        flat = A.ravel().tolist()
+        sigma = np.linalg.svd(A, compute_uv=False)
+        smin, smax = singular_values(flat, m)
+        assert smin == pytest.approx(sigma[-1], rel=1e-9) and smax == pytest.approx(sigma[0], rel=1e-12)
+        np.testing.assert_allclose(solve(flat, rhs.tolist(), m), np.linalg.solve(A, rhs), rtol=1e-7, atol=1e-12)
+        lam = rng.uniform(0.01, 1.0)
+        expected = A.T @ np.linalg.solve(A @ A.T + lam ** 2 * np.eye(m), rhs)
+        np.testing.assert_allclose(damped_solve(flat, rhs.tolist(), m, lam), expected, rtol=1e-9, atol=1e-12)
+
+
+def test_two_by_two_smallest_singular_value_stays_accurate_when_tiny():
+    # nearly rank one: sigma_min = |det| / sigma_max avoids the cancellation of the textbook formula
+    A = np.array([[1.0, 2.0], [1.0, 2.0 + 1e-9]])
+    smin, _ = singular_values(A.ravel().tolist(), 2)
+    assert smin == pytest.approx(np.linalg.svd(A, compute_uv=False)[-1], rel=1e-6)
+
+
+def test_damped_solution_is_bounded_at_an_exact_singularity():
+    lam = 0.1
+    u = damped_solve([1.0, 1.0, 1.0, 1.0], [1.0, -1.0], 2, lam)    # rhs orthogonal to the range
+    assert np.linalg.norm(u) <= np.linalg.norm([1.0, -1.0]) / (2 * lam)
+    assert np.allclose(u, 0.0)

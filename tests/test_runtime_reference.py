@@ -1,0 +1,56 @@
+"""Reference generators: values and derivatives (checked by finite differences), parsing."""
+
+import numpy as np
+import pytest
+
+from linz_ros.errors import ConfigError
+from linz_ros.runtime import make_reference, parse_reference
+
+
+@pytest.mark.parametrize("kind, options", [("sine", {"period": 1.7, "at": 0.2}),
+                                           ("smooth", {"duration": 1.3, "at": 0.2})])
+def test_derivatives_are_the_derivatives_of_the_value(kind, options):
+    ref = make_reference(kind, [4], [0.5], 0.3, **options)
+    h = 1e-4
+    for t in np.linspace(0.25, 1.4, 13):
+        now, ahead, behind = ref.sample(t), ref.sample(t + h), ref.sample(t - h)
+        for j in range(4):
+            derivative = (ahead[j] - behind[j]) / (2 * h)
+            assert now[j + 1] == pytest.approx(derivative, rel=1e-5, abs=1e-5 * (1 + abs(now[j + 1])))
+
+
+def test_smooth_move_starts_and_ends_at_rest_with_the_right_values():
+    ref = make_reference("smooth", [3], [1.0], -2.0, duration=2.0, at=1.0)
+    assert ref.sample(0.5) == [1.0, 0.0, 0.0, 0.0]
+    start, end = ref.sample(1.0), ref.sample(3.0)
+    assert start[0] == pytest.approx(1.0) and np.allclose(start[1:], 0.0, atol=1e-12)
+    assert end[0] == pytest.approx(-1.0) and np.allclose(end[1:], 0.0, atol=1e-9)
+    assert ref.sample(2.0)[0] == pytest.approx(0.0)     # half way, by symmetry
+    assert ref.sample(9.0) == [-1.0, 0.0, 0.0, 0.0]
+
+
+def test_step_sine_and_hold_values():
+    assert make_reference("step", [1, 2], [0.0, 1.0], [2.0, -1.0], at=1.0).sample(1.5) == [2.0, 0.0, 0.0, 0.0, 0.0]
+    sine = make_reference("sine", [1], [0.0], 2.0, period=4.0)
+    assert sine.sample(1.0) == pytest.approx([2.0, 0.0], abs=1e-12)
+    assert make_reference("hold", [2], [3.0]).sample(5.0) == [3.0, 0.0, 0.0]
+
+
+def test_parse_reference_reads_per_output_amplitudes():
+    ref = parse_reference("step:tool_x=0.05,tool_y=-0.02,at=0.5", [2, 2], [0.4, 0.5], ["tool_x", "tool_y"])
+    assert ref.sample(1.0) == pytest.approx([0.45, 0, 0, 0.48, 0, 0])
+    assert parse_reference("sine:amplitude=1,period=2", [1], [0.0], ["y"]).amplitude == [1.0]
+
+
+@pytest.mark.parametrize("text, words", [
+    ("ramp:amplitude=1", "unknown kind 'ramp'"),
+    ("step:amplitude", "expected key=value"),
+    ("step:amplitude=big", "amplitude: expected a number, got 'big'"),
+    ("step:period=2", "unknown key 'period' for step"),
+    ("sine:period=0", "period and duration must be positive"),
+    ("smooth:duration=-1", "period and duration must be positive"),
+])
+def test_bad_reference_text_is_one_line(text, words):
+    with pytest.raises(ConfigError, match="reference") as info:
+        parse_reference(text, [2], [0.0], ["y"])
+    assert words in str(info.value)
