@@ -1,8 +1,12 @@
-"""The ``linz`` command: analyse plants from the terminal.
+"""The ``linz`` command: analyse plants, build controllers, simulate and time them.
 
 Verbs
 -----
 check   decide whether and where a plant can be feedback linearized
+build   synthesise the law and write a verified controller artifact
+sim     run the sampled closed loop offline; CSV, plots and a summary
+bench   time the controller step against reference implementations
+demo    the whole job on the bundled example (check, build, two simulations)
 
 Exit codes: 0 when the work ran (whatever the verdict), 2 for bad input (one line on
 stderr naming the file, the field and the problem), 1 for an internal error.
@@ -12,13 +16,18 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import sys
-from typing import Sequence
+import time
+from pathlib import Path
+from typing import Any, Sequence
 
 from linz_ros import __version__
-from linz_ros.errors import LinzError
+from linz_ros.errors import ConfigError, DesignError, LinzError
 
 __all__ = ["main"]
+
+DEFAULT_OUT = "linz_out"
 
 
 class _OneLineParser(argparse.ArgumentParser):
@@ -38,11 +47,50 @@ def _positive_int(text: str) -> int:
     return value
 
 
+def _number_at_least(minimum: float, strict: bool):
+    """An argparse type for finite numbers above (or at) ``minimum``."""
+    words = "a positive number" if strict and minimum == 0 else f"a number >= {minimum:g}"
+
+    def convert(text: str) -> float:
+        try:
+            value = float(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+        if not (math.isfinite(value) and (value > minimum if strict else value >= minimum)):
+            raise argparse.ArgumentTypeError(f"expected {words}, got {text!r}")
+        return value
+
+    return convert
+
+
+_positive_float = _number_at_least(0.0, strict=True)
+_nonnegative_float = _number_at_least(0.0, strict=False)
+
+
+def _add_design_options(parser: argparse.ArgumentParser) -> None:
+    group = parser.add_argument_group("design (overrides the plant file's design section)")
+    group.add_argument("--poles", action="append", default=[], metavar="OUTPUT=P1,P2",
+                       help="closed-loop poles of one output chain, e.g. tool_x=-6,-7 or -3+2j,-3-2j; "
+                            "repeat per output (a single chain may omit the name: --poles=-4,-5)")
+    group.add_argument("--lqr-q", metavar="W1,W2,...", help="LQR state weights, one per chain state")
+    group.add_argument("--lqr-r", metavar="W1,...", help="LQR input weights, one per chain")
+    group.add_argument("--rate", type=_positive_float, metavar="HZ", help="control rate")
+    integral = group.add_mutually_exclusive_group()
+    integral.add_argument("--integral", dest="integral", action="store_true", default=None,
+                          help="add integral action on every chain")
+    integral.add_argument("--no-integral", dest="integral", action="store_false")
+    group.add_argument("--linearize", choices=("auto", "outputs", "state"), default="auto",
+                       help="outputs: input-output linearization; state: input-state through a linearizing "
+                            "output T1 (one input); auto (default): outputs when the plant declares any")
+    group.add_argument("--linearizing-output", metavar="EXPR", help="T1 for input-state linearization")
+
+
 def _build_parser() -> argparse.ArgumentParser:
     parser = _OneLineParser(prog="linz", description="Feedback linearization, from plant file to ROS 2 node.")
     parser.add_argument("--version", action="version", version=f"linz_ros {__version__}")
     verbs = parser.add_subparsers(dest="verb", metavar="VERB", parser_class=_OneLineParser)
     verbs.required = True
+
     check = verbs.add_parser("check", help="analyse a plant's linearizability",
                              description="Decide whether and where a plant can be feedback linearized.")
     check.add_argument("plant", metavar="PLANT", help="plant file (YAML)")
@@ -50,9 +98,73 @@ def _build_parser() -> argparse.ArgumentParser:
     check.add_argument("--samples", type=_positive_int, default=1024,
                        help="envelope samples for the conditioning sweep (default 1024)")
     check.set_defaults(run=_run_check)
+
+    build = verbs.add_parser("build", help="synthesise the controller and write its artifact",
+                             description="Synthesise the linearizing law and outer loop, generate the "
+                                         "expressions, verify them against sympy and write the artifact.")
+    build.add_argument("plant", metavar="PLANT", help="plant file (YAML)")
+    build.add_argument("-o", "--out", default=DEFAULT_OUT, metavar="DIR",
+                       help=f"folder for PLANT_NAME.artifact.json (default {DEFAULT_OUT})")
+    build.add_argument("--tolerance", type=_positive_float, default=None, metavar="TOL",
+                       help="largest accepted residual of the generated code against sympy (default 1e-9)")
+    build.add_argument("--json", action="store_true", help="print one JSON object instead of text")
+    _add_design_options(build)
+    build.set_defaults(run=_run_build)
+
+    sim = verbs.add_parser("sim", help="simulate the closed loop offline",
+                           description="Run the controller core at its rate against the plant (zero-order "
+                                       "hold), with optional mismatch, noise and delay; write a CSV, plots "
+                                       "and a summary.")
+    sim.add_argument("source", metavar="PLANT_OR_ARTIFACT",
+                     help="a plant file (built in memory) or an artifact (*.json)")
+    sim.add_argument("-o", "--out", metavar="DIR", help=f"output folder (default {DEFAULT_OUT}/<plant>-sim)")
+    sim.add_argument("--duration", type=_positive_float, default=5.0, metavar="S", help="seconds (default 5)")
+    sim.add_argument("--reference", metavar="SPEC",
+                     help="hold | step:amplitude=A,at=T | sine:amplitude=A,period=P,at=T | "
+                          "smooth:amplitude=A,duration=D,at=T; per-output amplitudes as OUTPUT=A; "
+                          "default: the plant's design.reference, else hold")
+    sim.add_argument("--mismatch", action="append", default=[], metavar="PARAM=PCT",
+                     help="plant parameter off by PCT percent (repeatable; all=PCT for every parameter)")
+    sim.add_argument("--noise", action="append", default=[], metavar="SIGMA|STATE=SIGMA",
+                     help="Gaussian sensor noise: one standard deviation for all states, or per state")
+    sim.add_argument("--delay", type=_nonnegative_float, default=0.0, metavar="S", help="input delay, seconds")
+    sim.add_argument("--initial", action="append", default=[], metavar="STATE=VALUE",
+                     help="initial state (default: the operating point)")
+    sim.add_argument("--integrator", choices=("rk4", "scipy"), default="rk4",
+                     help="rk4: fixed-step RK4 sub-steps (default); scipy: adaptive RK45")
+    sim.add_argument("--substeps", type=_positive_int, default=4, help="RK4 steps per control period (default 4)")
+    sim.add_argument("--seed", type=int, default=1, help="noise seed")
+    sim.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
+    sim.add_argument("--progress", action="store_true", default=None,
+                     help="show a progress bar even when stderr is not a terminal")
+    sim.add_argument("--allow-plant-change", action="store_true",
+                     help="accept an artifact whose plant file changed since the build")
+    sim.add_argument("--json", action="store_true", help="print the summary as one JSON object")
+    _add_design_options(sim)
+    sim.set_defaults(run=_run_sim)
+
+    bench = verbs.add_parser("bench", help="time the controller step against references",
+                             description="Time ControllerCore.step and, on the same expressions, a naive "
+                                         "numpy pipeline and a compiled-C evaluation; print the ratios.")
+    bench.add_argument("source", metavar="PLANT_OR_ARTIFACT", help="a plant file or an artifact (*.json)")
+    bench.add_argument("--calls", type=_positive_int, default=2000, help="calls per round (default 2000)")
+    bench.add_argument("--rounds", type=_positive_int, default=7, help="rounds (default 7)")
+    bench.add_argument("--allow-plant-change", action="store_true",
+                       help="accept an artifact whose plant file changed since the build")
+    bench.add_argument("--json", action="store_true", help="print one JSON object instead of text")
+    bench.set_defaults(run=_run_bench)
+
+    demo = verbs.add_parser("demo", help="the whole job on the bundled example",
+                            description="Check, build and simulate the bundled pick arm: a nominal move, and a "
+                                        "reach past the workspace that drives the arm through its singular set.")
+    demo.add_argument("plant", metavar="PLANT", nargs="?", help="plant file (default: the bundled pick_arm)")
+    demo.add_argument("-o", "--out", default=str(Path(DEFAULT_OUT) / "demo"), metavar="DIR",
+                      help=f"output folder (default {DEFAULT_OUT}/demo)")
+    demo.set_defaults(run=_run_demo)
     return parser
 
 
+# -- check ------------------------------------------------------------------------------
 def _run_check(args: argparse.Namespace) -> int:
     from linz_ros.analysis import analyse, render_text
     from linz_ros.model import load_plant
@@ -63,6 +175,394 @@ def _run_check(args: argparse.Namespace) -> int:
     else:
         print(render_text(report))
     return 0
+
+
+# -- design options ---------------------------------------------------------------------
+def _numbers(text: str, option: str) -> list[float]:
+    values = []
+    for part in filter(None, (p.strip() for p in text.split(","))):
+        try:
+            values.append(float(part))
+        except ValueError:
+            raise DesignError("<command line>", option, f"expected numbers separated by commas, got {part!r}") \
+                from None
+    if not values:
+        raise DesignError("<command line>", option, "expected at least one number")
+    return values
+
+
+def _poles(items: list[str]) -> dict[str, list[complex]] | list[complex] | None:
+    if not items:
+        return None
+    named: dict[str, list[complex]] = {}
+    unnamed: list[complex] | None = None
+    for item in items:
+        name, equals, values = item.partition("=")
+        if not equals:
+            name, values = "", item
+        poles = []
+        for part in filter(None, (p.strip() for p in values.split(","))):
+            try:
+                poles.append(complex(part.replace("i", "j")))
+            except ValueError:
+                raise DesignError("<command line>", "--poles", f"expected numbers such as -3 or -3+2j, got {part!r}") \
+                    from None
+        if not poles:
+            raise DesignError("<command line>", "--poles", f"no poles in {item!r}")
+        if name:
+            named[name.strip()] = poles
+        else:
+            unnamed = poles
+    if unnamed is not None:
+        if named:
+            raise DesignError("<command line>", "--poles", "give every chain's poles with its name, or one "
+                                                            "unnamed list for a single chain")
+        return unnamed
+    return named
+
+
+def _design_options(args: argparse.Namespace):
+    from linz_ros.synthesis import DesignOptions
+
+    lqr = None
+    if args.lqr_q is not None or args.lqr_r is not None:
+        lqr = {}
+        if args.lqr_q is not None:
+            lqr["q"] = _numbers(args.lqr_q, "--lqr-q")
+        if args.lqr_r is not None:
+            lqr["r"] = _numbers(args.lqr_r, "--lqr-r")
+    return DesignOptions(poles=_poles(args.poles), lqr=lqr, rate=args.rate, integral=args.integral,
+                         linearize=args.linearize, linearizing_output=args.linearizing_output)
+
+
+def _has_design_overrides(args: argparse.Namespace) -> bool:
+    return bool(args.poles or args.lqr_q or args.lqr_r or args.rate or args.integral is not None
+                or args.linearize != "auto" or args.linearizing_output)
+
+
+def _design_and_document(plant_file: str, args: argparse.Namespace, tolerance: float | None = None):
+    from linz_ros.codegen import DEFAULT_TOLERANCE, build_document
+    from linz_ros.model import load_plant
+    from linz_ros.synthesis import synthesise
+
+    plant = load_plant(plant_file)
+    design = synthesise(plant, _design_options(args))
+    _check_reference_text(design.reference, design, plant.source)
+    document, verification = build_document(design, tolerance=tolerance or DEFAULT_TOLERANCE)
+    return design, document, verification
+
+
+def _check_reference_text(text: str | None, design, source: str) -> None:
+    """A reference in the plant file is checked at build time, naming the file and field."""
+    if text is None:
+        return
+    from linz_ros.runtime import parse_reference
+
+    orders = design.relative_degree
+    try:
+        parse_reference(text, orders, [0.0] * len(orders), [c.name for c in design.chains])
+    except ConfigError as err:
+        raise DesignError(source, "design.reference", err.problem) from None
+
+
+# -- build ------------------------------------------------------------------------------
+def _run_build(args: argparse.Namespace) -> int:
+    from linz_ros.codegen import artifact_path, write_artifact
+
+    design, document, verification = _design_and_document(args.plant, args, args.tolerance)
+    path = write_artifact(document, artifact_path(args.out, design.plant.name))
+    if args.json:
+        print(json.dumps(_build_summary(design, verification, path), indent=2))
+    else:
+        print(_build_text(design, verification, path))
+    for warning in design.warnings:
+        print(f"linz: warning: {warning}", file=sys.stderr)
+    return 0
+
+
+def _build_summary(design, verification, path: Path) -> dict[str, Any]:
+    return {
+        "plant": design.plant.name,
+        "artifact": str(path),
+        "kind": design.kind,
+        "outputs": [c.name for c in design.chains],
+        "relative_degree": design.relative_degree,
+        "rate": design.rate,
+        "integral": design.integral,
+        "method": design.method,
+        "chains": [{"name": c.name, "gains": [float(k) for k in c.gains],
+                    "poles": [[float(p.real), float(p.imag)] for p in c.poles],
+                    "sampled_spectral_radius": c.sampled.spectral_radius,
+                    "fastest_pole_times_period": c.sampled.fastest_pole_times_period} for c in design.chains],
+        "watchdog": {k: design.watchdog[k] for k in ("sigma_warn", "sigma_act", "sigma_stop", "damping",
+                                                     "stale_after")},
+        "sigma_reference": design.sigma_reference,
+        "verification": verification.to_json(),
+        "warnings": design.warnings,
+        "notes": design.notes,
+    }
+
+
+def _build_text(design, verification, path: Path) -> str:
+    kind = {"input_output": "input-output", "input_state": "input-state"}[design.kind]
+    lines = [f"plant {design.plant.name}: {kind} linearization, relative degree {design.relative_degree}, "
+             f"{design.rate:g} Hz{', integral action' if design.integral else ''}"]
+    for c in design.chains:
+        poles = ", ".join(f"{p.real:.4g}{p.imag:+.3g}j" if abs(p.imag) > 1e-12 else f"{p.real:.4g}" for p in c.poles)
+        gains = ", ".join(f"{k:.5g}" for k in c.gains)
+        lines.append(f"  {c.name} = {c.expression}: gains [{gains}], poles [{poles}] ({design.method}); "
+                     f"sampled loop spectral radius {c.sampled.spectral_radius:.5f}")
+    w = design.watchdog
+    lines.append(f"  watchdog: sigma warn {w['sigma_warn']:.4g}, act {w['sigma_act']:.4g}, stop {w['sigma_stop']:.4g} "
+                 f"({design.sigma_reference_note} = {design.sigma_reference:.4g}); stale after {w['stale_after']:.4g} s")
+    lines.append(f"  verified against sympy at {verification.points} points: worst relative residual "
+                 f"{verification.max_relative_residual:.2e} (tolerance {verification.tolerance:g})")
+    lines.extend(f"  note: {note}" for note in design.notes)
+    lines.append(f"wrote {path}")
+    return "\n".join(lines)
+
+
+# -- loading a plant file or an artifact ------------------------------------------------------
+def _is_artifact(path: str) -> bool:
+    return path.endswith(".json")
+
+
+def _artifact_and_design(source: str, args: argparse.Namespace, need_design: bool):
+    """An artifact (loaded, or built in memory from a plant file) and its design when at hand."""
+    from linz_ros.artifact import artifact_from_text, load_artifact, seal
+
+    if _is_artifact(source):
+        if _has_design_overrides(args):
+            raise ConfigError("design options", "an artifact's design is fixed; give the plant file to "
+                                                "change poles, weights, rate or integral action")
+        artifact = load_artifact(source, allow_plant_change=args.allow_plant_change)
+        design = None
+        if need_design:
+            design = _design_from_artifact_plant(artifact, args)
+        return artifact, design, None
+    design, document, _ = _design_and_document(source, args)
+    text = seal(document)
+    return artifact_from_text(text, source=f"{design.plant.name} (built from {source})"), design, document
+
+
+def _design_from_artifact_plant(artifact, args):
+    """The symbolic design behind an artifact, rebuilt from its plant file when that is at hand."""
+    from linz_ros.model import load_plant
+    from linz_ros.synthesis import DesignOptions, synthesise
+
+    if not (artifact.plant_check == "matches" or artifact.plant_check.endswith("(allowed)")):
+        return None
+    plant_path = Path(artifact.source).resolve().parent / artifact.document["plant"].get("source_from_artifact", "")
+    if not plant_path.is_file():
+        plant_path = Path(artifact.document["plant"]["source"])
+    plant = load_plant(plant_path)
+    d = artifact.document["design"]
+    chains = {c["name"]: [complex(*p) for p in c["poles"]] for c in d["chains"]}
+    options = DesignOptions(poles=chains if d["kind"] == "input_output" else list(chains.values())[0],
+                            rate=d["rate"], integral=d["integral"],
+                            linearize="outputs" if d["kind"] == "input_output" else "state",
+                            linearizing_output=None if d["kind"] == "input_output" else d["output_expressions"][0])
+    return synthesise(plant, options)
+
+
+# -- sim ----------------------------------------------------------------------------------------
+class _Progress:
+    """A one-line progress bar on stderr, redrawn at most ten times a second."""
+
+    def __init__(self, enabled: bool, label: str) -> None:
+        self.enabled = enabled
+        self.label = label
+        self.last = 0.0
+        self.started = time.monotonic()
+
+    def __call__(self, fraction: float) -> None:
+        if not self.enabled:
+            return
+        now = time.monotonic()
+        if fraction < 1.0 and now - self.last < 0.1:
+            return
+        self.last = now
+        filled = int(round(30 * fraction))
+        sys.stderr.write(f"\r{self.label} [{'#' * filled}{'.' * (30 - filled)}] {100 * fraction:5.1f}% "
+                         f"{now - self.started:5.1f} s")
+        if fraction >= 1.0:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+
+def _state_vector(artifact, items: list[str], option: str, start: list[float]) -> list[float]:
+    from linz_ros.runtime import parse_assignments
+
+    values = parse_assignments(items, option)
+    unknown = [k for k in values if k not in artifact.states]
+    if unknown:
+        raise ConfigError(option, f"{unknown[0]!r} is not a state ({', '.join(artifact.states)})")
+    return [values.get(s, v) for s, v in zip(artifact.states, start)]
+
+
+def _noise(artifact, items: list[str]) -> list[float] | None:
+    if not items:
+        return None
+    if len(items) == 1 and "=" not in items[0]:
+        try:
+            sigma = float(items[0])
+        except ValueError:
+            raise ConfigError("--noise", f"expected a number or STATE=SIGMA, got {items[0]!r}") from None
+        if not (math.isfinite(sigma) and sigma >= 0):
+            raise ConfigError("--noise", f"expected a standard deviation >= 0, got {items[0]!r}")
+        return [sigma] * len(artifact.states)
+    noise = _state_vector(artifact, items, "--noise", [0.0] * len(artifact.states))
+    if any(s < 0 for s in noise):
+        raise ConfigError("--noise", "standard deviations must be >= 0")
+    return noise
+
+
+def _reference(artifact, args: argparse.Namespace, x0: list[float]):
+    from linz_ros.runtime import ControllerCore, parse_reference
+
+    core = ControllerCore(artifact)
+    chain = core.outputs(x0)
+    base, k = [], 0
+    for r in artifact.relative_degree:
+        base.append(chain[k])
+        k += r
+    text = args.reference or artifact.document["design"].get("reference") or "hold"
+    try:
+        return parse_reference(text, artifact.relative_degree, base, artifact.outputs)
+    except ConfigError as err:
+        if args.reference:
+            raise
+        raise ConfigError(f"{artifact.document['plant']['source']}: design.reference", err.problem) from None
+
+
+def _run_sim(args: argparse.Namespace) -> int:
+    from linz_ros.runtime import SimSettings, mismatched_parameters, parse_assignments, simulate
+
+    artifact, _, document = _artifact_and_design(args.source, args, need_design=False)
+    operating = artifact.document["plant"]["operating_point"]
+    x0 = _state_vector(artifact, args.initial, "--initial", [float(operating[s]) for s in artifact.states])
+    settings = SimSettings(
+        duration=args.duration, reference=_reference(artifact, args, x0), initial=x0,
+        plant_parameters=mismatched_parameters(artifact, parse_assignments(args.mismatch, "--mismatch")),
+        noise=_noise(artifact, args.noise), delay=args.delay, substeps=args.substeps,
+        integrator=args.integrator, seed=args.seed)
+    show = args.progress if args.progress is not None else sys.stderr.isatty()
+    result = simulate(artifact, settings, progress=_Progress(bool(show), f"sim {artifact.name}"))
+    out = Path(args.out or Path(DEFAULT_OUT) / f"{artifact.name}-sim")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        files = [result.write_csv(out / "run.csv")]
+        if not args.no_plots:
+            from linz_ros.plotting import plot_run
+
+            files.extend(plot_run(result, out))
+        if document is not None:
+            from linz_ros.codegen import write_artifact
+
+            files.append(write_artifact(document, out / f"{artifact.name}.artifact.json"))
+        summary = result.summary()
+        summary["mismatch_percent"] = parse_assignments(args.mismatch, "--mismatch")
+        summary["files"] = [str(f) for f in files]
+        (out / "summary.json").write_text(json.dumps(summary, indent=2) + "\n")
+    except OSError as err:
+        raise ConfigError("--out", f"cannot write to {out}: {err.strerror}") from None
+    summary["files"].append(str(out / "summary.json"))
+    print(json.dumps(summary, indent=2) if args.json else _sim_text(summary))
+    return 0
+
+
+def _fmt(value: float | None, spec: str = ".3g") -> str:
+    return "n/a" if value is None else format(value, spec)
+
+
+def _sim_text(summary: dict[str, Any]) -> str:
+    lines = [f"sim {summary['plant']}: {summary['duration']:g} s at {summary['rate']:g} Hz, "
+             f"{summary['steps']} steps"]
+    for name, o in summary["outputs"].items():
+        lines.append(f"  {name}: rms error {_fmt(o['rms_error'])}, final {_fmt(o['final_error'])}, "
+                     f"max {_fmt(o['max_error'])}, fitted decay rate {_fmt(o['decay_rate'])} 1/s")
+    modes = ", ".join(f"{m} {t:.3g} s" for m, t in summary["time_in_mode"].items() if t > 0)
+    lines.append(f"  min sigma {_fmt(summary['min_sigma'])}, max condition {_fmt(summary['max_condition'])}; "
+                 f"modes: {modes}")
+    saturated = ", ".join(f"{u} {100 * f:.1f}%" for u, f in summary["saturated_fraction"].items())
+    lines.append(f"  saturated: {saturated}")
+    ct = summary["compute_time_us"]
+    if ct:
+        lines.append(f"  step compute time: p50 {ct['p50']:.1f} us, p99 {ct['p99']:.1f} us")
+    lines.extend(f"  note: {note}" for note in summary["notes"])
+    lines.append("wrote " + ", ".join(summary["files"]))
+    return "\n".join(lines)
+
+
+# -- bench ----------------------------------------------------------------------------------------
+def _run_bench(args: argparse.Namespace) -> int:
+    from linz_ros.bench import run_bench
+
+    args.poles, args.lqr_q, args.lqr_r, args.rate, args.integral = [], None, None, None, None
+    args.linearize, args.linearizing_output = "auto", None
+    artifact, design, _ = _artifact_and_design(args.source, args, need_design=True)
+    result = run_bench(artifact, design, calls=args.calls, rounds=args.rounds)
+    print(json.dumps(result.to_json(), indent=2) if args.json else result.render_text())
+    return 0
+
+
+# -- demo -----------------------------------------------------------------------------------------
+#: The bundled example and the reach that takes it through its singular set (sin q2 = 0).
+DEMO_PLANT = "pick_arm"
+DEMO_REACH = "smooth:tool_x=0.12,tool_y=0.16,duration=2,at=0.2"
+
+
+def bundled_plant(name: str) -> Path:
+    """The path of a bundled plant file, in a source checkout or as installed by colcon.
+
+    Parameters
+    ----------
+    name : str
+
+    Returns
+    -------
+    pathlib.Path
+
+    Raises
+    ------
+    ConfigError
+        When it cannot be found.
+    """
+    candidates = [Path(__file__).resolve().parent.parent / "config" / "plants" / f"{name}.yaml",
+                  Path(sys.prefix) / "share" / "linz_ros" / "config" / "plants" / f"{name}.yaml"]
+    for path in candidates:
+        if path.is_file():
+            return path
+    raise ConfigError("plant", f"the bundled plant {name!r} was not found (looked in "
+                               f"{', '.join(str(p.parent) for p in candidates)})")
+
+
+def _run_demo(args: argparse.Namespace) -> int:
+    from linz_ros.analysis import analyse, render_text
+    from linz_ros.model import load_plant
+
+    plant_file = Path(args.plant) if args.plant else bundled_plant(DEMO_PLANT)
+    out = Path(args.out)
+    print(f"== 1. check {plant_file}")
+    report = analyse(load_plant(plant_file), samples=512)
+    verdict = render_text(report).split("\n\n")[1]       # the VERDICT block
+    print(verdict)
+    print(f"\n== 2. build -> {out}")
+    build = _parse_sub(["build", str(plant_file), "-o", str(out)])
+    _run_build(build)
+    artifact = out / f"{report.plant.name}.artifact.json"
+    print("\n== 3. sim: the plant file's reference")
+    _run_sim(_parse_sub(["sim", str(artifact), "-o", str(out / "nominal"), "--duration", "4"]))
+    if report.plant.name == DEMO_PLANT and not args.plant:
+        print("\n== 4. sim: a reach past the workspace, through the singular set (watchdog at work)")
+        _run_sim(_parse_sub(["sim", str(artifact), "-o", str(out / "reach"), "--duration", "4",
+                             "--reference", DEMO_REACH]))
+    print(f"\nall results in {out}")
+    return 0
+
+
+def _parse_sub(argv: list[str]) -> argparse.Namespace:
+    return _build_parser().parse_args(argv)
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -4,10 +4,12 @@ import json
 import subprocess
 import sys
 
+import numpy as np
 import pytest
 
-from conftest import BUNDLED, MINIMAL, REFERENCE
+from conftest import BUNDLED, MINIMAL, REFERENCE, sampled_chain_error
 from linz_ros.cli import main
+from linz_ros.runtime import fit_decay_rate
 
 
 def _run(capsys, *argv):
@@ -88,3 +90,130 @@ def test_no_traceback_from_a_real_process(write_plant):
     assert "Traceback" not in result.stderr
     assert result.stderr.strip().endswith("not affine in the inputs: term 'u**2' is nonlinear in u")
     assert result.stderr.count("\n") == 1
+
+
+# -- build, sim, bench ----------------------------------------------------------------------------
+def test_build_writes_a_verified_artifact_and_reports_the_design(capsys, tmp_path):
+    code, out, err = _run(capsys, "build", str(BUNDLED / "pick_arm.yaml"), "-o", str(tmp_path), "--json")
+    assert code == 0 and err == ""
+    summary = json.loads(out)
+    for key in ("plant", "artifact", "kind", "outputs", "relative_degree", "rate", "chains", "watchdog",
+                "verification", "warnings"):
+        assert key in summary
+    assert summary["relative_degree"] == [2, 2] and summary["chains"][0]["gains"] == [42.0, 13.0]
+    assert summary["verification"]["max_relative_residual"] < 1e-12
+    path = tmp_path / "pick_arm.artifact.json"
+    assert summary["artifact"] == str(path) and path.exists()
+    code, out, _ = _run(capsys, "build", str(BUNDLED / "pick_arm.yaml"), "-o", str(tmp_path), "--poles",
+                        "tool_x=-3,-4", "--poles", "tool_y=-2+1j,-2-1j")
+    assert code == 0 and "gains [12, 7]" in out and "gains [5, 4]" in out and f"wrote {path}" in out
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["--poles", "tool_x=-3"], "design.poles.tool_x: 1 pole(s) given, but the chain has 2 states"),
+    (["--poles", "tool_x=-3,x"], "--poles: expected numbers such as -3 or -3+2j, got 'x'"),
+    (["--lqr-q", "1,1"], "design.lqr.q: expected 4 weights"),
+    (["--linearize", "state"], "inputs: input-state synthesis covers single-input plants"),
+    (["--rate", "0"], "expected a positive number"),
+])
+def test_build_refuses_bad_designs_with_one_line(capsys, tmp_path, argv, words):
+    try:
+        code, out, err = _run(capsys, "build", str(BUNDLED / "pick_arm.yaml"), "-o", str(tmp_path), *argv)
+    except SystemExit as exit_:
+        code, err = exit_.code, capsys.readouterr().err
+    assert code == 2 and words in err and err.count("\n") == 1
+    assert not (tmp_path / "pick_arm.artifact.json").exists()
+
+
+@pytest.mark.parametrize("name, amplitude, duration", [("pick_arm", 0.03, 3.0), ("mast_camera", 0.2, 3.0),
+                                                       ("survey_boat", 0.5, 16.0)])
+def test_build_then_sim_tracks_with_the_designed_error_dynamics(capsys, tmp_path, name, amplitude, duration):
+    assert _run(capsys, "build", str(BUNDLED / f"{name}.yaml"), "-o", str(tmp_path))[0] == 0
+    artifact = tmp_path / f"{name}.artifact.json"
+    code, out, err = _run(capsys, "sim", str(artifact), "-o", str(tmp_path / "sim"), "--duration", str(duration),
+                          "--reference", f"step:amplitude={amplitude}", "--no-plots", "--json")
+    assert code == 0, err
+    summary = json.loads(out)
+    design = json.loads(artifact.read_text())["design"]
+    t = np.arange(summary["steps"]) / design["rate"]
+    for chain in design["chains"]:
+        o = summary["outputs"][chain["name"]]
+        # the designed error dynamics of the sampled chain, e[k+1] = (Phi - Gamma K) e[k] from (-amplitude, 0),
+        # fitted the same way: the sampled nonlinear loop must give the same rate within 3 %
+        designed = sampled_chain_error(chain["gains"], 1 / design["rate"], -amplitude, summary["steps"])
+        assert o["decay_rate"] == pytest.approx(fit_decay_rate(t, designed), rel=0.03)
+        assert -max(p[0] for p in chain["poles"]) == pytest.approx(o["decay_rate"], rel=0.15)
+        assert o["final_error"] < 1e-3 * amplitude and o["max_error"] == pytest.approx(amplitude, rel=1e-6)
+    assert summary["time_in_mode"]["nominal"] == pytest.approx(duration, abs=2 / design["rate"])
+    assert set(summary["saturated_fraction"]) == set(json.loads(artifact.read_text())["plant"]["inputs"])
+    assert (tmp_path / "sim" / "run.csv").exists() and (tmp_path / "sim" / "summary.json").exists()
+
+
+def test_sim_from_a_plant_file_with_overrides_plots_and_keeps_its_artifact(capsys, tmp_path):
+    code, out, err = _run(capsys, "sim", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path), "--duration", "1",
+                          "--poles", "pan_angle=-3,-4", "--poles", "tilt_angle=-5,-6", "--mismatch", "J_cam=20",
+                          "--noise", "1e-4", "--delay", "0.004", "--progress")
+    assert code == 0
+    for name in ("run.csv", "outputs.png", "inputs.png", "conditioning.png", "summary.json",
+                 "mast_camera.artifact.json"):
+        assert (tmp_path / name).stat().st_size > 0, name
+    assert "100.0%" in err and "[#####" in err
+    assert "pan_angle: rms error" in out and "modes: nominal" in out
+    assert json.loads((tmp_path / "summary.json").read_text())["mismatch_percent"] == {"J_cam": 20.0}
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["--mismatch", "mass=5"], "--mismatch: 'mass' is not a parameter of mast_camera"),
+    (["--reference", "ramp:amplitude=1"], "--reference: unknown kind 'ramp'"),
+    (["--initial", "yaw=1"], "--initial: 'yaw' is not a state"),
+    (["--noise", "-1"], "--noise: expected a standard deviation >= 0"),
+    (["--noise", "pan=x"], "--noise: pan: expected a number"),
+    (["--duration", "-2"], "expected a positive number"),
+])
+def test_sim_refuses_bad_options_with_one_line(capsys, tmp_path, argv, words):
+    try:
+        code, _, err = _run(capsys, "sim", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path), "--no-plots", *argv)
+    except SystemExit as exit_:
+        code, err = exit_.code, capsys.readouterr().err
+    assert code == 2 and words in err and err.count("\n") == 1
+
+
+def test_sim_of_an_artifact_refuses_design_overrides_and_tampering(capsys, tmp_path):
+    _run(capsys, "build", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path))
+    artifact = tmp_path / "mast_camera.artifact.json"
+    code, _, err = _run(capsys, "sim", str(artifact), "--rate", "100", "-o", str(tmp_path / "s"))
+    assert code == 2 and "an artifact's design is fixed" in err
+    artifact.write_text(artifact.read_text().replace('"rate": 250.0', '"rate": 2500.0'))
+    code, _, err = _run(capsys, "sim", str(artifact), "-o", str(tmp_path / "s"))
+    assert code == 2 and "content does not match its sha256" in err and err.count("\n") == 1
+
+
+def test_a_bad_reference_in_the_plant_file_names_the_file_and_field(capsys, write_plant, tmp_path):
+    path = write_plant(MINIMAL + "outputs: {y: x1}\ndesign: {reference: 'step:amplitud=1'}\n")
+    code, _, err = _run(capsys, "build", str(path), "-o", str(tmp_path))
+    assert code == 2 and err.startswith(f"linz: {path}: design.reference: unknown key 'amplitud'")
+
+
+def test_bench_prints_the_ratios(capsys):
+    code, out, err = _run(capsys, "bench", str(BUNDLED / "mast_camera.yaml"), "--calls", "50", "--rounds", "2",
+                          "--json")
+    assert code == 0, err
+    result = json.loads(out)
+    assert {"core", "law_only", "naive", "lambdify_cse_math", "compiled_c"} <= set(result["microseconds_per_call"])
+    assert {"core_over_compiled_c", "naive_over_core"} <= set(result["ratios"])
+    assert all(v > 0 for v in result["microseconds_per_call"].values())
+
+
+def test_demo_runs_the_whole_job_and_shows_the_watchdog(capsys, tmp_path):
+    code, out, err = _run(capsys, "demo", "-o", str(tmp_path))
+    assert code == 0, err
+    for step in ("== 1. check", "== 2. build", "== 3. sim", "== 4. sim"):
+        assert step in out
+    nominal = json.loads((tmp_path / "nominal" / "summary.json").read_text())
+    reach = json.loads((tmp_path / "reach" / "summary.json").read_text())
+    assert nominal["time_in_mode"]["nominal"] == pytest.approx(4.0, abs=0.01)
+    assert max(o["rms_error"] for o in nominal["outputs"].values()) < 1e-3
+    # the reach leaves the workspace: the singularity watchdog damps, then stops, and every command is finite
+    assert reach["time_in_mode"]["damped"] > 0 and reach["time_in_mode"]["safe"] > 0
+    assert reach["min_sigma"] < json.loads((tmp_path / "pick_arm.artifact.json").read_text())["watchdog"]["sigma_stop"]
+    assert (tmp_path / "reach" / "conditioning.png").exists()

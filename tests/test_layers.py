@@ -12,14 +12,25 @@ import linz_ros
 PACKAGE = Path(linz_ros.__file__).resolve().parent
 
 # layer -> layers (and the seam) it may import; see DEVELOPERS.md
+OFFLINE = {"errors", "artifact", "model", "geometry", "analysis", "synthesis", "codegen"}
+RUNTIME = {"errors", "artifact", "runtime"}
 ALLOWED = {
     "errors": set(),
     "artifact": {"errors"},
     "model": {"errors", "artifact"},
     "geometry": {"errors", "artifact", "model"},
     "analysis": {"errors", "artifact", "model", "geometry"},
-    "cli": {"errors", "artifact", "model", "geometry", "analysis"},
+    "synthesis": {"errors", "artifact", "model", "geometry", "analysis"},
+    "codegen": {"errors", "artifact", "model", "geometry", "analysis", "synthesis"},
+    "runtime": {"errors", "artifact"},
+    "plotting": {"errors", "artifact", "runtime"},
+    "bench": OFFLINE | RUNTIME,
+    "cli": OFFLINE | RUNTIME | {"plotting", "bench"},
 }
+# heavy or ROS modules each layer may import at module level (lazy imports inside functions are
+# checked by the subprocess tests below)
+THIRD_PARTY_FORBIDDEN = {"artifact": {"sympy", "scipy", "rclpy", "matplotlib"},
+                         "runtime": {"sympy", "rclpy", "matplotlib"}}
 
 
 def _layer(path: Path) -> str:
@@ -54,20 +65,61 @@ def test_imports_point_downward(path):
     assert not illegal, f"{path.name} ({layer}) imports {sorted(illegal)}"
 
 
-def test_the_seam_imports_without_sympy():
-    code = ("import sys, linz_ros.artifact.grammar, linz_ros.errors; "
-            "bad = [m for m in ('sympy', 'rclpy', 'scipy') if m in sys.modules]; "
+@pytest.mark.parametrize("module", ["linz_ros.artifact", "linz_ros.runtime"])
+def test_the_seam_and_the_runtime_import_without_sympy_scipy_or_rclpy(module):
+    code = (f"import sys, {module}; "
+            "bad = [m for m in ('sympy', 'rclpy', 'scipy', 'matplotlib') if m in sys.modules]; "
             "print(bad); sys.exit(1 if bad else 0)")
     result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
     assert result.returncode == 0, result.stdout + result.stderr
 
 
+def test_a_whole_closed_loop_runs_without_sympy(tmp_path):
+    # build with the offline tower, then load, step and simulate in a fresh process that
+    # must never import sympy (design.md: the runtime needs numpy only)
+    from linz_ros.codegen import artifact_path, build_document, write_artifact
+    from linz_ros.model import load_plant
+    from linz_ros.synthesis import synthesise
+    from conftest import BUNDLED
+    design = synthesise(load_plant(BUNDLED / "mast_camera.yaml"))
+    path = write_artifact(build_document(design)[0], artifact_path(tmp_path, "mast_camera"))
+    code = ("import sys; from linz_ros.artifact import load_artifact; "
+            "from linz_ros.runtime import simulate, SimSettings; "
+            f"r = simulate(load_artifact({str(path)!r}), SimSettings(duration=0.5)); "
+            "assert len(r.t) == 126, len(r.t); "
+            "bad = [m for m in ('sympy', 'rclpy') if m in sys.modules]; print(bad); sys.exit(1 if bad else 0)")
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert result.returncode == 0, result.stdout + result.stderr
+
+
+def _third_party_imports(path: Path) -> set[str]:
+    tree = ast.parse(path.read_text())
+    found = set()
+    for node in tree.body:  # module level only
+        if isinstance(node, ast.Import):
+            found |= {a.name.split(".")[0] for a in node.names}
+        elif isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
+            found.add(node.module.split(".")[0])
+    return found
+
+
+@pytest.mark.parametrize("path", sorted(p for p in PACKAGE.rglob("*.py") if _layer(p) in THIRD_PARTY_FORBIDDEN),
+                         ids=lambda p: str(p.relative_to(PACKAGE)))
+def test_runtime_tower_modules_do_not_import_heavy_libraries(path):
+    illegal = _third_party_imports(path) & THIRD_PARTY_FORBIDDEN[_layer(path)]
+    assert not illegal, f"{path.name} imports {sorted(illegal)} at module level"
+
+
 def test_public_functions_have_numpy_style_docstrings():
     import linz_ros.analysis as analysis
+    import linz_ros.artifact as artifact
+    import linz_ros.codegen as codegen
     import linz_ros.geometry as geometry
     import linz_ros.model as model
+    import linz_ros.runtime as runtime
+    import linz_ros.synthesis as synthesis
     missing = []
-    for module in (analysis, geometry, model):
+    for module in (analysis, geometry, model, synthesis, codegen, artifact, runtime):
         for name in module.__all__:
             obj = getattr(module, name)
             doc = obj.__doc__ or ""

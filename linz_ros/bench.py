@@ -1,0 +1,235 @@
+"""``linz bench``: the cost of one control step, against references measured in the same run.
+
+Candidates, all evaluating the same law (A(x), b(x) and the output chains) at the same
+states:
+
+- ``core``: :meth:`ControllerCore.step`, watchdogs and conditioning included;
+- ``naive``: what one would write by hand: ``sympy.lambdify`` to numpy without common
+  subexpression elimination, then the outer loop in numpy, ``numpy.linalg.solve`` for
+  the law and ``numpy.linalg.svd`` for the conditioning;
+- ``lambdify_cse_math``: ``sympy.lambdify`` with CSE to the ``math`` module (expressions only);
+- ``compiled_c``: the expressions alone, printed by sympy's C code printer with CSE,
+  built with the system's C compiler and called through ctypes (the near-limit reference);
+- ``law_only``: the artifact's compiled law program alone (expressions only).
+
+The machine is noisy, so rounds of the candidates are interleaved and each candidate's
+median over rounds is reported; only the ratios mean anything.
+"""
+
+from __future__ import annotations
+
+import ctypes
+import shutil
+import statistics
+import subprocess
+import tempfile
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+import sympy as sp
+
+from linz_ros.artifact import Artifact
+from linz_ros.runtime import ControllerCore
+from linz_ros.synthesis import Design
+
+__all__ = ["BenchResult", "run_bench"]
+
+
+@dataclass
+class BenchResult:
+    """Microseconds per call of each candidate (median over rounds) and the ratios."""
+
+    plant: str
+    calls: int
+    rounds: int
+    microseconds: dict[str, float]
+    notes: list[str] = field(default_factory=list)
+
+    def ratios(self) -> dict[str, float]:
+        """The ratios the goals are stated in.
+
+        Returns
+        -------
+        dict
+            ``core_over_compiled_c`` (goal <= 10) and ``naive_over_core`` (goal >= 4),
+            plus ``core_over_law_only``, where the candidates ran.
+        """
+        us = self.microseconds
+        out = {}
+        if "compiled_c" in us:
+            out["core_over_compiled_c"] = us["core"] / us["compiled_c"]
+        if "naive" in us:
+            out["naive_over_core"] = us["naive"] / us["core"]
+        if "law_only" in us:
+            out["core_over_law_only"] = us["core"] / us["law_only"]
+        if "lambdify_cse_math" in us:
+            out["lambdify_cse_math_over_law_only"] = us["lambdify_cse_math"] / us["law_only"]
+        return out
+
+    def to_json(self) -> dict:
+        """The ``linz bench --json`` object."""
+        return {"plant": self.plant, "calls_per_round": self.calls, "rounds": self.rounds,
+                "microseconds_per_call": self.microseconds, "ratios": self.ratios(), "notes": self.notes}
+
+    def render_text(self) -> str:
+        """A table of microseconds per call and the ratios."""
+        lines = [f"linz bench {self.plant}: {self.calls} calls x {self.rounds} rounds (median of rounds)", ""]
+        for name, value in sorted(self.microseconds.items(), key=lambda kv: kv[1]):
+            lines.append(f"  {name:<20} {value:9.2f} us")
+        lines.append("")
+        goals = {"core_over_compiled_c": "goal <= 10", "naive_over_core": "goal >= 4"}
+        for name, value in self.ratios().items():
+            lines.append(f"  {name:<32} {value:7.2f}  {goals.get(name, '')}")
+        lines.extend(f"  note: {note}" for note in self.notes)
+        return "\n".join(lines)
+
+
+def _law_expressions(design: Design) -> tuple[list[sp.Symbol], list[sp.Symbol], list[sp.Expr]]:
+    plant = design.plant
+    chain = [e for c in design.chains for e in c.derivatives]
+    return list(plant.states), list(plant.parameters), list(design.A) + list(design.b) + chain
+
+
+def _naive_step(design: Design, artifact: Artifact) -> Callable:
+    """The hand-written pipeline: plain lambdify to numpy, numpy solve and svd."""
+    x, p, _ = _law_expressions(design)
+    m = design.plant.m
+    fA = sp.lambdify([x, p], design.A, modules="numpy")
+    fb = sp.lambdify([x, p], design.b, modules="numpy")
+    fchain = sp.lambdify([x, p], sp.Matrix([e for c in design.chains for e in c.derivatives]), modules="numpy")
+    K = [np.asarray(g) for g in artifact.gains]
+    orders = artifact.relative_degree
+
+    def step(state: np.ndarray, params: np.ndarray, ref: np.ndarray) -> np.ndarray:
+        A = np.asarray(fA(state, params), dtype=float).reshape(m, m)
+        b = np.asarray(fb(state, params), dtype=float).ravel()
+        chain = np.asarray(fchain(state, params), dtype=float).ravel()
+        v = np.empty(len(orders))
+        i = j = 0
+        for c, r in enumerate(orders):
+            v[c] = ref[j + r] - K[c] @ (chain[i:i + r] - ref[j:j + r])
+            i += r
+            j += r + 1
+        u = np.linalg.solve(A, v - b)
+        sigma = np.linalg.svd(A, compute_uv=False)
+        _ = sigma[0] / sigma[-1]
+        return u
+
+    return step
+
+
+def _c_library(design: Design, workdir: Path) -> Callable | None:
+    """The law's expressions as one C function, compiled and loaded with ctypes."""
+    compiler = shutil.which("cc") or shutil.which("gcc")
+    if compiler is None:
+        return None
+    x, p, exprs = _law_expressions(design)
+    slots = {s: sp.Symbol(f"x[{i}]") for i, s in enumerate(x)}
+    slots.update({s: sp.Symbol(f"p[{i}]") for i, s in enumerate(p)})
+    exprs = [e.xreplace(slots) for e in exprs]
+    temporaries, reduced = sp.cse(exprs, symbols=sp.numbered_symbols("t_"), order="none")
+    body = [f"    const double {t} = {sp.ccode(e)};" for t, e in temporaries]
+    body += [f"    out[{i}] = {sp.ccode(e)};" for i, e in enumerate(reduced)]
+    source = ("#include <math.h>\nvoid law(const double *x, const double *p, double *out) {\n"
+              + "\n".join(body) + "\n}\n")
+    c_file, library = workdir / "law.c", workdir / "law.so"
+    c_file.write_text(source)
+    try:
+        subprocess.run([compiler, "-O2", "-shared", "-fPIC", "-o", str(library), str(c_file), "-lm"],
+                       check=True, capture_output=True, timeout=120)
+    except (subprocess.SubprocessError, OSError):
+        return None
+    handle = ctypes.CDLL(str(library))
+    handle.law.restype = None
+    handle.law.argtypes = [ctypes.POINTER(ctypes.c_double)] * 3
+    x_buffer = (ctypes.c_double * len(x))()
+    p_buffer = (ctypes.c_double * len(p))(*[float(v) for v in design.plant.parameters.values()])
+    out_buffer = (ctypes.c_double * len(exprs))()
+    law = handle.law
+
+    def call(state: list[float]) -> None:
+        x_buffer[:] = state
+        law(x_buffer, p_buffer, out_buffer)
+
+    call._keep = (handle, x_buffer, p_buffer, out_buffer)  # type: ignore[attr-defined]
+    return call
+
+
+def _time_per_call(function: Callable[[int], object], calls: int) -> float:
+    start = time.perf_counter_ns()
+    for k in range(calls):
+        function(k)
+    return (time.perf_counter_ns() - start) / calls / 1000.0
+
+
+def run_bench(artifact: Artifact, design: Design | None, calls: int = 2000, rounds: int = 7,
+              seed: int = 3) -> BenchResult:
+    """Time the core step and the references on the same states.
+
+    Parameters
+    ----------
+    artifact : Artifact
+    design : Design, optional
+        The symbolic design behind the artifact; without it only the artifact's own
+        candidates (``core``, ``law_only``) run.
+    calls : int
+        Calls per candidate per round.
+    rounds : int
+    seed : int
+        Of the states (uniform in the envelope; +-0.5 around the operating point where
+        the envelope is silent).
+
+    Returns
+    -------
+    BenchResult
+    """
+    rng = np.random.default_rng(seed)
+    operating = artifact.document["plant"]["operating_point"]
+    envelope = artifact.document["plant"]["envelope"]
+    bounds = [envelope.get(s, [operating[s] - 0.5, operating[s] + 0.5]) for s in artifact.states]
+    states = [[float(rng.uniform(lo, hi)) for lo, hi in bounds] for _ in range(64)]
+    core = ControllerCore(artifact)
+    refs = [core.hold_reference(s) for s in states]
+    params = artifact.nominal_parameters.tolist()
+    law = artifact.programs["law"]
+    notes = []
+    clock = [0.0]
+
+    def core_call(k: int) -> None:
+        clock[0] += 0.001
+        core.step(states[k & 63], refs[k & 63], clock[0])
+
+    candidates: dict[str, Callable[[int], object]] = {
+        "core": core_call,
+        "law_only": lambda k: law(states[k & 63], params),
+    }
+    with tempfile.TemporaryDirectory() as folder:
+        if design is not None:
+            naive = _naive_step(design, artifact)
+            np_states = [np.asarray(s) for s in states]
+            np_refs = [np.asarray(r) for r in refs]
+            np_params = np.asarray(params)
+            candidates["naive"] = lambda k: naive(np_states[k & 63], np_params, np_refs[k & 63])
+            x, p, exprs = _law_expressions(design)
+            cse_math = sp.lambdify([x, p], exprs, modules="math", cse=True)
+            candidates["lambdify_cse_math"] = lambda k: cse_math(states[k & 63], params)
+            c_law = _c_library(design, Path(folder))
+            if c_law is None:
+                notes.append("no C compiler found (cc or gcc): compiled_c not measured")
+            else:
+                candidates["compiled_c"] = lambda k: c_law(states[k & 63])
+        else:
+            notes.append("plant file not available: only the artifact's own candidates were timed")
+        for function in candidates.values():       # warm up
+            _time_per_call(function, min(calls, 200))
+        samples: dict[str, list[float]] = {name: [] for name in candidates}
+        for _ in range(rounds):
+            for name, function in candidates.items():
+                core.reset()
+                clock[0] = 0.0
+                samples[name].append(_time_per_call(function, calls))
+    microseconds = {name: statistics.median(values) for name, values in samples.items()}
+    return BenchResult(artifact.name, calls, rounds, microseconds, notes)

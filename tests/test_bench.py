@@ -1,0 +1,54 @@
+"""The benchmark's references compute what the core computes (so the ratios compare like with like)."""
+
+import shutil
+
+import numpy as np
+import pytest
+
+from conftest import BUNDLED, built_artifact
+from linz_ros.bench import _c_library, _law_expressions, _naive_step, run_bench
+from linz_ros.model import load_plant
+from linz_ros.runtime import ControllerCore
+from linz_ros.synthesis import synthesise
+
+
+@pytest.fixture(scope="module")
+def arm():
+    return built_artifact(BUNDLED / "pick_arm.yaml"), synthesise(load_plant(BUNDLED / "pick_arm.yaml"))
+
+
+@pytest.mark.skipif(shutil.which("cc") is None and shutil.which("gcc") is None, reason="no C compiler on PATH")
+def test_the_compiled_c_reference_evaluates_the_same_law(arm, tmp_path):
+    artifact, design = arm
+    c_law = _c_library(design, tmp_path)
+    law = artifact.programs["law"]
+    params = artifact.nominal_parameters.tolist()
+    _, _, exprs = _law_expressions(design)
+    rng = np.random.default_rng(4)
+    for _ in range(20):
+        x = [rng.uniform(-0.6, 1.8), rng.uniform(0.15, 2.6), rng.uniform(-2, 2), rng.uniform(-2, 2)]
+        c_law(x)
+        out = np.array(c_law._keep[3][:len(exprs)])
+        np.testing.assert_allclose(out, np.array(law(x, params)), rtol=1e-12, atol=1e-12)
+
+
+def test_the_naive_pipeline_gives_the_core_command(arm):
+    artifact, design = arm
+    naive = _naive_step(design, artifact)
+    core = ControllerCore(artifact, None)
+    core.config = core.config.with_overrides(input_limits=((-1e9, 1e9), (-1e9, 1e9)))
+    rng = np.random.default_rng(8)
+    for k in range(10):
+        x = [rng.uniform(-0.6, 1.8), rng.uniform(0.6, 2.6), rng.uniform(-2, 2), rng.uniform(-2, 2)]
+        ref = core.hold_reference([x[0] + 0.05, x[1], 0.0, 0.0])
+        u, record = core.step(x, ref, t=float(k + 1))
+        assert record.mode == "nominal"
+        np.testing.assert_allclose(naive(np.array(x), artifact.nominal_parameters, np.array(ref)), u, rtol=1e-10)
+
+
+def test_run_bench_without_a_design_times_only_the_artifact(arm):
+    artifact, _ = arm
+    result = run_bench(artifact, None, calls=20, rounds=1)
+    assert set(result.microseconds) == {"core", "law_only"}
+    assert "plant file not available" in result.notes[0]
+    assert "core_over_law_only" in result.ratios() and "linz bench pick_arm" in result.render_text()
