@@ -47,6 +47,16 @@ def _positive_int(text: str) -> int:
     return value
 
 
+def _nonnegative_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"expected a whole number >= 0, got {value}")
+    return value
+
+
 def _number_at_least(minimum: float, strict: bool):
     """An argparse type for finite numbers above (or at) ``minimum``."""
     words = "a positive number" if strict and minimum == 0 else f"a number >= {minimum:g}"
@@ -133,7 +143,7 @@ def _build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--integrator", choices=("rk4", "scipy"), default="rk4",
                      help="rk4: fixed-step RK4 sub-steps (default); scipy: adaptive RK45")
     sim.add_argument("--substeps", type=_positive_int, default=4, help="RK4 steps per control period (default 4)")
-    sim.add_argument("--seed", type=int, default=1, help="noise seed")
+    sim.add_argument("--seed", type=_nonnegative_int, default=1, help="noise seed (a whole number >= 0)")
     sim.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
     sim.add_argument("--progress", action="store_true", default=None,
                      help="show a progress bar even when stderr is not a terminal")
@@ -352,9 +362,12 @@ def _design_from_artifact_plant(artifact, args):
 
     if not (artifact.plant_check == "matches" or artifact.plant_check.endswith("(allowed)")):
         return None
-    plant_path = Path(artifact.source).resolve().parent / artifact.document["plant"].get("source_from_artifact", "")
-    if not plant_path.is_file():
-        plant_path = Path(artifact.document["plant"]["source"])
+    recorded = artifact.document["plant"]
+    candidates = [Path(artifact.source).resolve().parent / recorded.get("source_from_artifact", ""),
+                  Path(recorded.get("source_absolute", ""))]
+    plant_path = next((p for p in candidates if p.is_file()), None)
+    if plant_path is None:
+        return None
     plant = load_plant(plant_path)
     d = artifact.document["design"]
     chains = {c["name"]: [complex(*p) for p in c["poles"]] for c in d["chains"]}

@@ -32,7 +32,15 @@ class ExpressionSyntaxError(LinzError):
         self.column = column
         self.problem = problem
         where = f" at column {column}" if column else ""
-        super().__init__(f"cannot read {text!r}: {problem}{where}")
+        super().__init__(f"cannot read {_excerpt(text, column)!r}: {problem}{where}")
+
+
+def _excerpt(text: str, column: int, width: int = 60) -> str:
+    """The text, or for long text the part around ``column`` with ellipses."""
+    if len(text) <= width:
+        return text
+    start = max(0, min(column - 1 - width // 2, len(text) - width)) if column else 0
+    return ("..." if start > 0 else "") + text[start:start + width] + ("..." if start + width < len(text) else "")
 
 
 class LocatedError(LinzError):

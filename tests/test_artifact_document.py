@@ -2,6 +2,7 @@
 
 import json
 import shutil
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -102,6 +103,21 @@ def test_an_artifact_deployed_without_its_plant_file_loads_and_says_so(tmp_path)
     (lambda d: d.__setitem__("format_version", 7), "format version 7 is newer"),
     (lambda d: d.pop("programs"), "programs: missing"),
     (lambda d: d["programs"].pop("dynamics"), "programs.dynamics: missing"),
+    (lambda d: d["programs"].__setitem__("law", [1, 2]), "programs.law: expected a mapping"),
+    (lambda d: d["programs"]["law"]["outputs"][0].__setitem__(1, 5), "programs.law.outputs: expected"),
+    (lambda d: d["programs"]["law"]["outputs"][0].__setitem__(1, [None]), "programs.law.outputs: expected"),
+    (lambda d: d["programs"]["law"].__setitem__("arguments", list(reversed(d["programs"]["law"]["arguments"]))),
+     "programs.law.arguments: expected \\['x'"),
+    (lambda d: d["programs"].__setitem__("extra", d["programs"]["law"]), "programs.extra: unknown program"),
+    (lambda d: d["design"].__setitem__("rate", 10 ** 40), "whole number 1[0]+ in the file is out of range"),
+    (lambda d: d["design"].__setitem__("rate", -5), "design.rate: expected a positive number"),
+    (lambda d: d["design"]["chains"].append(d["design"]["chains"][0]), "design.chains: expected one chain per input"),
+    (lambda d: d["watchdog"].__setitem__("integral_limit", "x"), "watchdog.integral_limit"),
+    (lambda d: d["watchdog"].__setitem__("hold_time", -1), "watchdog.hold_time"),
+    (lambda d: d["plant"].__setitem__("operating_point", {}), "plant.operating_point"),
+    (lambda d: d["plant"].__setitem__("name", "/tmp/escape"), "plant.name: expected an identifier"),
+    (lambda d: d["plant"].__setitem__("states", ["x1", "1234"]), "plant.states"),
+    (lambda d: d["design"].__setitem__("outputs", ["../T1"]), "design.outputs"),
 ])
 def test_forbidden_or_inconsistent_content_is_refused_even_when_resealed(built, tmp_path, change, words):
     path, _, _ = built
@@ -113,6 +129,8 @@ def test_forbidden_or_inconsistent_content_is_refused_even_when_resealed(built, 
 
 @pytest.mark.parametrize("text, words", [
     ("", "not valid JSON at line 1"),
+    ('{"format": "linz_ros controller artifact", "rate": 1e400}', "number 1e400 in the file is out of range"),
+    ('{"n": 1' + "0" * 400 + "}", "whole number 1[0]+ in the file is out of range"),
     ("{\"format\": \"something else\"}", "not a linz_ros controller artifact"),
     ("[1, 2]", "not a linz_ros controller artifact"),
     ("{\"x\": NaN}", "non-finite number NaN"),
@@ -122,6 +140,28 @@ def test_files_that_are_not_artifacts_get_one_line(tmp_path, text, words):
     path.write_text(text)
     with pytest.raises(ArtifactError, match=words):
         load_artifact(path)
+
+
+def test_a_special_file_is_not_read(tmp_path):
+    link = tmp_path / "zero.artifact.json"
+    link.symlink_to("/dev/zero")
+    with pytest.raises(ArtifactError, match="is not a regular file"):
+        load_artifact(link)
+
+
+def test_the_plant_check_does_not_depend_on_the_current_folder(tmp_path, monkeypatch):
+    (tmp_path / "work" / "plants").mkdir(parents=True)
+    shutil.copy(REFERENCE / "khalil_two_state.yaml", tmp_path / "work" / "plants" / "k.yaml")
+    monkeypatch.chdir(tmp_path / "work")
+    design = synthesise(load_plant("plants/k.yaml"))                 # recorded as a relative path
+    path = write_artifact(build_document(design, points=8)[0], artifact_path("out", "k"))
+    deployed = tmp_path / "deploy" / "a" / "b"
+    deployed.mkdir(parents=True)
+    shutil.copy(path, deployed / "k.artifact.json")
+    (tmp_path / "decoy" / "plants").mkdir(parents=True)
+    (tmp_path / "decoy" / "plants" / "k.yaml").write_text("an unrelated file with the same relative name\n")
+    monkeypatch.chdir(tmp_path / "decoy")
+    assert load_artifact(deployed / "k.artifact.json").plant_check == "matches"   # by its absolute path
 
 
 def test_missing_file_and_folder(tmp_path):
@@ -165,3 +205,51 @@ def test_bundled_plants_build_and_load(tmp_path):
         artifact = load_artifact(path)
         assert artifact.plant_check == "matches"
         assert artifact.document["verification"]["max_relative_residual"] < 1e-12
+
+
+# -- property: any edit of a sealed artifact loads and runs, or is refused with one line ------------
+from hypothesis import HealthCheck, given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+from linz_ros.errors import ConfigError  # noqa: E402
+from linz_ros.runtime import ControllerCore  # noqa: E402
+
+_JUNK = st.recursive(st.none() | st.booleans() | st.integers(-10 ** 6, 10 ** 6) | st.floats(-1e6, 1e6)
+                     | st.text(max_size=12) | st.sampled_from(["x1", "_t0", "1/0", "sqrt(-1)", "T1", "u", "a"]),
+                     lambda inner: st.lists(inner, max_size=3) | st.dictionaries(st.text(max_size=5), inner, max_size=2),
+                     max_leaves=6)
+
+
+def _paths(node, prefix=()):
+    yield prefix
+    if isinstance(node, dict):
+        for key, value in node.items():
+            if key != "sha256":
+                yield from _paths(value, prefix + (key,))
+    elif isinstance(node, list):
+        for index, value in enumerate(node):
+            yield from _paths(value, prefix + (index,))
+
+
+@settings(max_examples=250, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(data=st.data())
+def test_any_edit_of_a_sealed_artifact_loads_and_steps_or_is_refused(built, data):
+    _, _, document = built
+    edited = json.loads(json.dumps(document))
+    paths = [p for p in _paths(edited) if p]
+    path = data.draw(st.sampled_from(paths))
+    parent = edited
+    for key in path[:-1]:
+        parent = parent[key]
+    parent[path[-1]] = data.draw(_JUNK)
+    try:
+        artifact = artifact_from_text(seal(edited))
+    except ArtifactError as err:
+        assert "\n" not in str(err)
+        return
+    try:
+        core = ControllerCore(artifact)
+    except ConfigError:
+        return
+    u, record = core.step([0.1, 0.2], [0.0, 0.0, 0.0], t=0.0)
+    assert len(u) == 1

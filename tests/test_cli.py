@@ -169,6 +169,8 @@ def test_sim_from_a_plant_file_with_overrides_plots_and_keeps_its_artifact(capsy
     (["--noise", "-1"], "--noise: expected a standard deviation >= 0"),
     (["--noise", "pan=x"], "--noise: pan: expected a number"),
     (["--duration", "-2"], "expected a positive number"),
+    (["--seed", "-1"], "expected a whole number >= 0"),
+    (["--poles", "pan_angle=nan,-1"], "design.poles.pan_angle: poles must be finite numbers"),
 ])
 def test_sim_refuses_bad_options_with_one_line(capsys, tmp_path, argv, words):
     try:

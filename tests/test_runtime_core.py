@@ -183,12 +183,52 @@ def test_watchdog_settings_are_checked(arm):
         WatchdogConfig.from_artifact(arm, sigma_act=100.0)
     with pytest.raises(ConfigError, match="unknown watchdog setting"):
         WatchdogConfig.from_artifact(arm, sigma_wran=1.0)
-    with pytest.raises(ConfigError, match="rate_limits: expected 2 values"):
+    with pytest.raises(ConfigError, match="rate_limits: expected 2 positive numbers"):
         WatchdogConfig.from_artifact(arm, rate_limits=(1.0,))
     with pytest.raises(ConfigError, match="damping: expected a positive number"):
         WatchdogConfig.from_artifact(arm, damping=0.0)
     with pytest.raises(ConfigError, match="parameters: expected 9 finite values"):
         ControllerCore(arm, parameters=[1.0])
+    with pytest.raises(ConfigError, match="damping: expected a number >= 0, got '0.1'"):
+        WatchdogConfig.from_artifact(arm, damping="0.1")
+    with pytest.raises(ConfigError, match="max_dt: expected a positive number"):
+        WatchdogConfig.from_artifact(arm, max_dt=0.0)
+    with pytest.raises(ConfigError, match="input_limits: input 1"):
+        WatchdogConfig.from_artifact(arm, input_limits=((-1.0, 1.0), (2.0, 1.0)))
+
+
+def test_a_stamp_from_the_future_is_refused_and_does_not_block_later_states(arm):
+    core = ControllerCore(arm)
+    x = [0.4, 1.2, 0.0, 0.0]
+    ref = core.hold_reference(x)
+    u, record = core.step(x, ref, t=1e9, now=0.002)
+    assert record.reason == "future_stamp" and record.mode == "safe"
+    for k in range(2, 6):
+        u, record = core.step(x, ref, t=0.002 * k)
+        assert record.mode == "nominal"
+
+
+def test_hold_time_is_measured_against_now_for_every_refusal(arm):
+    core = ControllerCore(arm, WatchdogConfig.from_artifact(arm, safe_kind="hold", hold_time=0.5))
+    x = [0.4, 1.2, 0.3, 0.0]
+    ref = core.hold_reference(x)
+    good, _ = core.step(x, ref, t=1.0)
+    for bad_x, t, now in (([0.4], 0.0, 1000.0), ([math.nan] * 4, math.nan, 1000.0), (x, 0.5, 1000.0)):
+        u, record = core.step(bad_x, ref, t=t, now=now)
+        assert record.mode == "safe" and u == [0.0, 0.0], record
+    u, record = core.step([0.4], ref, t=1.1, now=1.1)             # within hold_time of the good command
+    assert record.mode == "held" and u == good
+
+
+def test_huge_numbers_and_odd_types_never_raise(arm):
+    core = ControllerCore(arm)
+    x = [0.4, 1.2, 0.0, 0.0]
+    ref = core.hold_reference(x)
+    for args in (([10 ** 400, 1, 0, 0], ref, 0.1, None), (x, [10 ** 400] * 6, 0.2, None), (x, ref, 10 ** 400, None),
+                 (x, ref, 0.3, 10 ** 400), ([0.4], ref, 10 ** 400, None), (np.array(x), np.array(ref), np.float64(0.4), None),
+                 ((v for v in x), ref, 0.5, None), ([True, 1, 0, 0], ref, 0.6, None), ({"a": 1}, ref, 0.7, None)):
+        u, record = core.step(*args)
+        assert len(u) == 2 and all(math.isfinite(v) for v in u)
 
 
 _junk = st.one_of(st.floats(allow_nan=True, allow_infinity=True), st.integers(-10**6, 10**6),
@@ -213,3 +253,44 @@ def _shared_core():
     if not _CORE:
         _CORE.append(ControllerCore(built_artifact(BUNDLED / "pick_arm.yaml")))
     return _CORE[0]
+
+
+# -- three inputs: the numpy path of the core ----------------------------------------------------
+_THREE = """\
+plant: three_axis
+states: [a, b, c]
+inputs: [u1, u2, u3]
+dynamics: {a: u1 + 0.5*u2, b: u2 - 0.2*u3, c: c*u3 + 0.1*u1}
+outputs: {ya: a, yb: b, yc: c}
+operating_point: {c: 1.0}
+envelope: {a: [-1, 1], b: [-1, 1], c: [-1, 2]}
+design: {rate: 100, poles: {ya: [-2], yb: [-3], yc: [-4]}}
+"""
+
+
+def test_three_inputs_use_numpy_and_agree_with_a_direct_solve():
+    core = ControllerCore(built_artifact(_THREE))
+    rng = np.random.default_rng(1)
+    for k in range(20):
+        x = [rng.uniform(-1, 1), rng.uniform(-1, 1), rng.uniform(0.5, 2.0)]
+        ref = [0.1, 0.0, -0.1, 0.0, 0.2, 0.0]
+        u, record = core.step(x, ref, t=0.01 * (k + 1))
+        A = np.array([[1.0, 0.5, 0.0], [0.0, 1.0, -0.2], [0.1, 0.0, x[2]]])
+        v = np.array([-2 * (x[0] - 0.1), -3 * (x[1] + 0.1), -4 * (x[2] - 0.2)])
+        assert record.mode == "nominal"
+        np.testing.assert_allclose(u, np.linalg.solve(A, v), rtol=1e-10)
+        assert record.sigma_min == pytest.approx(np.linalg.svd(A, compute_uv=False)[-1], rel=1e-12)
+
+
+def test_three_inputs_pass_through_the_singular_set_with_finite_commands():
+    core = ControllerCore(built_artifact(_THREE))
+    c = core.config
+    modes = []
+    for k, x3 in enumerate(np.linspace(1.0, -0.5, 600)):
+        u, record = core.step([0.0, 0.0, x3], [0.0, 0.0, 0.0, 0.0, 0.5, 0.0], t=0.01 * (k + 1))
+        assert all(math.isfinite(v) for v in u)
+        A = np.array([[1.0, 0.5, 0.0], [0.0, 1.0, -0.2], [0.1, 0.0, x3]])
+        sigma = np.linalg.svd(A, compute_uv=False)[-1]
+        assert record.mode == ("safe" if sigma < c.sigma_stop else "damped" if sigma < c.sigma_act else "nominal")
+        modes.append(record.mode)
+    assert {"nominal", "damped", "safe"} <= set(modes)

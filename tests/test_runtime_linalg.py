@@ -34,3 +34,12 @@ def test_damped_solution_is_bounded_at_an_exact_singularity():
     u = damped_solve([1.0, 1.0, 1.0, 1.0], [1.0, -1.0], 2, lam)    # rhs orthogonal to the range
     assert np.linalg.norm(u) <= np.linalg.norm([1.0, -1.0]) / (2 * lam)
     assert np.allclose(u, 0.0)
+
+
+def test_two_by_two_singular_values_survive_huge_and_tiny_entries():
+    for factor in (1e155, 1e-160):
+        A = np.array([[1.0, 2.0], [0.5, -3.0]]) * factor
+        smin, smax = singular_values(A.ravel().tolist(), 2)
+        expected = np.linalg.svd(A / factor, compute_uv=False) * factor
+        assert smin == pytest.approx(expected[-1], rel=1e-12) and smax == pytest.approx(expected[0], rel=1e-12)
+    assert singular_values([0.0, 0.0, 0.0, 0.0], 2) == (0.0, 0.0)

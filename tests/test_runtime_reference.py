@@ -49,6 +49,8 @@ def test_parse_reference_reads_per_output_amplitudes():
     ("step:period=2", "unknown key 'period' for step"),
     ("sine:period=0", "period and duration must be positive"),
     ("smooth:duration=-1", "period and duration must be positive"),
+    ("smooth:duration=1e-200,y=1", "must be at least 0.0001 s"),
+    ("sine:period=1e-200,amplitude=1", "must be at least 0.0001 s"),
 ])
 def test_bad_reference_text_is_one_line(text, words):
     with pytest.raises(ConfigError, match="reference") as info:

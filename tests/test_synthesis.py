@@ -268,6 +268,12 @@ def test_closed_form_inverse_gives_up_rather_than_guess():
     (MINIMAL + "outputs: {y: x1}\n", DesignOptions(lqr={"r": [1.0, 2.0]}), "design.lqr.r: expected 1 weights"),
     (MINIMAL + "outputs: {y: x1}\ndesign: {watchdog: {safe_command: {u: 9}}}\ninput_limits: {u: [-1, 1]}\n",
      DesignOptions(), "safe_command.u: 9 lies outside the input limits"),
+    (MINIMAL + "outputs: {y: x1}\n", DesignOptions(poles={"y": [complex("nan"), -1.0]}), "poles must be finite"),
+    (MINIMAL + "outputs: {y: x1}\n", DesignOptions(poles={"y": [-1e300, -1e300]}), "gains of chain y are not finite"),
+    (MINIMAL + "outputs: {y: x1}\n", DesignOptions(lqr={"q": [0.0, 0.0]}), "would not be asymptotically stable"),
+    (MINIMAL + "outputs: {y: x1}\n", DesignOptions(lqr={"q": [0.0, 1.0]}), "give the first state of every chain"),
+    (MINIMAL + "outputs: {y: x1}\n", DesignOptions(poles={"y": [-1.0, -2.0]}, rate=1e-300),
+     "design.rate: the sampled loop of chain y cannot be evaluated"),
 ])
 def test_designs_that_cannot_be_built_are_one_line(text, options, words):
     with pytest.raises(DesignError) as info:

@@ -55,6 +55,8 @@ _MAX_NESTING = 40
 
 
 def _sign(value: float) -> float:
+    if value != value:          # nan stays nan, as in numpy
+        return value
     return 0.0 if value == 0 else math.copysign(1.0, value)
 
 

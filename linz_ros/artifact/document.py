@@ -34,6 +34,8 @@ from __future__ import annotations
 import hashlib
 import json
 import math
+import re
+import stat
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -127,18 +129,9 @@ def read_document(path: str | Path) -> dict[str, Any]:
         a hash that does not match the content.
     """
     source = str(path)
+    raw = _read_bounded(Path(path), source)
     try:
-        raw = Path(path).read_bytes()
-    except FileNotFoundError:
-        raise ArtifactError(source, "no such file") from None
-    except IsADirectoryError:
-        raise ArtifactError(source, "is a folder, not an artifact") from None
-    except OSError as err:
-        raise ArtifactError(source, f"cannot read: {err.strerror}") from None
-    if len(raw) > _MAX_BYTES:
-        raise ArtifactError(source, f"larger than {_MAX_BYTES // 1_000_000} MB")
-    try:
-        document = json.loads(raw.decode("utf-8"), parse_constant=_refuse_constant)
+        document = _parse_json(raw.decode("utf-8"))
     except UnicodeDecodeError as err:
         raise ArtifactError(source, f"not UTF-8 text (byte {err.start})") from None
     except json.JSONDecodeError as err:
@@ -164,7 +157,11 @@ def _check_header(document: Any, source: str) -> None:
     recorded = document.get("sha256")
     if not isinstance(recorded, str):
         raise ArtifactError(source, "sha256: missing; the file is not sealed")
-    if content_hash(document) != recorded:
+    try:
+        actual = content_hash(document)
+    except (ValueError, TypeError):
+        raise ArtifactError(source, "content cannot be hashed (a non-finite number?)") from None
+    if actual != recorded:
         raise ArtifactError(source, "content does not match its sha256: the file was modified or damaged "
                                     "after it was built; rebuild it with linz build")
     for section in _SECTIONS:
@@ -174,6 +171,48 @@ def _check_header(document: Any, source: str) -> None:
 
 def _refuse_constant(name: str) -> float:
     raise ValueError(f"non-finite number {name} in the file")
+
+
+def _finite_float(text: str) -> float:
+    value = float(text)
+    if not math.isfinite(value):
+        raise ValueError(f"number {text} in the file is out of range")
+    return value
+
+
+def _bounded_int(text: str) -> int:
+    if len(text.lstrip("-")) > 15:
+        raise ValueError(f"whole number {text[:20]} in the file is out of range")
+    return int(text)
+
+
+def _parse_json(text: str) -> Any:
+    """JSON with every number finite and every whole number of at most 15 digits."""
+    return json.loads(text, parse_constant=_refuse_constant, parse_float=_finite_float, parse_int=_bounded_int)
+
+
+def _read_bounded(path: Path, source: str) -> bytes:
+    """The file's bytes, refusing anything but a regular file of at most the size limit."""
+    try:
+        info = path.stat()
+    except FileNotFoundError:
+        raise ArtifactError(source, "no such file") from None
+    except OSError as err:
+        raise ArtifactError(source, f"cannot read: {err.strerror}") from None
+    if stat.S_ISDIR(info.st_mode):
+        raise ArtifactError(source, "is a folder, not an artifact")
+    if not stat.S_ISREG(info.st_mode):
+        raise ArtifactError(source, "is not a regular file")
+    if info.st_size > _MAX_BYTES:
+        raise ArtifactError(source, f"larger than {_MAX_BYTES // 1_000_000} MB")
+    try:
+        with path.open("rb") as handle:
+            raw = handle.read(_MAX_BYTES + 1)
+    except OSError as err:
+        raise ArtifactError(source, f"cannot read: {err.strerror}") from None
+    if len(raw) > _MAX_BYTES:
+        raise ArtifactError(source, f"larger than {_MAX_BYTES // 1_000_000} MB")
+    return raw
 
 
 @dataclass
@@ -287,18 +326,36 @@ def _program_parts(spec: Any, source: str, name: str):
     where = f"programs.{name}"
     if not isinstance(spec, dict):
         raise ArtifactError(source, f"{where}: expected a mapping")
+    arguments, temporaries, outputs = spec.get("arguments"), spec.get("temporaries"), spec.get("outputs")
+    if not (isinstance(arguments, list) and all(isinstance(a, list) and len(a) == 2 and isinstance(a[0], str)
+                                                and isinstance(a[1], list) and all(isinstance(n, str) for n in a[1])
+                                                for a in arguments)):
+        raise ArtifactError(source, f"{where}.arguments: expected [[vector, [names]], ...]")
+    if not (isinstance(temporaries, list) and all(isinstance(t, list) and len(t) == 2 and isinstance(t[0], str)
+                                                  and isinstance(t[1], str) for t in temporaries)):
+        raise ArtifactError(source, f"{where}.temporaries: expected [[name, expression], ...]")
+    if not (isinstance(outputs, list) and all(_is_output(o) for o in outputs)):
+        raise ArtifactError(source, f"{where}.outputs: expected [[name, [shape], [expression, ...]], ...]")
+    return ([(v, list(names)) for v, names in arguments], [(t, e) for t, e in temporaries],
+            [(o, list(shape), list(entries)) for o, shape, entries in outputs])
+
+
+def _is_output(item: Any) -> bool:
+    return (isinstance(item, list) and len(item) == 3 and isinstance(item[0], str) and isinstance(item[1], list)
+            and all(isinstance(k, int) and not isinstance(k, bool) and 0 <= k <= 10_000 for k in item[1])
+            and isinstance(item[2], list) and all(isinstance(e, str) for e in item[2]))
+
+
+def _checked_programs(document: dict[str, Any], source: str) -> dict[str, Program]:
+    """Check the document as a whole, then compile its programs; any surprise is an ArtifactError."""
     try:
-        arguments = [(str(v), list(names)) for v, names in spec["arguments"]]
-        temporaries = [(str(t), e) for t, e in spec["temporaries"]]
-        outputs = [(str(o), list(shape), list(entries)) for o, shape, entries in spec["outputs"]]
-    except (KeyError, TypeError, ValueError):
-        raise ArtifactError(source, f"{where}: expected arguments, temporaries and outputs as lists") from None
-    return arguments, temporaries, outputs
-
-
-def _compile_all(document: dict[str, Any], source: str) -> dict[str, Program]:
-    return {name: compile_program(f"{source}: {name}", *_program_parts(spec, source, name))
-            for name, spec in document["programs"].items()}
+        _check_consistency(document, source)
+        return {name: compile_program(f"{source}: {name}", *_program_parts(spec, source, name))
+                for name, spec in document["programs"].items()}
+    except ArtifactError:
+        raise
+    except (TypeError, ValueError, KeyError, AttributeError, IndexError, OverflowError) as err:
+        raise ArtifactError(source, f"malformed artifact ({type(err).__name__}: {err})") from None
 
 
 def _check_plant_file(document: dict[str, Any], source: str, plant_path: str | Path | None,
@@ -309,11 +366,14 @@ def _check_plant_file(document: dict[str, Any], source: str, plant_path: str | P
     if plant_path is not None:
         candidates.append(Path(plant_path))
     else:
+        # beside the artifact as it was at build time, then where it was built; never
+        # relative to the current folder, which may hold an unrelated file of that name
         relative = plant.get("source_from_artifact")
         if isinstance(relative, str):
             candidates.append(Path(source).resolve().parent / relative)
-        if isinstance(plant.get("source"), str):
-            candidates.append(Path(plant["source"]))
+        absolute = plant.get("source_absolute")
+        if isinstance(absolute, str) and Path(absolute).is_absolute():
+            candidates.append(Path(absolute))
     existing = next((p for p in candidates if p.is_file()), None)
     if existing is None:
         if plant_path is not None:
@@ -325,7 +385,7 @@ def _check_plant_file(document: dict[str, Any], source: str, plant_path: str | P
     if allow_plant_change:
         return f"plant file {existing} changed since the build (allowed)"
     raise ArtifactError(source, f"the plant file {existing} has changed since this artifact was built; "
-                                "rebuild with linz build, or allow it explicitly")
+                                "rebuild with linz build, or accept it with --allow-plant-change")
 
 
 def artifact_from_text(text: str, source: str = "<memory>") -> Artifact:
@@ -346,12 +406,11 @@ def artifact_from_text(text: str, source: str = "<memory>") -> Artifact:
     ArtifactError
     """
     try:
-        document = json.loads(text, parse_constant=_refuse_constant)
+        document = _parse_json(text)
     except (json.JSONDecodeError, ValueError) as err:
         raise ArtifactError(source, f"not valid JSON: {err}") from None
     _check_header(document, source)
-    _check_consistency(document, source)
-    programs = _compile_all(document, source)
+    programs = _checked_programs(document, source)
     return Artifact(source, document, programs, "not checked")
 
 
@@ -384,59 +443,105 @@ def load_artifact(path: str | Path, plant_path: str | Path | None = None, allow_
     """
     source = str(path)
     document = read_document(path)
-    _check_consistency(document, source)
+    programs = _checked_programs(document, source)
     plant_check = _check_plant_file(document, source, plant_path, allow_plant_change) if check_plant \
         else "not checked"
-    programs = _compile_all(document, source)
     return Artifact(source, document, programs, plant_check)
 
 
+_IDENTIFIER = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+_Z_NAMES = re.compile(r"^_z[0-9]+$")
+_PROGRAMS = ("law", "dynamics", "transform", "inverse", "singular_set")
+
+
 def _check_consistency(document: dict[str, Any], source: str) -> None:
-    """Names, counts and shapes that the runtime relies on; one line per problem."""
+    """Names, counts, types and shapes that the runtime relies on; one line per problem."""
     plant, design, programs, watchdog = (document[k] for k in ("plant", "design", "programs", "watchdog"))
 
     def need(condition: bool, problem: str) -> None:
         if not condition:
             raise ArtifactError(source, problem)
 
+    def names(value: Any) -> bool:
+        return (isinstance(value, list) and bool(value) and all(isinstance(v, str) and _IDENTIFIER.match(v)
+                                                                for v in value) and len(set(value)) == len(value))
+
+    need(isinstance(plant.get("name"), str) and bool(_IDENTIFIER.match(plant["name"])),
+         "plant.name: expected an identifier (letters, digits and _)")
     for key in ("states", "inputs"):
-        need(isinstance(plant.get(key), list) and plant[key] and all(isinstance(s, str) for s in plant[key]),
-             f"plant.{key}: expected a non-empty list of names")
+        need(names(plant.get(key)), f"plant.{key}: expected a non-empty list of distinct identifiers")
     params = plant.get("parameters")
     need(isinstance(params, list) and all(isinstance(p, list) and len(p) == 2 and isinstance(p[0], str)
-                                          and _is_number(p[1]) for p in params),
-         "plant.parameters: expected a list of [name, value]")
-    n, m = len(plant["states"]), len(plant["inputs"])
+                                          and _IDENTIFIER.match(p[0]) and _is_number(p[1]) for p in params)
+         and len({p[0] for p in params}) == len(params),
+         "plant.parameters: expected a list of [name, value] with distinct names")
+    states, inputs, parameter_names = plant["states"], plant["inputs"], [p[0] for p in params]
+    need(not (set(states) & set(inputs)) and not (set(parameter_names) & (set(states) | set(inputs))),
+         "plant: states, inputs and parameters must have distinct names")
+    n, m = len(states), len(inputs)
+    point = plant.get("operating_point")
+    need(isinstance(point, dict) and set(point) == set(states) and all(_is_number(v) for v in point.values()),
+         "plant.operating_point: expected a number for every state")
+    for key, allowed in (("input_limits", inputs), ("envelope", states)):
+        bounds = plant.get(key, {})
+        need(isinstance(bounds, dict) and all(k in allowed and isinstance(v, list) and len(v) == 2
+                                              and all(_is_number(b) for b in v) and v[0] < v[1]
+                                              for k, v in bounds.items()),
+             f"plant.{key}: expected name: [lower, upper] with lower below upper")
     chains = design.get("chains")
-    need(isinstance(chains, list) and chains, "design.chains: expected a non-empty list")
+    need(isinstance(chains, list) and len(chains) == m,
+         f"design.chains: expected one chain per input ({m}); the law needs a square decoupling matrix")
     need(design.get("kind") in ("input_output", "input_state"), "design.kind: expected input_output or input_state")
-    need(isinstance(design.get("outputs"), list) and len(design["outputs"]) == len(chains),
-         "design.outputs: expected one name per chain")
+    outputs = design.get("outputs")
+    need(isinstance(outputs, list) and len(outputs) == len(chains) and all(
+        isinstance(o, str) and _IDENTIFIER.match(o) for o in outputs) and len(set(outputs)) == len(outputs),
+         "design.outputs: expected one distinct identifier per chain")
     need(_is_number(design.get("rate")) and design["rate"] > 0, "design.rate: expected a positive number")
     integral = design.get("integral")
     need(isinstance(integral, bool), "design.integral: expected true or false")
+    need(design.get("reference") is None or isinstance(design["reference"], str),
+         "design.reference: expected text or null")
     for i, chain in enumerate(chains):
-        need(isinstance(chain, dict) and isinstance(chain.get("degree"), int) and chain["degree"] >= 1,
-             f"design.chains[{i}].degree: expected a whole number >= 1")
+        need(isinstance(chain, dict) and isinstance(chain.get("degree"), int)
+             and not isinstance(chain["degree"], bool) and 1 <= chain["degree"] <= n,
+             f"design.chains[{i}].degree: expected a whole number from 1 to {n}")
         gains = chain.get("gains")
         need(isinstance(gains, list) and len(gains) == chain["degree"] + int(integral)
              and all(_is_number(g) for g in gains),
              f"design.chains[{i}].gains: expected {chain['degree'] + int(integral)} numbers")
     total = sum(c["degree"] for c in chains)
+    need(total <= n, f"design.chains: the relative degrees add up to {total}, more than the {n} states")
+    need(isinstance(programs, dict), "programs: expected a mapping")
+    for name in programs:
+        need(name in _PROGRAMS, f"programs.{name}: unknown program; expected one of {', '.join(_PROGRAMS)}")
     for name in REQUIRED_PROGRAMS:
         need(name in programs, f"programs.{name}: missing")
-    shapes = {out[0]: list(out[1]) for out in programs["law"].get("outputs", []) if isinstance(out, list) and out}
-    p = len(chains)
-    need(shapes.get("A") == [p, m], f"programs.law: A must have shape [{p}, {m}]")
-    need(shapes.get("b") == [p], f"programs.law: b must have shape [{p}]")
-    need(shapes.get("chain") == [total], f"programs.law: chain must have shape [{total}]")
-    shapes = {out[0]: list(out[1]) for out in programs["dynamics"].get("outputs", [])
-              if isinstance(out, list) and out}
-    need(shapes.get("f") == [n] and shapes.get("G") == [n, m], f"programs.dynamics: f must be [{n}], G [{n}, {m}]")
+    if design["kind"] == "input_state":
+        need("transform" in programs, "programs.transform: missing (an input-state design carries T)")
+    expected_shapes = {"law": {"A": [m, m], "b": [m], "chain": [total]},
+                       "dynamics": {"f": [n], "G": [n, m]},
+                       "transform": {"T": [n], "jacobian": [n, n]},
+                       "inverse": {"x": [n]},
+                       "singular_set": {"s": [1]}}
+    for name, spec in programs.items():
+        _program_parts(spec, source, name)   # types first
+        shapes = {out[0]: list(out[1]) for out in spec["outputs"]}
+        for output, shape in expected_shapes[name].items():
+            need(shapes.get(output) == shape, f"programs.{name}: {output} must have shape {shape}")
+        first = ["z", [f"_z{i}" for i in range(n)]] if name == "inverse" else ["x", states]
+        need(spec["arguments"] == [first, ["p", parameter_names]],
+             f"programs.{name}.arguments: expected [{first[0]!r}, the plant's {'linearizing coordinates' if name == 'inverse' else 'states'}] "
+             "and ['p', its parameters], in the plant's order")
     for key in ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after"):
         need(_is_number(watchdog.get(key)) and watchdog[key] >= 0, f"watchdog.{key}: expected a number >= 0")
     need(watchdog["sigma_warn"] >= watchdog["sigma_act"] >= watchdog["sigma_stop"],
          "watchdog: expected sigma_warn >= sigma_act >= sigma_stop")
+    need(watchdog["damping"] > 0 and watchdog["stale_after"] > 0, "watchdog: damping and stale_after must be positive")
+    need(watchdog.get("integral_limit") is None or (_is_number(watchdog["integral_limit"])
+                                                    and watchdog["integral_limit"] > 0),
+         "watchdog.integral_limit: expected null or a positive number")
+    need("hold_time" not in watchdog or (_is_number(watchdog["hold_time"]) and watchdog["hold_time"] >= 0),
+         "watchdog.hold_time: expected a number >= 0")
     rate_limits = watchdog.get("rate_limits")
     need(isinstance(rate_limits, list) and len(rate_limits) == m
          and all(r is None or (_is_number(r) and r > 0) for r in rate_limits),
@@ -448,12 +553,12 @@ def _check_consistency(document: dict[str, Any], source: str) -> None:
         need(isinstance(safe.get("value"), list) and len(safe["value"]) == m
              and all(_is_number(v) for v in safe["value"]),
              f"watchdog.safe_command.value: expected {m} numbers")
-    limits = plant.get("input_limits", {})
-    need(isinstance(limits, dict) and all(k in plant["inputs"] and isinstance(v, list) and len(v) == 2
-                                          and all(_is_number(b) for b in v) and v[0] < v[1]
-                                          for k, v in limits.items()),
-         "plant.input_limits: expected input: [lower, upper]")
 
 
 def _is_number(value: Any) -> bool:
-    return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return False
+    try:
+        return math.isfinite(value)
+    except OverflowError:          # a whole number too large for a float
+        return False

@@ -50,12 +50,13 @@ _TOKEN = re.compile(
 def _tokens(text: str) -> Iterator[tuple[str, str, int]]:
     """Yield ``(kind, text, column)`` and a final ``("end", "", column)``."""
     pos = 0
-    while pos < len(text):
-        if text[pos:].strip() == "":
-            break
+    end = len(text.rstrip())          # once, not per token: keeps tokenising linear
+    while pos < end:
         match = _TOKEN.match(text, pos)
         if match is None or match.end() == pos:
-            col = pos + 1 + (len(text[pos:]) - len(text[pos:].lstrip()))
+            col = pos + 1
+            while text[col - 1].isspace():
+                col += 1
             raise ExpressionSyntaxError(text, col, f"unexpected character {text[col - 1]!r}")
         kind = match.lastgroup or "op"
         yield kind, match.group(kind), match.start(kind) + 1
@@ -121,8 +122,13 @@ class _Parser:
         base = self.atom()
         if self.peek()[0] == "op" and self.peek()[1] in ("**", "^"):
             self.take()
+            self.depth += 1
+            if self.depth > _MAX_DEPTH:
+                raise self.fail("nested too deeply")
             # right-associative; the exponent may carry its own sign: 2**-x
-            return ("pow", base, self.unary())
+            exponent = self.unary()
+            self.depth -= 1
+            return ("pow", base, exponent)
         return base
 
     def atom(self) -> Node:

@@ -264,6 +264,7 @@ def write_artifact(document: dict[str, Any], path: str | Path) -> Path:
     source = document["plant"].get("source", "")
     document = dict(document, plant=dict(document["plant"]))
     if source and Path(source).is_file():
+        document["plant"]["source_absolute"] = str(Path(source).resolve())
         document["plant"]["source_from_artifact"] = os.path.relpath(Path(source).resolve(),
                                                                     path.resolve().parent)
     text = seal(document)

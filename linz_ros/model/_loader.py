@@ -386,6 +386,8 @@ def _read_pole(reader: _Reader, field: str, value: Any) -> complex:
             raise reader.fail(field, f"expected a number, got {value!r}") from None
     else:
         pole = complex(reader.number(field, value))
+    if not (math.isfinite(pole.real) and math.isfinite(pole.imag)):
+        raise reader.fail(field, f"expected a finite pole, got {value!r}")
     if pole.real >= 0:
         raise reader.fail(field, f"pole {value} is not in the open left half-plane")
     return pole

@@ -42,12 +42,18 @@ def singular_values(a: Sequence[float], m: int) -> tuple[float, float]:
         s = abs(a[0])
         return s, s
     if m == 2:
-        p, q, r, s = a[0], a[1], a[2], a[3]
+        # scaled by the largest entry, so squares neither overflow nor underflow
+        scale = max(abs(a[0]), abs(a[1]), abs(a[2]), abs(a[3]))
+        if not scale > 0.0:
+            return (0.0, 0.0) if scale == 0.0 else (math.nan, math.nan)
+        if scale == math.inf:
+            return math.nan, math.inf
+        p, q, r, s = a[0] / scale, a[1] / scale, a[2] / scale, a[3] / scale
         frob = p * p + q * q + r * r + s * s
         det = abs(p * s - q * r)
         disc = frob * frob - 4.0 * det * det
         big = math.sqrt(0.5 * (frob + math.sqrt(disc if disc > 0.0 else 0.0)))
-        return (det / big if big > 0.0 else 0.0), big
+        return det / big * scale, big * scale
     sigma = np.linalg.svd(np.asarray(a, dtype=float).reshape(m, m), compute_uv=False)
     return float(sigma[-1]), float(sigma[0])
 

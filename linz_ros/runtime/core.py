@@ -35,8 +35,13 @@ __all__ = ["ControllerCore", "StepRecord", "WatchdogConfig", "MODES", "REASONS"]
 MODES = ("nominal", "damped", "held", "safe")
 #: Why a step ended as it did (``ok`` for a nominal step).
 REASONS = ("ok", "near_singular", "singular", "wrong_length", "non_finite_state", "bad_reference",
-           "bad_time", "out_of_order", "stale", "model_not_finite", "non_finite_command", "no_state")
+           "bad_time", "out_of_order", "stale", "future_stamp", "model_not_finite", "non_finite_command",
+           "no_state")
 _isfinite = math.isfinite
+
+
+def _is_real(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and not math.isnan(value)
 
 
 @dataclass(frozen=True)
@@ -150,27 +155,38 @@ class WatchdogConfig:
             Naming the first setting that is wrong.
         """
         m = len(self.input_limits)
-        for key in ("sigma_warn", "sigma_act", "sigma_stop", "stale_after", "hold_time", "max_dt"):
+        for key in ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "hold_time", "max_dt",
+                    "integral_limit"):
             value = getattr(self, key)
-            if not (isinstance(value, (int, float)) and _isfinite(value) and value >= 0):
-                raise ConfigError(key, f"expected a finite number >= 0, got {value!r}")
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or math.isnan(value) or value < 0:
+                raise ConfigError(key, f"expected a number >= 0, got {value!r}")
+        for key in ("sigma_warn", "sigma_act", "sigma_stop", "stale_after", "hold_time"):
+            if not _isfinite(getattr(self, key)):
+                raise ConfigError(key, f"expected a finite number, got {getattr(self, key)!r}")
         if not (_isfinite(self.damping) and self.damping > 0):
             raise ConfigError("damping", f"expected a positive number, got {self.damping!r}")
+        if not self.max_dt > 0:
+            raise ConfigError("max_dt", f"expected a positive number, got {self.max_dt!r}")
+        if not isinstance(self.anti_windup, bool):
+            raise ConfigError("anti_windup", f"expected true or false, got {self.anti_windup!r}")
+        for key in ("input_limits", "rate_limits", "safe_value"):
+            if not isinstance(getattr(self, key), tuple):
+                raise ConfigError(key, "expected a tuple")
         if not self.sigma_warn >= self.sigma_act >= self.sigma_stop:
             raise ConfigError("sigma_act", f"expected sigma_warn >= sigma_act >= sigma_stop, got "
                                            f"{self.sigma_warn:g}, {self.sigma_act:g}, {self.sigma_stop:g}")
         if self.stale_after <= 0:
             raise ConfigError("stale_after", "must be positive")
-        if len(self.rate_limits) != m:
-            raise ConfigError("rate_limits", f"expected {m} values, one per input")
-        if any(not r > 0 for r in self.rate_limits):
-            raise ConfigError("rate_limits", "every rate limit must be positive (inf for none)")
-        for i, (lo, hi) in enumerate(self.input_limits):
-            if not lo < hi:
-                raise ConfigError("input_limits", f"input {i}: lower {lo:g} is not below upper {hi:g}")
+        if len(self.rate_limits) != m or not all(_is_real(r) and r > 0 for r in self.rate_limits):
+            raise ConfigError("rate_limits", f"expected {m} positive numbers, one per input (inf for none)")
+        for i, pair in enumerate(self.input_limits):
+            if not (isinstance(pair, tuple) and len(pair) == 2 and all(_is_real(v) for v in pair)
+                    and pair[0] < pair[1]):
+                raise ConfigError("input_limits", f"input {i}: expected (lower, upper) with lower below upper, "
+                                                  f"got {pair!r}")
         if self.safe_kind not in ("zero", "hold", "fixed"):
             raise ConfigError("safe_kind", f"expected zero, hold or fixed, got {self.safe_kind!r}")
-        if len(self.safe_value) != m or not all(_isfinite(v) for v in self.safe_value):
+        if len(self.safe_value) != m or not all(_is_real(v) and _isfinite(v) for v in self.safe_value):
             raise ConfigError("safe_value", f"expected {m} finite numbers")
         if not self.integral_limit > 0:
             raise ConfigError("integral_limit", "must be positive (inf for none)")
@@ -346,30 +362,33 @@ class ControllerCore:
         start = time.perf_counter()
         config = self.config
         try:
-            if len(x) != self.n:
-                return self._refuse("wrong_length", t, start)
-            x = list(map(float, x))
-        except (TypeError, ValueError):
-            return self._refuse("wrong_length", t, start)
-        if not all(map(_isfinite, x)):
-            return self._refuse("non_finite_state", t, start)
-        try:
             t = float(t)
             now = t if now is None else float(now)
-        except (TypeError, ValueError):
-            return self._refuse("bad_time", t, start)
+        except (TypeError, ValueError, OverflowError):
+            return self._refuse("bad_time", t, start, now)
         if not (_isfinite(t) and _isfinite(now)):
-            return self._refuse("bad_time", t, start)
+            return self._refuse("bad_time", t, start, now)
+        try:
+            if len(x) != self.n:
+                return self._refuse("wrong_length", t, start, now)
+            x = list(map(float, x))
+        except (TypeError, ValueError, OverflowError):
+            return self._refuse("wrong_length", t, start, now)
+        if not all(map(_isfinite, x)):
+            return self._refuse("non_finite_state", t, start, now)
         last_t = self.last_t
         if last_t is not None and t <= last_t:
             return self._refuse("out_of_order", t, start, now)
         if now - t > config.stale_after:
             return self._refuse("stale", t, start, now)
+        if t - now > config.stale_after:
+            # a stamp from the future would be kept as the newest and block every real state
+            return self._refuse("future_stamp", t, start, now)
         try:
             if len(ref) != self.reference_size:
                 return self._refuse("bad_reference", t, start, now)
             ref = list(map(float, ref))
-        except (TypeError, ValueError):
+        except (TypeError, ValueError, OverflowError):
             return self._refuse("bad_reference", t, start, now)
         if not all(map(_isfinite, ref)):
             return self._refuse("bad_reference", t, start, now)
@@ -389,9 +408,9 @@ class ControllerCore:
             self._advance_integrators(dt)
         v, errors = self._outer_loop(values, ref)
         rhs = [v[i] - b[i] for i in range(m)]
-        warn = sigma_min < config.sigma_warn
+        warn = not sigma_min >= config.sigma_warn
         damping = 0.0
-        if sigma_min < config.sigma_stop:
+        if not sigma_min >= config.sigma_stop:      # also catches a nan sigma
             self.last_t = t
             return self._safe("singular", t, start, sigma_min, condition, warn, now)
         try:
@@ -496,7 +515,7 @@ class ControllerCore:
     def _safe_command(self, now: float) -> tuple[list[float], str]:
         config = self.config
         if config.safe_kind == "hold" and self.last_good_t is not None \
-                and now - self.last_good_t <= config.hold_time:
+                and 0.0 <= now - self.last_good_t <= config.hold_time:
             return list(self.last_good_command), "held"
         if config.safe_kind == "fixed":
             return list(config.safe_value), "safe"
@@ -505,11 +524,15 @@ class ControllerCore:
     def _safe(self, reason: str, t: float, start: float, sigma_min: float = math.nan,
               condition: float = math.nan, warn: bool = False, now: float | None = None
               ) -> tuple[list[float], StepRecord]:
-        """The safe command (or the held one), clipped to the box limits, and its record."""
-        when = now if now is not None and _isfinite(now) else t
-        if not _isfinite(when):
-            when = self.last_good_t if self.last_good_t is not None else 0.0
-        u, mode = self._safe_command(when)
+        """The safe command (or the held one), clipped to the box limits, and its record.
+
+        ``hold`` is measured against ``now``; without a valid ``now`` it is not trusted
+        and the zero command is sent.
+        """
+        if now is not None and _isfinite(now):
+            u, mode = self._safe_command(now)
+        else:
+            u, mode = self._safe_command(math.inf)
         u = [min(max(value, lo), hi) for value, (lo, hi) in zip(u, self.config.input_limits)]
         self.last_command = u
         self._integrate_next = False
@@ -517,10 +540,13 @@ class ControllerCore:
                             (False,) * self.m, time.perf_counter() - start)
         return u, record
 
-    def _refuse(self, reason: str, t: Any, start: float, now: float | None = None
-                ) -> tuple[list[float], StepRecord]:
+    def _refuse(self, reason: str, t: Any, start: float, now: Any = None) -> tuple[list[float], StepRecord]:
         try:
             stamp = float(t)
-        except (TypeError, ValueError):
+        except (TypeError, ValueError, OverflowError):
             stamp = math.nan
-        return self._safe(reason, stamp, start, now=now)
+        try:
+            current = None if now is None else float(now)
+        except (TypeError, ValueError, OverflowError):
+            current = None
+        return self._safe(reason, stamp, start, now=current)

@@ -27,6 +27,8 @@ from linz_ros.errors import ConfigError
 __all__ = ["Reference", "make_reference", "parse_reference", "KINDS"]
 
 KINDS = ("hold", "step", "sine", "smooth")
+#: Shortest period or duration accepted (seconds).
+_SHORTEST = 1e-4
 _OPTIONS = {"hold": (), "step": ("amplitude", "at"), "sine": ("amplitude", "period", "at"),
             "smooth": ("amplitude", "duration", "at")}
 
@@ -174,6 +176,9 @@ def make_reference(kind: str, orders: Sequence[int], base: Sequence[float],
             raise ConfigError(f"reference {name}", f"expected a finite number, got {value}")
     if period <= 0 or duration <= 0:
         raise ConfigError("reference", "period and duration must be positive")
+    if period < _SHORTEST or duration < _SHORTEST:
+        raise ConfigError("reference", f"period and duration must be at least {_SHORTEST:g} s "
+                                       "(shorter moves have derivatives beyond any actuator)")
     return Reference(kind, orders, [float(b) for b in base], amplitude, float(at), float(period), float(duration))
 
 

@@ -173,16 +173,37 @@ def synthesise(plant: Plant, options: DesignOptions | None = None, report: Repor
     gains, poles_note, method, lqr_weights = _outer_loop_gains(plant, options, names, degrees, integral)
     if poles_note:
         notes.append(poles_note)
-    chains = []
-    for name, expr, derivs, degree, k in zip(names, expressions, chains_sym, degrees, gains):
-        loop = sampled_loop(k, 1.0 / rate)
-        chains.append(Chain(name, expr, derivs, degree, k, closed_loop_poles(k), loop))
+    chains = [_checked_chain(name, expr, derivs, degree, k, rate, method, options, plant)
+              for name, expr, derivs, degree, k in zip(names, expressions, chains_sym, degrees, gains)]
     warnings.extend(_sampling_warnings(chains, rate))
     warnings.extend(_zero_dynamics_warnings(report, kind))
     sigma_ref, sigma_note = _sigma_reference(plant, report, A, ctx, kind)
     watchdog = _watchdog_levels(plant, sigma_ref, rate)
     return Design(plant, report, kind, chains, A, b, integral, rate, method, inverse, sigma_ref, sigma_note,
                   watchdog, lqr_weights, plant.design.get("reference"), warnings, notes)
+
+
+def _checked_chain(name: str, expr: sp.Expr, derivs: list[sp.Expr], degree: int, gains: np.ndarray, rate: float,
+                   method: str, options: DesignOptions, plant: Plant) -> Chain:
+    """A chain whose gains are finite and whose continuous closed loop is asymptotically stable."""
+    field = f"design.{'poles' if method == 'poles' else 'lqr'}"
+    source = options.source if (options.poles is not None or options.lqr is not None) else plant.source
+    if not np.all(np.isfinite(gains)):
+        raise DesignError(source, field, f"the gains of chain {name} are not finite numbers (poles far too large?)")
+    poles = closed_loop_poles(gains)
+    if not np.all(poles.real < 0):
+        raise DesignError(source, field, f"chain {name} would not be asymptotically stable (closed-loop poles "
+                                         f"{', '.join(f'{p.real:.3g}{p.imag:+.3g}j' for p in poles)}); with LQR, "
+                                         "give the first state of every chain a positive weight")
+    try:
+        loop = sampled_loop(gains, 1.0 / rate)
+    except (ArithmeticError, ValueError, np.linalg.LinAlgError):
+        loop = None
+    if loop is None or not (math.isfinite(loop.spectral_radius) and math.isfinite(loop.fastest_pole_times_period)):
+        raise DesignError(options.source if options.rate is not None else plant.source, "design.rate",
+                          f"the sampled loop of chain {name} cannot be evaluated at {rate:g} Hz "
+                          "(rate far too low for the poles)")
+    return Chain(name, expr, derivs, degree, gains, poles, loop)
 
 
 def _kind_of_design(plant: Plant, options: DesignOptions) -> str:
@@ -331,6 +352,8 @@ def _poles_per_chain(poles, names: list[str], orders: list[int], integral: bool,
             raise DesignError(source, f"design.poles.{name}",
                               f"{len(given)} pole(s) given, but the chain has {order} states{with_integral} "
                               f"(relative degree {order - int(integral)})")
+        if not all(math.isfinite(p.real) and math.isfinite(p.imag) for p in given):
+            raise DesignError(source, f"design.poles.{name}", "poles must be finite numbers")
         if any(p.real >= 0 for p in given):
             raise DesignError(source, f"design.poles.{name}", "poles must lie in the open left half-plane")
         result.append(given)
