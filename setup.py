@@ -38,6 +38,9 @@ setup(
     entry_points={
         "console_scripts": [
             "linz = linz_ros.cli:main",
+            "linz_controller = linz_ros.nodes.controller:main",
+            "linz_plant_sim = linz_ros.nodes.simulator:main",
+            "linz_reference = linz_ros.nodes.reference:main",
         ],
     },
 )

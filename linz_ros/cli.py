@@ -17,6 +17,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import os
 import sys
 import time
 from pathlib import Path
@@ -170,6 +171,9 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument("plant", metavar="PLANT", nargs="?", help="plant file (default: the bundled pick_arm)")
     demo.add_argument("-o", "--out", default=str(Path(DEFAULT_OUT) / "demo"), metavar="DIR",
                       help=f"output folder (default {DEFAULT_OUT}/demo)")
+    demo.add_argument("--seconds", type=_positive_float, default=6.0, metavar="S",
+                      help="length of the ROS 2 simulation bringup (default 6)")
+    demo.add_argument("--no-ros", action="store_true", help="skip the ROS 2 simulation bringup")
     demo.set_defaults(run=_run_demo)
     return parser
 
@@ -550,6 +554,22 @@ def bundled_plant(name: str) -> Path:
                                f"{', '.join(str(p.parent) for p in candidates)})")
 
 
+def bundled_params(name: str) -> Path | None:
+    """The parameter file of a bundled plant's bringup, when there is one.
+
+    Parameters
+    ----------
+    name : str
+
+    Returns
+    -------
+    pathlib.Path or None
+    """
+    candidates = [Path(__file__).resolve().parent.parent / "config" / f"{name}.yaml",
+                  Path(sys.prefix) / "share" / "linz_ros" / "config" / f"{name}.yaml"]
+    return next((p for p in candidates if p.is_file()), None)
+
+
 def _run_demo(args: argparse.Namespace) -> int:
     from linz_ros.analysis import analyse, render_text
     from linz_ros.model import load_plant
@@ -558,20 +578,66 @@ def _run_demo(args: argparse.Namespace) -> int:
     out = Path(args.out)
     print(f"== 1. check {plant_file}")
     report = analyse(load_plant(plant_file), samples=512)
-    verdict = render_text(report).split("\n\n")[1]       # the VERDICT block
-    print(verdict)
+    print(render_text(report).split("\n\n")[1])       # the VERDICT block
     print(f"\n== 2. build -> {out}")
-    build = _parse_sub(["build", str(plant_file), "-o", str(out)])
-    _run_build(build)
-    artifact = out / f"{report.plant.name}.artifact.json"
+    _run_build(_parse_sub(["build", str(plant_file), "-o", str(out)]))
+    name = report.plant.name
+    artifact = out / f"{name}.artifact.json"
     print("\n== 3. sim: the plant file's reference")
     _run_sim(_parse_sub(["sim", str(artifact), "-o", str(out / "nominal"), "--duration", "4"]))
-    if report.plant.name == DEMO_PLANT and not args.plant:
+    if name == DEMO_PLANT and not args.plant:
         print("\n== 4. sim: a reach past the workspace, through the singular set (watchdog at work)")
         _run_sim(_parse_sub(["sim", str(artifact), "-o", str(out / "reach"), "--duration", "4",
                              "--reference", DEMO_REACH]))
+    params = bundled_params(name)
+    if params is None:
+        print(f"\n(no bringup parameter file config/{name}.yaml: the ROS 2 step is skipped)")
+    elif not args.no_ros:
+        print(f"\n== 5. simulation bringup over DDS: simulator, reference and controller nodes ({args.seconds:g} s)")
+        _demo_bringup(artifact, params, out / "bringup", args.seconds)
     print(f"\nall results in {out}")
     return 0
+
+
+def _demo_bringup(artifact_path: Path, params: Path, out: Path, seconds: float) -> None:
+    """Start the three nodes as processes, record them over DDS, summarise and plot."""
+    try:
+        from linz_ros.nodes.recorder import TopicMap, recording
+    except ImportError as err:
+        print(f"rclpy is not available ({err}); install the [ros] extra or source a ROS 2 distribution")
+        return
+    from linz_ros.artifact import load_artifact
+    from linz_ros.bringup import Bringup, isolated_environment, node_parameters
+    from linz_ros.plotting import plot_run
+
+    artifact = load_artifact(artifact_path)
+    c = node_parameters(params, "linz_controller")
+    topics = TopicMap(str(c["state_topic"]), str(c["state_type"]), list(c.get("state_fields", [])),
+                      str(c["command_topic"]), str(c["command_type"]), list(c.get("command_fields", [])),
+                      str(c["reference_topic"]))
+    env = isolated_environment()
+    os.environ.update({k: env[k] for k in ("ROS_DOMAIN_ID", "ROS_AUTOMATIC_DISCOVERY_RANGE")})
+    print(f"  isolated DDS domain {env['ROS_DOMAIN_ID']}, localhost only; node logs in {out}")
+    with recording(artifact, topics) as recorder, Bringup(out, env) as bringup:
+        for executable in ("linz_plant_sim", "linz_reference", "linz_controller"):
+            bringup.start(executable, params, {"artifact": str(artifact_path.resolve())})
+        if not bringup.wait_for_log("linz_controller", "active: commanding", timeout=30):
+            raise ConfigError("bringup", "the controller did not become active; see "
+                                         f"{bringup.nodes['linz_controller'].log}")
+        recorder.spin_for(seconds)
+    result = recorder.to_result()
+    if len(result.t) == 0:
+        raise ConfigError("bringup", f"no control steps were recorded; see the node logs in {out}")
+    files = [result.write_csv(out / "run.csv")] + plot_run(result, out)
+    summary = result.summary()
+    summary["files"] = [str(f) for f in files]
+    summary["diagnostics"] = [{"level": level, "message": message} for _, level, message, _ in
+                              recorder.recording.diagnostics]
+    (out / "summary.json").write_text(json.dumps(summary, indent=2) + "\n")
+    levels = sorted({("OK", "WARN", "ERROR", "STALE")[level] for _, level, _, _ in recorder.recording.diagnostics})
+    print(_sim_text(summary).replace("sim ", "bringup ", 1))
+    print(f"  diagnostics seen: {', '.join(levels) or 'none'}; {len(recorder.recording.commands)} commands, "
+          f"{len(recorder.recording.states)} states received")
 
 
 def _parse_sub(argv: list[str]) -> argparse.Namespace:

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 import sympy as sp
 
-from conftest import BUNDLED, REFERENCE
+from support import BUNDLED, REFERENCE
 from linz_ros.analysis import (analyse, controllability_indices, invariant_zeros, render_text,
                                sample_envelope)
 from linz_ros.analysis._common import plant_context

@@ -7,7 +7,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from conftest import BUNDLED, REFERENCE
+from support import BUNDLED, REFERENCE
 from linz_ros.artifact import artifact_from_text, content_hash, load_artifact, seal
 from linz_ros.codegen import artifact_path, build_document, write_artifact
 from linz_ros.errors import ArtifactError

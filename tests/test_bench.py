@@ -5,7 +5,7 @@ import shutil
 import numpy as np
 import pytest
 
-from conftest import BUNDLED, built_artifact
+from support import BUNDLED, built_artifact
 from linz_ros.bench import _c_library, _law_expressions, _naive_step, run_bench
 from linz_ros.model import load_plant
 from linz_ros.runtime import ControllerCore

@@ -7,7 +7,7 @@ import sys
 import numpy as np
 import pytest
 
-from conftest import BUNDLED, MINIMAL, REFERENCE, sampled_chain_error
+from support import BUNDLED, MINIMAL, REFERENCE, sampled_chain_error
 from linz_ros.cli import main
 from linz_ros.runtime import fit_decay_rate
 

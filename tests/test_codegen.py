@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 import sympy as sp
 
-from conftest import BUNDLED, REFERENCE
+from support import BUNDLED, REFERENCE
 from linz_ros.artifact.grammar import parse_expression
 from linz_ros.codegen import CodegenError, build_document, symbolic_programs, to_grammar
 from linz_ros.codegen import _writer

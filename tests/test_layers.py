@@ -24,13 +24,18 @@ ALLOWED = {
     "codegen": {"errors", "artifact", "model", "geometry", "analysis", "synthesis"},
     "runtime": {"errors", "artifact"},
     "plotting": {"errors", "artifact", "runtime"},
+    "nodes": RUNTIME | {"nodes"},
+    "bringup": {"errors"},
     "bench": OFFLINE | RUNTIME,
-    "cli": OFFLINE | RUNTIME | {"plotting", "bench"},
+    "cli": OFFLINE | RUNTIME | {"plotting", "bench", "bringup", "nodes"},
 }
 # heavy or ROS modules each layer may import at module level (lazy imports inside functions are
 # checked by the subprocess tests below)
 THIRD_PARTY_FORBIDDEN = {"artifact": {"sympy", "scipy", "rclpy", "matplotlib"},
-                         "runtime": {"sympy", "rclpy", "matplotlib"}}
+                         "runtime": {"sympy", "rclpy", "matplotlib"},
+                         "nodes": {"sympy", "scipy", "matplotlib"}}
+ROS_MODULES = {"rclpy", "std_msgs", "sensor_msgs", "geometry_msgs", "nav_msgs", "diagnostic_msgs",
+               "lifecycle_msgs", "rosgraph_msgs", "rcl_interfaces", "builtin_interfaces"}
 
 
 def _layer(path: Path) -> str:
@@ -80,7 +85,7 @@ def test_a_whole_closed_loop_runs_without_sympy(tmp_path):
     from linz_ros.codegen import artifact_path, build_document, write_artifact
     from linz_ros.model import load_plant
     from linz_ros.synthesis import synthesise
-    from conftest import BUNDLED
+    from support import BUNDLED
     design = synthesise(load_plant(BUNDLED / "mast_camera.yaml"))
     path = write_artifact(build_document(design)[0], artifact_path(tmp_path, "mast_camera"))
     code = ("import sys; from linz_ros.artifact import load_artifact; "
@@ -108,6 +113,19 @@ def _third_party_imports(path: Path) -> set[str]:
 def test_runtime_tower_modules_do_not_import_heavy_libraries(path):
     illegal = _third_party_imports(path) & THIRD_PARTY_FORBIDDEN[_layer(path)]
     assert not illegal, f"{path.name} imports {sorted(illegal)} at module level"
+
+
+@pytest.mark.parametrize("path", sorted(p for p in PACKAGE.rglob("*.py") if _layer(p) != "nodes"),
+                         ids=lambda p: str(p.relative_to(PACKAGE)))
+def test_rclpy_and_ros_messages_appear_only_in_nodes(path):
+    tree = ast.parse(path.read_text())
+    used = set()
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Import):
+            used |= {a.name.split(".")[0] for a in node.names}
+        elif isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
+            used.add(node.module.split(".")[0])
+    assert not (used & ROS_MODULES), f"{path.name} imports {sorted(used & ROS_MODULES)}"
 
 
 def test_public_functions_have_numpy_style_docstrings():

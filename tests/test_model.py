@@ -3,7 +3,7 @@
 import sympy as sp
 import pytest
 
-from conftest import BUNDLED, MINIMAL
+from support import BUNDLED, MINIMAL
 from linz_ros.errors import PlantFileError
 from linz_ros.model import load_plant, plant_from_text
 

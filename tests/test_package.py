@@ -5,7 +5,7 @@ import re
 import subprocess
 import xml.etree.ElementTree as ET
 
-from conftest import ROOT
+from support import ROOT
 
 
 def _setup_call():

@@ -1,6 +1,6 @@
 """Plots of a closed-loop run are written as PNG images."""
 
-from conftest import BUNDLED, built_artifact
+from support import BUNDLED, built_artifact
 from linz_ros.plotting import plot_run
 from linz_ros.runtime import SimSettings, simulate
 

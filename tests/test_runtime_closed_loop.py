@@ -6,7 +6,7 @@ import csv
 import numpy as np
 import pytest
 
-from conftest import BUNDLED, MINIMAL, REFERENCE, built_artifact, sampled_chain_error
+from support import BUNDLED, MINIMAL, REFERENCE, built_artifact, sampled_chain_error
 from linz_ros.errors import ConfigError
 from linz_ros.runtime import (ControllerCore, SimSettings, fit_decay_rate, make_reference, mismatched_parameters,
                               simulate)

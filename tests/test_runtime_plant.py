@@ -5,7 +5,7 @@ import math
 import numpy as np
 import pytest
 
-from conftest import MINIMAL, built_artifact
+from support import MINIMAL, built_artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime import NumericPlant, mismatched_parameters, parse_assignments
 

@@ -5,7 +5,7 @@ import math
 import numpy as np
 import pytest
 
-from conftest import BUNDLED, REFERENCE, built_artifact
+from support import BUNDLED, REFERENCE, built_artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime import Transform
 from linz_ros.synthesis import DesignOptions

@@ -10,7 +10,7 @@ import scipy.signal
 import sympy as sp
 import sympy.physics.mechanics as me
 
-from conftest import BUNDLED, MINIMAL, REFERENCE
+from support import BUNDLED, MINIMAL, REFERENCE
 from linz_ros.artifact import artifact_from_text, seal
 from linz_ros.codegen import build_document
 from linz_ros.errors import DesignError

@@ -36,7 +36,7 @@ MODES = ("nominal", "damped", "held", "safe")
 #: Why a step ended as it did (``ok`` for a nominal step).
 REASONS = ("ok", "near_singular", "singular", "wrong_length", "non_finite_state", "bad_reference",
            "bad_time", "out_of_order", "stale", "future_stamp", "model_not_finite", "non_finite_command",
-           "no_state")
+           "no_state", "bad_message")
 _isfinite = math.isfinite
 
 
@@ -71,6 +71,10 @@ class WatchdogConfig:
         Freeze the integrators on steps that saturate or leave the nominal mode.
     max_dt : float
         Longest interval credited to the integrators in one step (seconds).
+    future_tolerance : float
+        A stamp up to this far ahead of ``now`` is accepted (clock skew between machines,
+        ``/clock`` arriving after the state in simulated time); further ahead it is
+        refused, so one wrong stamp cannot block the states that follow for long.
     """
 
     sigma_warn: float
@@ -86,6 +90,7 @@ class WatchdogConfig:
     integral_limit: float = math.inf
     anti_windup: bool = True
     max_dt: float = 0.1
+    future_tolerance: float = 0.5
 
     @classmethod
     def from_artifact(cls, artifact: Artifact, **overrides: Any) -> "WatchdogConfig":
@@ -156,11 +161,11 @@ class WatchdogConfig:
         """
         m = len(self.input_limits)
         for key in ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "hold_time", "max_dt",
-                    "integral_limit"):
+                    "integral_limit", "future_tolerance"):
             value = getattr(self, key)
             if isinstance(value, bool) or not isinstance(value, (int, float)) or math.isnan(value) or value < 0:
                 raise ConfigError(key, f"expected a number >= 0, got {value!r}")
-        for key in ("sigma_warn", "sigma_act", "sigma_stop", "stale_after", "hold_time"):
+        for key in ("sigma_warn", "sigma_act", "sigma_stop", "stale_after", "hold_time", "future_tolerance"):
             if not _isfinite(getattr(self, key)):
                 raise ConfigError(key, f"expected a finite number, got {getattr(self, key)!r}")
         if not (_isfinite(self.damping) and self.damping > 0):
@@ -381,7 +386,7 @@ class ControllerCore:
             return self._refuse("out_of_order", t, start, now)
         if now - t > config.stale_after:
             return self._refuse("stale", t, start, now)
-        if t - now > config.stale_after:
+        if t - now > config.future_tolerance:
             # a stamp from the future would be kept as the newest and block every real state
             return self._refuse("future_stamp", t, start, now)
         try:

@@ -1,0 +1,477 @@
+"""The managed controller node: state in, linearizing command out, watchdogs and diagnostics.
+
+Lifecycle: ``configure`` loads and verifies the artifact and builds the core and the
+topics (refusing with a logged reason), ``activate`` starts commanding, ``deactivate``
+publishes the safe command once and stops, ``cleanup`` releases everything. With
+``autostart`` the node configures and activates itself.
+
+Topics (names are parameters): state in (JointState, Odometry or Float64MultiArray),
+command out (Float64MultiArray, JointState efforts, Wrench or Twist), reference in
+(Float64MultiArray ``[y1, y1', ..., y1^(r1), y2, ...]``) unless a built-in reference is
+chosen, ``~/conditioning`` (one labelled Float64MultiArray per step) and
+``/diagnostics`` (about once a second).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any, Sequence
+
+import numpy as np
+import rclpy
+from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus, KeyValue
+from rcl_interfaces.msg import SetParametersResult
+from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackReturn
+from std_msgs.msg import Float64MultiArray
+
+from linz_ros.artifact import load_artifact
+from linz_ros.errors import LinzError
+from linz_ros.nodes._common import EXECUTORS, SAFETY_NOTICE, control_qos, declare, spin_node
+from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, labelled_array,
+                                     message_class, set_stamp, stamp_seconds)
+from linz_ros.runtime import MODES, REASONS, ControllerCore, WatchdogConfig, parse_reference
+
+__all__ = ["ControllerNode", "main", "CONDITIONING_FIELDS", "DiagnosticWindow"]
+
+#: Labels of the per-step conditioning message, in order (then one ``u.<input>`` per input).
+CONDITIONING_FIELDS = ("t", "sigma_min", "condition", "mode", "reason", "damping", "compute_time_us",
+                       "saturated_mask", "warn")
+#: Watchdog settings that may change while the node is active.
+DYNAMIC = ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "hold_time", "integral_limit",
+           "rate_limits")
+_UNSET = -1.0
+
+
+@dataclass
+class DiagnosticWindow:
+    """What happened since the last diagnostics message."""
+
+    started: float
+    steps: int = 0
+    min_sigma: float = math.inf
+    max_condition: float = 0.0
+    saturated: int = 0
+    warned: int = 0
+    modes: dict[str, int] = field(default_factory=lambda: {m: 0 for m in MODES})
+    rejected: int = 0
+    stale: int = 0
+    singular: int = 0
+    reference_stale: int = 0
+    compute: list[float] = field(default_factory=list)
+
+    def add(self, record) -> None:
+        """Count one step's record."""
+        self.steps += 1
+        self.modes[record.mode] += 1
+        self.singular += record.reason == "singular"
+        if math.isfinite(record.sigma_min):
+            self.min_sigma = min(self.min_sigma, record.sigma_min)
+        if math.isfinite(record.condition):
+            self.max_condition = max(self.max_condition, record.condition)
+        elif record.condition == math.inf:
+            self.max_condition = math.inf
+        self.saturated += any(record.saturated)
+        self.warned += record.warn
+        self.compute.append(record.compute_time)
+
+    def level(self) -> tuple[bytes, str]:
+        """OK, WARN or ERROR with a one-line summary.
+
+        ERROR when any step sent the safe (or held) command: singular, stale or rejected
+        state; WARN when near singular (damped or under the warn level), saturating, or
+        holding because the reference stalled; OK otherwise.
+        """
+        if self.modes["safe"] or self.modes["held"]:
+            why = [f"{label} {count}x" for label, count in (("singular", self.singular), ("state stale", self.stale),
+                                                            ("state rejected", self.rejected)) if count]
+            return DiagnosticStatus.ERROR, "safe command sent: " + (", ".join(why) or "safe command")
+        why = []
+        if self.modes["damped"]:
+            why.append("near singular: damped")
+        elif self.warned:
+            why.append("sigma_min under the warn level")
+        if self.saturated:
+            why.append("saturating")
+        if self.reference_stale:
+            why.append("reference stale: holding")
+        if why:
+            return DiagnosticStatus.WARN, ", ".join(why)
+        if self.steps == 0:
+            return DiagnosticStatus.WARN, "active, but no state received"
+        return DiagnosticStatus.OK, "nominal"
+
+    def values(self, now: float) -> list[KeyValue]:
+        """Key values of the window."""
+        span = max(now - self.started, 1e-9)
+        p99 = float(np.percentile(self.compute, 99)) * 1e6 if self.compute else math.nan
+        pairs = [("window_min_sigma", self.min_sigma if self.steps else math.nan),
+                 ("max_condition", self.max_condition if self.steps else math.nan),
+                 ("saturated_fraction", self.saturated / self.steps if self.steps else 0.0),
+                 ("stale_count", self.stale), ("rejected_count", self.rejected),
+                 ("reference_stale_count", self.reference_stale),
+                 ("loop_rate_hz", self.steps / span), ("compute_time_p99_us", p99)]
+        pairs += [(f"mode_{m}", c) for m, c in self.modes.items()]
+        return [KeyValue(key=k, value=f"{v:.6g}" if isinstance(v, float) else str(v)) for k, v in pairs]
+
+
+class _ReferenceSource:
+    """The reference vector at time t: from the reference topic, or from a built-in generator."""
+
+    def __init__(self, core: ControllerCore, spec: str, timeout: float, outputs: list[str]) -> None:
+        self.core = core
+        self.spec = spec
+        self.timeout = timeout
+        self.outputs = outputs
+        self.latest: list[float] | None = None
+        self.latest_at = -math.inf
+        self.generator = None
+        self.origin = 0.0
+        self.latched: list[float] | None = None
+        self.stale = False
+        if spec != "topic":
+            # checked now so that configure fails on a bad spec
+            parse_reference(spec, core.orders, [0.0] * len(core.orders), outputs)
+
+    def restart(self, now: float) -> None:
+        self.generator = None
+        self.origin = now
+        self.latched = None
+
+    def accept(self, values: Sequence[float], now: float) -> bool:
+        values = list(values)
+        if len(values) != self.core.reference_size or not all(math.isfinite(v) for v in values):
+            return False
+        self.latest, self.latest_at = values, now
+        return True
+
+    def sample(self, x: Sequence[float], now: float) -> list[float]:
+        if self.spec != "topic":
+            if self.generator is None:
+                chain = self.core.outputs(x)
+                base, k = [], 0
+                for r in self.core.orders:
+                    base.append(chain[k])
+                    k += r
+                self.generator = parse_reference(self.spec, self.core.orders, base, self.outputs)
+            return self.generator.sample(now - self.origin)
+        if self.latest is not None and now - self.latest_at <= self.timeout:
+            self.stale = False
+            self.latched = None
+            return self.latest
+        # no reference, or it stalled: hold the outputs where they were when it stopped
+        self.stale = self.latest is not None
+        if self.latched is None:
+            self.latched = self.core.hold_reference(x)
+        return self.latched
+
+
+class ControllerNode(LifecycleNode):
+    """The feedback-linearizing controller as a managed ROS 2 node.
+
+    Parameters
+    ----------
+    node_name : str
+    **kwargs
+        Passed to :class:`rclpy.lifecycle.LifecycleNode`.
+    """
+
+    def __init__(self, node_name: str = "linz_controller", **kwargs: Any) -> None:
+        super().__init__(node_name, **kwargs)
+        self.get_logger().warning(SAFETY_NOTICE)
+        self._declare_parameters()
+        self.core: ControllerCore | None = None
+        self.active = False
+        self.configure_error = ""
+        self._owned_subscriptions: list[Any] = []
+        self._owned_timers: list[Any] = []
+        self._command_pub = None
+        self._conditioning_pub = None
+        self.window = DiagnosticWindow(self._now())
+        self._diagnostics_pub = self.create_publisher(DiagnosticArray, "/diagnostics", 10)
+        self._diagnostics_timer = self.create_timer(self.params["diagnostics_period"], self._publish_diagnostics)
+        self.add_on_set_parameters_callback(self._on_set_parameters)
+        if self.params["autostart"]:
+            self._autostart_timer = self.create_timer(0.0, self._autostart)
+
+    # -- parameters ----------------------------------------------------------------------
+    def _declare_parameters(self) -> None:
+        p = {}
+        p["artifact"] = declare(self, "artifact", "", "controller artifact file (from linz build)", read_only=True)
+        p["plant_file"] = declare(self, "plant_file", "", "plant file to compare with the artifact's hash "
+                                  "(default: the one recorded at build time)", read_only=True)
+        p["allow_plant_change"] = declare(self, "allow_plant_change", False, "accept a changed plant file",
+                                          read_only=True)
+        p["state_topic"] = declare(self, "state_topic", "state", "state topic", read_only=True)
+        p["state_type"] = declare(self, "state_type", "std_msgs/msg/Float64MultiArray",
+                                  f"one of {', '.join(STATE_TYPES)}", read_only=True)
+        p["state_fields"] = declare(self, "state_fields", [], "field path of each state, in the artifact's "
+                                    "order (empty: data.0, data.1, ...)", read_only=True, array_of=str)
+        p["command_topic"] = declare(self, "command_topic", "command", "command topic", read_only=True)
+        p["command_type"] = declare(self, "command_type", "std_msgs/msg/Float64MultiArray",
+                                    f"one of {', '.join(COMMAND_TYPES)}", read_only=True)
+        p["command_fields"] = declare(self, "command_fields", [], "field path of each input, in the "
+                                      "artifact's order (empty: data.0, ...)", read_only=True, array_of=str)
+        p["reference_topic"] = declare(self, "reference_topic", "reference", "reference topic", read_only=True)
+        p["reference"] = declare(self, "reference", "topic", "'topic', or a built-in reference such as "
+                                 "'smooth:tool_x=0.05,duration=2' (starts at activation)", read_only=True)
+        p["reference_timeout"] = declare(self, "reference_timeout", 0.5, "hold the outputs when the reference "
+                                         "topic is older than this (s)", read_only=True, minimum=0.0)
+        p["conditioning_topic"] = declare(self, "conditioning_topic", "~/conditioning", "per-step record topic",
+                                          read_only=True)
+        p["diagnostics_period"] = declare(self, "diagnostics_period", 1.0, "seconds between diagnostics",
+                                          read_only=True, minimum=0.01, maximum=60.0)
+        p["autostart"] = declare(self, "autostart", False, "configure and activate at start-up", read_only=True)
+        p["executor"] = declare(self, "executor", "single_threaded", f"one of {', '.join(EXECUTORS)}",
+                                read_only=True)
+        for name, text in (("sigma_warn", "flag steps with sigma_min(A) below this"),
+                           ("sigma_act", "damped least squares below this"),
+                           ("sigma_stop", "safe command below this"),
+                           ("damping", "damping lambda at sigma_min = 0"),
+                           ("stale_after", "refuse states older than this (s)"),
+                           ("hold_time", "how long 'hold' repeats the last command (s)"),
+                           ("integral_limit", "bound on each integrator")):
+            p[name] = declare(self, name, _UNSET, f"{text}; -1: the artifact's value", minimum=-1.0)
+        p["rate_limits"] = declare(self, "rate_limits", [], "per input, units per second (0: none); "
+                                   "empty: the artifact's", array_of=float)
+        p["safe_command"] = declare(self, "safe_command", "artifact", "artifact, zero, hold or fixed",
+                                    read_only=True)
+        p["safe_value"] = declare(self, "safe_value", [], "the fixed safe command, per input", read_only=True,
+                                  array_of=float)
+        self.params = p
+
+    def _watchdog_overrides(self, values: dict[str, Any]) -> dict[str, Any]:
+        overrides: dict[str, Any] = {}
+        for name in ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "hold_time"):
+            if values[name] != _UNSET:
+                overrides[name] = float(values[name])
+        if values["integral_limit"] != _UNSET:
+            overrides["integral_limit"] = float(values["integral_limit"])
+        limits = list(values["rate_limits"])
+        if limits:
+            overrides["rate_limits"] = tuple(math.inf if v <= 0 else float(v) for v in limits)
+        if values.get("safe_command", "artifact") != "artifact":
+            overrides["safe_kind"] = values["safe_command"]
+            if values["safe_command"] == "fixed":
+                overrides["safe_value"] = tuple(float(v) for v in values["safe_value"])
+        return overrides
+
+    def _on_set_parameters(self, parameters) -> SetParametersResult:
+        """Thresholds may change at any time, checked as a whole; topics and the artifact are read-only."""
+        changed = {p.name: p.value for p in parameters}
+        unknown_static = [n for n in changed if n not in DYNAMIC and n in self.params]
+        if unknown_static:
+            return SetParametersResult(successful=False,
+                                       reason=f"{unknown_static[0]} cannot change while the node runs")
+        if self.core is None:
+            self.params.update(changed)
+            return SetParametersResult(successful=True)
+        values = dict(self.params, **changed)
+        try:
+            config = WatchdogConfig.from_artifact(self.core.artifact, **self._watchdog_overrides(values))
+        except LinzError as err:
+            return SetParametersResult(successful=False, reason=str(err))
+        self.params.update(changed)
+        self.core.config = config
+        self.get_logger().info(f"watchdog settings changed: {', '.join(sorted(changed))}")
+        return SetParametersResult(successful=True)
+
+    # -- lifecycle -------------------------------------------------------------------------
+    def _autostart(self) -> None:
+        self.destroy_timer(self._autostart_timer)
+        if self.trigger_configure() == TransitionCallbackReturn.SUCCESS:
+            self.trigger_activate()
+
+    def on_configure(self, state: LifecycleState) -> TransitionCallbackReturn:
+        try:
+            self._configure()
+        except (LinzError, OSError) as err:
+            self.configure_error = str(err)
+            self.get_logger().error(f"configure refused: {err}")
+            self._release()
+            return TransitionCallbackReturn.FAILURE
+        self.configure_error = ""
+        a = self.core.artifact
+        self.get_logger().info(f"configured: {a.name} ({a.kind}, relative degree {a.relative_degree}, "
+                               f"{a.rate:g} Hz design rate), plant file {a.plant_check}")
+        return TransitionCallbackReturn.SUCCESS
+
+    def _configure(self) -> None:
+        p = self.params
+        if not p["artifact"]:
+            raise LinzError("parameter artifact is empty: pass -p artifact:=PATH (from linz build)")
+        artifact = load_artifact(p["artifact"], plant_path=p["plant_file"] or None,
+                                 allow_plant_change=p["allow_plant_change"])
+        config = WatchdogConfig.from_artifact(artifact, **self._watchdog_overrides(p))
+        core = ControllerCore(artifact, config)
+        message_class(p["state_type"], STATE_TYPES, "state_type")
+        message_class(p["command_type"], COMMAND_TYPES, "command_type")
+        self.state_map = FieldMap(p["state_type"], [f for f in p["state_fields"] if f], len(artifact.states),
+                                  "state_fields")
+        self.command_map = FieldMap(p["command_type"], [f for f in p["command_fields"] if f], len(artifact.inputs),
+                                    "command_fields")
+        self.reference = _ReferenceSource(core, p["reference"].strip(), p["reference_timeout"], artifact.outputs)
+        self.core = core
+        qos = control_qos()
+        self._command_pub = self.create_lifecycle_publisher(self.command_map.cls, p["command_topic"], qos)
+        self._conditioning_pub = self.create_lifecycle_publisher(Float64MultiArray, p["conditioning_topic"], qos)
+        self._conditioning_labels = list(CONDITIONING_FIELDS) + [f"u.{u}" for u in artifact.inputs]
+        self._owned_subscriptions = [self.create_subscription(self.state_map.cls, p["state_topic"], self._on_state, qos)]
+        if self.reference.spec == "topic":
+            self._owned_subscriptions.append(self.create_subscription(Float64MultiArray, p["reference_topic"],
+                                                                self._on_reference, qos))
+        self._owned_timers = [self.create_timer(max(core.config.stale_after / 2.0, 1e-3), self._check_stale)]
+
+    def on_activate(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self.core.reset()
+        self.reference.restart(self._now())
+        self.active = True
+        self.get_logger().info("active: commanding")
+        return super().on_activate(state)
+
+    def on_deactivate(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self._publish_safe("deactivated")
+        self.active = False
+        self.get_logger().info("inactive: safe command sent once, not commanding")
+        return super().on_deactivate(state)
+
+    def on_cleanup(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self._release()
+        return TransitionCallbackReturn.SUCCESS
+
+    def on_shutdown(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self.shutdown_safely()
+        return TransitionCallbackReturn.SUCCESS
+
+    def shutdown_safely(self) -> None:
+        """Send the safe command once if active, then release everything (also on Ctrl-C)."""
+        if self.active:
+            self._publish_safe("shutdown")
+            self.active = False
+        self._release()
+
+    def _release(self) -> None:
+        for subscription in self._owned_subscriptions:
+            self.destroy_subscription(subscription)
+        for timer in self._owned_timers:
+            self.destroy_timer(timer)
+        for publisher in (self._command_pub, self._conditioning_pub):
+            if publisher is not None:
+                self.destroy_lifecycle_publisher(publisher)
+        self._owned_subscriptions, self._owned_timers = [], []
+        self._command_pub = self._conditioning_pub = None
+        self.core = None
+
+    # -- the loop -------------------------------------------------------------------------
+    def _now(self) -> float:
+        return self.get_clock().now().nanoseconds * 1e-9
+
+    def _on_reference(self, message: Float64MultiArray) -> None:
+        if not self.reference.accept(message.data, self._now()):
+            self.get_logger().warning(f"reference message refused: expected {self.core.reference_size} finite "
+                                      "numbers", throttle_duration_sec=2.0)
+
+    def _on_state(self, message: Any) -> None:
+        if not self.active or self.core is None:
+            return
+        try:
+            self._step(message)
+        except Exception as err:  # noqa: BLE001 - a message must never stop the controller
+            self.get_logger().error(f"unexpected failure on a state message ({type(err).__name__}: {err}); "
+                                    "safe command", throttle_duration_sec=2.0)
+            u, record = self.core.safe_step(self._now(), "bad_message")
+            self._publish(u, record, self._now())
+
+    def _step(self, message: Any) -> None:
+        now = self._now()
+        stamp = stamp_seconds(message)
+        stamp = now if stamp is None else stamp
+        if now == 0.0:
+            # simulated time before the first /clock message: the stamp is the only time there is
+            now = stamp
+        try:
+            x = self.state_map.read(message)
+        except MessageError as err:
+            self.window.rejected += 1
+            self.get_logger().warning(f"state message rejected ({err.reason}): {err.detail}",
+                                      throttle_duration_sec=2.0)
+            u, record = self.core.safe_step(now, "bad_message")
+            self._publish(u, record, stamp)
+            return
+        ref = self.reference.sample(x, now)
+        if self.reference.stale:
+            self.window.reference_stale += 1
+        u, record = self.core.step(x, ref, stamp, now)
+        if record.reason not in ("ok", "near_singular", "singular"):
+            self.window.rejected += record.reason != "stale"
+            self.window.stale += record.reason == "stale"
+            self.get_logger().warning(f"state refused ({record.reason}): stamp {stamp:.6f} s, now {now:.6f} s; "
+                                      "safe command", throttle_duration_sec=2.0)
+        self._publish(u, record, stamp)
+
+    def _check_stale(self) -> None:
+        if not self.active or self.core is None:
+            return
+        now = self._now()
+        if now == 0.0:          # simulated time has not started
+            return
+        if self.core.is_stale(now) and self.core.last_t is not None:
+            self.window.stale += 1
+            u, record = self.core.safe_step(now, "stale")
+            self._publish(u, record, now)
+            self.get_logger().warning("no fresh state: safe command", throttle_duration_sec=2.0)
+
+    def _publish(self, u: list[float], record, stamp: float) -> None:
+        self.window.add(record)
+        command = self.command_map.write(u)
+        set_stamp(command, stamp)
+        self._command_pub.publish(command)
+        mask = sum(1 << i for i, s in enumerate(record.saturated) if s)
+        row = [record.t, record.sigma_min, record.condition, MODES.index(record.mode), REASONS.index(record.reason),
+               record.damping, record.compute_time * 1e6, mask, float(record.warn)] + list(u)
+        self._conditioning_pub.publish(labelled_array(row, self._conditioning_labels))
+
+    def _publish_safe(self, why: str) -> None:
+        if self.core is None or self._command_pub is None:
+            return
+        u, record = self.core.safe_step(self._now(), "no_state")
+        command = self.command_map.write(u)
+        set_stamp(command, self._now())
+        self._command_pub.publish(command)
+        self.get_logger().info(f"safe command {u} sent ({why})")
+
+    def _publish_diagnostics(self) -> None:
+        now = self._now()
+        status = DiagnosticStatus(name=f"linz_ros: {self.get_name()}")
+        if self.core is None:
+            status.level = DiagnosticStatus.ERROR if self.configure_error else DiagnosticStatus.OK
+            status.message = f"not configured: {self.configure_error}" if self.configure_error else "unconfigured"
+        else:
+            status.hardware_id = self.core.artifact.name
+            if self.active:
+                status.level, status.message = self.window.level()
+            else:
+                status.level, status.message = DiagnosticStatus.OK, "inactive: not commanding"
+            status.values = self.window.values(now)
+        array = DiagnosticArray(status=[status])
+        array.header.stamp = self.get_clock().now().to_msg()
+        self._diagnostics_pub.publish(array)
+        self.window = DiagnosticWindow(now)
+
+
+def main(args: Sequence[str] | None = None) -> int:
+    """Console entry point ``linz_controller`` (accepts ``--ros-args ...``).
+
+    Parameters
+    ----------
+    args : sequence of str, optional
+
+    Returns
+    -------
+    int
+    """
+    return spin_node(ControllerNode, args)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    raise SystemExit(main())

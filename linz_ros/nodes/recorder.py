@@ -1,0 +1,231 @@
+"""An in-process recorder of a bringup: states, commands, references, conditioning, diagnostics.
+
+Used by ``linz demo`` and by the integration tests to watch the nodes over real DDS. It
+keeps every message with its receive time; :meth:`BringupRecorder.run` turns the
+recording into a :class:`linz_ros.runtime.SimResult` so the same summary, CSV and plots
+as ``linz sim`` apply.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import math
+import time
+from dataclasses import dataclass, field
+from typing import Any, Callable, Iterator
+
+import numpy as np
+import rclpy
+from diagnostic_msgs.msg import DiagnosticArray
+from rclpy.node import Node
+from std_msgs.msg import Float64MultiArray
+
+from linz_ros.artifact import Artifact
+from linz_ros.nodes._common import control_qos
+from linz_ros.nodes.adapters import FieldMap, MessageError, stamp_seconds
+from linz_ros.nodes.controller import CONDITIONING_FIELDS
+from linz_ros.runtime import MODES, REASONS, ControllerCore, Reference, SimResult
+
+__all__ = ["BringupRecorder", "Recording", "TopicMap", "recording"]
+
+
+@dataclass
+class TopicMap:
+    """Topics and message layouts of one bringup (as in its parameter file)."""
+
+    state_topic: str
+    state_type: str
+    state_fields: list[str]
+    command_topic: str
+    command_type: str
+    command_fields: list[str]
+    reference_topic: str
+    conditioning_topic: str = "/linz_controller/conditioning"
+
+
+@dataclass
+class Recording:
+    """Everything received, each entry ``(receive_time, payload)``."""
+
+    states: list[tuple[float, float | None, list[float]]] = field(default_factory=list)
+    commands: list[tuple[float, float | None, list[float]]] = field(default_factory=list)
+    references: list[tuple[float, list[float]]] = field(default_factory=list)
+    conditioning: list[tuple[float, list[float]]] = field(default_factory=list)
+    diagnostics: list[tuple[float, int, str, dict[str, str]]] = field(default_factory=list)
+
+
+class BringupRecorder(Node):
+    """Subscribes to a bringup's topics and records them.
+
+    Parameters
+    ----------
+    artifact : Artifact
+        For the vector sizes and names.
+    topics : TopicMap
+    node_name : str
+    """
+
+    def __init__(self, artifact: Artifact, topics: TopicMap, node_name: str = "linz_recorder") -> None:
+        super().__init__(node_name)
+        self.artifact = artifact
+        self.topics = topics
+        self.state_map = FieldMap(topics.state_type, topics.state_fields, len(artifact.states), "state_fields")
+        self.command_map = FieldMap(topics.command_type, topics.command_fields, len(artifact.inputs),
+                                    "command_fields")
+        self.recording = Recording()
+        self.callbacks: list[Callable[[str, Any], None]] = []
+        qos = control_qos(100)
+        self.create_subscription(self.state_map.cls, topics.state_topic, self._on_state, qos)
+        self.create_subscription(self.command_map.cls, topics.command_topic, self._on_command, qos)
+        self.create_subscription(Float64MultiArray, topics.reference_topic, self._on_reference, qos)
+        self.create_subscription(Float64MultiArray, topics.conditioning_topic, self._on_conditioning, qos)
+        self.create_subscription(DiagnosticArray, "/diagnostics", self._on_diagnostics, 50)
+
+    @staticmethod
+    def _now() -> float:
+        return time.monotonic()
+
+    def _on_state(self, message: Any) -> None:
+        try:
+            x = self.state_map.read(message)
+        except MessageError:
+            x = [math.nan] * self.state_map.size
+        self.recording.states.append((self._now(), stamp_seconds(message), x))
+        self._notify("state", message)
+
+    def _on_command(self, message: Any) -> None:
+        try:
+            u = self.command_map.read(message)
+        except MessageError:
+            u = [math.nan] * self.command_map.size
+        self.recording.commands.append((self._now(), stamp_seconds(message), u))
+        self._notify("command", message)
+
+    def _on_reference(self, message: Float64MultiArray) -> None:
+        self.recording.references.append((self._now(), list(message.data)))
+
+    def _on_conditioning(self, message: Float64MultiArray) -> None:
+        self.recording.conditioning.append((self._now(), list(message.data)))
+        self._notify("conditioning", message)
+
+    def _on_diagnostics(self, message: DiagnosticArray) -> None:
+        for status in message.status:
+            if status.name.startswith("linz_ros:"):
+                level = status.level[0] if isinstance(status.level, bytes) else int(status.level)
+                values = {kv.key: kv.value for kv in status.values}
+                self.recording.diagnostics.append((self._now(), level, status.message, values))
+                self._notify("diagnostics", status)
+
+    def _notify(self, kind: str, message: Any) -> None:
+        for callback in self.callbacks:
+            callback(kind, message)
+
+    def spin_for(self, seconds: float, until: Callable[[], bool] | None = None) -> bool:
+        """Spin this node for up to ``seconds``; stop early when ``until()`` becomes true.
+
+        Parameters
+        ----------
+        seconds : float
+        until : callable, optional
+
+        Returns
+        -------
+        bool
+            Whether ``until`` became true (True when no condition was given).
+        """
+        end = time.monotonic() + seconds
+        while time.monotonic() < end:
+            rclpy.spin_once(self, timeout_sec=0.02)
+            if until is not None and until():
+                return True
+        return until is None
+
+    def to_result(self, reference: Reference | None = None) -> SimResult:
+        """The recording as a SimResult: one row per conditioning record (one per control step).
+
+        Each step's state is the recorded state message with that stamp (or the latest one
+        received before it), and its reference the latest reference message.
+
+        Parameters
+        ----------
+        reference : Reference, optional
+            Kept on the result for its description.
+
+        Returns
+        -------
+        SimResult
+        """
+        a = self.artifact
+        core = ControllerCore(a)
+        n, m = len(a.states), len(a.inputs)
+        size = core.reference_size
+        labels = list(CONDITIONING_FIELDS)
+        states = self.recording.states
+        stamps = {s[1]: s[2] for s in states if s[1] is not None}
+        refs = self.recording.references
+        rows = {k: [] for k in ("t", "x", "ref", "y", "u", "s", "c", "mode", "reason", "sat", "ct")}
+        si = ri = 0
+        latest_x = [math.nan] * n
+        latest_ref = [math.nan] * size
+        for received, data in self.recording.conditioning:
+            while si < len(states) and states[si][0] <= received:
+                latest_x = states[si][2]
+                si += 1
+            while ri < len(refs) and refs[ri][0] <= received:
+                latest_ref = refs[ri][1] if len(refs[ri][1]) == size else latest_ref
+                ri += 1
+            t = data[0]
+            x = stamps.get(t, latest_x)
+            rows["t"].append(t)
+            rows["x"].append(list(x))
+            rows["ref"].append(list(latest_ref))
+            try:
+                chain = core.outputs(x)
+            except (ArithmeticError, ValueError):
+                chain = [math.nan] * sum(core.orders)
+            y, k = [], 0
+            for r in core.orders:
+                y.append(chain[k])
+                k += r
+            rows["y"].append(y)
+            rows["u"].append(data[len(labels):len(labels) + m])
+            rows["s"].append(data[1])
+            rows["c"].append(data[2])
+            rows["mode"].append(MODES[int(data[3])])
+            rows["reason"].append(REASONS[int(data[4])])
+            mask = int(data[7])
+            rows["sat"].append([bool(mask >> j & 1) for j in range(m)])
+            rows["ct"].append(data[6] * 1e-6)
+        t = np.array(rows["t"])
+        if len(t):
+            t = t - t[0]
+        x = np.array(rows["x"]).reshape(-1, n)
+        return SimResult(
+            artifact=a, reference=reference, t=t, x=x, x_measured=x, ref=np.array(rows["ref"]).reshape(-1, size),
+            y=np.array(rows["y"]).reshape(-1, len(core.orders)), u=np.array(rows["u"]).reshape(-1, m),
+            sigma_min=np.array(rows["s"]), condition=np.array(rows["c"]), mode=rows["mode"],
+            reason=rows["reason"], saturated=np.array(rows["sat"], dtype=bool).reshape(-1, m),
+            compute_time=np.array(rows["ct"]), notes=["recorded over DDS from the running nodes"])
+
+
+@contextlib.contextmanager
+def recording(artifact: Artifact, topics: TopicMap) -> Iterator[BringupRecorder]:
+    """rclpy initialised for this process, a recorder node, and a clean shutdown after.
+
+    Parameters
+    ----------
+    artifact : Artifact
+    topics : TopicMap
+
+    Yields
+    ------
+    BringupRecorder
+    """
+    rclpy.init(args=[])
+    recorder = BringupRecorder(artifact, topics)
+    try:
+        yield recorder
+    finally:
+        recorder.destroy_node()
+        if rclpy.ok():
+            rclpy.shutdown()

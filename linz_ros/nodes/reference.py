@@ -1,0 +1,101 @@
+"""The reference node: publishes y_ref and its derivatives for the controller's chains.
+
+Publishes a labelled ``std_msgs/msg/Float64MultiArray`` ``[y1, y1', ..., y1^(r1), y2, ...]``
+at ``rate`` Hz from a reference spec in the grammar of ``linz sim --reference``; the
+move's times count from the node's start. The base value of each output is its value
+at the artifact's operating point unless ``base`` is given.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Sequence
+
+from rclpy.node import Node
+
+from linz_ros.artifact import load_artifact
+from linz_ros.errors import ConfigError
+from linz_ros.nodes._common import control_qos, declare, spin_node
+from linz_ros.nodes.adapters import labelled_array
+from linz_ros.runtime import ControllerCore, parse_reference
+
+__all__ = ["ReferenceNode", "main", "reference_labels"]
+
+
+def reference_labels(outputs: Sequence[str], orders: Sequence[int]) -> list[str]:
+    """Labels of the reference vector: ``tool_x, tool_x', tool_x'', tool_y, ...``.
+
+    Parameters
+    ----------
+    outputs : sequence of str
+    orders : sequence of int
+
+    Returns
+    -------
+    list of str
+    """
+    return [name + "'" * k for name, r in zip(outputs, orders) for k in range(r + 1)]
+
+
+class ReferenceNode(Node):
+    """Publishes a reference generated from a spec.
+
+    Parameters
+    ----------
+    node_name : str
+    **kwargs
+        Passed to :class:`rclpy.node.Node`.
+    """
+
+    def __init__(self, node_name: str = "linz_reference", **kwargs: Any) -> None:
+        super().__init__(node_name, **kwargs)
+        artifact_path = declare(self, "artifact", "", "controller artifact (names and relative degrees)", True)
+        spec = declare(self, "reference", "hold", "reference spec, e.g. 'smooth:tool_x=0.05,duration=2,at=1'",
+                       True)
+        rate = declare(self, "rate", 100.0, "publishing rate (Hz)", True, 0.1, 10000.0)
+        topic = declare(self, "topic", "reference", "reference topic", True)
+        base = declare(self, "base", [], "output values before the move (empty: at the operating point)",
+                       True, array_of=float)
+        if not artifact_path:
+            raise ConfigError("artifact", "parameter is empty: pass -p artifact:=PATH (from linz build)")
+        artifact = load_artifact(artifact_path, check_plant=False)
+        core = ControllerCore(artifact)
+        orders = artifact.relative_degree
+        if not base:
+            operating = artifact.document["plant"]["operating_point"]
+            chain = core.outputs([operating[s] for s in artifact.states])
+            base, k = [], 0
+            for r in orders:
+                base.append(chain[k])
+                k += r
+        if len(base) != len(orders):
+            raise ConfigError("base", f"expected {len(orders)} values, one per output ({', '.join(artifact.outputs)})")
+        self.reference = parse_reference(spec, orders, list(base), artifact.outputs)
+        self.labels = reference_labels(artifact.outputs, orders)
+        self.publisher = self.create_publisher(type(labelled_array([], [])), topic, control_qos())
+        self.start = self._now()
+        self.create_timer(1.0 / rate, self._tick)
+        self.get_logger().info(f"reference {spec!r} for {', '.join(artifact.outputs)} at {rate:g} Hz")
+
+    def _now(self) -> float:
+        return self.get_clock().now().nanoseconds * 1e-9
+
+    def _tick(self) -> None:
+        self.publisher.publish(labelled_array(self.reference.sample(self._now() - self.start), self.labels))
+
+
+def main(args: Sequence[str] | None = None) -> int:
+    """Console entry point ``linz_reference`` (accepts ``--ros-args ...``).
+
+    Parameters
+    ----------
+    args : sequence of str, optional
+
+    Returns
+    -------
+    int
+    """
+    return spin_node(ReferenceNode, args)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    raise SystemExit(main())

@@ -1,0 +1,213 @@
+"""The plant simulator node: integrates the artifact's model and publishes its state.
+
+Each tick (``rate`` Hz) advances the plant by one period with fixed-step RK4 sub-steps
+under the last command received (zero-order hold, optionally delayed), then publishes
+the state. With ``publish_clock`` it owns simulated time: it advances exactly one
+period per tick, publishes ``/clock`` and stamps states with it (run the controller with
+``use_sim_time``); ``real_time_factor`` sets how fast ticks come. Faults for testing the
+controller are injected by parameters: sensor noise, dropped messages, a frozen sensor,
+a burst of NaN, parameter mismatch and input delay.
+"""
+
+from __future__ import annotations
+
+import math
+from collections import deque
+from typing import Any, Sequence
+
+import numpy as np
+from rosgraph_msgs.msg import Clock
+
+from linz_ros.artifact import load_artifact
+from linz_ros.errors import ConfigError, LinzError
+from linz_ros.nodes._common import control_qos, declare, spin_node
+from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, message_class,
+                                     set_stamp, split_seconds)
+from linz_ros.runtime import NumericPlant, mismatched_parameters, parse_assignments
+from rclpy.node import Node
+
+__all__ = ["PlantSimulatorNode", "main"]
+
+
+class PlantSimulatorNode(Node):
+    """Simulated plant for bringing up the controller.
+
+    Parameters
+    ----------
+    node_name : str
+    **kwargs
+        Passed to :class:`rclpy.node.Node`.
+
+    Raises
+    ------
+    LinzError
+        For a bad artifact or parameter (one line; ``main`` exits with code 2).
+    """
+
+    def __init__(self, node_name: str = "linz_plant_sim", **kwargs: Any) -> None:
+        super().__init__(node_name, **kwargs)
+        p = self._declare_parameters()
+        if not p["artifact"]:
+            raise ConfigError("artifact", "parameter is empty: pass -p artifact:=PATH (from linz build)")
+        artifact = load_artifact(p["artifact"], check_plant=False)
+        self.artifact = artifact
+        n, m = len(artifact.states), len(artifact.inputs)
+        params = mismatched_parameters(artifact, parse_assignments([s for s in p["mismatch"] if s], "mismatch"))
+        self.plant = NumericPlant(artifact, params)
+        operating = artifact.document["plant"]["operating_point"]
+        initial = [v for v in p["initial_state"]]
+        if initial and len(initial) != n:
+            raise ConfigError("initial_state", f"expected {n} values ({', '.join(artifact.states)}) or none")
+        self.x = [float(v) for v in initial] if initial else [float(operating[s]) for s in artifact.states]
+        noise = list(p["noise"])
+        if len(noise) not in (0, 1, n) or any(not (v >= 0) for v in noise):
+            raise ConfigError("noise", f"expected no value, one, or {n} standard deviations >= 0")
+        self.noise = np.array(noise * n if len(noise) == 1 else noise) if noise else None
+        message_class(p["state_type"], STATE_TYPES, "state_type")
+        message_class(p["command_type"], COMMAND_TYPES, "command_type")
+        self.state_map = FieldMap(p["state_type"], [f for f in p["state_fields"] if f], n, "state_fields")
+        self.command_map = FieldMap(p["command_type"], [f for f in p["command_fields"] if f], m, "command_fields")
+        self.p = p
+        self.period = 1.0 / p["rate"]
+        self.u = [0.0] * m
+        self.pending: deque[tuple[float, list[float]]] = deque()
+        self.rng = np.random.default_rng(p["seed"])
+        self.sim_time = 0.0
+        self.ticks = 0
+        self.started = None
+        self.frozen: Any = None
+        self.last_tick = None
+        self.commands = 0
+        self.rejected = 0
+        qos = control_qos()
+        self.state_pub = self.create_publisher(self.state_map.cls, p["state_topic"], qos)
+        self.create_subscription(self.command_map.cls, p["command_topic"], self._on_command, qos)
+        self.clock_pub = self.create_publisher(Clock, "/clock", 10) if p["publish_clock"] else None
+        self.timer = self.create_timer(self.period / p["real_time_factor"], self._tick)
+        self.get_logger().info(f"simulating {artifact.name} at {p['rate']:g} Hz "
+                               f"({p['substeps']} RK4 steps a period)"
+                               + (f", mismatch {', '.join(s for s in p['mismatch'] if s)}" if any(p["mismatch"]) else ""))
+
+    def _declare_parameters(self) -> dict[str, Any]:
+        p = {}
+        p["artifact"] = declare(self, "artifact", "", "controller artifact carrying the plant's f and G", True)
+        p["rate"] = declare(self, "rate", 500.0, "integration and publishing rate (Hz)", True, 1.0, 100000.0)
+        p["substeps"] = declare(self, "substeps", 4, "RK4 steps per period", True)
+        p["state_topic"] = declare(self, "state_topic", "state", "state topic", True)
+        p["state_type"] = declare(self, "state_type", "std_msgs/msg/Float64MultiArray", "state message type", True)
+        p["state_fields"] = declare(self, "state_fields", [], "field path of each state", True, array_of=str)
+        p["command_topic"] = declare(self, "command_topic", "command", "command topic", True)
+        p["command_type"] = declare(self, "command_type", "std_msgs/msg/Float64MultiArray", "command type", True)
+        p["command_fields"] = declare(self, "command_fields", [], "field path of each input", True, array_of=str)
+        p["initial_state"] = declare(self, "initial_state", [], "initial state (empty: the operating point)",
+                                     True, array_of=float)
+        p["mismatch"] = declare(self, "mismatch", [], "parameter=percent changes of the plant", True,
+                                array_of=str)
+        p["noise"] = declare(self, "noise", [], "sensor noise standard deviation (one, or one per state)",
+                             True, array_of=float)
+        p["delay"] = declare(self, "delay", 0.0, "input delay (s)", True, 0.0, 10.0)
+        p["drop_probability"] = declare(self, "drop_probability", 0.0, "chance of not publishing a state",
+                                        True, 0.0, 1.0)
+        p["freeze_at"] = declare(self, "freeze_at", -1.0, "from this time (s) repeat the last state message "
+                                 "unchanged, stamp included (-1: never)", True, -1.0)
+        p["nan_burst_at"] = declare(self, "nan_burst_at", -1.0, "start of a burst of NaN states (s; -1: none)",
+                                    True, -1.0)
+        p["nan_burst_duration"] = declare(self, "nan_burst_duration", 0.1, "length of the NaN burst (s)", True, 0.0)
+        p["publish_clock"] = declare(self, "publish_clock", False, "own simulated time and publish /clock", True)
+        p["real_time_factor"] = declare(self, "real_time_factor", 1.0, "simulated seconds per wall second "
+                                        "(with publish_clock)", True, 0.01, 100.0)
+        p["seed"] = declare(self, "seed", 1, "random seed of the faults", True)
+        p["brake_until_command"] = declare(self, "brake_until_command", True, "hold the plant still until the "
+                                           "first command arrives (a brake released by the controller)", True)
+        if p["substeps"] < 1:
+            raise ConfigError("substeps", f"expected a whole number >= 1, got {p['substeps']}")
+        if p["seed"] < 0:
+            raise ConfigError("seed", f"expected a whole number >= 0, got {p['seed']}")
+        if not p["publish_clock"]:
+            p["real_time_factor"] = 1.0
+        return p
+
+    def _now(self) -> float:
+        if self.clock_pub is not None:
+            return self.sim_time
+        return self.get_clock().now().nanoseconds * 1e-9
+
+    def _on_command(self, message: Any) -> None:
+        try:
+            u = self.command_map.read(message)
+        except MessageError as err:
+            self.rejected += 1
+            self.get_logger().warning(f"command rejected ({err.reason}): {err.detail}", throttle_duration_sec=2.0)
+            return
+        if not all(math.isfinite(v) for v in u):
+            self.rejected += 1
+            self.get_logger().warning("command rejected: not finite", throttle_duration_sec=2.0)
+            return
+        self.commands += 1
+        self.pending.append((self._now() + self.p["delay"], u))
+
+    def _apply_due_commands(self, now: float) -> None:
+        while self.pending and self.pending[0][0] <= now:
+            self.u = self.pending.popleft()[1]
+
+    def _tick(self) -> None:
+        now = self._now()
+        if self.started is None:
+            self.started = now
+        if self.clock_pub is not None:
+            dt = self.period
+        else:
+            dt = self.period if self.last_tick is None else min(max(now - self.last_tick, 0.0), 5 * self.period)
+        self.last_tick = now
+        self._apply_due_commands(now)
+        braked = self.p["brake_until_command"] and self.commands == 0
+        if not braked:
+            try:
+                self.x = self.plant.rk4(self.x, self.u, dt / self.p["substeps"], self.p["substeps"])
+            except (ArithmeticError, ValueError):
+                self.x = [math.nan] * len(self.x)
+        if self.clock_pub is not None:
+            self.ticks += 1
+            self.sim_time = self.ticks * self.period        # no drift from summing periods
+            now = self.sim_time
+            clock = Clock()
+            clock.clock.sec, clock.clock.nanosec = split_seconds(now)
+            self.clock_pub.publish(clock)
+        self._publish_state(now)
+
+    def _publish_state(self, now: float) -> None:
+        p = self.p
+        elapsed = now - self.started
+        if p["freeze_at"] >= 0 and elapsed >= p["freeze_at"] and self.frozen is not None:
+            self.state_pub.publish(self.frozen)         # a stuck sensor: same values, same stamp
+            return
+        if p["drop_probability"] > 0 and self.rng.random() < p["drop_probability"]:
+            return
+        measured = list(self.x)
+        if self.noise is not None:
+            measured = (np.asarray(measured) + self.rng.normal(0.0, self.noise)).tolist()
+        burst = p["nan_burst_at"]
+        if burst >= 0 and burst <= elapsed < burst + p["nan_burst_duration"]:
+            measured = [math.nan] * len(measured)
+        message = self.state_map.write(measured)
+        set_stamp(message, now)
+        self.state_pub.publish(message)
+        self.frozen = message
+
+
+def main(args: Sequence[str] | None = None) -> int:
+    """Console entry point ``linz_plant_sim`` (accepts ``--ros-args ...``).
+
+    Parameters
+    ----------
+    args : sequence of str, optional
+
+    Returns
+    -------
+    int
+    """
+    return spin_node(PlantSimulatorNode, args)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    raise SystemExit(main())

@@ -1,0 +1,103 @@
+"""Helpers of the DDS tests: topic maps of the bundled bringups, a probe node, waiting."""
+
+from __future__ import annotations
+
+import math
+import time
+from pathlib import Path
+from typing import Any, Callable
+
+import rclpy
+from lifecycle_msgs.srv import ChangeState, GetState
+from rcl_interfaces.msg import Parameter as ParameterMsg
+from rcl_interfaces.srv import SetParameters
+from rclpy.parameter import Parameter
+from sensor_msgs.msg import JointState
+
+from linz_ros.nodes._common import control_qos
+from linz_ros.nodes.adapters import split_seconds
+from linz_ros.nodes.recorder import BringupRecorder, TopicMap
+from linz_ros.runtime import MODES, REASONS
+
+ROOT = Path(__file__).resolve().parents[2]
+CONFIG = ROOT / "config"
+ARM_TOPICS = TopicMap(state_topic="/pick_arm/joint_states", state_type="sensor_msgs/msg/JointState",
+                      state_fields=["position.shoulder", "position.elbow", "velocity.shoulder", "velocity.elbow"],
+                      command_topic="/pick_arm/joint_efforts", command_type="sensor_msgs/msg/JointState",
+                      command_fields=["effort.shoulder", "effort.elbow"], reference_topic="/pick_arm/reference")
+JOINTS = ["shoulder", "elbow"]
+
+
+def wait_until(predicate: Callable[[], bool], timeout: float, node: Any = None, step: float = 0.02) -> bool:
+    """Spin ``node`` (when given) until ``predicate()`` holds or ``timeout`` seconds pass."""
+    end = time.monotonic() + timeout
+    while (left := end - time.monotonic()) > 0:
+        if node is not None:
+            rclpy.spin_once(node, timeout_sec=min(step, left))
+        else:
+            time.sleep(min(step, left))
+        if predicate():
+            return True
+    return False
+
+
+class Probe(BringupRecorder):
+    """A recorder that can also publish states and call the controller's services."""
+
+    def __init__(self, artifact, topics: TopicMap = ARM_TOPICS, controller: str = "linz_controller") -> None:
+        super().__init__(artifact, topics, node_name="linz_probe")
+        self.state_pub = self.create_publisher(self.state_map.cls, topics.state_topic, control_qos())
+        self.controller = controller
+        self.change_client = self.create_client(ChangeState, f"/{controller}/change_state")
+        self.get_client = self.create_client(GetState, f"/{controller}/get_state")
+        self.parameter_client = self.create_client(SetParameters, f"/{controller}/set_parameters")
+
+    def joint_state(self, positions, velocities, stamp: float | None = None, names=JOINTS) -> JointState:
+        message = JointState(name=list(names), position=[float(v) for v in positions],
+                             velocity=[float(v) for v in velocities])
+        if stamp is not None:
+            message.header.stamp.sec, message.header.stamp.nanosec = split_seconds(stamp)
+        return message
+
+    def now(self) -> float:
+        return self.get_clock().now().nanoseconds * 1e-9
+
+    def publish_state(self, x, stamp: float | None = None) -> None:
+        self.state_pub.publish(self.joint_state(x[:2], x[2:], self.now() if stamp is None else stamp))
+
+    def call(self, client, request, timeout: float = 10.0):
+        if not client.wait_for_service(timeout_sec=timeout):
+            raise AssertionError(f"service {client.srv_name} not available")
+        future = client.call_async(request)
+        rclpy.spin_until_future_complete(self, future, timeout_sec=timeout)
+        if not future.done():
+            raise AssertionError(f"service {client.srv_name} did not answer")
+        return future.result()
+
+    def lifecycle_state(self) -> str:
+        return self.call(self.get_client, GetState.Request()).current_state.label
+
+    def transition(self, transition_id: int) -> bool:
+        request = ChangeState.Request()
+        request.transition.id = transition_id
+        return self.call(self.change_client, request).success
+
+    def set_parameter(self, name: str, value) -> tuple[bool, str]:
+        request = SetParameters.Request(parameters=[Parameter(name, value=value).to_parameter_msg()])
+        result = self.call(self.parameter_client, request).results[0]
+        return result.successful, result.reason
+
+    # -- views of the recording ------------------------------------------------------------
+    def steps(self) -> list[dict]:
+        """Conditioning records as dicts (mode and reason as words)."""
+        rows = []
+        for received, data in self.recording.conditioning:
+            rows.append({"received": received, "t": data[0], "sigma_min": data[1], "condition": data[2],
+                         "mode": MODES[int(data[3])], "reason": REASONS[int(data[4])], "u": data[9:]})
+        return rows
+
+    def commands_finite(self) -> bool:
+        return all(all(math.isfinite(v) for v in u) for _, _, u in self.recording.commands)
+
+    def diagnostic_levels(self) -> list[int]:
+        return [level for _, level, _, _ in self.recording.diagnostics]

@@ -1,0 +1,99 @@
+"""Over real DDS: the managed controller's transitions, a refused configure, parameter changes."""
+
+import math
+
+from lifecycle_msgs.msg import Transition
+
+from dds_harness import ARM_TOPICS, CONFIG, Probe, wait_until
+
+PARAMS = CONFIG / "pick_arm.yaml"
+# states published by this test process are not real-time: allow them 0.25 s before they count as stale
+PROBE_FED = {"stale_after": 0.25}
+HOLD = [0.4, 1.2, 0.0, 0.0]
+
+
+def _feed(probe, seconds, x=HOLD):
+    """Publish states at about 200 Hz for a while, spinning the probe."""
+    count = int(seconds * 200)
+    for _ in range(count):
+        probe.publish_state(x)
+        wait_until(lambda: False, 0.005, node=probe)
+
+
+def test_lifecycle_transitions_gate_the_commands(bringup, arm_artifact):
+    path, artifact = arm_artifact
+    bringup.start("linz_controller", PARAMS, {"artifact": str(path), "autostart": False, "reference": "hold", **PROBE_FED})
+    probe = Probe(artifact, ARM_TOPICS)
+    try:
+        assert probe.lifecycle_state() == "unconfigured"
+        _feed(probe, 0.3)
+        assert probe.recording.commands == []                      # not configured: silent
+        assert probe.transition(Transition.TRANSITION_CONFIGURE)
+        assert probe.lifecycle_state() == "inactive"
+        _feed(probe, 0.3)
+        assert probe.recording.commands == []                      # inactive: still silent
+        assert probe.transition(Transition.TRANSITION_ACTIVATE)
+        assert probe.lifecycle_state() == "active"
+        _feed(probe, 0.5)
+        active = list(probe.recording.commands)
+        assert len(active) > 20 and all(u != [0.0, 0.0] for _, _, u in active)   # holding against gravity
+        assert probe.transition(Transition.TRANSITION_DEACTIVATE)
+        wait_until(lambda: False, 0.3, node=probe)
+        after = probe.recording.commands[len(active):]
+        assert [u for _, _, u in after] == [[0.0, 0.0]]             # the safe command, once
+        _feed(probe, 0.3)
+        assert len(probe.recording.commands) == len(active) + 1    # and nothing more while inactive
+        assert probe.transition(Transition.TRANSITION_CLEANUP)
+        assert probe.lifecycle_state() == "unconfigured"
+        assert probe.transition(Transition.TRANSITION_CONFIGURE) and probe.transition(Transition.TRANSITION_ACTIVATE)
+        _feed(probe, 0.3)
+        assert len(probe.recording.commands) > len(active) + 10    # configured again from scratch
+    finally:
+        probe.destroy_node()
+    assert "SAFETY:" in bringup.nodes["linz_controller"].log_text()
+
+
+def test_a_bad_artifact_is_refused_at_configure_with_a_reason(bringup, arm_artifact, tmp_path):
+    path, artifact = arm_artifact
+    tampered = tmp_path / "tampered.artifact.json"
+    tampered.write_text(path.read_text().replace('"rate": 500.0', '"rate": 5000.0'))
+    bringup.start("linz_controller", PARAMS, {"artifact": str(tampered), "autostart": False,
+                                              "diagnostics_period": 0.2})
+    probe = Probe(artifact, ARM_TOPICS)
+    try:
+        assert not probe.transition(Transition.TRANSITION_CONFIGURE)
+        assert probe.lifecycle_state() == "unconfigured"
+        assert wait_until(lambda: any(m.startswith("not configured:") for _, _, m, _ in probe.recording.diagnostics),
+                          timeout=5, node=probe)
+        level, message = next((lv, m) for _, lv, m, _ in probe.recording.diagnostics if m.startswith("not configured"))
+        assert level == 2 and "content does not match its sha256" in message
+    finally:
+        probe.destroy_node()
+    assert bringup.nodes["linz_controller"].alive()
+    assert "configure refused:" in bringup.nodes["linz_controller"].log_text()
+
+
+def test_thresholds_change_while_active_and_topics_do_not(bringup, arm_artifact):
+    path, artifact = arm_artifact
+    bringup.start("linz_controller", PARAMS, {"artifact": str(path), "reference": "hold", **PROBE_FED})
+    assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
+    probe = Probe(artifact, ARM_TOPICS)
+    try:
+        ok, reason = probe.set_parameter("sigma_warn", 0.5)
+        assert ok, reason
+        ok, reason = probe.set_parameter("sigma_act", 0.9)
+        assert not ok and "sigma_warn >= sigma_act" in reason
+        ok, reason = probe.set_parameter("state_topic", "/elsewhere")
+        assert not ok and reason
+        ok, reason = probe.set_parameter("sigma_stop", 0.7)             # above the arm's sigma at HOLD
+        assert not ok
+        ok, reason = probe.set_parameter("sigma_warn", 0.9)
+        assert ok
+        ok, reason = probe.set_parameter("sigma_act", 0.8)
+        assert ok, reason
+        _feed(probe, 0.3)
+        steps = probe.steps()
+        assert steps and all(s["mode"] == "damped" for s in steps[-10:])  # sigma_min ~0.69 < sigma_act now
+        assert all(math.isfinite(v) for s in steps for v in s["u"])
+    finally:
+        probe.destroy_node()

@@ -1,0 +1,61 @@
+"""Shared test support: paths of the bundled and reference plants, the minimal plant, built artifacts."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+BUNDLED = ROOT / "config" / "plants"
+REFERENCE = Path(__file__).resolve().parent / "plants"
+
+
+MINIMAL = """\
+plant: demo
+states: [x1, x2]
+inputs: [u]
+parameters: {k: 2.0}
+dynamics:
+  x1: x2
+  x2: -k*sin(x1) + u
+"""
+
+
+_BUILT: dict = {}
+
+
+def built_artifact(source, options=None, points: int = 8):
+    """An artifact built in memory from a plant file path or plant-file text (cached per session)."""
+    from linz_ros.artifact import artifact_from_text, seal
+    from linz_ros.codegen import build_document
+    from linz_ros.model import load_plant, plant_from_text
+    from linz_ros.synthesis import synthesise
+
+    key = (str(source), repr(options))
+    if key not in _BUILT:
+        plant = load_plant(source) if isinstance(source, Path) else plant_from_text(source, "<test>")
+        design = synthesise(plant, options)
+        _BUILT[key] = seal(build_document(design, points=points)[0])
+    return artifact_from_text(_BUILT[key])
+
+
+def sampled_chain_error(gains, period: float, e0: float, steps: int):
+    """Designed error of one Brunovsky chain under the sampled law (zero-order hold):
+    e[k+1] = (Phi - Gamma K) e[k] from e = (e0, 0, ...); the first component at every step."""
+    import numpy as np
+    import scipy.linalg
+
+    from linz_ros.synthesis import chain_matrices
+
+    order = len(gains)
+    A, B = chain_matrices(order)
+    augmented = np.zeros((order + 1, order + 1))
+    augmented[:order, :order], augmented[:order, order:] = A * period, B * period
+    E = scipy.linalg.expm(augmented)
+    closed = E[:order, :order] - E[:order, order:] @ np.atleast_2d(np.asarray(gains, dtype=float))
+    e = np.zeros(order)
+    e[0] = e0
+    out = []
+    for _ in range(steps):
+        out.append(e[0])
+        e = closed @ e
+    return np.array(out)

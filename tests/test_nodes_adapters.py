@@ -1,0 +1,96 @@
+"""Message adapters: every supported type round-trips, field paths are checked, bad messages are named."""
+
+import math
+
+import pytest
+
+pytest.importorskip("rclpy", reason="the ROS 2 message packages are not installed (pip install '.[ros]')")
+
+from geometry_msgs.msg import Twist, Wrench  # noqa: E402
+from nav_msgs.msg import Odometry  # noqa: E402
+from sensor_msgs.msg import JointState  # noqa: E402
+from std_msgs.msg import Float64MultiArray  # noqa: E402
+
+from linz_ros.errors import ConfigError  # noqa: E402
+from linz_ros.nodes.adapters import (FieldMap, MessageError, labelled_array, set_stamp, split_seconds,  # noqa: E402
+                                     stamp_seconds)
+
+CASES = [
+    ("sensor_msgs/msg/JointState", ["position.a", "position.b", "velocity.a", "-velocity.b"]),
+    ("nav_msgs/msg/Odometry", ["pose.position.x", "pose.position.y", "pose.orientation.yaw", "twist.linear.x",
+                               "-twist.linear.y", "twist.angular.z"]),
+    ("std_msgs/msg/Float64MultiArray", ["data.2", "data.0", "data.1"]),
+    ("geometry_msgs/msg/Wrench", ["force.x", "torque.z"]),
+    ("geometry_msgs/msg/Twist", ["linear.x", "angular.z", "linear.y"]),
+]
+
+
+@pytest.mark.parametrize("type_name, fields", CASES, ids=[c[0].split("/")[-1] for c in CASES])
+def test_write_then_read_gives_the_vector_back(type_name, fields):
+    values = [0.3, -1.25, 2.5, 0.0, -0.7, 1.1][:len(fields)]
+    mapping = FieldMap(type_name, fields, len(fields), "fields")
+    message = mapping.write(values)
+    assert mapping.read(message) == pytest.approx(values, abs=1e-12)
+
+
+def test_joint_state_is_read_by_name_in_any_order_and_signs_apply():
+    mapping = FieldMap("sensor_msgs/msg/JointState", ["position.elbow", "velocity.shoulder", "-effort.elbow"], 3, "f")
+    message = JointState(name=["wrist", "elbow", "shoulder"], position=[9.0, 1.0, 2.0], velocity=[9.0, 3.0, 4.0],
+                         effort=[9.0, 5.0, 6.0])
+    assert mapping.read(message) == [1.0, 4.0, -5.0]
+
+
+def test_odometry_yaw_comes_from_the_quaternion():
+    mapping = FieldMap("nav_msgs/msg/Odometry", ["pose.orientation.yaw"], 1, "f")
+    message = Odometry()
+    message.pose.pose.orientation.z = math.sin(0.6 / 2)
+    message.pose.pose.orientation.w = math.cos(0.6 / 2)
+    assert mapping.read(message) == pytest.approx([0.6])
+    assert mapping.read(mapping.write([-2.9])) == pytest.approx([-2.9])      # through +-pi
+
+
+def test_an_empty_field_list_means_data_in_order():
+    mapping = FieldMap("std_msgs/msg/Float64MultiArray", [], 3, "f")
+    assert mapping.read(Float64MultiArray(data=[1.0, 2.0, 3.0, 4.0])) == [1.0, 2.0, 3.0]
+
+
+@pytest.mark.parametrize("message, reason", [
+    (JointState(name=["a"], position=[1.0], velocity=[0.0]), "unknown_joint"),
+    (JointState(name=["a", "b"], position=[1.0], velocity=[0.0, 0.0]), "wrong_length"),
+    (JointState(name=["a", "a"], position=[1.0, 1.0], velocity=[0.0, 0.0]), "bad_message"),
+])
+def test_joint_state_messages_that_do_not_fit_are_named(message, reason):
+    mapping = FieldMap("sensor_msgs/msg/JointState", ["position.a", "velocity.b"], 2, "f")
+    with pytest.raises(MessageError) as info:
+        mapping.read(message)
+    assert info.value.reason == reason
+
+
+def test_short_arrays_are_refused():
+    with pytest.raises(MessageError, match="wrong_length"):
+        FieldMap("std_msgs/msg/Float64MultiArray", [], 3, "f").read(Float64MultiArray(data=[1.0]))
+
+
+@pytest.mark.parametrize("type_name, fields, words", [
+    ("sensor_msgs/msg/JointState", ["angle.a"], "'angle.a' is not a field"),
+    ("nav_msgs/msg/Odometry", ["pose.position.w"], "is not a field"),
+    ("geometry_msgs/msg/Wrench", ["force.x", "force.x"], "appears twice"),
+    ("geometry_msgs/msg/Twist", ["linear.x"], "expected 2 field paths"),
+    ("sensor_msgs/msg/JointState", [], "needs one field per entry"),
+])
+def test_bad_field_maps_are_one_line(type_name, fields, words):
+    size = 2 if "Twist" in type_name or not fields else len(fields)
+    with pytest.raises(ConfigError, match=words):
+        FieldMap(type_name, fields, size, "state_fields")
+
+
+def test_stamps_and_labelled_arrays():
+    message = JointState()
+    assert stamp_seconds(message) is None                 # a zero stamp means none
+    set_stamp(message, 12.25)
+    assert stamp_seconds(message) == pytest.approx(12.25)
+    assert stamp_seconds(Wrench()) is None
+    assert split_seconds(2.9999999999) == (3, 0) and split_seconds(1.5) == (1, 500_000_000)
+    array = labelled_array([1.0, 2.0], ["a", "b"])
+    assert array.layout.dim[0].label == "a,b" and list(array.data) == [1.0, 2.0]
+    assert isinstance(Twist(), Twist)
