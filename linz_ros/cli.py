@@ -529,8 +529,20 @@ DEMO_PLANT = "pick_arm"
 DEMO_REACH = "smooth:tool_x=0.12,tool_y=0.16,duration=2,at=0.2"
 
 
+def _data_folders() -> list[Path]:
+    """Where the package's config/ may be: a source checkout, then the install prefixes."""
+    here = Path(__file__).resolve().parent
+    folders = [here.parent / "config"]
+    if len(here.parents) >= 4:          # <prefix>/lib/python3.X/site-packages/linz_ros (colcon, pip)
+        folders.append(here.parents[3] / "share" / "linz_ros" / "config")
+    folders.append(Path(sys.prefix) / "share" / "linz_ros" / "config")
+    for prefix in filter(None, os.environ.get("AMENT_PREFIX_PATH", "").split(os.pathsep)):
+        folders.append(Path(prefix) / "share" / "linz_ros" / "config")
+    return folders
+
+
 def bundled_plant(name: str) -> Path:
-    """The path of a bundled plant file, in a source checkout or as installed by colcon.
+    """The path of a bundled plant file, in a source checkout or as installed (colcon, pip).
 
     Parameters
     ----------
@@ -545,8 +557,7 @@ def bundled_plant(name: str) -> Path:
     ConfigError
         When it cannot be found.
     """
-    candidates = [Path(__file__).resolve().parent.parent / "config" / "plants" / f"{name}.yaml",
-                  Path(sys.prefix) / "share" / "linz_ros" / "config" / "plants" / f"{name}.yaml"]
+    candidates = [folder / "plants" / f"{name}.yaml" for folder in _data_folders()]
     for path in candidates:
         if path.is_file():
             return path
@@ -565,9 +576,7 @@ def bundled_params(name: str) -> Path | None:
     -------
     pathlib.Path or None
     """
-    candidates = [Path(__file__).resolve().parent.parent / "config" / f"{name}.yaml",
-                  Path(sys.prefix) / "share" / "linz_ros" / "config" / f"{name}.yaml"]
-    return next((p for p in candidates if p.is_file()), None)
+    return next((p for p in (folder / f"{name}.yaml" for folder in _data_folders()) if p.is_file()), None)
 
 
 def _run_demo(args: argparse.Namespace) -> int:

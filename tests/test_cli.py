@@ -219,3 +219,11 @@ def test_demo_runs_the_whole_job_and_shows_the_watchdog(capsys, tmp_path):
     assert reach["time_in_mode"]["damped"] > 0 and reach["time_in_mode"]["safe"] > 0
     assert reach["min_sigma"] < json.loads((tmp_path / "pick_arm.artifact.json").read_text())["watchdog"]["sigma_stop"]
     assert (tmp_path / "reach" / "conditioning.png").exists()
+    # the simulation bringup ran the three nodes over DDS and tracked the reference
+    bringup = json.loads((tmp_path / "bringup" / "summary.json").read_text())
+    assert "== 5. simulation bringup over DDS" in out
+    assert bringup["steps"] > 1000 and bringup["time_in_mode"]["safe"] == 0.0
+    assert max(o["max_error"] for o in bringup["outputs"].values()) < 2e-3
+    assert {d["level"] for d in bringup["diagnostics"]} == {0}
+    for name in ("linz_controller.log", "linz_plant_sim.log", "run.csv", "outputs.png"):
+        assert (tmp_path / "bringup" / name).stat().st_size > 0

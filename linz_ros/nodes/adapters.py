@@ -222,6 +222,12 @@ class FieldMap:
         self.size = size
         self.joints = list(dict.fromkeys(f.path.split(".", 1)[1] for f in parsed)) \
             if type_name == "sensor_msgs/msg/JointState" else []
+        self._signs = [f.sign for f in parsed]
+        if type_name == "sensor_msgs/msg/JointState":
+            self._write_slots = [(f.path.split(".", 1)[0], self.joints.index(f.path.split(".", 1)[1])) for f in parsed]
+            self._write_heads = sorted({head for head, _ in self._write_slots})
+        self._names_seen: tuple[str, ...] | None = None
+        self._slots: list[tuple[int, int]] = []
         self._read = self._reader()
 
     def _check_path(self, path: str, option: str) -> None:
@@ -278,7 +284,22 @@ class FieldMap:
         return self._read(message)
 
     def _read_joint_state(self, message: JointState) -> list[float]:
-        names = list(message.name)
+        names = message.name
+        key = tuple(names)
+        if key != self._names_seen:
+            self._locate_joints(key)          # once per new name list; then plain indexing
+        count = len(key)
+        arrays = (message.position, message.velocity, message.effort)
+        out = []
+        for (array, index), sign in zip(self._slots, self._signs):
+            values = arrays[array]
+            if len(values) != count:
+                raise MessageError("wrong_length", f"{_JOINT_ARRAYS[array]} has {len(values)} entries for "
+                                                   f"{count} joints")
+            out.append(sign * values[index])
+        return out
+
+    def _locate_joints(self, names: tuple[str, ...]) -> None:
         index = {name: i for i, name in enumerate(names)}
         if len(index) != len(names):
             raise MessageError("bad_message", "a joint name appears twice")
@@ -286,15 +307,12 @@ class FieldMap:
         if missing:
             raise MessageError("unknown_joint", f"joint(s) {', '.join(missing)} not in the message "
                                                 f"(it has {', '.join(names) or 'none'})")
-        arrays = {"position": message.position, "velocity": message.velocity, "effort": message.effort}
-        out = []
+        slots = []
         for f in self.fields:
             head, joint = f.path.split(".", 1)
-            values = arrays[head]
-            if len(values) != len(names):
-                raise MessageError("wrong_length", f"{head} has {len(values)} entries for {len(names)} joints")
-            out.append(f.sign * values[index[joint]])
-        return out
+            slots.append((_JOINT_ARRAYS.index(head), index[joint]))
+        self._slots = slots
+        self._names_seen = names
 
     def _read_attributes(self, message: Any) -> list[float]:
         out = []
@@ -329,15 +347,13 @@ class FieldMap:
         message = message if message is not None else self.cls()
         t = self.type_name
         if t == "sensor_msgs/msg/JointState":
-            message.name = list(self.joints)
-            arrays = {head: [0.0] * len(self.joints) for head in _JOINT_ARRAYS}
-            used = set()
-            for f, v in zip(self.fields, values):
-                head, joint = f.path.split(".", 1)
-                arrays[head][self.joints.index(joint)] = f.sign * float(v)
-                used.add(head)
+            if list(message.name) != self.joints:
+                message.name = list(self.joints)
+            arrays = {head: [0.0] * len(self.joints) for head in self._write_heads}
+            for (head, slot), sign, v in zip(self._write_slots, self._signs, values):
+                arrays[head][slot] = sign * float(v)
             for head in _JOINT_ARRAYS:
-                setattr(message, head, arrays[head] if head in used else [])
+                setattr(message, head, arrays.get(head, ()))
             return message
         if t == "std_msgs/msg/Float64MultiArray":
             size = max(int(f.path.split(".")[1]) for f in self.fields) + 1

@@ -41,6 +41,8 @@ CONDITIONING_FIELDS = ("t", "sigma_min", "condition", "mode", "reason", "damping
 DYNAMIC = ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "hold_time", "integral_limit",
            "rate_limits")
 _UNSET = -1.0
+_MODE_CODE = {m: float(i) for i, m in enumerate(MODES)}
+_REASON_CODE = {r: float(i) for i, r in enumerate(REASONS)}
 
 
 @dataclass
@@ -316,6 +318,8 @@ class ControllerNode(LifecycleNode):
         self._command_pub = self.create_lifecycle_publisher(self.command_map.cls, p["command_topic"], qos)
         self._conditioning_pub = self.create_lifecycle_publisher(Float64MultiArray, p["conditioning_topic"], qos)
         self._conditioning_labels = list(CONDITIONING_FIELDS) + [f"u.{u}" for u in artifact.inputs]
+        self._conditioning_message = labelled_array([0.0] * len(self._conditioning_labels), self._conditioning_labels)
+        self._command_message = self.command_map.cls()
         self._owned_subscriptions = [self.create_subscription(self.state_map.cls, p["state_topic"], self._on_state, qos)]
         if self.reference.spec == "topic":
             self._owned_subscriptions.append(self.create_subscription(Float64MultiArray, p["reference_topic"],
@@ -422,20 +426,25 @@ class ControllerNode(LifecycleNode):
             self.get_logger().warning("no fresh state: safe command", throttle_duration_sec=2.0)
 
     def _publish(self, u: list[float], record, stamp: float) -> None:
-        self.window.add(record)
-        command = self.command_map.write(u)
+        # the command first (it is what the robot waits for); messages are reused, publish copies them
+        command = self.command_map.write(u, self._command_message)
         set_stamp(command, stamp)
         self._command_pub.publish(command)
-        mask = sum(1 << i for i, s in enumerate(record.saturated) if s)
-        row = [record.t, record.sigma_min, record.condition, MODES.index(record.mode), REASONS.index(record.reason),
-               record.damping, record.compute_time * 1e6, mask, float(record.warn)] + list(u)
-        self._conditioning_pub.publish(labelled_array(row, self._conditioning_labels))
+        self.window.add(record)
+        mask = 0
+        for i, cut in enumerate(record.saturated):
+            if cut:
+                mask |= 1 << i
+        self._conditioning_message.data = [
+            record.t, record.sigma_min, record.condition, _MODE_CODE[record.mode], _REASON_CODE[record.reason],
+            record.damping, record.compute_time * 1e6, float(mask), float(record.warn), *u]
+        self._conditioning_pub.publish(self._conditioning_message)
 
     def _publish_safe(self, why: str) -> None:
         if self.core is None or self._command_pub is None:
             return
         u, record = self.core.safe_step(self._now(), "no_state")
-        command = self.command_map.write(u)
+        command = self.command_map.write(u, self.command_map.cls())
         set_stamp(command, self._now())
         self._command_pub.publish(command)
         self.get_logger().info(f"safe command {u} sent ({why})")

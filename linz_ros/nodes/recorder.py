@@ -17,6 +17,7 @@ from typing import Any, Callable, Iterator
 import numpy as np
 import rclpy
 from diagnostic_msgs.msg import DiagnosticArray
+from rclpy.executors import SingleThreadedExecutor
 from rclpy.node import Node
 from std_msgs.msg import Float64MultiArray
 
@@ -65,8 +66,11 @@ class BringupRecorder(Node):
     node_name : str
     """
 
-    def __init__(self, artifact: Artifact, topics: TopicMap, node_name: str = "linz_recorder") -> None:
-        super().__init__(node_name)
+    def __init__(self, artifact: Artifact, topics: TopicMap, node_name: str = "linz_recorder",
+                 context: Any = None) -> None:
+        super().__init__(node_name, context=context)
+        self.executor_ = SingleThreadedExecutor(context=context)
+        self.executor_.add_node(self)
         self.artifact = artifact
         self.topics = topics
         self.state_map = FieldMap(topics.state_type, topics.state_fields, len(artifact.states), "state_fields")
@@ -134,11 +138,20 @@ class BringupRecorder(Node):
             Whether ``until`` became true (True when no condition was given).
         """
         end = time.monotonic() + seconds
-        while time.monotonic() < end:
-            rclpy.spin_once(self, timeout_sec=0.02)
+        while (left := end - time.monotonic()) > 0:
+            self.spin_once(min(0.02, left))
             if until is not None and until():
                 return True
         return until is None
+
+    def spin_once(self, timeout: float) -> None:
+        """Handle what has arrived, waiting at most ``timeout`` seconds.
+
+        Parameters
+        ----------
+        timeout : float
+        """
+        self.executor_.spin_once(timeout_sec=timeout)
 
     def to_result(self, reference: Reference | None = None) -> SimResult:
         """The recording as a SimResult: one row per conditioning record (one per control step).
@@ -210,7 +223,7 @@ class BringupRecorder(Node):
 
 @contextlib.contextmanager
 def recording(artifact: Artifact, topics: TopicMap) -> Iterator[BringupRecorder]:
-    """rclpy initialised for this process, a recorder node, and a clean shutdown after.
+    """A private rclpy context, a recorder node in it, and a clean shutdown after.
 
     Parameters
     ----------
@@ -221,11 +234,12 @@ def recording(artifact: Artifact, topics: TopicMap) -> Iterator[BringupRecorder]
     ------
     BringupRecorder
     """
-    rclpy.init(args=[])
-    recorder = BringupRecorder(artifact, topics)
+    context = rclpy.Context()          # its own context: whatever else this process runs is left alone
+    rclpy.init(args=[], context=context)
+    recorder = BringupRecorder(artifact, topics, context=context)
     try:
         yield recorder
     finally:
+        recorder.executor_.shutdown()
         recorder.destroy_node()
-        if rclpy.ok():
-            rclpy.shutdown()
+        context.try_shutdown()

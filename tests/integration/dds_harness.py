@@ -33,7 +33,7 @@ def wait_until(predicate: Callable[[], bool], timeout: float, node: Any = None, 
     end = time.monotonic() + timeout
     while (left := end - time.monotonic()) > 0:
         if node is not None:
-            rclpy.spin_once(node, timeout_sec=min(step, left))
+            node.spin_once(min(step, left))
         else:
             time.sleep(min(step, left))
         if predicate():
@@ -69,7 +69,7 @@ class Probe(BringupRecorder):
         if not client.wait_for_service(timeout_sec=timeout):
             raise AssertionError(f"service {client.srv_name} not available")
         future = client.call_async(request)
-        rclpy.spin_until_future_complete(self, future, timeout_sec=timeout)
+        self.executor_.spin_until_future_complete(future, timeout_sec=timeout)
         if not future.done():
             raise AssertionError(f"service {client.srv_name} did not answer")
         return future.result()

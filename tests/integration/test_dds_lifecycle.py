@@ -97,3 +97,16 @@ def test_thresholds_change_while_active_and_topics_do_not(bringup, arm_artifact)
         assert all(math.isfinite(v) for s in steps for v in s["u"])
     finally:
         probe.destroy_node()
+
+
+def test_bad_parameters_are_one_line_and_never_a_traceback(bringup, arm_artifact):
+    path, artifact = arm_artifact
+    sim = bringup.start("linz_plant_sim", PARAMS, {"artifact": str(path), "rate": "fast"})
+    assert sim.process.wait(timeout=30) == 2
+    text = sim.log_text()
+    assert "Traceback" not in text and "rate" in text and text.strip().count("\n") <= 1
+    controller = bringup.start("linz_controller", PARAMS, {"artifact": str(path),
+                                                           "state_fields": ["position.shoulder"]})
+    assert bringup.wait_for_log("linz_controller", "configure refused:", timeout=30)
+    assert "state_fields: expected 4 field paths, one per entry, got 1" in controller.log_text()
+    assert controller.alive()                    # still up, unconfigured, saying why on /diagnostics

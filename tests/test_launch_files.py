@@ -1,0 +1,109 @@
+"""The launch files, read without importing ``launch``: everything they name exists as installed.
+
+A renamed console script, parameter file or bundled plant must not silently break a
+bringup on a machine with ROS 2; this reads each launch file's syntax tree and checks its
+executables against setup.py's console scripts and its files against setup.py's data files.
+"""
+
+import ast
+import glob
+from pathlib import Path
+
+import pytest
+import yaml
+
+from support import ROOT
+
+LAUNCH_FILES = sorted((ROOT / "launch").glob("*.launch.py"))
+
+
+def _setup_keywords():
+    tree = ast.parse((ROOT / "setup.py").read_text())
+    call = next(n for n in ast.walk(tree) if isinstance(n, ast.Call) and getattr(n.func, "id", "") == "setup")
+    return call, {k.arg: k.value for k in call.keywords}
+
+
+def _console_scripts() -> dict[str, str]:
+    _, keywords = _setup_keywords()
+    entry_points = ast.literal_eval(keywords["entry_points"])
+    return dict(line.replace(" ", "").split("=") for line in entry_points["console_scripts"])
+
+
+def _installed_share_files() -> set[str]:
+    """Paths under share/linz_ros that setup.py's data_files install (globs evaluated here)."""
+    _, keywords = _setup_keywords()
+    installed = set()
+    # our own setup.py, evaluated with its one name and a glob rooted at the checkout
+    scope = {"package_name": "linz_ros", "glob": lambda pattern: glob.glob(str(ROOT / pattern))}
+    data_files = eval(compile(ast.Expression(keywords["data_files"]), "setup.py", "eval"), scope)  # noqa: S307
+    for target, files in data_files:
+        for f in files:
+            installed.add(f"{target}/{Path(f).name}")
+    return {p.removeprefix("share/linz_ros/") for p in installed if p.startswith("share/linz_ros/")}
+
+
+def _calls(tree, name):
+    return [n for n in ast.walk(tree) if isinstance(n, ast.Call) and getattr(n.func, "id", "") == name]
+
+
+def _keyword(call, name):
+    return next((k.value for k in call.keywords if k.arg == name), None)
+
+
+@pytest.mark.parametrize("path", LAUNCH_FILES, ids=lambda p: p.name)
+def test_every_executable_a_launch_file_starts_is_a_console_script_that_imports(path):
+    tree = ast.parse(path.read_text())
+    scripts = _console_scripts()
+    nodes = _calls(tree, "Node") + _calls(tree, "LifecycleNode")
+    assert nodes, "a bringup without nodes"
+    constants = {t.id: n.value.value for n in tree.body if isinstance(n, ast.Assign)
+                 for t in n.targets if isinstance(t, ast.Name) and isinstance(n.value, ast.Constant)}
+    for node in nodes:
+        package = _keyword(node, "package")
+        assert (package.value if isinstance(package, ast.Constant) else constants[package.id]) == "linz_ros"
+        executable = ast.literal_eval(_keyword(node, "executable"))
+        assert executable in scripts, f"{path.name} starts {executable!r}, not a console script of setup.py"
+        module, function = scripts[executable].split(":")
+        imported = __import__(module, fromlist=[function])
+        assert callable(getattr(imported, function))
+
+
+@pytest.mark.parametrize("path", LAUNCH_FILES, ids=lambda p: p.name)
+def test_parameter_and_plant_files_a_launch_file_names_are_installed(path):
+    tree = ast.parse(path.read_text())
+    installed = _installed_share_files()
+    assert "package.xml" in installed and f"launch/{path.name}" in installed
+    defaults = {ast.literal_eval(c.args[0]): _keyword(c, "default_value") for c in _calls(tree, "DeclareLaunchArgument")}
+    for join in _calls(tree, "PathJoinSubstitution"):
+        parts = join.args[0].elts[1:]               # after FindPackageShare(PACKAGE)
+        resolved = []
+        for part in parts:
+            if isinstance(part, ast.Constant):
+                resolved.append(part.value)
+            else:                                   # [plant, ".yaml"]: the plant argument's default
+                pieces = []
+                for piece in part.elts:
+                    if isinstance(piece, ast.Constant):
+                        pieces.append(piece.value)
+                    else:
+                        pieces.append(ast.literal_eval(defaults[piece.id if isinstance(piece, ast.Name) else "plant"]))
+                resolved.append("".join(pieces))
+        relative = "/".join(resolved)
+        assert relative in installed, f"{path.name} names share/linz_ros/{relative}, which setup.py does not install"
+    if "plant" in defaults:
+        plant = ast.literal_eval(defaults["plant"])
+        assert f"config/plants/{plant}.yaml" in installed
+
+
+def test_every_bundled_plant_has_a_bringup_parameter_file_for_its_nodes():
+    installed = _installed_share_files()
+    for plant in sorted((ROOT / "config" / "plants").glob("*.yaml")):
+        params = ROOT / "config" / f"{plant.stem}.yaml"
+        assert f"config/{plant.stem}.yaml" in installed, f"no config/{plant.stem}.yaml for plant:={plant.stem}"
+        document = yaml.safe_load(params.read_text())
+        for node in ("/linz_controller", "/linz_plant_sim", "/linz_reference"):
+            assert "ros__parameters" in document[node], (params.name, node)
+        controller, simulator = document["/linz_controller"]["ros__parameters"], document["/linz_plant_sim"]["ros__parameters"]
+        for key in ("state_topic", "state_type", "state_fields", "command_topic", "command_type", "command_fields"):
+            assert controller[key] == simulator[key], (params.name, key)
+        assert document["/linz_reference"]["ros__parameters"]["topic"] == controller["reference_topic"]
