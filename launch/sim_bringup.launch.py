@@ -5,8 +5,8 @@
 
 Arguments: ``plant`` (a bundled example: pick_arm, mast_camera, survey_boat), ``artifact``
 (the file written by ``linz build``), ``params_file`` (default: the package's
-``config/<plant>.yaml``), ``use_sim_time`` and ``publish_clock`` (the simulator then owns
-time and the controller follows ``/clock``).
+``config/<plant>.yaml``), ``publish_clock`` (the simulator then owns time and the other
+nodes follow ``/clock``) and ``with_reference``.
 """
 
 from launch import LaunchDescription
@@ -24,8 +24,10 @@ def generate_launch_description() -> LaunchDescription:
     artifact = LaunchConfiguration("artifact")
     params_file = LaunchConfiguration("params_file")
     publish_clock = LaunchConfiguration("publish_clock")
-    use_sim_time = PythonExpression(["'", publish_clock, "' == 'true'"])
-    default_params = PathJoinSubstitution([FindPackageShare(PACKAGE), "config", [plant, ".yaml"]])
+    # true, True, 1 ... all mean simulated time, for the simulator and for the others alike
+    sim_time = PythonExpression(["'", publish_clock, "'.lower() in ('true', '1', 'yes')"])
+    # <share>/config/<plant>.yaml, written so that older launch releases join it too
+    default_params = [PathJoinSubstitution([FindPackageShare(PACKAGE), "config", plant]), ".yaml"]
     return LaunchDescription([
         DeclareLaunchArgument("plant", default_value="pick_arm", description="bundled example plant"),
         DeclareLaunchArgument("artifact", description="controller artifact written by linz build"),
@@ -34,10 +36,10 @@ def generate_launch_description() -> LaunchDescription:
                               description="simulator publishes /clock; nodes use simulated time"),
         DeclareLaunchArgument("with_reference", default_value="true", description="start the reference node"),
         Node(package=PACKAGE, executable="linz_plant_sim", name="linz_plant_sim", output="screen",
-             parameters=[params_file, {"artifact": artifact, "publish_clock": publish_clock}]),
+             parameters=[params_file, {"artifact": artifact, "publish_clock": sim_time}]),
         Node(package=PACKAGE, executable="linz_reference", name="linz_reference", output="screen",
              condition=IfCondition(LaunchConfiguration("with_reference")),
-             parameters=[params_file, {"artifact": artifact, "use_sim_time": use_sim_time}]),
+             parameters=[params_file, {"artifact": artifact, "use_sim_time": sim_time}]),
         Node(package=PACKAGE, executable="linz_controller", name="linz_controller", output="screen",
-             parameters=[params_file, {"artifact": artifact, "use_sim_time": use_sim_time}]),
+             parameters=[params_file, {"artifact": artifact, "use_sim_time": sim_time}]),
     ])

@@ -85,21 +85,24 @@ def isolated_environment(domain_id: int | None = None, base: Mapping[str, str] |
 
 @dataclass
 class NodeProcess:
-    """One started node: its name, command line, process and log file."""
+    """One started node: its name, command line, process, log file and where its part of the log starts."""
 
     name: str
     argv: list[str]
     process: subprocess.Popen
     log: Path
+    log_start: int = 0
 
     def alive(self) -> bool:
         """Whether the process still runs."""
         return self.process.poll() is None
 
     def log_text(self) -> str:
-        """Everything the node wrote so far."""
+        """Everything this run of the node wrote so far (not earlier runs into the same file)."""
         try:
-            return self.log.read_text(errors="replace")
+            with self.log.open("rb") as handle:
+                handle.seek(self.log_start)
+                return handle.read().decode(errors="replace")
         except OSError:
             return ""
 
@@ -163,10 +166,11 @@ class Bringup:
         argv += list(extra)
         log = self.log_dir / f"{label}.log"
         handle = log.open("ab")
+        start = handle.tell()
         process = subprocess.Popen(argv, stdout=handle, stderr=subprocess.STDOUT, env=self.env,
                                    start_new_session=True, preexec_fn=_end_with_parent)
         handle.close()
-        node = NodeProcess(label, argv, process, log)
+        node = NodeProcess(label, argv, process, log, start)
         self.nodes[label] = node
         return node
 
@@ -274,7 +278,11 @@ def node_parameters(params_file: str | Path, node_name: str) -> dict[str, object
 
 
 def _end_with_parent() -> None:
-    """In the child: ask Linux for SIGTERM when the starting process dies (no orphan nodes)."""
+    """In the child: ask Linux for SIGTERM when the starting thread dies (no orphan nodes).
+
+    Linux ties this to the *thread* that started the child, so start nodes from the main
+    thread (or one that lives as long as they should).
+    """
     try:
         import ctypes
 
@@ -285,8 +293,11 @@ def _end_with_parent() -> None:
 
 
 def _ros_value(value: object) -> str:
+    """A value as ``-p name:=VALUE`` text; rclpy reads it as YAML, so strings are quoted."""
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, (list, tuple)):
-        return "[" + ", ".join(_ros_value(v) if not isinstance(v, str) else repr(v) for v in value) + "]"
-    return str(value)
+        return "[" + ", ".join(_ros_value(v) for v in value) + "]"
+    if isinstance(value, str):
+        return "'" + value.replace("'", "''") + "'"
+    return repr(value) if isinstance(value, float) else str(value)

@@ -68,27 +68,47 @@ def test_every_executable_a_launch_file_starts_is_a_console_script_that_imports(
         assert callable(getattr(imported, function))
 
 
+def _launch_configurations(tree) -> dict[str, str]:
+    """Variable name -> launch argument name, for ``plant = LaunchConfiguration("plant")``."""
+    out = {}
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Assign) and isinstance(node.value, ast.Call) \
+                and getattr(node.value.func, "id", "") == "LaunchConfiguration":
+            out.update({t.id: node.value.args[0].value for t in node.targets if isinstance(t, ast.Name)})
+    return out
+
+
+def _joined_paths(tree, defaults, configurations) -> list[str]:
+    """Every ``PathJoinSubstitution([FindPackageShare(...), ...])`` resolved with the arguments'
+    defaults, with a ``.yaml`` that follows it in a list appended."""
+    suffix_of = {}
+    for node in ast.walk(tree):
+        if isinstance(node, ast.List):
+            for first, second in zip(node.elts, node.elts[1:]):
+                if isinstance(second, ast.Constant) and isinstance(second.value, str):
+                    suffix_of[id(first)] = second.value
+    paths = []
+    for join in _calls(tree, "PathJoinSubstitution"):
+        parts = []
+        for part in join.args[0].elts[1:]:               # after FindPackageShare(PACKAGE)
+            if isinstance(part, ast.Constant):
+                parts.append(part.value)
+            else:
+                parts.append(ast.literal_eval(defaults[configurations[part.id]]))
+        paths.append("/".join(parts) + suffix_of.get(id(join), ""))
+    return paths
+
+
 @pytest.mark.parametrize("path", LAUNCH_FILES, ids=lambda p: p.name)
 def test_parameter_and_plant_files_a_launch_file_names_are_installed(path):
     tree = ast.parse(path.read_text())
     installed = _installed_share_files()
     assert "package.xml" in installed and f"launch/{path.name}" in installed
-    defaults = {ast.literal_eval(c.args[0]): _keyword(c, "default_value") for c in _calls(tree, "DeclareLaunchArgument")}
-    for join in _calls(tree, "PathJoinSubstitution"):
-        parts = join.args[0].elts[1:]               # after FindPackageShare(PACKAGE)
-        resolved = []
-        for part in parts:
-            if isinstance(part, ast.Constant):
-                resolved.append(part.value)
-            else:                                   # [plant, ".yaml"]: the plant argument's default
-                pieces = []
-                for piece in part.elts:
-                    if isinstance(piece, ast.Constant):
-                        pieces.append(piece.value)
-                    else:
-                        pieces.append(ast.literal_eval(defaults[piece.id if isinstance(piece, ast.Name) else "plant"]))
-                resolved.append("".join(pieces))
-        relative = "/".join(resolved)
+    defaults = {ast.literal_eval(c.args[0]): _keyword(c, "default_value") for c in _calls(tree, "DeclareLaunchArgument")
+                if c.args and isinstance(c.args[0], ast.Constant)}
+    paths = _joined_paths(tree, defaults, _launch_configurations(tree))
+    assert paths, f"{path.name} names no parameter file"
+    for relative in paths:
         assert relative in installed, f"{path.name} names share/linz_ros/{relative}, which setup.py does not install"
     if "plant" in defaults:
         plant = ast.literal_eval(defaults["plant"])

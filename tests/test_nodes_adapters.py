@@ -94,3 +94,24 @@ def test_stamps_and_labelled_arrays():
     array = labelled_array([1.0, 2.0], ["a", "b"])
     assert array.layout.dim[0].label == "a,b" and list(array.data) == [1.0, 2.0]
     assert isinstance(Twist(), Twist)
+
+
+@pytest.mark.parametrize("scale, words", [(0.0, "norm 0"), (2.0, "norm 2")])
+def test_an_unfilled_or_unnormalised_quaternion_is_refused(scale, words):
+    mapping = FieldMap("nav_msgs/msg/Odometry", ["pose.orientation.yaw"], 1, "f")
+    message = Odometry()
+    q = message.pose.pose.orientation
+    q.x, q.y, q.z, q.w = 0.0, 0.0, scale * math.sin(0.8), scale * math.cos(0.8)
+    with pytest.raises(MessageError, match=words):
+        mapping.read(message)
+    q.z, q.w = 1.01 * math.sin(0.8), 1.01 * math.cos(0.8)          # nearly unit: normalised
+    assert mapping.read(message) == pytest.approx([1.6])
+
+
+def test_stamps_are_always_written_and_clamped_to_the_message_range():
+    message = JointState()
+    set_stamp(message, 5.0)
+    set_stamp(message, -1.0)                                      # not left at 5 s on a reused message
+    assert stamp_seconds(message) is None
+    set_stamp(message, 1e12)
+    assert message.header.stamp.sec == 2_147_483_647

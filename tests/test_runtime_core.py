@@ -165,6 +165,9 @@ def test_hold_repeats_the_last_good_command_within_hold_time_then_goes_safe(arm)
     assert record.mode == "held" and held == u and record.reason == "non_finite_state"
     later, record = core.step([math.nan] * 4, ref, t=1.2)
     assert record.mode == "safe" and later == [0.0, 0.0]
+    core.step(good, ref, t=1.3)
+    final, record = core.safe_step(1.31, "no_state", final=True)     # deactivate or shutdown: never held
+    assert final == [0.0, 0.0] and record.mode == "safe"
 
 
 def test_fixed_safe_command_and_staleness(arm):
@@ -203,7 +206,8 @@ def test_a_stamp_from_the_future_is_refused_and_does_not_block_later_states(arm)
     ref = core.hold_reference(x)
     u, record = core.step(x, ref, t=1e9, now=0.002)
     assert record.reason == "future_stamp" and record.mode == "safe"
-    u, record = core.step(x, ref, t=0.3, now=0.001)          # within future_tolerance (clock skew): accepted
+    tolerance = core.config.stale_after                         # future_tolerance defaults to stale_after
+    u, record = core.step(x, ref, t=0.001 + 0.5 * tolerance, now=0.001)     # a little clock skew: accepted
     assert record.mode == "nominal"
     core.reset()
     for k in range(2, 6):

@@ -11,7 +11,9 @@ import rclpy
 from rclpy.signals import SignalHandlerOptions
 from rcl_interfaces.msg import FloatingPointRange, ParameterDescriptor, ParameterType
 from rclpy.executors import ExternalShutdownException, SingleThreadedExecutor
-from rclpy.exceptions import InvalidParameterTypeException, InvalidParameterValueException
+from rclpy.exceptions import (InvalidParameterTypeException, InvalidParameterValueException, NameValidationException,
+                              ParameterException)
+from rclpy.impl.implementation_singleton import rclpy_implementation as _rclpy
 from rclpy.node import Node
 from rclpy.parameter import Parameter
 from rclpy.qos import HistoryPolicy, QoSProfile, ReliabilityPolicy
@@ -27,6 +29,9 @@ SAFETY_NOTICE = (
     "assessment, its safety functions, local codes and licensed engineering practice.")
 
 EXECUTORS = ("single_threaded", "events")
+RCLError = _rclpy.RCLError
+#: What a user's mistake in parameters, names or files raises while a node is built.
+_STARTUP_MISTAKES = (LinzError, RCLError, NameValidationException, ParameterException)
 
 _TYPES = {bool: ParameterType.PARAMETER_BOOL, int: ParameterType.PARAMETER_INTEGER,
           float: ParameterType.PARAMETER_DOUBLE, str: ParameterType.PARAMETER_STRING}
@@ -125,14 +130,18 @@ def spin_node(make_node: Callable[[], Node], args: Sequence[str] | None, executo
         The exit code.
     """
     stop = threading.Event()
-    rclpy.init(args=list(args) if args is not None else sys.argv, signal_handler_options=SignalHandlerOptions.NO)
+    try:
+        rclpy.init(args=list(args) if args is not None else sys.argv, signal_handler_options=SignalHandlerOptions.NO)
+    except RCLError as err:                 # e.g. a parameter file that cannot be parsed
+        print(f"{_program()}: {_first_line(err)}", file=sys.stderr)
+        return 2
     previous = {sig: signal.signal(sig, lambda *_: stop.set()) for sig in (signal.SIGINT, signal.SIGTERM)}
     node = None
     try:
         try:
             node = make_node()
-        except LinzError as err:            # a bad parameter or artifact: one line, exit 2
-            print(f"{_program()}: {err}", file=sys.stderr)
+        except _STARTUP_MISTAKES as err:    # a bad parameter, topic name or artifact: one line, exit 2
+            print(f"{_program()}: {_first_line(err)}", file=sys.stderr)
             return 2
         choice = executor_name or (node.get_parameter("executor").value if node.has_parameter("executor")
                                    else "single_threaded")

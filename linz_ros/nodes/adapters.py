@@ -43,6 +43,7 @@ _JOINT_ARRAYS = ("position", "velocity", "effort")
 _AXES = ("x", "y", "z")
 _ODOMETRY = {f"pose.position.{a}" for a in _AXES} | {f"pose.orientation.{a}" for a in ("roll", "pitch", "yaw")} \
     | {f"twist.{k}.{a}" for k in ("linear", "angular") for a in _AXES}
+_LAST_STAMP = 2_147_483_647.0       # builtin_interfaces/Time.sec is an int32
 _VECTOR3 = {"geometry_msgs/msg/Wrench": ("force", "torque"), "geometry_msgs/msg/Twist": ("linear", "angular")}
 
 
@@ -108,9 +109,11 @@ def set_stamp(message: Any, seconds: float) -> None:
     seconds : float
     """
     header = getattr(message, "header", None)
-    if header is None or not math.isfinite(seconds) or seconds < 0:
+    if header is None:
         return
-    header.stamp.sec, header.stamp.nanosec = split_seconds(seconds)
+    if not math.isfinite(seconds) or seconds < 0:
+        seconds = 0.0                    # never leave an old stamp on a reused message
+    header.stamp.sec, header.stamp.nanosec = split_seconds(min(seconds, _LAST_STAMP))
 
 
 def split_seconds(seconds: float) -> tuple[int, int]:
@@ -159,8 +162,13 @@ class _Field:
 
 
 def _quaternion_to_rpy(q) -> tuple[float, float, float]:
-    # ZYX (yaw-pitch-roll) angles of a unit quaternion (common practice, e.g. REP 103 frames)
+    # ZYX (yaw-pitch-roll) angles of a unit quaternion (common practice, e.g. REP 103 frames);
+    # an unfilled (all-zero) or far from unit quaternion is refused, a nearly unit one normalised
     x, y, z, w = q.x, q.y, q.z, q.w
+    norm = math.sqrt(x * x + y * y + z * z + w * w)
+    if not (math.isfinite(norm) and abs(norm - 1.0) <= 0.05):
+        raise MessageError("bad_message", f"orientation quaternion has norm {norm:.4g}, not 1")
+    x, y, z, w = x / norm, y / norm, z / norm, w / norm
     roll = math.atan2(2.0 * (w * x + y * z), 1.0 - 2.0 * (x * x + y * y))
     sine = max(-1.0, min(1.0, 2.0 * (w * y - z * x)))
     pitch = math.asin(sine)

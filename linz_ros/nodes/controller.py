@@ -22,6 +22,7 @@ import numpy as np
 import rclpy
 from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus, KeyValue
 from rcl_interfaces.msg import SetParametersResult
+from rclpy.clock import Clock, ClockType
 from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackReturn
 from std_msgs.msg import Float64MultiArray
 
@@ -60,6 +61,7 @@ class DiagnosticWindow:
     stale: int = 0
     singular: int = 0
     reference_stale: int = 0
+    reference_missing: int = 0
     compute: list[float] = field(default_factory=list)
 
     def add(self, record) -> None:
@@ -97,6 +99,8 @@ class DiagnosticWindow:
             why.append("saturating")
         if self.reference_stale:
             why.append("reference stale: holding")
+        if self.reference_missing:
+            why.append("no reference received: holding")
         if why:
             return DiagnosticStatus.WARN, ", ".join(why)
         if self.steps == 0:
@@ -112,6 +116,7 @@ class DiagnosticWindow:
                  ("saturated_fraction", self.saturated / self.steps if self.steps else 0.0),
                  ("stale_count", self.stale), ("rejected_count", self.rejected),
                  ("reference_stale_count", self.reference_stale),
+                 ("reference_missing_count", self.reference_missing),
                  ("loop_rate_hz", self.steps / span), ("compute_time_p99_us", p99)]
         pairs += [(f"mode_{m}", c) for m, c in self.modes.items()]
         return [KeyValue(key=k, value=f"{v:.6g}" if isinstance(v, float) else str(v)) for k, v in pairs]
@@ -128,7 +133,7 @@ class _ReferenceSource:
         self.latest: list[float] | None = None
         self.latest_at = -math.inf
         self.generator = None
-        self.origin = 0.0
+        self.origin: float | None = 0.0
         self.latched: list[float] | None = None
         self.stale = False
         if spec != "topic":
@@ -137,7 +142,9 @@ class _ReferenceSource:
 
     def restart(self, now: float) -> None:
         self.generator = None
-        self.origin = now
+        # times of a built-in reference count from activation; in simulated time before the
+        # first /clock the clock reads zero, so the origin is taken at the first real reading
+        self.origin = now if now > 0.0 else None
         self.latched = None
 
     def accept(self, values: Sequence[float], now: float) -> bool:
@@ -156,13 +163,15 @@ class _ReferenceSource:
                     base.append(chain[k])
                     k += r
                 self.generator = parse_reference(self.spec, self.core.orders, base, self.outputs)
-            return self.generator.sample(now - self.origin)
+            if self.origin is None and now > 0.0:
+                self.origin = now
+            return self.generator.sample(now - (self.origin if self.origin is not None else now))
         if self.latest is not None and now - self.latest_at <= self.timeout:
             self.stale = False
             self.latched = None
             return self.latest
         # no reference, or it stalled: hold the outputs where they were when it stopped
-        self.stale = self.latest is not None
+        self.stale = True
         if self.latched is None:
             self.latched = self.core.hold_reference(x)
         return self.latched
@@ -191,7 +200,11 @@ class ControllerNode(LifecycleNode):
         self._conditioning_pub = None
         self.window = DiagnosticWindow(self._now())
         self._diagnostics_pub = self.create_publisher(DiagnosticArray, "/diagnostics", 10)
-        self._diagnostics_timer = self.create_timer(self.params["diagnostics_period"], self._publish_diagnostics)
+        self._steady = Clock(clock_type=ClockType.STEADY_TIME)
+        self._diagnostics_timer = self.create_timer(self.params["diagnostics_period"], self._publish_diagnostics,
+                                                    clock=self._steady)
+        self._last_state_steady: float | None = None
+        self._autostarted = False
         self.add_on_set_parameters_callback(self._on_set_parameters)
         if self.params["autostart"]:
             self._autostart_timer = self.create_timer(0.0, self._autostart)
@@ -251,7 +264,7 @@ class ControllerNode(LifecycleNode):
             overrides["integral_limit"] = float(values["integral_limit"])
         limits = list(values["rate_limits"])
         if limits:
-            overrides["rate_limits"] = tuple(math.inf if v <= 0 else float(v) for v in limits)
+            overrides["rate_limits"] = tuple(math.inf if v == 0 else float(v) for v in limits)
         if values.get("safe_command", "artifact") != "artifact":
             overrides["safe_kind"] = values["safe_command"]
             if values["safe_command"] == "fixed":
@@ -259,37 +272,60 @@ class ControllerNode(LifecycleNode):
         return overrides
 
     def _on_set_parameters(self, parameters) -> SetParametersResult:
-        """Thresholds may change at any time, checked as a whole; topics and the artifact are read-only."""
+        """Watchdog settings may change at any time; topics, the artifact and the clock may not.
+
+        Every call is checked as a whole (the ordering of the sigma levels included); to
+        change several settings that depend on each other, set them in one atomic call
+        (``set_parameters_atomically``), or in an order that keeps every step valid.
+        """
         changed = {p.name: p.value for p in parameters}
-        unknown_static = [n for n in changed if n not in DYNAMIC and n in self.params]
-        if unknown_static:
-            return SetParametersResult(successful=False,
-                                       reason=f"{unknown_static[0]} cannot change while the node runs")
+        if "use_sim_time" in changed and self.core is not None:
+            return SetParametersResult(successful=False, reason="use_sim_time can change only while unconfigured")
+        static = [n for n in changed if n not in DYNAMIC and n in self.params]
+        if static:
+            return SetParametersResult(successful=False, reason=f"{static[0]} cannot change while the node runs")
+        limits = changed.get("rate_limits")
+        if limits is not None and any(v < 0 for v in limits):
+            return SetParametersResult(successful=False, reason="rate_limits must be >= 0 (0: no limit)")
+        values = dict(self.params, **changed)
+        levels = [(k, values[k]) for k in ("sigma_warn", "sigma_act", "sigma_stop") if values[k] != _UNSET]
+        for (high_key, high), (low_key, low) in zip(levels, levels[1:]):
+            if low > high:
+                return SetParametersResult(successful=False, reason=f"{low_key} {low:g} is above {high_key} {high:g}; "
+                                                                    "expected sigma_warn >= sigma_act >= sigma_stop")
         if self.core is None:
             self.params.update(changed)
             return SetParametersResult(successful=True)
-        values = dict(self.params, **changed)
         try:
             config = WatchdogConfig.from_artifact(self.core.artifact, **self._watchdog_overrides(values))
         except LinzError as err:
             return SetParametersResult(successful=False, reason=str(err))
         self.params.update(changed)
+        stale_changed = config.stale_after != self.core.config.stale_after
         self.core.config = config
+        if stale_changed and self._owned_timers:           # re-arm the staleness check at the new period
+            for timer in self._owned_timers:
+                self.destroy_timer(timer)
+            self._owned_timers = [self._stale_timer(config.stale_after)]
         self.get_logger().info(f"watchdog settings changed: {', '.join(sorted(changed))}")
         return SetParametersResult(successful=True)
 
     # -- lifecycle -------------------------------------------------------------------------
     def _autostart(self) -> None:
         self.destroy_timer(self._autostart_timer)
+        if self._autostarted:        # a zero-period timer can fire twice before it is destroyed
+            return
+        self._autostarted = True
         if self.trigger_configure() == TransitionCallbackReturn.SUCCESS:
             self.trigger_activate()
 
     def on_configure(self, state: LifecycleState) -> TransitionCallbackReturn:
         try:
             self._configure()
-        except (LinzError, OSError) as err:
-            self.configure_error = str(err)
-            self.get_logger().error(f"configure refused: {err}")
+        except Exception as err:  # noqa: BLE001 - a bad parameter (topic name, ...) must be refused, not lost
+            detail = str(err).splitlines()[0] if str(err) else type(err).__name__
+            self.configure_error = detail if isinstance(err, (LinzError, OSError)) else f"{type(err).__name__}: {detail}"
+            self.get_logger().error(f"configure refused: {self.configure_error}")
             self._release()
             return TransitionCallbackReturn.FAILURE
         self.configure_error = ""
@@ -324,7 +360,11 @@ class ControllerNode(LifecycleNode):
         if self.reference.spec == "topic":
             self._owned_subscriptions.append(self.create_subscription(Float64MultiArray, p["reference_topic"],
                                                                 self._on_reference, qos))
-        self._owned_timers = [self.create_timer(max(core.config.stale_after / 2.0, 1e-3), self._check_stale)]
+        self._owned_timers = [self._stale_timer(core.config.stale_after)]
+
+    def _stale_timer(self, stale_after: float):
+        """The staleness check, every stale_after / 2 on a steady clock (it must run when time stops)."""
+        return self.create_timer(max(stale_after / 2.0, 1e-3), self._check_stale, clock=self._steady)
 
     def on_activate(self, state: LifecycleState) -> TransitionCallbackReturn:
         self.core.reset()
@@ -341,6 +381,11 @@ class ControllerNode(LifecycleNode):
 
     def on_cleanup(self, state: LifecycleState) -> TransitionCallbackReturn:
         self._release()
+        return TransitionCallbackReturn.SUCCESS
+
+    def on_error(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self.get_logger().error("lifecycle error: safe command, releasing everything")
+        self.shutdown_safely()
         return TransitionCallbackReturn.SUCCESS
 
     def on_shutdown(self, state: LifecycleState) -> TransitionCallbackReturn:
@@ -369,6 +414,9 @@ class ControllerNode(LifecycleNode):
     # -- the loop -------------------------------------------------------------------------
     def _now(self) -> float:
         return self.get_clock().now().nanoseconds * 1e-9
+
+    def _steady_now(self) -> float:
+        return self._steady.now().nanoseconds * 1e-9
 
     def _on_reference(self, message: Float64MultiArray) -> None:
         if not self.reference.accept(message.data, self._now()):
@@ -400,26 +448,33 @@ class ControllerNode(LifecycleNode):
             self.get_logger().warning(f"state message rejected ({err.reason}): {err.detail}",
                                       throttle_duration_sec=2.0)
             u, record = self.core.safe_step(now, "bad_message")
-            self._publish(u, record, stamp)
+            self._publish(u, record, now)
             return
         ref = self.reference.sample(x, now)
         if self.reference.stale:
-            self.window.reference_stale += 1
+            if self.reference.latest is None:
+                self.window.reference_missing += 1
+            else:
+                self.window.reference_stale += 1
         u, record = self.core.step(x, ref, stamp, now)
-        if record.reason not in ("ok", "near_singular", "singular"):
+        accepted = record.reason in ("ok", "near_singular", "singular")
+        if accepted:
+            self._last_state_steady = self._steady_now()
+        else:
             self.window.rejected += record.reason != "stale"
             self.window.stale += record.reason == "stale"
             self.get_logger().warning(f"state refused ({record.reason}): stamp {stamp:.6f} s, now {now:.6f} s; "
                                       "safe command", throttle_duration_sec=2.0)
-        self._publish(u, record, stamp)
+        # a command computed from a state carries its stamp (traceable); a refusal is stamped now
+        self._publish(u, record, stamp if accepted else now)
 
     def _check_stale(self) -> None:
         if not self.active or self.core is None:
             return
         now = self._now()
-        if now == 0.0:          # simulated time has not started
-            return
-        if self.core.is_stale(now) and self.core.last_t is not None:
+        steady_gap = (self._steady_now() - self._last_state_steady) if self._last_state_steady is not None else 0.0
+        stale_by_stamp = now != 0.0 and self.core.is_stale(now)     # now == 0: simulated time not started
+        if self.core.last_t is not None and (stale_by_stamp or steady_gap > self.core.config.stale_after):
             self.window.stale += 1
             u, record = self.core.safe_step(now, "stale")
             self._publish(u, record, now)
@@ -443,7 +498,7 @@ class ControllerNode(LifecycleNode):
     def _publish_safe(self, why: str) -> None:
         if self.core is None or self._command_pub is None:
             return
-        u, record = self.core.safe_step(self._now(), "no_state")
+        u, record = self.core.safe_step(self._now(), "no_state", final=True)
         command = self.command_map.write(u, self.command_map.cls())
         set_stamp(command, self._now())
         self._command_pub.publish(command)

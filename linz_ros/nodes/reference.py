@@ -72,7 +72,8 @@ class ReferenceNode(Node):
         self.reference = parse_reference(spec, orders, list(base), artifact.outputs)
         self.labels = reference_labels(artifact.outputs, orders)
         self.publisher = self.create_publisher(type(labelled_array([], [])), topic, control_qos())
-        self.start = self._now()
+        now = self._now()
+        self.start = now if now > 0.0 else None     # simulated time: latched at the first real reading
         self.create_timer(1.0 / rate, self._tick)
         self.get_logger().info(f"reference {spec!r} for {', '.join(artifact.outputs)} at {rate:g} Hz")
 
@@ -80,7 +81,12 @@ class ReferenceNode(Node):
         return self.get_clock().now().nanoseconds * 1e-9
 
     def _tick(self) -> None:
-        self.publisher.publish(labelled_array(self.reference.sample(self._now() - self.start), self.labels))
+        now = self._now()
+        if self.start is None:
+            if now == 0.0:
+                return                   # no /clock yet: nothing sensible to publish
+            self.start = now
+        self.publisher.publish(labelled_array(self.reference.sample(now - self.start), self.labels))
 
 
 def main(args: Sequence[str] | None = None) -> int:

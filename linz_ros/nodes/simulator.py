@@ -78,6 +78,7 @@ class PlantSimulatorNode(Node):
         self.frozen: Any = None
         self.last_tick = None
         self.commands = 0
+        self.applied = 0
         self.rejected = 0
         qos = control_qos()
         self.state_pub = self.create_publisher(self.state_map.cls, p["state_topic"], qos)
@@ -149,6 +150,7 @@ class PlantSimulatorNode(Node):
     def _apply_due_commands(self, now: float) -> None:
         while self.pending and self.pending[0][0] <= now:
             self.u = self.pending.popleft()[1]
+            self.applied += 1
 
     def _tick(self) -> None:
         now = self._now()
@@ -160,7 +162,7 @@ class PlantSimulatorNode(Node):
             dt = self.period if self.last_tick is None else min(max(now - self.last_tick, 0.0), 5 * self.period)
         self.last_tick = now
         self._apply_due_commands(now)
-        braked = self.p["brake_until_command"] and self.commands == 0
+        braked = self.p["brake_until_command"] and self.applied == 0     # released by the first applied command
         if not braked:
             try:
                 self.x = self.plant.rk4(self.x, self.u, dt / self.p["substeps"], self.p["substeps"])

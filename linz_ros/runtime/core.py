@@ -71,10 +71,11 @@ class WatchdogConfig:
         Freeze the integrators on steps that saturate or leave the nominal mode.
     max_dt : float
         Longest interval credited to the integrators in one step (seconds).
-    future_tolerance : float
+    future_tolerance : float or None
         A stamp up to this far ahead of ``now`` is accepted (clock skew between machines,
         ``/clock`` arriving after the state in simulated time); further ahead it is
-        refused, so one wrong stamp cannot block the states that follow for long.
+        refused, so one wrong stamp cannot block the states that follow for longer than
+        this. None: the same as ``stale_after``.
     """
 
     sigma_warn: float
@@ -90,7 +91,7 @@ class WatchdogConfig:
     integral_limit: float = math.inf
     anti_windup: bool = True
     max_dt: float = 0.1
-    future_tolerance: float = 0.5
+    future_tolerance: float | None = None
 
     @classmethod
     def from_artifact(cls, artifact: Artifact, **overrides: Any) -> "WatchdogConfig":
@@ -160,12 +161,15 @@ class WatchdogConfig:
             Naming the first setting that is wrong.
         """
         m = len(self.input_limits)
+        if self.future_tolerance is not None and not (_is_real(self.future_tolerance)
+                                                      and 0 <= self.future_tolerance < math.inf):
+            raise ConfigError("future_tolerance", f"expected None or a finite number >= 0, got {self.future_tolerance!r}")
         for key in ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "hold_time", "max_dt",
-                    "integral_limit", "future_tolerance"):
+                    "integral_limit"):
             value = getattr(self, key)
             if isinstance(value, bool) or not isinstance(value, (int, float)) or math.isnan(value) or value < 0:
                 raise ConfigError(key, f"expected a number >= 0, got {value!r}")
-        for key in ("sigma_warn", "sigma_act", "sigma_stop", "stale_after", "hold_time", "future_tolerance"):
+        for key in ("sigma_warn", "sigma_act", "sigma_stop", "stale_after", "hold_time"):
             if not _isfinite(getattr(self, key)):
                 raise ConfigError(key, f"expected a finite number, got {getattr(self, key)!r}")
         if not (_isfinite(self.damping) and self.damping > 0):
@@ -386,7 +390,7 @@ class ControllerCore:
             return self._refuse("out_of_order", t, start, now)
         if now - t > config.stale_after:
             return self._refuse("stale", t, start, now)
-        if t - now > config.future_tolerance:
+        if t - now > (config.stale_after if config.future_tolerance is None else config.future_tolerance):
             # a stamp from the future would be kept as the newest and block every real state
             return self._refuse("future_stamp", t, start, now)
         try:
@@ -445,7 +449,7 @@ class ControllerCore:
                             tuple(saturated), time.perf_counter() - start)
         return u, record
 
-    def safe_step(self, now: float, reason: str = "no_state") -> tuple[list[float], StepRecord]:
+    def safe_step(self, now: float, reason: str = "no_state", final: bool = False) -> tuple[list[float], StepRecord]:
         """The safe command when no usable state arrived (a node's timer calls this).
 
         Parameters
@@ -454,12 +458,17 @@ class ControllerCore:
             Current time, seconds.
         reason : str
             One of :data:`REASONS`, recorded.
+        final : bool
+            The last command before the controller stops (deactivate, shutdown): never the
+            held one, which a driver would keep applying; zero or the fixed command.
 
         Returns
         -------
         command : list of float
         record : StepRecord
         """
+        if final:
+            self.last_good_t = None          # nothing left to hold
         return self._refuse(reason, now, time.perf_counter(), now)
 
     def is_stale(self, now: float) -> bool:

@@ -1,6 +1,7 @@
 """Over real DDS: the managed controller's transitions, a refused configure, parameter changes."""
 
 import math
+import time
 
 from lifecycle_msgs.msg import Transition
 
@@ -110,3 +111,44 @@ def test_bad_parameters_are_one_line_and_never_a_traceback(bringup, arm_artifact
     assert bringup.wait_for_log("linz_controller", "configure refused:", timeout=30)
     assert "state_fields: expected 4 field paths, one per entry, got 1" in controller.log_text()
     assert controller.alive()                    # still up, unconfigured, saying why on /diagnostics
+
+
+def test_a_bad_topic_name_or_parameter_file_is_refused_with_one_line(bringup, arm_artifact, tmp_path):
+    path, artifact = arm_artifact
+    controller = bringup.start("linz_controller", PARAMS, {"artifact": str(path), "state_topic": "bad topic",
+                                                           "diagnostics_period": 0.2})
+    assert bringup.wait_for_log("linz_controller", "configure refused:", timeout=30)
+    assert "InvalidTopicNameException" in controller.log_text() and controller.alive()
+    probe = Probe(artifact, ARM_TOPICS)
+    try:
+        assert wait_until(lambda: any("not configured: InvalidTopicNameException" in m
+                                      for _, _, m, _ in probe.recording.diagnostics), timeout=5, node=probe)
+        assert probe.recording.commands == []
+    finally:
+        probe.destroy_node()
+    broken = tmp_path / "broken.yaml"
+    broken.write_text("/linz_controller:\n  ros__parameters: [not, a, mapping\n")
+    sim = bringup.start("linz_plant_sim", broken, {"artifact": str(path)})
+    assert sim.process.wait(timeout=30) == 2
+    text = sim.log_text()
+    ours = [line for line in text.splitlines() if line.startswith("linz_plant_sim:")]
+    assert "Traceback" not in text and len(ours) == 1 and "Cannot have a value before ros__parameters" in ours[0]
+
+
+def test_a_new_stale_after_takes_effect_at_once_and_the_clock_cannot_change(bringup, arm_artifact):
+    path, artifact = arm_artifact
+    bringup.start("linz_controller", PARAMS, {"artifact": str(path), "reference": "hold", "stale_after": 5.0})
+    assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
+    probe = Probe(artifact, ARM_TOPICS)
+    try:
+        ok, reason = probe.set_parameter("use_sim_time", True)
+        assert not ok and "only while unconfigured" in reason
+        _feed(probe, 0.3)
+        ok, reason = probe.set_parameter("stale_after", 0.25)
+        assert ok, reason
+        stopped = time.monotonic()
+        assert wait_until(lambda: probe.steps()[-1]["reason"] == "stale", timeout=5, node=probe)
+        stale_at = next(s["received"] for s in probe.steps() if s["reason"] == "stale")
+        assert stale_at - stopped < 0.25 * 1.5 + 0.3            # the timer was re-armed at the new period
+    finally:
+        probe.destroy_node()

@@ -6,12 +6,8 @@ built this package; elsewhere it is skipped with the reason, and
 tests/integration/test_dds_lifecycle.py covers the same transitions over real DDS.
 """
 
-import subprocess
-import sys
-import tempfile
 import time
 import unittest
-from pathlib import Path
 
 import pytest
 
@@ -22,28 +18,19 @@ launch_testing = pytest.importorskip(
 import launch  # noqa: E402
 import launch_testing.actions  # noqa: E402
 import rclpy  # noqa: E402
-from ament_index_python.packages import get_package_share_directory  # noqa: E402
 from launch.actions import IncludeLaunchDescription  # noqa: E402
 from launch.launch_description_sources import PythonLaunchDescriptionSource  # noqa: E402
 from lifecycle_msgs.msg import Transition  # noqa: E402
 from lifecycle_msgs.srv import ChangeState, GetState  # noqa: E402
+from launch_artifact import build_artifact, share  # noqa: E402
 from sensor_msgs.msg import JointState  # noqa: E402
-
-SHARE = Path(get_package_share_directory("linz_ros"))
-WORK = Path(tempfile.mkdtemp(prefix="linz_launch_test_"))
-
-
-def _artifact() -> Path:
-    subprocess.run([sys.executable, "-m", "linz_ros", "build", str(SHARE / "config" / "plants" / "pick_arm.yaml"),
-                    "-o", str(WORK)], check=True, timeout=300)
-    return WORK / "pick_arm.artifact.json"
 
 
 @pytest.mark.launch_test
 def generate_test_description():
     include = IncludeLaunchDescription(
-        PythonLaunchDescriptionSource(str(SHARE / "launch" / "hardware_bringup.launch.py")),
-        launch_arguments={"artifact": str(_artifact()), "state_topic": "/robot/joints",
+        PythonLaunchDescriptionSource(str(share() / "launch" / "hardware_bringup.launch.py")),
+        launch_arguments={"artifact": str(build_artifact()), "state_topic": "/robot/joints",
                           "command_topic": "/robot/efforts"}.items())
     return launch.LaunchDescription([include, launch_testing.actions.ReadyToTest()])
 

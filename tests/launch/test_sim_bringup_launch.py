@@ -7,12 +7,8 @@ covers the same scenario by starting the same executables with the same paramete
 as OS processes over real DDS.
 """
 
-import subprocess
-import sys
-import tempfile
 import time
 import unittest
-from pathlib import Path
 
 import pytest
 
@@ -24,26 +20,17 @@ import launch  # noqa: E402
 import launch_testing.actions  # noqa: E402
 import launch_testing.asserts  # noqa: E402
 import rclpy  # noqa: E402
-from ament_index_python.packages import get_package_share_directory  # noqa: E402
 from launch.actions import IncludeLaunchDescription  # noqa: E402
 from launch.launch_description_sources import PythonLaunchDescriptionSource  # noqa: E402
+from launch_artifact import build_artifact, share  # noqa: E402
 from std_msgs.msg import Float64MultiArray  # noqa: E402
-
-SHARE = Path(get_package_share_directory("linz_ros"))
-WORK = Path(tempfile.mkdtemp(prefix="linz_launch_test_"))
-
-
-def _artifact() -> Path:
-    subprocess.run([sys.executable, "-m", "linz_ros", "build", str(SHARE / "config" / "plants" / "pick_arm.yaml"),
-                    "-o", str(WORK)], check=True, timeout=300)
-    return WORK / "pick_arm.artifact.json"
 
 
 @pytest.mark.launch_test
 def generate_test_description():
     include = IncludeLaunchDescription(
-        PythonLaunchDescriptionSource(str(SHARE / "launch" / "sim_bringup.launch.py")),
-        launch_arguments={"plant": "pick_arm", "artifact": str(_artifact())}.items())
+        PythonLaunchDescriptionSource(str(share() / "launch" / "sim_bringup.launch.py")),
+        launch_arguments={"plant": "pick_arm", "artifact": str(build_artifact())}.items())
     return launch.LaunchDescription([include, launch_testing.actions.ReadyToTest()])
 
 
