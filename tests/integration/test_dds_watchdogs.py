@@ -160,7 +160,8 @@ def test_noise_drops_delay_and_mismatch_degrade_but_do_not_break_tracking(bringu
         result = probe.to_result()
     finally:
         probe.destroy_node()
-    assert set(result.mode) == {"nominal"}, result.summary()["reasons"]
+    reasons = result.summary()["reasons"]
+    assert set(reasons) <= {"ok", "stale"} and reasons.get("stale", 0) <= 0.005 * len(result.t), reasons
     assert 0.6 < len(probe.recording.states) / len(result.t) / 0.8 < 1.6      # about a fifth of the states dropped
     errors = np.abs(result.errors()[len(result.t) // 5:])
     # the 5 % heavier forearm is a gravity error the PD outer loop leaves as an offset (no integral
