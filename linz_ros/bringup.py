@@ -57,7 +57,8 @@ def executable(name: str) -> list[str]:
     return [sys.executable, "-m", EXECUTABLES[name]]
 
 
-def isolated_environment(domain_id: int | None = None, base: Mapping[str, str] | None = None) -> dict[str, str]:
+def isolated_environment(domain_id: int | None = None, base: Mapping[str, str] | None = None,
+                         loopback_only: bool = True) -> dict[str, str]:
     """An environment with its own DDS domain and localhost-only discovery.
 
     Parameters
@@ -66,6 +67,8 @@ def isolated_environment(domain_id: int | None = None, base: Mapping[str, str] |
         0..101; random when not given.
     base : mapping, optional
         Start from this environment (``os.environ`` by default).
+    loopback_only : bool
+        Use Fast DDS's UDP transport only (no shared memory), which survives killed nodes.
 
     Returns
     -------
@@ -78,6 +81,10 @@ def isolated_environment(domain_id: int | None = None, base: Mapping[str, str] |
         raise ConfigError("domain_id", f"expected 0..101, got {domain_id}")
     env["ROS_DOMAIN_ID"] = str(domain_id)
     env["ROS_AUTOMATIC_DISCOVERY_RANGE"] = "LOCALHOST"
+    if loopback_only:
+        # UDP over loopback only: Fast DDS's shared-memory segments outlive a node killed with
+        # SIGKILL, and a later participant that lands on such a stale port can miss a topic entirely
+        env["FASTDDS_BUILTIN_TRANSPORTS"] = "UDPv4"
     env.setdefault("RCUTILS_LOGGING_BUFFERED_STREAM", "1")
     env["PYTHONUNBUFFERED"] = "1"
     return env

@@ -437,12 +437,7 @@ def _noise(artifact, items: list[str]) -> list[float] | None:
 def _reference(artifact, args: argparse.Namespace, x0: list[float]):
     from linz_ros.runtime import ControllerCore, parse_reference
 
-    core = ControllerCore(artifact)
-    chain = core.outputs(x0)
-    base, k = [], 0
-    for r in artifact.relative_degree:
-        base.append(chain[k])
-        k += r
+    base = ControllerCore(artifact).output_values(x0)
     text = args.reference or artifact.document["design"].get("reference") or "hold"
     try:
         return parse_reference(text, artifact.relative_degree, base, artifact.outputs)
@@ -625,7 +620,8 @@ def _demo_bringup(artifact_path: Path, params: Path, out: Path, seconds: float) 
                       str(c["command_topic"]), str(c["command_type"]), list(c.get("command_fields", [])),
                       str(c["reference_topic"]))
     env = isolated_environment()
-    os.environ.update({k: env[k] for k in ("ROS_DOMAIN_ID", "ROS_AUTOMATIC_DISCOVERY_RANGE")})
+    os.environ.update({k: env[k] for k in ("ROS_DOMAIN_ID", "ROS_AUTOMATIC_DISCOVERY_RANGE",
+                                           "FASTDDS_BUILTIN_TRANSPORTS")})
     print(f"  isolated DDS domain {env['ROS_DOMAIN_ID']}, localhost only; node logs in {out}")
     with recording(artifact, topics) as recorder, Bringup(out, env) as bringup:
         for executable in ("linz_plant_sim", "linz_reference", "linz_controller"):

@@ -20,7 +20,7 @@ def test_tracking_error_follows_the_designed_error_dynamics(name):
     amplitude, duration = STEPS[name]
     core = ControllerCore(artifact)
     x0 = [artifact.document["plant"]["operating_point"][s] for s in artifact.states]
-    base = [core.outputs(x0)[2 * i] for i in range(2)]
+    base = core.output_values(x0)
     reference = make_reference("step", artifact.relative_degree, base, amplitude, at=0.0)
     result = simulate(artifact, SimSettings(duration=duration, reference=reference))
     assert result.diverged_at is None and set(result.mode) == {"nominal"}
@@ -79,7 +79,7 @@ def test_rk4_and_adaptive_integrators_agree():
     artifact = built_artifact(BUNDLED / "pick_arm.yaml")
     core = ControllerCore(artifact)
     x0 = [0.4, 1.2, 0.0, 0.0]
-    reference = make_reference("smooth", [2, 2], [core.outputs(x0)[0], core.outputs(x0)[2]], 0.05, duration=1.0)
+    reference = make_reference("smooth", [2, 2], core.output_values(x0), 0.05, duration=1.0)
     rk4 = simulate(artifact, SimSettings(duration=1.5, reference=reference))
     adaptive = simulate(artifact, SimSettings(duration=1.5, reference=reference, integrator="scipy"))
     np.testing.assert_allclose(rk4.x, adaptive.x, atol=1e-8)

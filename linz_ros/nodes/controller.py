@@ -35,13 +35,16 @@ from linz_ros.runtime import MODES, REASONS, ControllerCore, WatchdogConfig, par
 
 __all__ = ["ControllerNode", "main", "CONDITIONING_FIELDS", "DiagnosticWindow"]
 
-#: Labels of the per-step conditioning message, in order (then one ``u.<input>`` per input).
+#: Labels of the per-step conditioning message, in order; then ``y.<output>`` and ``ref.<output>`` (the
+#: output and its reference, nan when the state was refused) and ``u.<input>`` (the command).
 CONDITIONING_FIELDS = ("t", "sigma_min", "condition", "mode", "reason", "damping", "compute_time_us",
                        "saturated_mask", "warn")
 #: Watchdog settings that may change while the node is active.
 DYNAMIC = ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "hold_time", "integral_limit",
            "rate_limits")
 _UNSET = -1.0
+#: In simulated time a state may be stamped ahead of the last /clock this node has handled.
+SIM_TIME_FUTURE_TOLERANCE = 0.5
 _MODE_CODE = {m: float(i) for i, m in enumerate(MODES)}
 _REASON_CODE = {r: float(i) for i, r in enumerate(REASONS)}
 
@@ -157,12 +160,7 @@ class _ReferenceSource:
     def sample(self, x: Sequence[float], now: float) -> list[float]:
         if self.spec != "topic":
             if self.generator is None:
-                chain = self.core.outputs(x)
-                base, k = [], 0
-                for r in self.core.orders:
-                    base.append(chain[k])
-                    k += r
-                self.generator = parse_reference(self.spec, self.core.orders, base, self.outputs)
+                self.generator = parse_reference(self.spec, self.core.orders, self.core.output_values(x), self.outputs)
             if self.origin is None and now > 0.0:
                 self.origin = now
             return self.generator.sample(now - (self.origin if self.origin is not None else now))
@@ -249,6 +247,9 @@ class ControllerNode(LifecycleNode):
             p[name] = declare(self, name, _UNSET, f"{text}; -1: the artifact's value", minimum=-1.0)
         p["rate_limits"] = declare(self, "rate_limits", [], "per input, units per second (0: none); "
                                    "empty: the artifact's", array_of=float)
+        p["future_tolerance"] = declare(self, "future_tolerance", _UNSET, "accept stamps this far ahead of now "
+                                        "(s); -1: stale_after, or 0.5 s in simulated time, where /clock and the "
+                                        "states travel apart", read_only=True, minimum=-1.0)
         p["safe_command"] = declare(self, "safe_command", "artifact", "artifact, zero, hold or fixed",
                                     read_only=True)
         p["safe_value"] = declare(self, "safe_value", [], "the fixed safe command, per input", read_only=True,
@@ -265,6 +266,10 @@ class ControllerNode(LifecycleNode):
         limits = list(values["rate_limits"])
         if limits:
             overrides["rate_limits"] = tuple(math.inf if v == 0 else float(v) for v in limits)
+        if values.get("future_tolerance", _UNSET) >= 0:
+            overrides["future_tolerance"] = float(values["future_tolerance"])
+        elif self.get_parameter("use_sim_time").value:
+            overrides["future_tolerance"] = SIM_TIME_FUTURE_TOLERANCE
         if values.get("safe_command", "artifact") != "artifact":
             overrides["safe_kind"] = values["safe_command"]
             if values["safe_command"] == "fixed":
@@ -353,7 +358,10 @@ class ControllerNode(LifecycleNode):
         qos = control_qos()
         self._command_pub = self.create_lifecycle_publisher(self.command_map.cls, p["command_topic"], qos)
         self._conditioning_pub = self.create_lifecycle_publisher(Float64MultiArray, p["conditioning_topic"], qos)
-        self._conditioning_labels = list(CONDITIONING_FIELDS) + [f"u.{u}" for u in artifact.inputs]
+        self._conditioning_labels = (list(CONDITIONING_FIELDS) + [f"y.{y}" for y in artifact.outputs]
+                                     + [f"ref.{y}" for y in artifact.outputs] + [f"u.{u}" for u in artifact.inputs])
+        self._ref_offsets = [sum(r + 1 for r in core.orders[:i]) for i in range(len(core.orders))]
+        self._no_ref = [math.nan] * len(core.orders)
         self._conditioning_message = labelled_array([0.0] * len(self._conditioning_labels), self._conditioning_labels)
         self._command_message = self.command_map.cls()
         self._owned_subscriptions = [self.create_subscription(self.state_map.cls, p["state_topic"], self._on_state, qos)]
@@ -363,8 +371,15 @@ class ControllerNode(LifecycleNode):
         self._owned_timers = [self._stale_timer(core.config.stale_after)]
 
     def _stale_timer(self, stale_after: float):
-        """The staleness check, every stale_after / 2 on a steady clock (it must run when time stops)."""
-        return self.create_timer(max(stale_after / 2.0, 1e-3), self._check_stale, clock=self._steady)
+        """The staleness check, every stale_after / 4 on a steady clock (it must run when time stops).
+
+        rclpy's executor runs ready timers before ready subscriptions, so after the process
+        was held up the check would see an old state while newer ones wait in the queue;
+        two checks in a row must find the state stale before the safe command goes out
+        (at most 1.5 stale_after after the last state).
+        """
+        self._stale_suspect = False
+        return self.create_timer(max(stale_after / 4.0, 1e-3), self._check_stale, clock=self._steady)
 
     def on_activate(self, state: LifecycleState) -> TransitionCallbackReturn:
         self.core.reset()
@@ -460,13 +475,14 @@ class ControllerNode(LifecycleNode):
         accepted = record.reason in ("ok", "near_singular", "singular")
         if accepted:
             self._last_state_steady = self._steady_now()
+            self._stale_suspect = False
         else:
             self.window.rejected += record.reason != "stale"
             self.window.stale += record.reason == "stale"
             self.get_logger().warning(f"state refused ({record.reason}): stamp {stamp:.6f} s, now {now:.6f} s; "
                                       "safe command", throttle_duration_sec=2.0)
         # a command computed from a state carries its stamp (traceable); a refusal is stamped now
-        self._publish(u, record, stamp if accepted else now)
+        self._publish(u, record, stamp if accepted else now, ref if accepted else None)
 
     def _check_stale(self) -> None:
         if not self.active or self.core is None:
@@ -474,13 +490,20 @@ class ControllerNode(LifecycleNode):
         now = self._now()
         steady_gap = (self._steady_now() - self._last_state_steady) if self._last_state_steady is not None else 0.0
         stale_by_stamp = now != 0.0 and self.core.is_stale(now)     # now == 0: simulated time not started
-        if self.core.last_t is not None and (stale_by_stamp or steady_gap > self.core.config.stale_after):
+        stale = self.core.last_t is not None and (stale_by_stamp or steady_gap > self.core.config.stale_after)
+        if not stale:
+            self._stale_suspect = False
+            return
+        if not self._stale_suspect:          # confirm on the next tick, after the queued states ran
+            self._stale_suspect = True
+            return
+        if stale:
             self.window.stale += 1
             u, record = self.core.safe_step(now, "stale")
             self._publish(u, record, now)
             self.get_logger().warning("no fresh state: safe command", throttle_duration_sec=2.0)
 
-    def _publish(self, u: list[float], record, stamp: float) -> None:
+    def _publish(self, u: list[float], record, stamp: float, ref: Sequence[float] | None = None) -> None:
         # the command first (it is what the robot waits for); messages are reused, publish copies them
         command = self.command_map.write(u, self._command_message)
         set_stamp(command, stamp)
@@ -490,9 +513,11 @@ class ControllerNode(LifecycleNode):
         for i, cut in enumerate(record.saturated):
             if cut:
                 mask |= 1 << i
+        y_ref = [ref[k] for k in self._ref_offsets] if ref is not None else self._no_ref
         self._conditioning_message.data = [
             record.t, record.sigma_min, record.condition, _MODE_CODE[record.mode], _REASON_CODE[record.reason],
-            record.damping, record.compute_time * 1e6, float(mask), float(record.warn), *u]
+            record.damping, record.compute_time * 1e6, float(mask), float(record.warn),
+            *(record.outputs or self._no_ref), *y_ref, *u]
         self._conditioning_pub.publish(self._conditioning_message)
 
     def _publish_safe(self, why: str) -> None:

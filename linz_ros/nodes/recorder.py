@@ -67,7 +67,7 @@ class BringupRecorder(Node):
     """
 
     def __init__(self, artifact: Artifact, topics: TopicMap, node_name: str = "linz_recorder",
-                 context: Any = None) -> None:
+                 context: Any = None, states: bool = True) -> None:
         super().__init__(node_name, context=context)
         self.executor_ = SingleThreadedExecutor(context=context)
         self.executor_.add_node(self)
@@ -78,10 +78,11 @@ class BringupRecorder(Node):
                                     "command_fields")
         self.recording = Recording()
         self.callbacks: list[Callable[[str, Any], None]] = []
-        qos = control_qos(100)
-        self.create_subscription(self.state_map.cls, topics.state_topic, self._on_state, qos)
-        self.create_subscription(self.command_map.cls, topics.command_topic, self._on_command, qos)
-        self.create_subscription(Float64MultiArray, topics.reference_topic, self._on_reference, qos)
+        qos = control_qos(1000)         # a deep reader queue: a recorder that falls behind loses nothing
+        if states:       # the per-step record has outputs, reference and command; these add x for the CSV
+            self.create_subscription(self.state_map.cls, topics.state_topic, self._on_state, qos)
+            self.create_subscription(self.command_map.cls, topics.command_topic, self._on_command, qos)
+            self.create_subscription(Float64MultiArray, topics.reference_topic, self._on_reference, qos)
         self.create_subscription(Float64MultiArray, topics.conditioning_topic, self._on_conditioning, qos)
         self.create_subscription(DiagnosticArray, "/diagnostics", self._on_diagnostics, 50)
 
@@ -156,8 +157,9 @@ class BringupRecorder(Node):
     def to_result(self, reference: Reference | None = None) -> SimResult:
         """The recording as a SimResult: one row per conditioning record (one per control step).
 
-        Each step's state is the recorded state message with that stamp (or the latest one
-        received before it), and its reference the latest reference message.
+        Outputs, reference (``y_ref`` only: derivatives left at zero) and command come from
+        the controller's own per-step record; the state is the recorded state message with
+        that stamp (or the latest one received before it; nan when states are not recorded).
 
         Parameters
         ----------
@@ -175,33 +177,26 @@ class BringupRecorder(Node):
         labels = list(CONDITIONING_FIELDS)
         states = self.recording.states
         stamps = {s[1]: s[2] for s in states if s[1] is not None}
-        refs = self.recording.references
+        p = len(core.orders)
         rows = {k: [] for k in ("t", "x", "ref", "y", "u", "s", "c", "mode", "reason", "sat", "ct")}
-        si = ri = 0
+        si = 0
         latest_x = [math.nan] * n
-        latest_ref = [math.nan] * size
+        offsets = [sum(r + 1 for r in core.orders[:i]) for i in range(p)]
         for received, data in self.recording.conditioning:
             while si < len(states) and states[si][0] <= received:
                 latest_x = states[si][2]
                 si += 1
-            while ri < len(refs) and refs[ri][0] <= received:
-                latest_ref = refs[ri][1] if len(refs[ri][1]) == size else latest_ref
-                ri += 1
             t = data[0]
             x = stamps.get(t, latest_x)
             rows["t"].append(t)
             rows["x"].append(list(x))
-            rows["ref"].append(list(latest_ref))
-            try:
-                chain = core.outputs(x)
-            except (ArithmeticError, ValueError):
-                chain = [math.nan] * sum(core.orders)
-            y, k = [], 0
-            for r in core.orders:
-                y.append(chain[k])
-                k += r
-            rows["y"].append(y)
-            rows["u"].append(data[len(labels):len(labels) + m])
+            base = len(labels)
+            rows["y"].append(data[base:base + p])                  # the controller's own outputs and
+            ref = [0.0] * size                                      # reference of the step (y_ref only;
+            for offset, value in zip(offsets, data[base + p:base + 2 * p]):   # derivatives left at zero)
+                ref[offset] = value
+            rows["ref"].append(ref)
+            rows["u"].append(data[base + 2 * p:base + 2 * p + m])
             rows["s"].append(data[1])
             rows["c"].append(data[2])
             rows["mode"].append(MODES[int(data[3])])

@@ -2,7 +2,8 @@
 
 Publishes a labelled ``std_msgs/msg/Float64MultiArray`` ``[y1, y1', ..., y1^(r1), y2, ...]``
 at ``rate`` Hz from a reference spec in the grammar of ``linz sim --reference``; the
-move's times count from the node's start. The base value of each output is its value
+move's times count from the first tick with a subscriber (DDS discovery may take a few
+seconds, and a move that ran before anyone listened would arrive as a jump). The base value of each output is its value
 at the artifact's operating point unless ``base`` is given.
 """
 
@@ -62,18 +63,13 @@ class ReferenceNode(Node):
         orders = artifact.relative_degree
         if not base:
             operating = artifact.document["plant"]["operating_point"]
-            chain = core.outputs([operating[s] for s in artifact.states])
-            base, k = [], 0
-            for r in orders:
-                base.append(chain[k])
-                k += r
+            base = core.output_values([operating[s] for s in artifact.states])
         if len(base) != len(orders):
             raise ConfigError("base", f"expected {len(orders)} values, one per output ({', '.join(artifact.outputs)})")
         self.reference = parse_reference(spec, orders, list(base), artifact.outputs)
         self.labels = reference_labels(artifact.outputs, orders)
         self.publisher = self.create_publisher(type(labelled_array([], [])), topic, control_qos())
-        now = self._now()
-        self.start = now if now > 0.0 else None     # simulated time: latched at the first real reading
+        self.start: float | None = None           # latched at the first tick that has a subscriber
         self.create_timer(1.0 / rate, self._tick)
         self.get_logger().info(f"reference {spec!r} for {', '.join(artifact.outputs)} at {rate:g} Hz")
 
@@ -83,8 +79,13 @@ class ReferenceNode(Node):
     def _tick(self) -> None:
         now = self._now()
         if self.start is None:
+            # the move's times count from when someone listens (discovery can take seconds) and,
+            # in simulated time, from the first /clock; until then the base value is published
             if now == 0.0:
-                return                   # no /clock yet: nothing sensible to publish
+                return
+            if self.publisher.get_subscription_count() == 0:
+                self.publisher.publish(labelled_array(self.reference.sample(-1.0), self.labels))
+                return
             self.start = now
         self.publisher.publish(labelled_array(self.reference.sample(now - self.start), self.labels))
 

@@ -271,7 +271,7 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
                             else [operating[s] for s in artifact.states])]
     reference = settings.reference
     if reference is None:
-        base = [core.outputs(x)[sum(artifact.relative_degree[:i])] for i in range(len(artifact.outputs))]
+        base = core.output_values(x)
         reference = make_reference("hold", artifact.relative_degree, base)
     if reference.size != core.reference_size:
         raise ConfigError("--reference", f"expected a reference for chains of degrees {artifact.relative_degree}")
@@ -347,16 +347,11 @@ def _reference_states(artifact: Artifact, ref: np.ndarray) -> np.ndarray:
 
 
 def _outputs_of(core: ControllerCore, x: Sequence[float]) -> list[float]:
-    """y_i (the first entry of each chain) at the true state."""
+    """y_i at the true state (nan where the model is not defined there)."""
     try:
-        chain = core.outputs(x)
+        return core.output_values(x)
     except (ArithmeticError, ValueError):
         return [math.nan] * len(core.orders)
-    values, k = [], 0
-    for r in core.orders:
-        values.append(chain[k])
-        k += r
-    return values
 
 
 def _advance(plant: NumericPlant, x: list[float], before: list[float], after: list[float], fraction: float,

@@ -225,6 +225,8 @@ class StepRecord:
         Per input, whether a rate or box limit cut the command.
     compute_time : float
         Seconds spent in the step.
+    outputs : tuple of float
+        The outputs y_i at the state (empty when the state was refused).
     """
 
     t: float
@@ -237,6 +239,7 @@ class StepRecord:
     damping: float
     saturated: tuple[bool, ...]
     compute_time: float
+    outputs: tuple[float, ...] = ()
 
 
 class ControllerCore:
@@ -293,6 +296,7 @@ class ControllerCore:
         self._b_slice = slice(slots["b"].offset, slots["b"].offset + slots["b"].size)
         self._chain_offset = slots["chain"].offset
         self._period = 1.0 / artifact.rate
+        self._output_offsets = [sum(self.orders[:i]) for i in range(len(self.orders))]
         # per chain: offset in the law's output, offset in the reference, degree, K_I, K_0..K_(r-1)
         self._layout = []
         k, j = self._chain_offset, 0
@@ -326,12 +330,24 @@ class ControllerCore:
         list of float
             ``[y_i, 0, ..., 0]`` per chain.
         """
-        chain = self.outputs(x)
-        ref, k = [], 0
-        for r in self.orders:
-            ref.extend([chain[k]] + [0.0] * r)
-            k += r
+        ref = []
+        for y, r in zip(self.output_values(x), self.orders):
+            ref.extend([y] + [0.0] * r)
         return ref
+
+    def output_values(self, x: Sequence[float]) -> list[float]:
+        """The outputs ``y_i`` themselves at ``x`` (the first entry of each chain).
+
+        Parameters
+        ----------
+        x : sequence of float
+
+        Returns
+        -------
+        list of float
+        """
+        chain = self.outputs(x)
+        return [chain[k] for k in self._output_offsets]
 
     def outputs(self, x: Sequence[float]) -> list[float]:
         """The chains' values ``y_i, ..., y_i^(r_i - 1)`` at ``x``, flat.
@@ -445,8 +461,10 @@ class ControllerCore:
         self.last_good_command = u
         self._last_errors = errors
         self._integrate_next = not (config.anti_windup and (mode != "nominal" or any(saturated)))
+        k = self._chain_offset
         record = StepRecord(t, tuple(u), mode, reason, sigma_min, condition, warn, damping,
-                            tuple(saturated), time.perf_counter() - start)
+                            tuple(saturated), time.perf_counter() - start,
+                            tuple(values[k + offset] for offset in self._output_offsets))
         return u, record
 
     def safe_step(self, now: float, reason: str = "no_state", final: bool = False) -> tuple[list[float], StepRecord]:

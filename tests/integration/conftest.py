@@ -25,14 +25,12 @@ from dds_harness import ROOT  # noqa: E402
 
 @pytest.fixture(scope="session")
 def domain_id():
-    """One random DDS domain for the session, localhost only; rclpy initialised in it."""
+    """One random DDS domain for the session, localhost only (each probe joins it with a context of its own)."""
     domain = random.SystemRandom().randint(1, 101)
     os.environ["ROS_DOMAIN_ID"] = str(domain)
     os.environ["ROS_AUTOMATIC_DISCOVERY_RANGE"] = "LOCALHOST"
-    rclpy.init(args=[])
+    os.environ["FASTDDS_BUILTIN_TRANSPORTS"] = "UDPv4"      # as isolated_environment gives the nodes
     yield domain
-    if rclpy.ok():
-        rclpy.shutdown()
 
 
 @pytest.fixture(scope="session")

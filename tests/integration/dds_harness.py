@@ -29,13 +29,19 @@ JOINTS = ["shoulder", "elbow"]
 
 
 def wait_until(predicate: Callable[[], bool], timeout: float, node: Any = None, step: float = 0.02) -> bool:
-    """Spin ``node`` (when given) until ``predicate()`` holds or ``timeout`` seconds pass."""
+    """Spin ``node`` (when given) until ``predicate()`` holds or ``timeout`` seconds pass.
+
+    The predicate is evaluated once every ``step`` seconds, not after every callback: a probe
+    that spent its time re-reading its recording would fall behind a 500 Hz topic.
+    """
     end = time.monotonic() + timeout
     while (left := end - time.monotonic()) > 0:
-        if node is not None:
-            node.spin_once(min(step, left))
-        else:
-            time.sleep(min(step, left))
+        slice_end = time.monotonic() + min(step, left)
+        while (remaining := slice_end - time.monotonic()) > 0:
+            if node is not None:
+                node.spin_once(remaining)
+            else:
+                time.sleep(remaining)
         if predicate():
             return True
     return False
@@ -44,13 +50,23 @@ def wait_until(predicate: Callable[[], bool], timeout: float, node: Any = None, 
 class Probe(BringupRecorder):
     """A recorder that can also publish states and call the controller's services."""
 
-    def __init__(self, artifact, topics: TopicMap = ARM_TOPICS, controller: str = "linz_controller") -> None:
-        super().__init__(artifact, topics, node_name="linz_probe")
+    def __init__(self, artifact, topics: TopicMap = ARM_TOPICS, controller: str = "linz_controller",
+                 states: bool = True) -> None:
+        # a DDS participant of its own for every test: nothing discovered by an earlier test lingers
+        self._context = rclpy.Context()
+        rclpy.init(args=[], context=self._context)
+        super().__init__(artifact, topics, node_name="linz_probe", context=self._context, states=states)
         self.state_pub = self.create_publisher(self.state_map.cls, topics.state_topic, control_qos())
         self.controller = controller
+        self._outputs = len(artifact.outputs)
         self.change_client = self.create_client(ChangeState, f"/{controller}/change_state")
         self.get_client = self.create_client(GetState, f"/{controller}/get_state")
         self.parameter_client = self.create_client(SetParameters, f"/{controller}/set_parameters")
+
+    def destroy_node(self) -> None:
+        super().destroy_node()
+        self.executor_.shutdown()
+        self._context.try_shutdown()
 
     def joint_state(self, positions, velocities, stamp: float | None = None, names=JOINTS) -> JointState:
         message = JointState(name=list(names), position=[float(v) for v in positions],
@@ -88,12 +104,15 @@ class Probe(BringupRecorder):
         return result.successful, result.reason
 
     # -- views of the recording ------------------------------------------------------------
-    def steps(self) -> list[dict]:
-        """Conditioning records as dicts (mode and reason as words)."""
+    def steps(self, last: int | None = None) -> list[dict]:
+        """Conditioning records as dicts (mode and reason as words); only the ``last`` ones when given."""
         rows = []
-        for received, data in self.recording.conditioning:
+        records = self.recording.conditioning
+        for received, data in (records if last is None else records[-last:]):
             rows.append({"received": received, "t": data[0], "sigma_min": data[1], "condition": data[2],
-                         "mode": MODES[int(data[3])], "reason": REASONS[int(data[4])], "u": data[9:]})
+                         "mode": MODES[int(data[3])], "reason": REASONS[int(data[4])],
+                         "y": data[9:9 + self._outputs], "ref": data[9 + self._outputs:9 + 2 * self._outputs],
+                         "u": data[9 + 2 * self._outputs:]})
         return rows
 
     def commands_finite(self) -> bool:

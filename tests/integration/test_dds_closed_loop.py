@@ -8,12 +8,19 @@ from dds_harness import CONFIG, Probe, wait_until
 from linz_ros.bringup import node_parameters
 from linz_ros.nodes.recorder import TopicMap
 
-# plant -> (reference for the test, its amplitudes, control steps to record, tracking tolerance)
+# plant -> (reference, its amplitudes, control steps to record, tracking tolerance). The tolerances are a
+# few percent of the move: a topic reference runs at 20-100 Hz, so during the move the controller's
+# y_ref is up to a period old. The moves start 3 s in, after DDS discovery has surely settled (UDP
+# discovery among five participants on this machine can take a second or two).
 BRINGUPS = {
-    "pick_arm": ("smooth:tool_x=-0.05,tool_y=0.04,duration=1.0,at=1.5", [-0.05, 0.04], 1500, 1e-3),
-    "mast_camera": ("smooth:pan_angle=0.3,tilt_angle=-0.2,duration=1.0,at=1.0", [0.3, -0.2], 700, 1e-2),
-    "survey_boat": ("smooth:point_north=0.5,point_east=0.2,duration=2.0,at=1.0", [0.5, 0.2], 260, 2e-2),
+    "pick_arm": ("smooth:tool_x=-0.05,tool_y=0.04,duration=1.0,at=3.0", [-0.05, 0.04], 2500, 2e-3),
+    "mast_camera": ("smooth:pan_angle=0.3,tilt_angle=-0.2,duration=1.0,at=3.0", [0.3, -0.2], 1250, 1e-2),
+    "survey_boat": ("smooth:point_north=0.5,point_east=0.2,duration=2.0,at=3.0", [0.5, 0.2], 360, 3e-2),
 }
+# how the reference reaches the controller: the reference node's topic, or the built-in generator
+# (which starts at activation)
+SOURCES = {("pick_arm", False): "topic", ("pick_arm", True): "built-in", ("mast_camera", False): "topic",
+           ("survey_boat", False): "built-in"}
 
 
 def _topics(plant: str) -> TopicMap:
@@ -43,26 +50,38 @@ def test_the_simulation_bringup_tracks_its_reference(bringup, built, domain_id, 
     path, artifact = built[plant]
     spec, amplitudes, steps, tolerance = BRINGUPS[plant]
     params = CONFIG / f"{plant}.yaml"
-    probe = Probe(artifact, _topics(plant))
+    # the per-step record is enough (and light); not listening to the reference also leaves the
+    # controller its first subscriber, whose arrival starts the move
+    probe = Probe(artifact, _topics(plant), states=False)
     try:
         clock = {"publish_clock": True} if sim_time else {}
+        source = SOURCES[(plant, sim_time)]
+        controller = {"artifact": str(path), "use_sim_time": sim_time, "stale_after": 0.2}
+        if source == "topic":
+            bringup.start("linz_reference", params, {"artifact": str(path), "use_sim_time": sim_time,
+                                                     "reference": spec})
+        else:
+            controller["reference"] = spec
         bringup.start("linz_plant_sim", params, {"artifact": str(path), **clock})
-        bringup.start("linz_reference", params, {"artifact": str(path), "use_sim_time": sim_time, "reference": spec})
-        bringup.start("linz_controller", params, {"artifact": str(path), "use_sim_time": sim_time})
+        # tracking is what this test is about: on a shared two-core machine a state can be late by more
+        # than the bringup's 25 periods, so the staleness limit is wider here (it is tested on its own)
+        bringup.start("linz_controller", params, controller)
         assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
-        assert wait_until(lambda: len(probe.recording.conditioning) > steps, timeout=40, node=probe), \
-            f"only {len(probe.recording.conditioning)} control steps recorded"
+        assert wait_until(lambda: probe.recording.conditioning, timeout=30, node=probe)
+        first = len(probe.recording.conditioning)
+        assert wait_until(lambda: len(probe.recording.conditioning) > first + steps, timeout=40, node=probe), \
+            f"only {len(probe.recording.conditioning) - first} control steps recorded"
         result = probe.to_result()
     finally:
         probe.destroy_node()
     assert all(node.alive() for node in bringup.nodes.values())
     summary = result.summary()
-    # a shared two-core machine may deliver a rare state late (stale, safe for one step); nothing else
-    assert set(summary["reasons"]) <= {"ok", "stale"}, summary["reasons"]
-    assert summary["reasons"].get("stale", 0) <= 0.005 * len(result.t), summary["reasons"]
+    # at start-up the controller may still be handed a few states sent before it subscribed: too old,
+    # refused as stale; from the first accepted one on, every step must be nominal
+    first_ok = result.reason.index("ok")
+    assert first_ok < 10 and set(result.reason[first_ok:]) == {"ok"}, summary["reasons"]
     errors = result.errors()
-    settled = errors[len(errors) // 10:]
+    settled = errors[len(errors) // 20:]
     assert np.nanmax(np.abs(settled)) < tolerance, summary["outputs"]
-    known = result.y[np.all(np.isfinite(result.y), axis=1)]     # steps whose state the probe also saw
-    np.testing.assert_allclose(known[-1] - known[0], amplitudes, atol=5 * tolerance)
-    assert probe.commands_finite()
+    np.testing.assert_allclose(result.y[-1] - result.y[0], amplitudes, atol=5 * tolerance)
+    assert np.all(np.isfinite(result.u))
