@@ -20,7 +20,7 @@ setup(
     python_requires=">=3.10",
     # rclpy and the message packages come from the ROS 2 distribution; never pin them here.
     install_requires=["numpy>=1.24", "scipy>=1.10", "sympy>=1.12", "mpmath>=1.3", "PyYAML>=6.0",
-                      "matplotlib>=3.6", "setuptools"],
+                      "matplotlib>=3.6", "mcap>=1.1", "mcap-ros2-support>=0.5", "setuptools"],
     extras_require={
         # for pip-only machines (CI): the ROS 2 Kilted client library wheels from PyPI
         "ros": [

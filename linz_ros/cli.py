@@ -151,6 +151,8 @@ def _build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--allow-plant-change", action="store_true",
                      help="accept an artifact whose plant file changed since the build")
     sim.add_argument("--json", action="store_true", help="print the summary as one JSON object")
+    sim.add_argument("--field-log", metavar="DIR",
+                     help="also write every step's record to a field log in DIR, as the controller node does")
     _add_design_options(sim)
     sim.set_defaults(run=_run_sim)
 
@@ -164,6 +166,20 @@ def _build_parser() -> argparse.ArgumentParser:
                        help="accept an artifact whose plant file changed since the build")
     bench.add_argument("--json", action="store_true", help="print one JSON object instead of text")
     bench.set_defaults(run=_run_bench)
+
+    logs = verbs.add_parser("logs", help="summarise field logs: near-singular and saturated episodes",
+                            description="Read field logs of the controller node (or bags of its conditioning "
+                                        "topic): near-singular episodes, mode switches, saturation per input, "
+                                        "refused states, compute time; optional CSV, PNG plots and HTML report.")
+    logs.add_argument("paths", metavar="LOG", nargs="+", help="field-log files (.mcap), bags (.mcap, .db3) or "
+                                                              "folders holding them; joined in time order")
+    logs.add_argument("--artifact", metavar="FILE", help="the controller's artifact, for a bag of the "
+                                                         "conditioning topic (a field log carries its own)")
+    logs.add_argument("--json", action="store_true", help="print the summary as one JSON object")
+    logs.add_argument("--csv", metavar="FILE", help="write every record as CSV")
+    logs.add_argument("--plots", metavar="DIR", help="write the PNG plots in DIR")
+    logs.add_argument("--html", metavar="FILE", help="write one self-contained HTML report")
+    logs.set_defaults(run=_run_logs)
 
     demo = verbs.add_parser("demo", help="the whole job on the bundled example",
                             description="Check, build and simulate the bundled pick arm: a nominal move, and a "
@@ -459,7 +475,22 @@ def _run_sim(args: argparse.Namespace) -> int:
         noise=_noise(artifact, args.noise), delay=args.delay, substeps=args.substeps,
         integrator=args.integrator, seed=args.seed)
     show = args.progress if args.progress is not None else sys.stderr.isatty()
-    result = simulate(artifact, settings, progress=_Progress(bool(show), f"sim {artifact.name}"))
+    field_log = None
+    if args.field_log:
+        from linz_ros.runtime import WatchdogConfig
+        from linz_ros.runtime.fieldlog import FieldLogSettings, open_field_log
+
+        config = settings.config or WatchdogConfig.from_artifact(artifact)
+        field_log = open_field_log(FieldLogSettings(Path(args.field_log), prefix=f"{artifact.name}_sim"), artifact,
+                                   config, {k: v for k, v in vars(args).items() if k != "run"},
+                                   source="linz sim")
+    try:
+        result = simulate(artifact, settings, progress=_Progress(bool(show), f"sim {artifact.name}"),
+                          field_log=field_log)
+    finally:
+        status = field_log.close() if field_log is not None else None
+    if status is not None and status.state != "closed":
+        raise ConfigError("--field-log", f"the field log was not written completely: {status.error or status.state}")
     out = Path(args.out or Path(DEFAULT_OUT) / f"{artifact.name}-sim")
     try:
         out.mkdir(parents=True, exist_ok=True)
@@ -474,7 +505,7 @@ def _run_sim(args: argparse.Namespace) -> int:
             files.append(write_artifact(document, out / f"{artifact.name}.artifact.json"))
         summary = result.summary()
         summary["mismatch_percent"] = parse_assignments(args.mismatch, "--mismatch")
-        summary["files"] = [str(f) for f in files]
+        summary["files"] = [str(f) for f in files] + ([str(f) for f in status.files] if status else [])
         (out / "summary.json").write_text(json.dumps(summary, indent=2) + "\n")
     except OSError as err:
         raise ConfigError("--out", f"cannot write to {out}: {err.strerror}") from None
@@ -504,6 +535,51 @@ def _sim_text(summary: dict[str, Any]) -> str:
     lines.extend(f"  note: {note}" for note in summary["notes"])
     lines.append("wrote " + ", ".join(summary["files"]))
     return "\n".join(lines)
+
+
+# -- logs -----------------------------------------------------------------------------------------
+def _run_logs(args: argparse.Namespace) -> int:
+    from linz_ros.logs import plot_log, read_logs, summarise, summary_text, write_csv, write_html
+
+    log = read_logs(args.paths)
+    artifact = _log_artifact(log, args.artifact)
+    summary = summarise(log, artifact)
+    text = summary_text(summary)
+    files: list[Path] = []
+    try:
+        if args.csv:
+            files.append(write_csv(log, args.csv))
+        images = plot_log(log, args.plots, artifact) if args.plots else []
+        files.extend(images)
+        if args.html:
+            if not images:
+                import tempfile
+
+                with tempfile.TemporaryDirectory() as scratch:
+                    files.append(write_html(summary, text, plot_log(log, scratch, artifact), args.html))
+            else:
+                files.append(write_html(summary, text, images, args.html))
+    except OSError as err:
+        raise ConfigError("logs output", f"cannot write {err.filename or ''}: {err.strerror}") from None
+    summary["written"] = [str(f) for f in files]
+    print(json.dumps(summary, indent=2) if args.json else text + ("\nwrote " + ", ".join(map(str, files))
+                                                                    if files else ""))
+    return 0
+
+
+def _log_artifact(log: Any, path: str | None):
+    """The artifact to read a log against: the one given, else the one attached to the log."""
+    from linz_ros.artifact import artifact_from_text, load_artifact
+
+    if path:
+        return load_artifact(path, check_plant=False)
+    if log.artifact_text is None:
+        return None
+    try:
+        return artifact_from_text(log.artifact_text, source=f"{log.files[0]} (attached artifact)")
+    except LinzError as err:
+        log.problems.append(f"the attached artifact is not usable ({err}); plots without the singular set")
+        return None
 
 
 # -- bench ----------------------------------------------------------------------------------------
@@ -592,13 +668,18 @@ def _run_demo(args: argparse.Namespace) -> int:
     if name == DEMO_PLANT and not args.plant:
         print("\n== 4. sim: a reach past the workspace, through the singular set (watchdog at work)")
         _run_sim(_parse_sub(["sim", str(artifact), "-o", str(out / "reach"), "--duration", "4",
-                             "--reference", DEMO_REACH]))
+                             "--reference", DEMO_REACH, "--field-log", str(out / "reach" / "field_log")]))
     params = bundled_params(name)
     if params is None:
         print(f"\n(no bringup parameter file config/{name}.yaml: the ROS 2 step is skipped)")
     elif not args.no_ros:
         print(f"\n== 5. simulation bringup over DDS: simulator, reference and controller nodes ({args.seconds:g} s)")
         _demo_bringup(artifact, params, out / "bringup", args.seconds)
+    logs = [folder for folder in (out / "reach" / "field_log", out / "bringup" / "field_log") if folder.is_dir()]
+    for step, folder in enumerate(logs, start=6):
+        print(f"\n== {step}. logs: what the field log of {folder.parent.name} says")
+        _run_logs(_parse_sub(["logs", str(folder), "--plots", str(folder / "plots"),
+                              "--html", str(folder / "report.html")]))
     print(f"\nall results in {out}")
     return 0
 
@@ -625,7 +706,10 @@ def _demo_bringup(artifact_path: Path, params: Path, out: Path, seconds: float) 
     print(f"  isolated DDS domain {env['ROS_DOMAIN_ID']}, localhost only; node logs in {out}")
     with recording(artifact, topics) as recorder, Bringup(out, env) as bringup:
         for executable in ("linz_plant_sim", "linz_reference", "linz_controller"):
-            bringup.start(executable, params, {"artifact": str(artifact_path.resolve())})
+            overrides = {"artifact": str(artifact_path.resolve())}
+            if executable == "linz_controller":
+                overrides["field_log_folder"] = str((out / "field_log").resolve())
+            bringup.start(executable, params, overrides)
         if not bringup.wait_for_log("linz_controller", "active: commanding", timeout=30):
             raise ConfigError("bringup", "the controller did not become active; see "
                                          f"{bringup.nodes['linz_controller'].log}")

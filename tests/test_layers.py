@@ -26,14 +26,16 @@ ALLOWED = {
     "plotting": {"errors", "artifact", "runtime"},
     "nodes": RUNTIME | {"nodes"},
     "bringup": {"errors"},
+    "logs": RUNTIME | {"logs"},
     "bench": OFFLINE | RUNTIME,
-    "cli": OFFLINE | RUNTIME | {"plotting", "bench", "bringup", "nodes"},
+    "cli": OFFLINE | RUNTIME | {"plotting", "bench", "bringup", "nodes", "logs"},
 }
 # heavy or ROS modules each layer may import at module level (lazy imports inside functions are
 # checked by the subprocess tests below)
 THIRD_PARTY_FORBIDDEN = {"artifact": {"sympy", "scipy", "rclpy", "matplotlib"},
                          "runtime": {"sympy", "rclpy", "matplotlib"},
-                         "nodes": {"sympy", "scipy", "matplotlib"}}
+                         "nodes": {"sympy", "scipy", "matplotlib"},
+                         "logs": {"sympy", "scipy", "rclpy"}}
 ROS_MODULES = {"rclpy", "std_msgs", "sensor_msgs", "geometry_msgs", "nav_msgs", "diagnostic_msgs",
                "lifecycle_msgs", "rosgraph_msgs", "rcl_interfaces", "builtin_interfaces"}
 

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any, Sequence
 
 import numpy as np
@@ -31,22 +32,18 @@ from linz_ros.errors import LinzError
 from linz_ros.nodes._common import EXECUTORS, SAFETY_NOTICE, control_qos, declare, spin_node
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, labelled_array,
                                      message_class, set_stamp, stamp_seconds)
-from linz_ros.runtime import MODES, REASONS, ControllerCore, WatchdogConfig, parse_reference
+from linz_ros.runtime import MODES, ControllerCore, WatchdogConfig, parse_reference
+from linz_ros.runtime.fieldlog import (CONDITIONING_FIELDS, FieldLogSettings, FieldLogWriter, conditioning_labels,
+                                       conditioning_values, open_field_log)
 
 __all__ = ["ControllerNode", "main", "CONDITIONING_FIELDS", "DiagnosticWindow"]
 
-#: Labels of the per-step conditioning message, in order; then ``y.<output>`` and ``ref.<output>`` (the
-#: output and its reference, nan when the state was refused) and ``u.<input>`` (the command).
-CONDITIONING_FIELDS = ("t", "sigma_min", "condition", "mode", "reason", "damping", "compute_time_us",
-                       "saturated_mask", "warn")
 #: Watchdog settings that may change while the node is active.
 DYNAMIC = ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "hold_time", "integral_limit",
            "rate_limits")
 _UNSET = -1.0
 #: In simulated time a state may be stamped ahead of the last /clock this node has handled.
 SIM_TIME_FUTURE_TOLERANCE = 0.5
-_MODE_CODE = {m: float(i) for i, m in enumerate(MODES)}
-_REASON_CODE = {r: float(i) for i, r in enumerate(REASONS)}
 
 
 @dataclass
@@ -196,6 +193,9 @@ class ControllerNode(LifecycleNode):
         self._owned_timers: list[Any] = []
         self._command_pub = None
         self._conditioning_pub = None
+        self.field_log: FieldLogWriter | None = None
+        self.field_log_error = ""
+        self._field_log_reported = (0, 0)
         self.window = DiagnosticWindow(self._now())
         self._diagnostics_pub = self.create_publisher(DiagnosticArray, "/diagnostics", 10)
         self._steady = Clock(clock_type=ClockType.STEADY_TIME)
@@ -250,6 +250,17 @@ class ControllerNode(LifecycleNode):
         p["future_tolerance"] = declare(self, "future_tolerance", _UNSET, "accept stamps this far ahead of now "
                                         "(s); -1: stale_after, or 0.5 s in simulated time, where /clock and the "
                                         "states travel apart", read_only=True, minimum=-1.0)
+        p["field_log_folder"] = declare(self, "field_log_folder", "", "write every step's record to MCAP field "
+                                        "logs in this folder ('': no field log)", read_only=True)
+        p["field_log_max_mb"] = declare(self, "field_log_max_mb", 256.0, "start a new log file at this size (MB; "
+                                        "0: never)", read_only=True, minimum=0.0)
+        p["field_log_max_minutes"] = declare(self, "field_log_max_minutes", 60.0, "start a new log file after "
+                                             "this long (min; 0: never)", read_only=True, minimum=0.0)
+        p["field_log_flush_period"] = declare(self, "field_log_flush_period", 0.5, "close and flush a chunk at "
+                                              "least this often (s; a crash loses at most this much)",
+                                              read_only=True, minimum=0.01, maximum=1.0)
+        p["field_log_queue"] = declare(self, "field_log_queue", 20000, "records that may wait for the disk; more "
+                                       "are dropped and counted", read_only=True, minimum=1)
         p["safe_command"] = declare(self, "safe_command", "artifact", "artifact, zero, hold or fixed",
                                     read_only=True)
         p["safe_value"] = declare(self, "safe_value", [], "the fixed safe command, per input", read_only=True,
@@ -358,8 +369,7 @@ class ControllerNode(LifecycleNode):
         qos = control_qos()
         self._command_pub = self.create_lifecycle_publisher(self.command_map.cls, p["command_topic"], qos)
         self._conditioning_pub = self.create_lifecycle_publisher(Float64MultiArray, p["conditioning_topic"], qos)
-        self._conditioning_labels = (list(CONDITIONING_FIELDS) + [f"y.{y}" for y in artifact.outputs]
-                                     + [f"ref.{y}" for y in artifact.outputs] + [f"u.{u}" for u in artifact.inputs])
+        self._conditioning_labels = conditioning_labels(artifact)
         self._ref_offsets = [sum(r + 1 for r in core.orders[:i]) for i in range(len(core.orders))]
         self._no_ref = [math.nan] * len(core.orders)
         self._conditioning_message = labelled_array([0.0] * len(self._conditioning_labels), self._conditioning_labels)
@@ -369,6 +379,40 @@ class ControllerNode(LifecycleNode):
             self._owned_subscriptions.append(self.create_subscription(Float64MultiArray, p["reference_topic"],
                                                                 self._on_reference, qos))
         self._owned_timers = [self._stale_timer(core.config.stale_after)]
+        self._no_state = [math.nan] * len(artifact.states)
+        self._open_field_log()
+
+    def _open_field_log(self) -> None:
+        """Start the field log when a folder is set; a failure is reported, never fatal."""
+        p = self.params
+        self.field_log_error = ""
+        if not p["field_log_folder"]:
+            return
+        try:
+            settings = FieldLogSettings(Path(p["field_log_folder"]), prefix=self.get_name(),
+                                        max_bytes=int(p["field_log_max_mb"] * 2**20),
+                                        max_seconds=60.0 * p["field_log_max_minutes"],
+                                        flush_period=p["field_log_flush_period"], queue_size=p["field_log_queue"])
+            self.field_log = open_field_log(settings, self.core.artifact, self.core.config, p, self.get_name())
+        except LinzError as err:
+            self.field_log_error = str(err)
+            self.get_logger().error(f"field log not recording (controlling goes on): {err}")
+            return
+        self._field_log_reported = (0, 0)
+        self.get_logger().info(f"field log: {self.field_log.status.path}")
+
+    def _close_field_log(self) -> None:
+        if self.field_log is None:
+            return
+        status = self.field_log.close()
+        self.field_log = None
+        files = ", ".join(str(f) for f in status.files)
+        text = (f"field log {status.state}: {status.written} records in {files}; {status.dropped} dropped, "
+                f"{status.lost} lost")
+        if status.state == "closed" and not status.dropped and not status.lost:
+            self.get_logger().info(text)
+        else:
+            self.get_logger().error(text + (f" ({status.error})" if status.error else ""))
 
     def _stale_timer(self, stale_after: float):
         """The staleness check, every stale_after / 4 on a steady clock (it must run when time stops).
@@ -415,6 +459,7 @@ class ControllerNode(LifecycleNode):
         self._release()
 
     def _release(self) -> None:
+        self._close_field_log()
         for subscription in self._owned_subscriptions:
             self.destroy_subscription(subscription)
         for timer in self._owned_timers:
@@ -482,7 +527,7 @@ class ControllerNode(LifecycleNode):
             self.get_logger().warning(f"state refused ({record.reason}): stamp {stamp:.6f} s, now {now:.6f} s; "
                                       "safe command", throttle_duration_sec=2.0)
         # a command computed from a state carries its stamp (traceable); a refusal is stamped now
-        self._publish(u, record, stamp if accepted else now, ref if accepted else None)
+        self._publish(u, record, stamp if accepted else now, ref if accepted else None, x)
 
     def _check_stale(self) -> None:
         if not self.active or self.core is None:
@@ -503,22 +548,19 @@ class ControllerNode(LifecycleNode):
             self._publish(u, record, now)
             self.get_logger().warning("no fresh state: safe command", throttle_duration_sec=2.0)
 
-    def _publish(self, u: list[float], record, stamp: float, ref: Sequence[float] | None = None) -> None:
+    def _publish(self, u: list[float], record, stamp: float, ref: Sequence[float] | None = None,
+                 x: Sequence[float] | None = None) -> None:
         # the command first (it is what the robot waits for); messages are reused, publish copies them
         command = self.command_map.write(u, self._command_message)
         set_stamp(command, stamp)
         self._command_pub.publish(command)
         self.window.add(record)
-        mask = 0
-        for i, cut in enumerate(record.saturated):
-            if cut:
-                mask |= 1 << i
         y_ref = [ref[k] for k in self._ref_offsets] if ref is not None else self._no_ref
-        self._conditioning_message.data = [
-            record.t, record.sigma_min, record.condition, _MODE_CODE[record.mode], _REASON_CODE[record.reason],
-            record.damping, record.compute_time * 1e6, float(mask), float(record.warn),
-            *(record.outputs or self._no_ref), *y_ref, *u]
+        values = conditioning_values(record, y_ref, u, self._no_ref)
+        self._conditioning_message.data = values
         self._conditioning_pub.publish(self._conditioning_message)
+        if self.field_log is not None:
+            self.field_log.put(values + list(x if x is not None and len(x) == len(self._no_state) else self._no_state))
 
     def _publish_safe(self, why: str) -> None:
         if self.core is None or self._command_pub is None:
@@ -542,10 +584,40 @@ class ControllerNode(LifecycleNode):
             else:
                 status.level, status.message = DiagnosticStatus.OK, "inactive: not commanding"
             status.values = self.window.values(now)
+            self._field_log_diagnostics(status)
         array = DiagnosticArray(status=[status])
         array.header.stamp = self.get_clock().now().to_msg()
         self._diagnostics_pub.publish(array)
         self.window = DiagnosticWindow(now)
+
+
+    def _field_log_diagnostics(self, status: DiagnosticStatus) -> None:
+        """Field-log state in the diagnostics: ERROR when it stopped, WARN when records were dropped."""
+        folder = self.params["field_log_folder"]
+        if not folder:
+            return
+        log = self.field_log
+        if log is None or log.status.state == "failed":
+            why = self.field_log_error if log is None else f"field log stopped: {log.status.error}"
+            status.level = DiagnosticStatus.ERROR
+            status.message = f"{status.message}; {why or 'field log not recording'}"
+        if log is None:
+            status.values.append(KeyValue(key="field_log", value="not recording"))
+            return
+        s = log.status
+        if s.dropped > self._field_log_reported[0]:
+            status.level = max(status.level, DiagnosticStatus.WARN)
+            status.message = f"{status.message}; field log dropped {s.dropped - self._field_log_reported[0]} records"
+            self.get_logger().warning(f"field log behind the loop: {s.dropped} records dropped so far (the gaps "
+                                      "show in the file's sequence numbers)")
+        if s.state == "failed" and s.lost > self._field_log_reported[1]:
+            self.get_logger().error(f"field log stopped ({s.error}): {s.lost} records not recorded",
+                                    throttle_duration_sec=10.0)
+        self._field_log_reported = (s.dropped, s.lost)
+        status.values += [KeyValue(key="field_log", value=str(s.path)), KeyValue(key="field_log_state", value=s.state),
+                          KeyValue(key="field_log_written", value=str(s.written)),
+                          KeyValue(key="field_log_dropped", value=str(s.dropped)),
+                          KeyValue(key="field_log_lost", value=str(s.lost))]
 
 
 def main(args: Sequence[str] | None = None) -> int:

@@ -10,15 +10,17 @@ from __future__ import annotations
 
 import csv
 import math
+import time
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable, Sequence
+from typing import Any, Callable, Sequence
 
 import numpy as np
 
 from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime.core import MODES, ControllerCore, WatchdogConfig
+from linz_ros.runtime.fieldlog import conditioning_values
 from linz_ros.runtime.plant import NumericPlant
 from linz_ros.runtime.reference import Reference, make_reference
 from linz_ros.runtime.transform import Transform
@@ -242,7 +244,7 @@ def _check_settings(artifact: Artifact, settings: SimSettings) -> None:
 
 
 def simulate(artifact: Artifact, settings: SimSettings | None = None,
-             progress: Callable[[float], None] | None = None) -> SimResult:
+             progress: Callable[[float], None] | None = None, field_log: Any = None) -> SimResult:
     """Run the sampled closed loop.
 
     Parameters
@@ -251,6 +253,9 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     settings : SimSettings, optional
     progress : callable, optional
         Called with the fraction done (0..1) every few hundred steps.
+    field_log : FieldLogWriter, optional
+        Every step's record goes to it as the controller node would write it (log times
+        count from the start of the run on the wall clock).
 
     Returns
     -------
@@ -288,11 +293,16 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     commands: list[list[float]] = []
     diverged_at = None
     report_every = max(1, steps // 200)
+    log_start = time.time_ns()
+    ref_offsets = [sum(r + 1 for r in core.orders[:i]) for i in range(len(core.orders))]
     for k in range(steps):
         t = k * T
         measured = list(x) if noise is None else (np.asarray(x) + rng.normal(0.0, noise)).tolist()
         ref = reference.sample(t)
         u, record = core.step(measured, ref, t)
+        if field_log is not None:
+            values = conditioning_values(record, [ref[i] for i in ref_offsets], u, [math.nan] * len(ref_offsets))
+            field_log.put(values + list(measured), log_start + int(round(t * 1e9)))
         commands.append(u)
         records["t"].append(t)
         records["x"].append(list(x))

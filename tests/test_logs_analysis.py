@@ -1,0 +1,129 @@
+"""Episodes, mode switches, saturation, refusals and percentiles of a log built by hand."""
+
+import math
+
+import numpy as np
+import pytest
+
+from linz_ros.logs import StepLog, episodes, runs, summarise
+from linz_ros.logs.analysis import mode_switches, sequence_gaps
+from linz_ros.runtime import MODES, REASONS
+
+LABELS = ["t", "sigma_min", "condition", "mode", "reason", "damping", "compute_time_us", "saturated_mask", "warn",
+          "y.a", "ref.a", "u.f", "u.g", "x.q", "x.w"]
+PERIOD = 0.01
+
+
+def _log(n: int = 100, **columns) -> StepLog:
+    values = np.zeros((n, len(LABELS)))
+    values[:, 0] = PERIOD * np.arange(n)
+    values[:, 1] = 1.0
+    values[:, 2] = 1.0
+    values[:, 6] = 10.0
+    values[:, 13] = np.arange(n)          # x.q marks the record
+    for name, column in columns.items():
+        values[:, LABELS.index(name)] = column
+    return StepLog(list(LABELS), values, values[:, 0] + 1.8e9, np.arange(n), ["hand.mcap"],
+                   {"linz_watchdog": {"sigma_warn": "0.5", "sigma_act": "0.2", "sigma_stop": "0.05"}},
+                   clean_close={"hand.mcap": True})
+
+
+def test_runs_finds_maximal_stretches():
+    assert runs(np.array([0, 1, 1, 0, 1, 0, 0, 1], dtype=bool)) == [(1, 2), (4, 4), (7, 7)]
+    assert runs(np.zeros(3, dtype=bool)) == [] and runs(np.ones(2, dtype=bool)) == [(0, 1)]
+
+
+def test_near_singular_episodes_have_their_start_duration_minimum_and_state():
+    sigma = np.ones(100)
+    sigma[10:20] = np.linspace(0.4, 0.3, 10)
+    sigma[14] = 0.1                              # the worst point of the first episode
+    sigma[50:53] = 0.45
+    log = _log(sigma_min=sigma)
+    found = episodes(log, sigma < 0.5, "under_warn")
+    assert [(e.start, e.records) for e in found] == [(pytest.approx(0.10), 10), (pytest.approx(0.50), 3)]
+    assert found[0].duration == pytest.approx(10 * PERIOD) and found[1].duration == pytest.approx(3 * PERIOD)
+    assert found[0].min_sigma == pytest.approx(0.1) and found[0].worst_time == pytest.approx(0.14)
+    assert found[0].state_at_worst == {"q": 14.0, "w": 0.0}
+    summary = summarise(log)
+    assert summary["near_singular"]["under_warn"]["count"] == 2
+    assert summary["near_singular"]["under_warn"]["total_time"] == pytest.approx(0.13)
+    assert summary["near_singular"]["under_act"]["count"] == 1          # only the 0.1 dip is under 0.2
+    assert summary["thresholds"]["source"] == "recorded in the log"
+    assert summary["min_sigma"] == pytest.approx(0.1)
+
+
+def test_an_episode_at_the_end_of_the_log_lasts_to_one_period_after_its_last_record():
+    sigma = np.ones(20)
+    sigma[17:] = 0.01
+    (e,) = episodes(_log(20, sigma_min=sigma), sigma < 0.5, "under_warn")
+    assert e.duration == pytest.approx(3 * PERIOD)
+
+
+def test_mode_switches_and_time_in_mode():
+    mode = np.zeros(100)
+    mode[30:40] = MODES.index("damped")
+    mode[35:37] = MODES.index("safe")
+    log = _log(mode=mode)
+    assert [(round(t, 2), a, b) for t, a, b in mode_switches(log)] == [
+        (0.30, "nominal", "damped"), (0.35, "damped", "safe"), (0.37, "safe", "damped"), (0.40, "damped", "nominal")]
+    summary = summarise(log)
+    assert summary["time_in_mode"]["damped"] == pytest.approx(0.08)
+    assert summary["time_in_mode"]["safe"] == pytest.approx(0.02)
+    assert summary["mode_switches"]["by_kind"] == {"nominal->damped": 1, "damped->safe": 1, "safe->damped": 1,
+                                                   "damped->nominal": 1}
+
+
+def test_saturation_episodes_per_input_from_the_bit_mask():
+    mask = np.zeros(100)
+    mask[5:10] = 1            # u.f
+    mask[8:12] += 2           # u.g
+    summary = summarise(_log(saturated_mask=mask))
+    assert summary["saturation"]["f"]["count"] == 1 and summary["saturation"]["f"]["fraction"] == pytest.approx(0.05)
+    assert summary["saturation"]["g"]["episodes"][0]["start"] == pytest.approx(0.08)
+    assert summary["saturation"]["g"]["longest"] == pytest.approx(0.04)
+
+
+def test_refused_states_are_grouped_by_reason():
+    reason = np.zeros(100)
+    reason[40:45] = REASONS.index("stale")
+    reason[70] = REASONS.index("non_finite_state")
+    reason[72] = REASONS.index("non_finite_state")
+    summary = summarise(_log(reason=reason))
+    assert summary["refused"]["stale"]["records"] == 5 and summary["refused"]["stale"]["count"] == 1
+    assert summary["refused"]["non_finite_state"]["count"] == 2
+    assert "near_singular" not in summary["refused"]
+
+
+def test_compute_time_percentiles_match_numpy():
+    rng = np.random.default_rng(3)
+    ct = rng.gamma(3.0, 5.0, 100)
+    summary = summarise(_log(compute_time_us=ct))
+    assert summary["compute_time_us"]["p99"] == pytest.approx(np.percentile(ct, 99))
+    assert summary["compute_time_us"]["max"] == pytest.approx(ct.max())
+
+
+def test_sequence_gaps_count_the_missing_records_across_a_wrap():
+    log = _log(10)
+    log.sequence = np.array([0, 1, 2, 5, 6, 2**32 - 1, 0, 1, 3, 4])   # 2 missing, a jump of 2**32-7, ...
+    log.sequence[5:] = [7, 8, 10, 11, 12]
+    assert sequence_gaps(log) == 3
+    wrapped = _log(4)
+    wrapped.sequence = np.array([2**32 - 2, 2**32 - 1, 0, 2])
+    assert sequence_gaps(wrapped) == 1
+
+
+def test_without_recorded_levels_the_controller_flags_are_used():
+    log = _log(warn=np.r_[np.zeros(50), np.ones(5), np.zeros(45)])
+    log.metadata = {}
+    summary = summarise(log)
+    assert summary["thresholds"] is None
+    assert summary["near_singular"]["under_warn"]["count"] == 1
+
+
+def test_the_summary_is_json_ready():
+    import json
+    sigma = np.ones(100)
+    sigma[3] = math.nan
+    summary = summarise(_log(sigma_min=sigma, condition=np.full(100, math.inf)))
+    text = json.dumps(summary, allow_nan=False)
+    assert '"max_condition": null' in text

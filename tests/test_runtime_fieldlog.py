@@ -1,0 +1,201 @@
+"""The field-log writer: the CDR it writes decodes with mcap_ros2, files rotate, a crash loses
+at most one flush period, a full disk stops the recording (never the caller), drops are counted."""
+
+import errno
+import io
+import math
+import shutil
+import time
+
+import numpy as np
+import pytest
+from mcap.reader import make_reader
+from mcap.records import Schema
+from mcap_ros2.decoder import DecoderFactory
+
+from linz_ros.errors import ConfigError
+from linz_ros.logs import read_logs
+from linz_ros.runtime.fieldlog import (FIELD_LOG_SCHEMA, FIELD_LOG_TOPIC, FLOAT64_MULTIARRAY_DEFINITION,
+                                       FieldLogSettings, FieldLogWriter, encode_labelled_array)
+
+LABELS = ["t", "sigma_min", "condition", "mode", "reason", "damping", "compute_time_us", "saturated_mask", "warn",
+          "y.a", "ref.a", "u.f", "x.q", "x.w"]
+
+
+def _decoder():
+    schema = Schema(id=1, name=FIELD_LOG_SCHEMA, encoding="ros2msg", data=FLOAT64_MULTIARRAY_DEFINITION.encode())
+    return DecoderFactory().decoder_for("cdr", schema)
+
+
+@pytest.mark.parametrize("label, values", [("", []), ("a", [1.0]), ("ab,c", [1.5, -2.0, math.inf]),
+                                           ("x" * 37, list(np.linspace(-1, 1, 13)))])
+def test_the_packed_cdr_decodes_with_mcap_ros2(label, values):
+    # reference decoder: mcap-ros2-support's dynamic CDR reader (PyPI mcap-ros2-support)
+    message = _decoder()(encode_labelled_array(label, values))
+    assert message.layout.dim[0].label == label
+    assert message.layout.dim[0].size == len(values) and message.layout.dim[0].stride == len(values)
+    assert message.layout.data_offset == 0
+    np.testing.assert_array_equal(message.data, values)
+
+
+def _row(k: int) -> list[float]:
+    return [0.002 * k, 0.5, 2.0, 0.0, 0.0, 0.0, 12.0, 0.0, 0.0, 0.1, 0.1, -1.0, 0.01 * k, 0.0]
+
+
+def _writer(tmp_path, **settings) -> FieldLogWriter:
+    clock = iter(range(10**6))
+    return FieldLogWriter(FieldLogSettings(tmp_path, prefix="unit", **settings), LABELS,
+                          {"linz_watchdog": {"sigma_warn": "0.3", "sigma_act": "0.2", "sigma_stop": "0.1"}},
+                          {"artifact.json": b"{}"}, wall_clock=lambda: 1.8e9 + next(clock))
+
+
+def test_a_closed_log_reads_back_complete_with_its_metadata(tmp_path):
+    writer = _writer(tmp_path)
+    for k in range(1000):
+        assert writer.put(_row(k), log_time_ns=10**18 + k * 2_000_000)
+    status = writer.close()
+    assert status.state == "closed" and status.written == 1000 and status.dropped == 0
+    with open(status.path, "rb") as stream:
+        reader = make_reader(stream)
+        summary = reader.get_summary()
+        assert summary.statistics.message_count == 1000
+        (channel,) = summary.channels.values()
+        assert channel.topic == FIELD_LOG_TOPIC and summary.schemas[channel.schema_id].name == FIELD_LOG_SCHEMA
+        names = {m.name for m in reader.iter_metadata()}
+    assert {"linz_watchdog", "linz_recording"} <= names
+    log = read_logs([status.path])
+    assert log.labels == LABELS and len(log) == 1000
+    np.testing.assert_allclose(log.column("x.q"), 0.01 * np.arange(1000))
+    np.testing.assert_array_equal(log.sequence, np.arange(1000))
+    assert log.clean_close == {str(status.path): True} and log.artifact_text == "{}"
+    assert log.metadata["linz_recording"]["dropped_total"] == "0"
+
+
+def test_rotation_by_size_gives_self_contained_files_that_join_in_order(tmp_path):
+    writer = _writer(tmp_path, max_bytes=20_000, flush_period=0.01)
+    for k in range(3000):
+        writer.put(_row(k), log_time_ns=10**18 + k * 2_000_000)
+        if k % 200 == 0:
+            time.sleep(0.02)                    # let flushes happen, so the size grows on disk
+    status = writer.close()
+    assert len(status.files) >= 3
+    for path in status.files:                   # every file carries its own schema and metadata
+        log = read_logs([path])
+        assert log.labels == LABELS and "linz_watchdog" in log.metadata
+    joined = read_logs(status.files[::-1])      # any order given: joined in time order
+    assert len(joined) == 3000
+    np.testing.assert_array_equal(joined.sequence, np.arange(3000))
+
+
+def test_rotation_by_time(tmp_path):
+    writer = _writer(tmp_path, max_seconds=0.05, flush_period=0.01)
+    for k in range(40):
+        writer.put(_row(k))
+        time.sleep(0.005)
+    status = writer.close()
+    assert len(status.files) >= 2 and sum(len(read_logs([f])) for f in status.files) == 40
+
+
+def test_after_a_crash_the_log_reads_back_up_to_the_last_flush(tmp_path):
+    writer = _writer(tmp_path, flush_period=0.05)
+    for k in range(500):
+        writer.put(_row(k), log_time_ns=10**18 + k * 2_000_000)
+    time.sleep(0.3)                             # more than a flush period: all 500 are on disk
+    crashed = tmp_path / "crashed.mcap"
+    shutil.copyfile(writer.status.path, crashed)        # what a kill -9 now would leave
+    writer.close()
+    log = read_logs([crashed])
+    assert len(log) == 500
+    assert log.clean_close == {str(crashed): False}
+    assert not log.problems or "truncated" in log.problems[0]
+
+
+def test_a_file_cut_in_the_middle_reads_up_to_the_damage(tmp_path):
+    writer = _writer(tmp_path, flush_period=0.01)
+    for k in range(2000):
+        writer.put(_row(k))
+        if k % 100 == 0:
+            time.sleep(0.015)
+    path = writer.close().path
+    data = path.read_bytes()
+    cut = tmp_path / "cut.mcap"
+    cut.write_bytes(data[: len(data) * 2 // 3])
+    log = read_logs([cut])
+    assert 0 < len(log) < 2000
+    np.testing.assert_array_equal(log.sequence, np.arange(len(log)))      # a clean prefix
+    assert len(log.problems) == 1 and "read up to the damage" in log.problems[0]
+    assert "\n" not in log.problems[0]
+
+
+class _FillingDisk(io.RawIOBase):
+    """A file on a disk that fills after ``room`` bytes."""
+
+    def __init__(self, room: int) -> None:
+        self.room, self.size = room, 0
+
+    def writable(self) -> bool:
+        return True
+
+    def write(self, data) -> int:
+        if self.size + len(data) > self.room:
+            raise OSError(errno.ENOSPC, "No space left on device")
+        self.size += len(data)
+        return len(data)
+
+    def tell(self) -> int:
+        return self.size
+
+    def fileno(self) -> int:
+        raise OSError(errno.EBADF, "not a real file")
+
+
+def test_a_full_disk_stops_the_recording_and_counts_what_was_lost(tmp_path):
+    disk = _FillingDisk(room=60_000)
+    writer = FieldLogWriter(FieldLogSettings(tmp_path, flush_period=0.01), LABELS, {}, opener=lambda path: disk)
+    accepted = 0
+    for k in range(20000):
+        accepted += writer.put(_row(k))
+        if k % 500 == 0:
+            time.sleep(0.02)
+    writer.close()
+    status = writer.status
+    assert status.state == "failed" and "No space left on device" in status.error
+    assert status.written > 0 and status.lost > 0
+    # nothing vanishes unaccounted: every offered record was written, dropped or lost
+    assert status.written + status.dropped + status.lost >= 20000 - 1
+    assert accepted <= 20000
+
+
+def test_an_unwritable_folder_is_a_one_line_error(tmp_path):
+    blocker = tmp_path / "file"
+    blocker.write_text("")
+    with pytest.raises(ConfigError, match="field_log_folder") as caught:
+        FieldLogWriter(FieldLogSettings(blocker / "logs"), LABELS, {})
+    assert "\n" not in str(caught.value)
+
+
+def test_a_full_queue_drops_and_counts_and_the_file_shows_the_gap(tmp_path):
+    writer = _writer(tmp_path, queue_size=10)
+    write = writer._write
+
+    def slow_disk(*item):
+        time.sleep(0.001)
+        write(*item)
+    writer._write = slow_disk
+    results = [writer.put(_row(k)) for k in range(2000)]
+    status = writer.close(timeout=30)
+    log = read_logs([status.path])
+    assert status.dropped > 1000 and status.written + status.dropped == 2000
+    assert len(log) == status.written and results.count(False) == status.dropped
+    # the dropped records are the gaps in the sequence numbers of the file
+    seq = log.sequence
+    assert int(np.sum(np.diff(seq) - 1)) + int(seq[0]) + (1999 - int(seq[-1])) == status.dropped
+
+
+@pytest.mark.parametrize("settings, option", [({"flush_period": 0.0}, "flush_period"),
+                                              ({"flush_period": 2.0}, "flush_period"),
+                                              ({"max_bytes": -1}, "rotation"), ({"queue_size": 0}, "queue"),
+                                              ({"prefix": "a/b"}, "prefix")])
+def test_settings_out_of_range_are_refused(tmp_path, settings, option):
+    with pytest.raises(ConfigError, match=option):
+        FieldLogSettings(tmp_path, **settings)
