@@ -229,3 +229,63 @@ def test_demo_runs_the_whole_job_and_shows_the_watchdog(capsys, tmp_path):
     assert 0 in {d["level"] for d in bringup["diagnostics"]}
     for name in ("linz_controller.log", "linz_plant_sim.log", "run.csv", "outputs.png"):
         assert (tmp_path / "bringup" / name).stat().st_size > 0
+
+
+@pytest.fixture(scope="module")
+def reach_field_log(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("reach_log")
+    code = main(["sim", str(BUNDLED / "pick_arm.yaml"), "-o", str(folder / "run"), "--duration", "3", "--no-plots",
+                 "--reference", "smooth:tool_x=0.12,tool_y=0.16,duration=2,at=0.2", "--field-log",
+                 str(folder / "log")])
+    assert code == 0
+    return folder
+
+
+def test_sim_writes_a_field_log_and_logs_summarises_it(capsys, reach_field_log, tmp_path):
+    capsys.readouterr()
+    code, out, err = _run(capsys, "logs", str(reach_field_log / "log"), "--csv", str(tmp_path / "log.csv"),
+                          "--plots", str(tmp_path / "plots"), "--html", str(tmp_path / "report.html"))
+    assert code == 0, err
+    assert "log of pick_arm: 1501 records" in out and "under the act level" in out
+    assert (tmp_path / "report.html").read_text().count("data:image/png") == 3
+    assert len((tmp_path / "log.csv").read_text().splitlines()) == 1502
+    code, out, _ = _run(capsys, "logs", str(reach_field_log / "log"), "--json")
+    summary = json.loads(out)
+    run = json.loads((reach_field_log / "run" / "summary.json").read_text())
+    # the log and the run's own summary agree
+    assert summary["records"] == run["steps"]
+    assert summary["time_in_mode"]["damped"] == pytest.approx(run["time_in_mode"]["damped"], abs=1e-9)
+    assert summary["min_sigma"] == pytest.approx(run["min_sigma"])
+    assert summary["near_singular"]["under_act"]["count"] >= 2
+
+
+def test_logs_of_a_truncated_file_reads_up_to_the_damage(capsys, tmp_path):
+    from support import built_artifact
+    from linz_ros.runtime import SimSettings, WatchdogConfig, simulate
+    from linz_ros.runtime.fieldlog import FieldLogSettings, open_field_log
+    artifact = built_artifact(BUNDLED / "pick_arm.yaml")
+    writer = open_field_log(FieldLogSettings(tmp_path / "log", flush_period=0.01), artifact,
+                            WatchdogConfig.from_artifact(artifact))
+    simulate(artifact, SimSettings(duration=4.0), field_log=writer)      # many flushes: many chunks
+    data = writer.close().path.read_bytes()
+    cut = tmp_path / "cut.mcap"
+    cut.write_bytes(data[: len(data) // 2])
+    code, out, err = _run(capsys, "logs", str(cut))
+    assert code == 0, err
+    assert "read up to the damage" in out and "not closed cleanly" in out
+
+
+@pytest.mark.parametrize("make, words", [
+    (lambda p: p / "none.mcap", "no such file"),
+    (lambda p: (p / "x.mcap").write_text("not a log") and p / "x.mcap", "not an MCAP file"),
+])
+def test_logs_refuses_bad_files_with_one_line(capsys, tmp_path, make, words):
+    code, out, err = _run(capsys, "logs", str(make(tmp_path)))
+    assert code == 2 and words in err and len(err.strip().splitlines()) == 1
+
+
+def test_sim_refuses_an_unwritable_field_log_folder(capsys, tmp_path):
+    (tmp_path / "file").write_text("")
+    code, out, err = _run(capsys, "sim", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path / "o"),
+                          "--field-log", str(tmp_path / "file" / "log"), "--no-plots")
+    assert code == 2 and "field_log_folder" in err and len(err.strip().splitlines()) == 1

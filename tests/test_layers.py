@@ -137,9 +137,11 @@ def test_public_functions_have_numpy_style_docstrings():
     import linz_ros.geometry as geometry
     import linz_ros.model as model
     import linz_ros.runtime as runtime
+    import linz_ros.logs as logs
+    import linz_ros.runtime.fieldlog as fieldlog
     import linz_ros.synthesis as synthesis
     missing = []
-    for module in (analysis, geometry, model, synthesis, codegen, artifact, runtime):
+    for module in (analysis, geometry, model, synthesis, codegen, artifact, runtime, fieldlog, logs):
         for name in module.__all__:
             obj = getattr(module, name)
             doc = obj.__doc__ or ""

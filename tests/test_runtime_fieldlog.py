@@ -199,3 +199,19 @@ def test_a_full_queue_drops_and_counts_and_the_file_shows_the_gap(tmp_path):
 def test_settings_out_of_range_are_refused(tmp_path, settings, option):
     with pytest.raises(ConfigError, match=option):
         FieldLogSettings(tmp_path, **settings)
+
+
+def test_the_packed_cdr_is_byte_for_byte_what_mcap_ros2_writes(tmp_path):
+    # reference encoder: mcap-ros2-support's Writer (public API); its message bytes read back raw
+    from mcap.reader import make_reader
+    from mcap_ros2.writer import Writer
+    label, values = "t,sigma_min,x.q", [0.25, 1e-3, -2.5]
+    with open(tmp_path / "ref.mcap", "wb") as stream:
+        writer = Writer(stream)
+        schema = writer.register_msgdef(FIELD_LOG_SCHEMA, FLOAT64_MULTIARRAY_DEFINITION)
+        writer.write_message("/x", schema, {"layout": {"dim": [{"label": label, "size": 3, "stride": 3}],
+                                                       "data_offset": 0}, "data": values})
+        writer.finish()
+    with open(tmp_path / "ref.mcap", "rb") as stream:
+        (_, _, message), = make_reader(stream).iter_messages()
+    assert message.data == encode_labelled_array(label, values)
