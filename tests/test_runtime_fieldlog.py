@@ -215,3 +215,20 @@ def test_the_packed_cdr_is_byte_for_byte_what_mcap_ros2_writes(tmp_path):
     with open(tmp_path / "ref.mcap", "rb") as stream:
         (_, _, message), = make_reader(stream).iter_messages()
     assert message.data == encode_labelled_array(label, values)
+
+
+def test_a_damaged_chunk_is_skipped_and_named_and_the_rest_reads(tmp_path):
+    writer = _writer(tmp_path, flush_period=0.01)
+    for k in range(2000):
+        writer.put(_row(k))
+        if k % 100 == 0:
+            time.sleep(0.015)
+    path = writer.close().path
+    data = bytearray(path.read_bytes())
+    data[len(data) // 2] ^= 0xFF                     # one flipped byte in the middle of the data
+    damaged = tmp_path / "flipped.mcap"
+    damaged.write_bytes(bytes(data))
+    log = read_logs([damaged])
+    assert 800 < len(log) < 2000                     # a chunk lost, or the rest after a broken length
+    assert any("damaged chunk" in p or "read up to the damage" in p for p in log.problems), log.problems
+    assert all("\n" not in p for p in log.problems)

@@ -19,8 +19,8 @@ from typing import Any, Iterable, Iterator
 
 import numpy as np
 from mcap.exceptions import McapError
-from mcap.records import Attachment, Channel, Message, Metadata, Schema
-from mcap.stream_reader import StreamReader
+from mcap.records import Attachment, Channel, Chunk, Message, Metadata, Schema
+from mcap.stream_reader import StreamReader, breakup_chunk
 from mcap_ros2.decoder import DecoderFactory
 
 from linz_ros.errors import LinzError
@@ -172,9 +172,24 @@ def _read_mcap(path: Path) -> _FileRecords:
     channels: dict[int, tuple[Channel, Any]] = {}
     factory = DecoderFactory()
     count = 0
+    damaged_chunks = 0
+
+    def records(stream) -> Iterator[Any]:
+        nonlocal damaged_chunks
+        for record in StreamReader(stream, emit_chunks=True, record_size_limit=2**30).records:
+            if not isinstance(record, Chunk):
+                yield record
+                continue
+            try:
+                inner = breakup_chunk(record, validate_crc=True)
+            except _READ_ERRORS:       # a damaged chunk whose length is intact: skip it, read on
+                damaged_chunks += 1
+                continue
+            yield from inner
+
     try:
         with open(path, "rb") as stream:
-            for record in StreamReader(stream, validate_crcs=True, record_size_limit=2**30).records:
+            for record in records(stream):
                 if isinstance(record, Schema):
                     schemas[record.id] = record
                 elif isinstance(record, Channel):
@@ -204,6 +219,9 @@ def _read_mcap(path: Path) -> _FileRecords:
         if isinstance(err, (EOFError, struct.error)) or "EndOfFile" in type(err).__name__:
             what = "the file ends in the middle of a record (truncated, e.g. cut by a crash)"
         out.problems.append(f"{path}: read up to the damage, {count} messages before it: {what}")
+    if damaged_chunks:
+        out.problems.append(f"{path}: {damaged_chunks} damaged chunk(s) skipped (checksum mismatch); "
+                            "the records in them are missing")
     return out
 
 
