@@ -3,8 +3,10 @@
 import json
 import subprocess
 import sys
+import time
 
 import numpy as np
+
 import pytest
 
 from support import BUNDLED, MINIMAL, REFERENCE, sampled_chain_error
@@ -266,7 +268,17 @@ def test_logs_of_a_truncated_file_reads_up_to_the_damage(capsys, tmp_path):
     artifact = built_artifact(BUNDLED / "pick_arm.yaml")
     writer = open_field_log(FieldLogSettings(tmp_path / "log", flush_period=0.01), artifact,
                             WatchdogConfig.from_artifact(artifact))
-    simulate(artifact, SimSettings(duration=4.0), field_log=writer)      # many flushes: many chunks
+
+    class Paced:                                 # chunks are cut by time: pace the run so there are many
+        count = 0
+
+        def put(self, values, log_time_ns=None):
+            self.count += 1
+            if self.count % 100 == 0:
+                time.sleep(0.015)
+            return writer.put(values, log_time_ns)
+
+    simulate(artifact, SimSettings(duration=4.0), field_log=Paced())
     data = writer.close().path.read_bytes()
     cut = tmp_path / "cut.mcap"
     cut.write_bytes(data[: len(data) // 2])

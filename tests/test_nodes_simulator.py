@@ -85,3 +85,90 @@ def test_bad_parameters_are_one_line_config_errors(make):
         make(mismatch="['mass=5']")
     with pytest.raises(ConfigError, match="noise"):
         make(noise="[1.0, 2.0]")
+
+
+def _stamp(message):
+    return message.header.stamp.sec + message.header.stamp.nanosec * 1e-9
+
+
+def _clock_seconds(message):
+    return message.clock.sec + message.clock.nanosec * 1e-9
+
+
+def test_a_clock_jump_moves_simulated_time_clock_stamps_and_delayed_commands_once(make):
+    sim = make(clock_jump_at=1.0, clock_jump_by=-0.5, delay=0.1)
+    states, clocks = [], []
+    sim.state_pub.publish = states.append
+    sim.clock_pub.publish = clocks.append
+    for _ in range(480):                               # to 0.96 s
+        sim._tick()
+    sim._on_command(_command([14.0, -0.09]))          # due at 1.06 s, before the jump
+    for _ in range(20):                               # the jump at 1.0 s: to 0.5 s
+        sim._tick()
+    stamps = [_stamp(m) for m in states]
+    assert stamps == [_clock_seconds(c) for c in clocks]
+    steps = [round(b - a, 9) for a, b in zip(stamps, stamps[1:])]
+    assert steps.count(0.002) == len(steps) - 1 and round(stamps[500 - 1] - stamps[500 - 2], 9) == -0.498
+    assert sim.sim_time == pytest.approx(0.5) and sim.applied == 0
+    for _ in range(29):                               # the command falls due 0.1 s after it came: 0.56 s
+        sim._tick()
+    assert sim.applied == 0
+    sim._tick()
+    sim._tick()
+    assert sim.applied == 1
+    for _ in range(600):                              # once only
+        sim._tick()
+    after = [_stamp(m) for m in states][499:]
+    assert min(b - a for a, b in zip(after, after[1:])) > 0
+
+
+def test_without_publish_clock_a_clock_jump_moves_the_state_stamps_only(make):
+    import time
+
+    sim = make(publish_clock="false", clock_jump_at=0.0, clock_jump_by=-5.0)
+    states = []
+    sim.state_pub.publish = states.append
+    sim._tick()
+    assert sim.clock_pub is None
+    assert abs(_stamp(states[-1]) - (time.time() - 5.0)) < 0.5
+
+
+def test_a_flood_samples_each_period_in_parts_and_the_plant_moves_the_same(make):
+    plain, flooded = make(), make(flood_at=0.01, flood_duration=0.01, flood_factor=5)
+    published = {id(plain): [], id(flooded): []}
+    for sim in (plain, flooded):
+        sim.state_pub.publish = published[id(sim)].append
+        sim._on_command(_command([14.5, -0.2]))       # off the holding torque: the arm moves
+        for _ in range(15):
+            sim._tick()
+    assert len(published[id(plain)]) == 15
+    stamps = [_stamp(m) for m in published[id(flooded)]]
+    assert len(stamps) == 10 + 5 * 5                  # five periods (0.010 to 0.018 s) in five parts each
+    spacing = [round(b - a, 9) for a, b in zip(stamps, stamps[1:])]
+    assert spacing.count(0.0004) == 25 and set(spacing) == {0.0004, 0.002}
+    assert stamps[-1] == pytest.approx(15 * 0.002)
+    assert flooded.x == pytest.approx(plain.x, abs=1e-10) and flooded.x != [0.4, 1.2, 0.0, 0.0]
+
+
+def test_bad_jump_and_flood_parameters_are_one_line_config_errors(make):
+    with pytest.raises(ConfigError, match="flood_factor: expected a whole number >= 1"):
+        make(flood_factor=0)
+    with pytest.raises(ConfigError, match="clock_jump_by: -2 s at 1 s would move simulated time to zero or before"):
+        make(clock_jump_at=1.0, clock_jump_by=-2.0)
+
+
+def test_a_publish_that_dds_refuses_is_counted_and_the_simulator_goes_on(make):
+    from linz_ros.nodes._common import RCLError
+
+    sim = make()
+    published = []
+
+    def refuse_every_other(message):
+        if len(published) % 2:
+            published.append(None)
+            raise RCLError("Failed to publish: cannot publish data")
+        published.append(message)
+    sim.state_pub.publish = refuse_every_other
+    for _ in range(6):
+        sim._tick()
+    assert len(published) == 6 and sim.publish_failures == 3 and sim.ticks == 6

@@ -188,7 +188,10 @@ def _bounded_int(text: str) -> int:
 
 def _parse_json(text: str) -> Any:
     """JSON with every number finite and every whole number of at most 15 digits."""
-    return json.loads(text, parse_constant=_refuse_constant, parse_float=_finite_float, parse_int=_bounded_int)
+    try:
+        return json.loads(text, parse_constant=_refuse_constant, parse_float=_finite_float, parse_int=_bounded_int)
+    except RecursionError:
+        raise ValueError("arrays or mappings nested too deeply") from None
 
 
 def _read_bounded(path: Path, source: str) -> bytes:

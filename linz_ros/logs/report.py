@@ -60,7 +60,10 @@ def summary_text(summary: dict[str, Any]) -> str:
         group = s["near_singular"][key]
         lines.append(f"  {label}: {group['count']} episode(s), {_fmt(group['total_time'], ' s')} in all, "
                      f"longest {_fmt(group['longest'], ' s')}")
-        for e in group["episodes"][:5 if key == "under_warn" else 10]:
+        shown = sorted(sorted(group["episodes"], key=lambda e: -e["duration"])[:5], key=lambda e: e["start"])
+        if len(shown) < group["count"]:
+            lines.append(f"    the {len(shown)} longest:")
+        for e in shown:
             state = ", ".join(f"{k}={v:.4g}" for k, v in e["state_at_worst"].items() if v is not None)
             lines.append(f"    at {e['start']:.3f} s for {e['duration']:.3f} s: min sigma {_fmt(e['min_sigma'])}"
                          f" at {e['worst_time']:.3f} s" + (f" ({state})" if state else "")
@@ -148,7 +151,7 @@ def _plot_conditioning(log: StepLog, levels: Thresholds | None, path: Path, plt)
         for value, name, style in ((levels.sigma_warn, "warn", ":"), (levels.sigma_act, "act", "--"),
                                    (levels.sigma_stop, "stop", "-")):
             if value > 0:
-                ax.axhline(value, color="tab:red", ls=style, lw=0.9, label=f"{name} {value:g}")
+                ax.axhline(value, color="tab:red", ls=style, lw=0.9, label=f"{name} {value:.4g}")
     ax.set_ylabel("sigma_min")
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(loc="best", fontsize=8)

@@ -29,13 +29,29 @@ _MAX_FILE_BYTES = 5_000_000
 
 
 class _StrictLoader(yaml.SafeLoader):
-    """A safe YAML loader that refuses duplicate keys instead of keeping the last one."""
+    """A safe YAML loader that refuses duplicate keys instead of keeping the last one, and
+    turns a scalar that its tag cannot hold (``!!int abc``, ``2020-13-45``) into a marked error."""
+
+    def construct_object(self, node: yaml.Node, deep: bool = False) -> Any:
+        try:
+            return super().construct_object(node, deep=deep)
+        except (ValueError, TypeError, LookupError, AttributeError, ArithmeticError):
+            kind = node.tag.rsplit(":", 1)[-1]
+            value = node.value if isinstance(node.value, str) else ""
+            text = value if len(value) <= 40 else value[:37] + "..."
+            raise yaml.constructor.ConstructorError(
+                None, None, f"cannot read {text!r} as {kind}", node.start_mark) from None
 
 
 def _construct_unique_mapping(loader: _StrictLoader, node: yaml.MappingNode, deep: bool = False):
     seen: dict[Any, int] = {}
     for key_node, _ in node.value:
         key = loader.construct_object(key_node, deep=deep)
+        try:
+            hash(key)
+        except TypeError:
+            raise yaml.constructor.ConstructorError(
+                None, None, f"{_kind(key)} cannot be a key", key_node.start_mark) from None
         if key in seen:
             raise yaml.constructor.ConstructorError(
                 None, None, f"duplicate key {key!r} (first at line {seen[key]})", key_node.start_mark)
@@ -55,7 +71,7 @@ class _Reader:
         self.table: dict[str, sp.Expr] = {}
 
     def fail(self, field: str, problem: str) -> PlantFileError:
-        return PlantFileError(self.source, field, problem)
+        return PlantFileError(self.source, _printable(field), _printable(problem))
 
     # -- small typed readers -------------------------------------------------------
     def mapping(self, doc: Mapping, key: str, required: bool = False) -> dict:
@@ -72,7 +88,10 @@ class _Reader:
         if isinstance(value, bool) or value is None:
             raise self.fail(field, f"expected a number, got {_describe(value)}")
         if isinstance(value, (int, float)):
-            number = float(value)
+            try:
+                number = float(value)
+            except OverflowError:
+                raise self.fail(field, "expected a finite number, got a whole number too large for a float") from None
         elif isinstance(value, str):
             try:
                 number = float(value)  # YAML 1.1 reads 1e3 as text
@@ -128,10 +147,32 @@ class _Reader:
         except UnknownName as err:  # pragma: no cover - names were checked above
             raise self.fail(field, f"unknown symbol {err.args[0]!r}") from None
         except (ZeroDivisionError, ValueError, TypeError) as err:
-            raise self.fail(field, f"cannot evaluate {text!r}: {err}") from None
+            raise self.fail(field, f"cannot evaluate {_short(text)!r}: {err}") from None
         if expr.has(sp.zoo, sp.oo, -sp.oo, sp.nan):
-            raise self.fail(field, f"{text!r} is infinite or undefined (division by zero?)")
+            raise self.fail(field, f"{_short(text)!r} is infinite or undefined (division by zero?)")
         return expr
+
+    def text(self, doc: Mapping, key: str, field: str) -> str:
+        """Free text (a number is taken as its text); lists and mappings are refused."""
+        value = doc.get(key)
+        if value is None:
+            return ""
+        if not isinstance(value, (str, int, float)):
+            raise self.fail(field, f"expected text, got {_kind(value)}")
+        return str(value)
+
+
+def _printable(text: str) -> str:
+    """The text with line breaks and other control characters escaped, so a message stays one line."""
+    if text.isprintable():
+        return text
+    return "".join(c if c.isprintable() else repr(c)[1:-1] for c in text)
+
+
+def _short(text: Any, width: int = 60) -> str:
+    """An expression as written, cut to ``width`` characters for messages."""
+    text = text if isinstance(text, str) else repr(text)
+    return text if len(text) <= width else text[:width - 3] + "..."
 
 
 def _kind(value: Any) -> str:
@@ -182,7 +223,7 @@ def _read_parameters(reader: _Reader, doc: Mapping) -> tuple[dict[sp.Symbol, flo
             if extra or "value" not in spec:
                 raise reader.fail(field, "expected a number or {value: number, unit: text}")
             if "unit" in spec:
-                units[name] = str(spec["unit"])
+                units[name] = reader.text(spec, "unit", f"{field}.unit")
             spec = spec["value"]
         symbol = sp.Symbol(name, real=True)
         values[symbol] = reader.number(field, spec)
@@ -406,7 +447,7 @@ def _read_document(doc: Any, source: str, digest: str) -> Plant:
     name = doc["plant"]
     if not isinstance(name, str) or not _IDENTIFIER.match(name):
         raise reader.fail("plant", f"{_describe(name)} is not a valid identifier")
-    description = doc.get("description") or ""
+    description = reader.text(doc, "description", "description")
     states = reader.name_list(doc, "states", "state")
     inputs = reader.name_list(doc, "inputs", "input")
     state_symbols = [sp.Symbol(s, real=True) for s in states]
@@ -421,7 +462,7 @@ def _read_document(doc: Any, source: str, digest: str) -> Plant:
     operating_point = _read_operating_point(reader, doc, states, envelope)
     design = _read_design(reader, doc, output_names, states, inputs)
     return Plant(
-        name=name, description=str(description), states=tuple(state_symbols),
+        name=name, description=description, states=tuple(state_symbols),
         inputs=tuple(input_symbols), parameters=parameters, units=units, f=f, G=G,
         output_names=output_names, h=h, input_limits=input_limits, envelope=envelope,
         operating_point=operating_point, design=design, source=source, sha256=digest)
@@ -452,16 +493,27 @@ def plant_from_text(text: str, source: str = "<string>") -> Plant:
     >>> p.f, p.G
     (Matrix([[-x]]), Matrix([[1]]))
     """
-    digest = hashlib.sha256(text.encode("utf-8")).hexdigest()
+    digest = hashlib.sha256(text.encode("utf-8", "surrogatepass")).hexdigest()
     try:
         doc = yaml.load(text, Loader=_StrictLoader)  # noqa: S506 - a SafeLoader subclass
-    except yaml.MarkedYAMLError as err:
-        mark = err.problem_mark
-        where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
-        raise PlantFileError(source, "", f"not valid YAML{where}: {err.problem}") from None
     except yaml.YAMLError as err:
-        raise PlantFileError(source, "", f"not valid YAML: {err}") from None
+        raise PlantFileError(source, "", _printable(_yaml_problem(err, text))) from None
+    except RecursionError:
+        raise PlantFileError(source, "", "not valid YAML: nested too deeply") from None
     return _read_document(doc, source, digest)
+
+
+def _yaml_problem(err: yaml.YAMLError, text: str) -> str:
+    """One line for a YAML error: where (line and column) and what."""
+    if isinstance(err, yaml.MarkedYAMLError):
+        mark = err.problem_mark or err.context_mark
+        where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
+        return f"not valid YAML{where}: {err.problem or err.context or 'cannot be read'}"
+    if isinstance(err, yaml.reader.ReaderError) and isinstance(err.character, int):
+        line = text.count("\n", 0, err.position) + 1
+        column = err.position - (text.rfind("\n", 0, err.position) + 1) + 1
+        return f"not valid YAML at line {line}, column {column}: character #x{err.character:04x} is not allowed"
+    return "not valid YAML: " + (" ".join(str(err).split()) or type(err).__name__)
 
 
 def load_plant(path: str | Path) -> Plant:

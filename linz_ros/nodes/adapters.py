@@ -44,6 +44,7 @@ _AXES = ("x", "y", "z")
 _ODOMETRY = {f"pose.position.{a}" for a in _AXES} | {f"pose.orientation.{a}" for a in ("roll", "pitch", "yaw")} \
     | {f"twist.{k}.{a}" for k in ("linear", "angular") for a in _AXES}
 _LAST_STAMP = 2_147_483_647.0       # builtin_interfaces/Time.sec is an int32
+_MAX_ENTRIES = 100_000              # data.<index> of a Float64MultiArray: index below this
 _VECTOR3 = {"geometry_msgs/msg/Wrench": ("force", "torque"), "geometry_msgs/msg/Twist": ("linear", "angular")}
 
 
@@ -177,6 +178,8 @@ def _quaternion_to_rpy(q) -> tuple[float, float, float]:
 
 
 def _rpy_to_quaternion(roll: float, pitch: float, yaw: float) -> tuple[float, float, float, float]:
+    if not (math.isfinite(roll) and math.isfinite(pitch) and math.isfinite(yaw)):
+        return (math.nan,) * 4           # written as is, like any other non-finite value
     cr, sr = math.cos(roll / 2), math.sin(roll / 2)
     cp, sp = math.cos(pitch / 2), math.sin(pitch / 2)
     cy, sy = math.cos(yaw / 2), math.sin(yaw / 2)
@@ -208,6 +211,8 @@ class FieldMap:
     def __init__(self, type_name: str, fields: Sequence[str], size: int, option: str) -> None:
         self.type_name = type_name
         self.cls = _CLASSES[type_name]
+        if size < 1:
+            raise ConfigError(option, f"expected at least one entry, got {size}")
         if not fields:
             if type_name != "std_msgs/msg/Float64MultiArray":
                 raise ConfigError(option, f"{type_name} needs one field per entry ({size} expected)")
@@ -248,7 +253,9 @@ class FieldMap:
             ok = path in _ODOMETRY
         elif t == "std_msgs/msg/Float64MultiArray":
             head, _, index = path.partition(".")
-            ok = head == "data" and index.isdigit()
+            ok = head == "data" and index.isascii() and index.isdigit()
+            if ok and (len(index) > 6 or int(index) >= _MAX_ENTRIES):
+                raise ConfigError(option, f"{path[:20]!r}: the index must be below {_MAX_ENTRIES}")
         else:
             head, _, axis = path.partition(".")
             ok = head in _VECTOR3[t] and axis in _AXES
@@ -313,8 +320,8 @@ class FieldMap:
             raise MessageError("bad_message", "a joint name appears twice")
         missing = [j for j in self.joints if j not in index]
         if missing:
-            raise MessageError("unknown_joint", f"joint(s) {', '.join(missing)} not in the message "
-                                                f"(it has {', '.join(names) or 'none'})")
+            raise MessageError("unknown_joint", f"joint(s) {_listed(missing)} not in the message "
+                                                f"(it has {_listed(names) or 'none'})")
         slots = []
         for f in self.fields:
             head, joint = f.path.split(".", 1)
@@ -385,6 +392,12 @@ class FieldMap:
             q = message.pose.pose.orientation
             q.x, q.y, q.z, q.w = _rpy_to_quaternion(*rpy)
         return message
+
+
+def _listed(names: Sequence[str], most: int = 8) -> str:
+    """Names for a message: quoted (a name may hold a line break), at most ``most`` of them."""
+    shown = ", ".join(repr(n) for n in names[:most])
+    return shown + (f", ... ({len(names)} in all)" if len(names) > most else "")
 
 
 def _attribute(message: Any, path: str) -> float:

@@ -62,6 +62,7 @@ class DiagnosticWindow:
     singular: int = 0
     reference_stale: int = 0
     reference_missing: int = 0
+    publish_failures: int = 0
     compute: list[float] = field(default_factory=list)
 
     def add(self, record) -> None:
@@ -86,6 +87,8 @@ class DiagnosticWindow:
         state; WARN when near singular (damped or under the warn level), saturating, or
         holding because the reference stalled; OK otherwise.
         """
+        if self.publish_failures:
+            return DiagnosticStatus.ERROR, f"{self.publish_failures} message(s) refused by the middleware"
         if self.modes["safe"] or self.modes["held"]:
             why = [f"{label} {count}x" for label, count in (("singular", self.singular), ("state stale", self.stale),
                                                             ("state rejected", self.rejected)) if count]
@@ -117,6 +120,7 @@ class DiagnosticWindow:
                  ("stale_count", self.stale), ("rejected_count", self.rejected),
                  ("reference_stale_count", self.reference_stale),
                  ("reference_missing_count", self.reference_missing),
+                 ("publish_failures", self.publish_failures),
                  ("loop_rate_hz", self.steps / span), ("compute_time_p99_us", p99)]
         pairs += [(f"mode_{m}", c) for m, c in self.modes.items()]
         return [KeyValue(key=k, value=f"{v:.6g}" if isinstance(v, float) else str(v)) for k, v in pairs]
@@ -202,6 +206,7 @@ class ControllerNode(LifecycleNode):
         self._diagnostics_timer = self.create_timer(self.params["diagnostics_period"], self._publish_diagnostics,
                                                     clock=self._steady)
         self._last_state_steady: float | None = None
+        self._clock_jump_handle = self._watch_clock_jumps()
         self._autostarted = False
         self.add_on_set_parameters_callback(self._on_set_parameters)
         if self.params["autostart"]:
@@ -478,6 +483,47 @@ class ControllerNode(LifecycleNode):
     def _steady_now(self) -> float:
         return self._steady.now().nanoseconds * 1e-9
 
+    def _watch_clock_jumps(self) -> Any:
+        """Have :meth:`_on_clock_jump` called when this node's clock jumps back by more than 1 ms.
+
+        Only simulated time jumps (a ``/clock`` earlier than the last); the handle must be kept.
+        """
+        from rclpy.clock import JumpThreshold
+        from rclpy.duration import Duration
+
+        threshold = JumpThreshold(min_forward=None, min_backward=Duration(nanoseconds=-1_000_000),
+                                  on_clock_change=False)
+        return self.get_clock().create_jump_callback(threshold, post_callback=self._on_clock_jump)
+
+    def _on_clock_jump(self, jump: Any) -> None:
+        """Time went back (a simulation reset, a restarted simulator): forget the old timeline.
+
+        Every state of the new timeline is stamped before the last one used and would be
+        refused as out of order until the new time caught up with the old; instead the core's
+        time history is reset (with a warning), the safe command is sent once (the last
+        picture belongs to a timeline that is gone) and the reference's ages move with the
+        clock. rcl calls this inside the ``/clock`` callback: it must not raise (the jump
+        callbacks registered after it would be skipped).
+        """
+        try:
+            delta = jump.delta.nanoseconds * 1e-9
+            self.get_logger().warning(f"time jumped back by {-delta:.3f} s: time history reset, states of the "
+                                      "new timeline are accepted")
+            self.window.started += delta
+            if self.core is None:
+                return
+            self.core.reset()
+            self._stale_suspect = False
+            self.reference.latest_at += delta
+            if self.reference.origin is not None:
+                self.reference.origin += delta
+            if self.active:
+                now = self._now()
+                u, record = self.core.safe_step(now, "stale")
+                self._publish(u, record, now)
+        except Exception as err:  # noqa: BLE001 - see above
+            self.get_logger().error(f"clock jump not handled ({type(err).__name__}: {err})")
+
     def _on_reference(self, message: Float64MultiArray) -> None:
         if not self.reference.accept(message.data, self._now()):
             self.get_logger().warning(f"reference message refused: expected {self.core.reference_size} finite "
@@ -553,14 +599,23 @@ class ControllerNode(LifecycleNode):
         # the command first (it is what the robot waits for); messages are reused, publish copies them
         command = self.command_map.write(u, self._command_message)
         set_stamp(command, stamp)
-        self._command_pub.publish(command)
+        self._send(self._command_pub, command, "command")
         self.window.add(record)
         y_ref = [ref[k] for k in self._ref_offsets] if ref is not None else self._no_ref
         values = conditioning_values(record, y_ref, u, self._no_ref)
         self._conditioning_message.data = values
-        self._conditioning_pub.publish(self._conditioning_message)
+        self._send(self._conditioning_pub, self._conditioning_message, "conditioning record")
         if self.field_log is not None:
             self.field_log.put(values + list(x if x is not None and len(x) == len(self._no_state) else self._no_state))
+
+    def _send(self, publisher: Any, message: Any, what: str) -> None:
+        """Publish; a refused write (the middleware can refuse one under load) is logged, never fatal."""
+        try:
+            publisher.publish(message)
+        except Exception as err:  # noqa: BLE001 - the loop must outlive a refused write
+            self.window.publish_failures += 1
+            self.get_logger().error(f"{what} not published ({type(err).__name__}: {err})",
+                                    throttle_duration_sec=2.0)
 
     def _publish_safe(self, why: str) -> None:
         if self.core is None or self._command_pub is None:
@@ -568,7 +623,7 @@ class ControllerNode(LifecycleNode):
         u, record = self.core.safe_step(self._now(), "no_state", final=True)
         command = self.command_map.write(u, self.command_map.cls())
         set_stamp(command, self._now())
-        self._command_pub.publish(command)
+        self._send(self._command_pub, command, "safe command")
         self.get_logger().info(f"safe command {u} sent ({why})")
 
     def _publish_diagnostics(self) -> None:
@@ -598,9 +653,10 @@ class ControllerNode(LifecycleNode):
             return
         log = self.field_log
         if log is None or log.status.state == "failed":
-            why = self.field_log_error if log is None else f"field log stopped: {log.status.error}"
+            why = f"field log not recording: {self.field_log_error}" if log is None else \
+                f"field log stopped: {log.status.error}"
             status.level = DiagnosticStatus.ERROR
-            status.message = f"{status.message}; {why or 'field log not recording'}"
+            status.message = f"{status.message}; {why}"
         if log is None:
             status.values.append(KeyValue(key="field_log", value="not recording"))
             return

@@ -4,13 +4,17 @@ Publishes a labelled ``std_msgs/msg/Float64MultiArray`` ``[y1, y1', ..., y1^(r1)
 at ``rate`` Hz from a reference spec in the grammar of ``linz sim --reference``; the
 move's times count from the first tick with a subscriber (DDS discovery may take a few
 seconds, and a move that ran before anyone listened would arrive as a jump). The base value of each output is its value
-at the artifact's operating point unless ``base`` is given.
+at the artifact's operating point unless ``base`` is given. When simulated time jumps back
+(a simulation reset, a restarted simulator) the move goes on where it was: its origin moves
+with the clock.
 """
 
 from __future__ import annotations
 
 from typing import Any, Sequence
 
+from rclpy.clock import JumpThreshold, TimeJump
+from rclpy.duration import Duration
 from rclpy.node import Node
 
 from linz_ros.artifact import load_artifact
@@ -19,7 +23,10 @@ from linz_ros.nodes._common import control_qos, declare, spin_node
 from linz_ros.nodes.adapters import labelled_array
 from linz_ros.runtime import ControllerCore, parse_reference
 
-__all__ = ["ReferenceNode", "main", "reference_labels"]
+__all__ = ["ReferenceNode", "main", "reference_labels", "CLOCK_JUMP_BACK"]
+
+#: A backward jump of the node's clock larger than this (s) moves the move's origin with it.
+CLOCK_JUMP_BACK = 1e-3
 
 
 def reference_labels(outputs: Sequence[str], orders: Sequence[int]) -> list[str]:
@@ -71,10 +78,23 @@ class ReferenceNode(Node):
         self.publisher = self.create_publisher(type(labelled_array([], [])), topic, control_qos())
         self.start: float | None = None           # latched at the first tick that has a subscriber
         self.create_timer(1.0 / rate, self._tick)
+        self._jump_handle = self.get_clock().create_jump_callback(
+            JumpThreshold(min_forward=None, min_backward=Duration(nanoseconds=-int(CLOCK_JUMP_BACK * 1e9)),
+                          on_clock_change=False), post_callback=self._on_clock_jump)
         self.get_logger().info(f"reference {spec!r} for {', '.join(artifact.outputs)} at {rate:g} Hz")
 
     def _now(self) -> float:
         return self.get_clock().now().nanoseconds * 1e-9
+
+    def _on_clock_jump(self, jump: TimeJump) -> None:
+        # called by rcl inside the /clock callback; an exception would skip later jump callbacks
+        try:
+            delta = jump.delta.nanoseconds * 1e-9
+            if self.start is not None:
+                self.start += delta
+            self.get_logger().warning(f"time jumped back by {-delta:.3f} s: the reference goes on where it was")
+        except Exception as err:  # noqa: BLE001
+            self.get_logger().error(f"clock jump not handled: {type(err).__name__}: {err}")
 
     def _tick(self) -> None:
         now = self._now()

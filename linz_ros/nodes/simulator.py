@@ -6,7 +6,9 @@ the state. With ``publish_clock`` it owns simulated time: it advances exactly on
 period per tick, publishes ``/clock`` and stamps states with it (run the controller with
 ``use_sim_time``); ``real_time_factor`` sets how fast ticks come. Faults for testing the
 controller are injected by parameters: sensor noise, dropped messages, a frozen sensor,
-a burst of NaN, parameter mismatch and input delay.
+a burst of NaN, parameter mismatch, input delay, a jump of the clock (a simulation reset:
+simulated time, ``/clock`` and the state stamps move back or ahead once) and a flood
+(for a while every period is sampled and published ``flood_factor`` times).
 """
 
 from __future__ import annotations
@@ -20,7 +22,7 @@ from rosgraph_msgs.msg import Clock
 
 from linz_ros.artifact import load_artifact
 from linz_ros.errors import ConfigError, LinzError
-from linz_ros.nodes._common import control_qos, declare, spin_node
+from linz_ros.nodes._common import RCLError, control_qos, declare, spin_node
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, message_class,
                                      set_stamp, split_seconds)
 from linz_ros.runtime import NumericPlant, mismatched_parameters, parse_assignments
@@ -74,12 +76,17 @@ class PlantSimulatorNode(Node):
         self.rng = np.random.default_rng(p["seed"])
         self.sim_time = 0.0
         self.ticks = 0
+        self.clock_offset = 0.0         # moved once by clock_jump_by
+        self.jumped = False
+        self.flooding = False
+        self.last_stamp: float | None = None
         self.started = None
         self.frozen: Any = None
         self.last_tick = None
         self.commands = 0
         self.applied = 0
         self.rejected = 0
+        self.publish_failures = 0
         qos = control_qos()
         self.state_pub = self.create_publisher(self.state_map.cls, p["state_topic"], qos)
         self.create_subscription(self.command_map.cls, p["command_topic"], self._on_command, qos)
@@ -120,8 +127,23 @@ class PlantSimulatorNode(Node):
         p["seed"] = declare(self, "seed", 1, "random seed of the faults", True)
         p["brake_until_command"] = declare(self, "brake_until_command", True, "hold the plant still until the "
                                            "first command arrives (a brake released by the controller)", True)
+        p["clock_jump_at"] = declare(self, "clock_jump_at", -1.0, "at this time (s from the start) move the "
+                                     "clock once by clock_jump_by, as a simulation reset does: with publish_clock "
+                                     "simulated time, /clock and the state stamps, else the state stamps only "
+                                     "(-1: never)", True, -1.0)
+        p["clock_jump_by"] = declare(self, "clock_jump_by", -1.0, "size of the clock jump (s; negative: back in "
+                                     "time)", True)
+        p["flood_at"] = declare(self, "flood_at", -1.0, "start of a flood of state messages (s; -1: none): each "
+                                "period is integrated in flood_factor parts and every part published", True, -1.0)
+        p["flood_duration"] = declare(self, "flood_duration", 1.0, "length of the flood (s)", True, 0.0)
+        p["flood_factor"] = declare(self, "flood_factor", 10, "state messages per period during the flood", True)
         if p["substeps"] < 1:
             raise ConfigError("substeps", f"expected a whole number >= 1, got {p['substeps']}")
+        if p["flood_factor"] < 1:
+            raise ConfigError("flood_factor", f"expected a whole number >= 1, got {p['flood_factor']}")
+        if p["publish_clock"] and p["clock_jump_at"] >= 0 and p["clock_jump_at"] + p["clock_jump_by"] <= 0:
+            raise ConfigError("clock_jump_by", f"{p['clock_jump_by']:g} s at {p['clock_jump_at']:g} s would move "
+                                               "simulated time to zero or before")
         if p["seed"] < 0:
             raise ConfigError("seed", f"expected a whole number >= 0, got {p['seed']}")
         if not p["publish_clock"]:
@@ -152,6 +174,32 @@ class PlantSimulatorNode(Node):
             self.u = self.pending.popleft()[1]
             self.applied += 1
 
+    def _elapsed(self, now: float) -> float:
+        """Seconds since the first tick, whatever the clock jump did."""
+        if self.clock_pub is not None:
+            return self.ticks * self.period
+        return now - self.started
+
+    def _parts(self, elapsed: float) -> int:
+        """Samples published this period: ``flood_factor`` during the flood, else one."""
+        p = self.p
+        flooding = 0 <= p["flood_at"] <= elapsed < p["flood_at"] + p["flood_duration"]
+        return p["flood_factor"] if flooding else 1
+
+    def _jump_clock(self, elapsed: float) -> None:
+        """Move the clock once by ``clock_jump_by`` when ``clock_jump_at`` has come."""
+        p = self.p
+        if self.jumped or p["clock_jump_at"] < 0 or elapsed < p["clock_jump_at"]:
+            return
+        self.jumped = True
+        by = p["clock_jump_by"]
+        self.clock_offset += by
+        if self.clock_pub is not None:          # delayed commands fall due in the new timeline
+            self.pending = deque((due + by, u) for due, u in self.pending)
+        self.get_logger().warning(f"clock jump of {by:+g} s at {elapsed:g} s "
+                                  + ("(simulated time, /clock and state stamps)" if self.clock_pub is not None
+                                     else "(state stamps)"))
+
     def _tick(self) -> None:
         now = self._now()
         if self.started is None:
@@ -162,39 +210,72 @@ class PlantSimulatorNode(Node):
             dt = self.period if self.last_tick is None else min(max(now - self.last_tick, 0.0), 5 * self.period)
         self.last_tick = now
         self._apply_due_commands(now)
+        parts = self._parts(self._elapsed(now))
+        substeps = -(-self.p["substeps"] // parts)          # per part: at least one RK4 step
         braked = self.p["brake_until_command"] and self.applied == 0     # released by the first applied command
-        if not braked:
-            try:
-                self.x = self.plant.rk4(self.x, self.u, dt / self.p["substeps"], self.p["substeps"])
-            except (ArithmeticError, ValueError):
-                self.x = [math.nan] * len(self.x)
+        samples = []
+        for _ in range(parts):
+            if not braked:
+                try:
+                    self.x = self.plant.rk4(self.x, self.u, dt / parts / substeps, substeps)
+                except (ArithmeticError, ValueError):
+                    self.x = [math.nan] * len(self.x)
+            samples.append(list(self.x))
         if self.clock_pub is not None:
             self.ticks += 1
-            self.sim_time = self.ticks * self.period        # no drift from summing periods
+            self._jump_clock(self._elapsed(now))
+            self.sim_time = self.ticks * self.period + self.clock_offset   # no drift from summing periods
             now = self.sim_time
             clock = Clock()
             clock.clock.sec, clock.clock.nanosec = split_seconds(now)
-            self.clock_pub.publish(clock)
-        self._publish_state(now)
+            self._send(self.clock_pub, clock)
+            stamp = now
+        else:
+            self._jump_clock(self._elapsed(now))
+            stamp = now + self.clock_offset
+        elapsed = self._elapsed(now)
+        if (parts > 1) != self.flooding:       # logged with the stamps, so that a test can find the flood
+            self.flooding = parts > 1
+            if self.flooding:
+                self.get_logger().info(f"flood: {parts} state messages a period from stamp "
+                                       f"{stamp - dt * (parts - 1) / parts:.6f} s")
+            else:
+                self.get_logger().info(f"flood over: last stamp {self.last_stamp:.6f} s")
+        for k, x in enumerate(samples):        # each part stamped at the end of its share of the period
+            self._publish_state(stamp - dt * (parts - 1 - k) / parts, x, elapsed)
+        self.last_stamp = stamp
 
-    def _publish_state(self, now: float) -> None:
+    def _publish_state(self, stamp: float, x: list[float], elapsed: float) -> None:
         p = self.p
-        elapsed = now - self.started
         if p["freeze_at"] >= 0 and elapsed >= p["freeze_at"] and self.frozen is not None:
-            self.state_pub.publish(self.frozen)         # a stuck sensor: same values, same stamp
+            self._send(self.state_pub, self.frozen)     # a stuck sensor: same values, same stamp
             return
         if p["drop_probability"] > 0 and self.rng.random() < p["drop_probability"]:
             return
-        measured = list(self.x)
+        measured = list(x)
         if self.noise is not None:
             measured = (np.asarray(measured) + self.rng.normal(0.0, self.noise)).tolist()
         burst = p["nan_burst_at"]
         if burst >= 0 and burst <= elapsed < burst + p["nan_burst_duration"]:
             measured = [math.nan] * len(measured)
         message = self.state_map.write(measured)
-        set_stamp(message, now)
-        self.state_pub.publish(message)
+        set_stamp(message, stamp)
+        self._send(self.state_pub, message)
         self.frozen = message
+
+    def _send(self, publisher: Any, message: Any) -> None:
+        """Publish; a message DDS refuses is lost, as a sensor's would be, not the end of the node.
+
+        Fast DDS can refuse a write (``cannot publish data``) when a reliable reader falls far
+        behind, as the controller does in a flood; rclpy raises it from the timer callback,
+        which would end the process.
+        """
+        try:
+            publisher.publish(message)
+        except RCLError as err:
+            self.publish_failures += 1
+            self.get_logger().warning(f"message not published ({self.publish_failures} so far): "
+                                      f"{str(err).splitlines()[0]}", throttle_duration_sec=2.0)
 
 
 def main(args: Sequence[str] | None = None) -> int:

@@ -1,0 +1,107 @@
+"""The controller node in-process (no DDS): a backward jump of simulated time."""
+
+import pytest
+
+rclpy = pytest.importorskip("rclpy", reason="rclpy is not installed (pip install '.[ros]')")
+
+from rclpy.time import Time  # noqa: E402
+from sensor_msgs.msg import JointState  # noqa: E402
+
+from linz_ros.nodes.adapters import split_seconds  # noqa: E402
+from linz_ros.runtime import MODES, REASONS  # noqa: E402
+from support import BUNDLED, ROOT  # noqa: E402
+
+
+@pytest.fixture
+def make(tmp_path):
+    from linz_ros.codegen import artifact_path, build_document, write_artifact
+    from linz_ros.model import load_plant
+    from linz_ros.nodes.controller import ControllerNode
+    from linz_ros.synthesis import synthesise
+    path = write_artifact(build_document(synthesise(load_plant(BUNDLED / "pick_arm.yaml")), points=8)[0],
+                          artifact_path(tmp_path, "pick_arm"))
+    made = []
+
+    def _make(**parameters):
+        context = rclpy.Context()
+        args = ["--ros-args", "--params-file", str(ROOT / "config" / "pick_arm.yaml"), "-p", f"artifact:={path}",
+                "-p", "autostart:=false", "-p", "stale_after:=0.2"]
+        for key, value in parameters.items():
+            args += ["-p", f"{key}:={value}"]
+        rclpy.init(args=args, context=context)
+        node = ControllerNode(context=context)
+        made.append((node, context))
+        return node
+
+    yield _make
+    for node, context in made:
+        node.destroy_node()
+        context.try_shutdown()
+
+
+def _state(stamp):
+    message = JointState(name=["shoulder", "elbow"], position=[0.4, 1.2], velocity=[0.0, 0.0])
+    message.header.stamp.sec, message.header.stamp.nanosec = split_seconds(stamp)
+    return message
+
+
+def test_a_backward_jump_of_simulated_time_sends_the_safe_command_then_accepts_the_new_timeline(make):
+    node = make(use_sim_time="true", reference="hold", reference_timeout=0.5)
+    clock = node.get_clock()
+
+    def set_time(seconds):
+        clock.set_ros_time_override(Time(seconds=seconds, clock_type=clock.clock_type))
+    set_time(10.0)
+    node.trigger_configure()
+    node.trigger_activate()
+    records = []
+    node._conditioning_pub.publish = lambda message: records.append(
+        (REASONS[int(message.data[4])], MODES[int(message.data[3])], message.data[0], list(message.data[-2:])))
+    for k in range(3):
+        set_time(10.0 + 0.002 * k)
+        node._on_state(_state(10.0 + 0.002 * k))
+    assert [r[0] for r in records] == ["ok"] * 3
+    node.reference.latest_at = 10.004 - 0.2               # as if a reference had come 0.2 s ago
+    set_time(5.0)                                         # a simulation reset
+    assert records[-1][:3] == ("stale", "safe", 5.0) and records[-1][3] == [0.0, 0.0]
+    assert node.core.last_t is None
+    assert node.reference.latest_at == pytest.approx(5.0 - 0.2)   # its age moved with the clock
+    node._on_state(_state(5.002))                          # the new timeline: accepted, not out of order
+    assert records[-1][0] == "ok" and records[-1][2] == pytest.approx(5.002)
+    assert len(records) == 5
+
+
+def test_in_wall_time_a_stamp_going_back_is_refused_and_the_history_kept(make):
+    node = make(reference="hold")
+    node.trigger_configure()
+    node.trigger_activate()
+    records = []
+    node._conditioning_pub.publish = records.append
+    now = node.get_clock().now().nanoseconds * 1e-9
+    node._on_state(_state(now))
+    node._on_state(_state(now - 1.0))                     # a stamp going back is refused, no reset
+    assert node.core.last_t == pytest.approx(now)
+    assert len(records) == 2
+
+
+def test_a_refused_publish_is_counted_and_never_fatal():
+    from linz_ros.nodes.controller import DiagnosticWindow, ControllerNode
+
+    class Refusing:
+        def publish(self, message):
+            raise RuntimeError("cannot publish data")
+
+    class Logger:
+        def __init__(self):
+            self.errors = []
+
+        def error(self, text, **_):
+            self.errors.append(text)
+
+    node = ControllerNode.__new__(ControllerNode)          # only _send and the window are exercised
+    node.window = DiagnosticWindow(0.0)
+    logger = Logger()
+    node.get_logger = lambda: logger
+    node._send(Refusing(), object(), "command")
+    assert node.window.publish_failures == 1 and "command not published" in logger.errors[0]
+    assert node.window.level()[0] == b"\x02" and "refused by the middleware" in node.window.level()[1]
