@@ -10,7 +10,11 @@ states:
 - ``lambdify_cse_math``: ``sympy.lambdify`` with CSE to the ``math`` module (expressions only);
 - ``compiled_c``: the expressions alone, printed by sympy's C code printer with CSE,
   built with the system's C compiler and called through ctypes (the near-limit reference);
-- ``law_only``: the artifact's compiled law program alone (expressions only).
+- ``law_only``: the artifact's compiled law program alone (expressions only);
+- ``pinocchio_computed_torque``: for a serial arm with the ``pin`` package installed,
+  the computed-torque step done with an independent rigid-body library: the outer loop
+  in numpy, then ``tau = rnea(q, q', v)`` (Pinocchio's recursive Newton-Euler, in C++)
+  plus the joint friction.
 
 The machine is noisy, so rounds of the candidates are interleaved and each candidate's
 median over rounds is reported; only the ratios mean anything.
@@ -32,6 +36,7 @@ import numpy as np
 import sympy as sp
 
 from linz_ros.artifact import Artifact
+from linz_ros.crosscheck import pinocchio_available, pinocchio_reference
 from linz_ros.runtime import ControllerCore
 from linz_ros.synthesis import Design
 
@@ -67,6 +72,8 @@ class BenchResult:
             out["core_over_law_only"] = us["core"] / us["law_only"]
         if "lambdify_cse_math" in us:
             out["lambdify_cse_math_over_law_only"] = us["lambdify_cse_math"] / us["law_only"]
+        if "pinocchio_computed_torque" in us:
+            out["core_over_pinocchio"] = us["core"] / us["pinocchio_computed_torque"]
         return out
 
     def to_json(self) -> dict:
@@ -80,32 +87,67 @@ class BenchResult:
         for name, value in sorted(self.microseconds.items(), key=lambda kv: kv[1]):
             lines.append(f"  {name:<20} {value:9.2f} us")
         lines.append("")
-        goals = {"core_over_compiled_c": "goal <= 10", "naive_over_core": "goal >= 4"}
+        goals = {"core_over_compiled_c": "goal <= 10", "naive_over_core": "goal >= 4",
+                 "core_over_pinocchio": "goal <= 3 (serial arms)"}
         for name, value in self.ratios().items():
             lines.append(f"  {name:<32} {value:7.2f}  {goals.get(name, '')}")
         lines.extend(f"  note: {note}" for note in self.notes)
         return "\n".join(lines)
 
 
+def _structure_terms(design: Design) -> list[sp.Matrix]:
+    """The terms the law is made of: A and b, or for a mechanical plant M, F, B, J and J' q'."""
+    if not design.mechanical:
+        return [design.A, design.b]
+    mech = design.plant.mechanics
+    h = sp.Matrix([c.expression for c in design.chains])
+    return [mech.M, mech.F, mech.B, mech.decoupling_jacobian(h), mech.output_bias(h)]
+
+
 def _law_expressions(design: Design) -> tuple[list[sp.Symbol], list[sp.Symbol], list[sp.Expr]]:
     plant = design.plant
     chain = [e for c in design.chains for e in c.derivatives]
-    return list(plant.states), list(plant.parameters), list(design.A) + list(design.b) + chain
+    terms = [e for matrix in _structure_terms(design) for e in matrix]
+    return list(plant.states), list(plant.parameters), terms + chain
+
+
+def _naive_decoupling(design: Design) -> Callable:
+    """A(x), b(x) by plain lambdify to numpy (and numpy.linalg.solve with M for a mechanical plant)."""
+    x, p = list(design.plant.states), list(design.plant.parameters)
+    m = design.plant.m
+    functions = [sp.lambdify([x, p], matrix, modules="numpy") for matrix in _structure_terms(design)]
+    if not design.mechanical:
+        fA, fb = functions
+
+        def explicit(state: np.ndarray, params: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+            return (np.asarray(fA(state, params), dtype=float).reshape(m, m),
+                    np.asarray(fb(state, params), dtype=float).ravel())
+
+        return explicit
+    nq = design.plant.mechanics.nq
+    fM, fF, fB, fJ, fc = functions
+
+    def mechanical(state: np.ndarray, params: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        M = np.asarray(fM(state, params), dtype=float).reshape(nq, nq)
+        J = np.asarray(fJ(state, params), dtype=float).reshape(m, nq)
+        F = np.asarray(fF(state, params), dtype=float).ravel()
+        B = np.asarray(fB(state, params), dtype=float).reshape(nq, m)
+        c = np.asarray(fc(state, params), dtype=float).ravel()
+        return J @ np.linalg.solve(M, B), J @ np.linalg.solve(M, F) + c
+
+    return mechanical
 
 
 def _naive_step(design: Design, artifact: Artifact) -> Callable:
     """The hand-written pipeline: plain lambdify to numpy, numpy solve and svd."""
-    x, p, _ = _law_expressions(design)
-    m = design.plant.m
-    fA = sp.lambdify([x, p], design.A, modules="numpy")
-    fb = sp.lambdify([x, p], design.b, modules="numpy")
+    decoupling = _naive_decoupling(design)
+    x, p = list(design.plant.states), list(design.plant.parameters)
     fchain = sp.lambdify([x, p], sp.Matrix([e for c in design.chains for e in c.derivatives]), modules="numpy")
     K = [np.asarray(g) for g in artifact.gains]
     orders = artifact.relative_degree
 
     def step(state: np.ndarray, params: np.ndarray, ref: np.ndarray) -> np.ndarray:
-        A = np.asarray(fA(state, params), dtype=float).reshape(m, m)
-        b = np.asarray(fb(state, params), dtype=float).ravel()
+        A, b = decoupling(state, params)
         chain = np.asarray(fchain(state, params), dtype=float).ravel()
         v = np.empty(len(orders))
         i = j = 0
@@ -156,6 +198,38 @@ def _c_library(design: Design, workdir: Path) -> Callable | None:
 
     call._keep = (handle, x_buffer, p_buffer, out_buffer)  # type: ignore[attr-defined]
     return call
+
+
+def _pinocchio_step(design: Design, artifact: Artifact) -> Callable[[list[float], list[float]], np.ndarray] | None:
+    """Computed torque with Pinocchio for joint-space outputs of a serial arm (None otherwise)."""
+    mech = design.plant.mechanics
+    if mech is None or not mech.links or not pinocchio_available():
+        return None
+    if [c.expression for c in design.chains] != list(mech.coordinates) or mech.B != sp.eye(mech.nq):
+        return None
+    import pinocchio as pin
+
+    reference = pinocchio_reference(design.plant)
+    model, data, damping = reference.model, reference.data, reference.damping
+    nq = mech.nq
+    k0 = np.array([float(g[-2]) for g in artifact.gains])
+    k1 = np.array([float(g[-1]) for g in artifact.gains])
+
+    def step(state: np.ndarray, ref: np.ndarray) -> np.ndarray:
+        q, qd = state[:nq], state[nq:]
+        # ref per chain: y_ref, y_ref', y_ref''
+        v = ref[2::3] - k0 * (q - ref[0::3]) - k1 * (qd - ref[1::3])
+        return pin.rnea(model, data, q, qd, v) + damping * qd
+
+    return step
+
+
+def _calls_for(function: Callable[[int], object], calls: int, budget: float = 0.25) -> int:
+    """Calls per round so that one round of a slow candidate stays near ``budget`` seconds."""
+    start = time.perf_counter()
+    function(0)
+    once = time.perf_counter() - start
+    return max(3, min(calls, int(budget / once) if once > 0 else calls))
 
 
 def _time_per_call(function: Callable[[int], object], calls: int) -> float:
@@ -213,6 +287,10 @@ def run_bench(artifact: Artifact, design: Design | None, calls: int = 2000, roun
             np_refs = [np.asarray(r) for r in refs]
             np_params = np.asarray(params)
             candidates["naive"] = lambda k: naive(np_states[k & 63], np_params, np_refs[k & 63])
+            computed_torque = _pinocchio_step(design, artifact)
+            if computed_torque is not None:
+                candidates["pinocchio_computed_torque"] = lambda k: computed_torque(np_states[k & 63],
+                                                                                     np_refs[k & 63])
             x, p, exprs = _law_expressions(design)
             cse_math = sp.lambdify([x, p], exprs, modules="math", cse=True)
             candidates["lambdify_cse_math"] = lambda k: cse_math(states[k & 63], params)
@@ -224,12 +302,15 @@ def run_bench(artifact: Artifact, design: Design | None, calls: int = 2000, roun
         else:
             notes.append("plant file not available: only the artifact's own candidates were timed")
         for function in candidates.values():       # warm up
-            _time_per_call(function, min(calls, 200))
+            _time_per_call(function, min(calls, 200, _calls_for(function, calls, 0.5)))
+        per_round = {name: _calls_for(function, calls) for name, function in candidates.items()}
+        notes.extend(f"{name}: {count} calls per round (slow candidate)" for name, count in per_round.items()
+                     if count < calls)
         samples: dict[str, list[float]] = {name: [] for name in candidates}
         for _ in range(rounds):
             for name, function in candidates.items():
                 core.reset()
                 clock[0] = 0.0
-                samples[name].append(_time_per_call(function, calls))
+                samples[name].append(_time_per_call(function, per_round[name]))
     microseconds = {name: statistics.median(values) for name, values in samples.items()}
     return BenchResult(artifact.name, calls, rounds, microseconds, notes)

@@ -52,3 +52,33 @@ def test_run_bench_without_a_design_times_only_the_artifact(arm):
     assert set(result.microseconds) == {"core", "law_only"}
     assert "plant file not available" in result.notes[0]
     assert "core_over_law_only" in result.ratios() and "linz bench pick_arm" in result.render_text()
+
+
+def test_a_serial_arm_is_timed_against_pinocchio_computed_torque():
+    from support import REFERENCE
+
+    from linz_ros.bench import _pinocchio_step
+
+    path = REFERENCE / "pick_arm_serial.yaml"
+    artifact, design = built_artifact(path), synthesise(load_plant(path))
+    # tool-point outputs are not joint-space computed torque: no Pinocchio candidate
+    assert _pinocchio_step(design, artifact) is None
+    joint_space = path.read_text().replace("outputs:\n  tool_x: tip_x\n  tool_y: tip_y\n", "").replace(
+        "poles: {tool_x: [-6, -7], tool_y: [-6, -7]}", "poles: {y_q1: [-6, -7], y_q2: [-6, -7]}")
+    artifact = built_artifact(joint_space)
+    from linz_ros.model import plant_from_text
+
+    design = synthesise(plant_from_text(joint_space))
+    step = _pinocchio_step(design, artifact)
+    core = ControllerCore(artifact)
+    core.config = core.config.with_overrides(input_limits=((-1e9, 1e9), (-1e9, 1e9)))
+    naive = _naive_step(design, artifact)
+    rng = np.random.default_rng(2)
+    for k in range(10):
+        x = list(rng.uniform(-1, 1, 4))
+        ref = [x[0] + 0.02, 0.1, 0.5, x[1] - 0.02, 0.0, -0.3]
+        u, record = core.step(x, ref, t=0.002 * (k + 1))
+        np.testing.assert_allclose(step(np.array(x), np.array(ref)), u, rtol=1e-9)
+        np.testing.assert_allclose(naive(np.array(x), artifact.nominal_parameters, np.array(ref)), u, rtol=1e-9)
+    result = run_bench(artifact, design, calls=50, rounds=1)
+    assert "pinocchio_computed_torque" in result.microseconds and "core_over_pinocchio" in result.ratios()

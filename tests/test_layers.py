@@ -27,7 +27,8 @@ ALLOWED = {
     "nodes": RUNTIME | {"nodes"},
     "bringup": {"errors"},
     "logs": RUNTIME | {"logs"},
-    "bench": OFFLINE | RUNTIME,
+    "crosscheck": {"errors", "artifact", "model"},
+    "bench": OFFLINE | RUNTIME | {"crosscheck"},
     "cli": OFFLINE | RUNTIME | {"plotting", "bench", "bringup", "nodes", "logs"},
 }
 # heavy or ROS modules each layer may import at module level (lazy imports inside functions are

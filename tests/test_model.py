@@ -67,7 +67,10 @@ def test_defaults_and_hash():
 @pytest.mark.parametrize("path", sorted(BUNDLED.glob("*.yaml")), ids=lambda p: p.stem)
 def test_bundled_plants_load(path):
     plant = load_plant(path)
-    assert plant.n == len(plant.f) and plant.G.shape == (plant.n, plant.m)
+    if plant.mechanics is None:
+        assert plant.n == len(plant.f) and plant.G.shape == (plant.n, plant.m)
+    else:
+        assert plant.n == 2 * plant.mechanics.nq and plant.mechanics.B.shape == (plant.mechanics.nq, plant.m)
     assert plant.h.shape[0] == len(plant.output_names) > 0
     assert plant.design["rate"] > 0
     assert plant.source == str(path)

@@ -301,3 +301,68 @@ def test_three_inputs_pass_through_the_singular_set_with_finite_commands():
         assert record.mode == ("safe" if sigma < c.sigma_stop else "damped" if sigma < c.sigma_act else "nominal")
         modes.append(record.mode)
     assert {"nominal", "damped", "safe"} <= set(modes)
+
+
+@pytest.mark.parametrize("name", ["pick_arm_mass_matrix", "pick_arm_energy", "pick_arm_serial"])
+def test_a_mechanical_artifact_commands_what_the_explicit_one_does(arm, name):
+    # the same arm: the explicit file carries A and b, the mechanical one M, F, B, J and J' q'
+    from support import REFERENCE
+
+    mechanical = ControllerCore(built_artifact(REFERENCE / f"{name}.yaml"))
+    explicit = ControllerCore(arm)
+    assert mechanical.artifact.mechanical_coordinates == 2 and explicit.artifact.mechanical_coordinates is None
+    rng = np.random.default_rng(21)
+    modes = set()
+    for k in range(60):
+        x = [rng.uniform(-0.6, 1.8), rng.uniform(0.0, 2.6), rng.uniform(-2, 2), rng.uniform(-2, 2)]
+        ref = [rng.uniform(0.2, 0.6), 0.1, 0.0, rng.uniform(0.2, 0.6), 0.0, 0.0]
+        u1, r1 = explicit.step(x, ref, t=0.002 * (k + 1))
+        u2, r2 = mechanical.step(x, ref, t=0.002 * (k + 1))
+        assert u2 == pytest.approx(u1, rel=1e-9, abs=1e-9)
+        assert (r2.mode, r2.reason, r2.saturated) == (r1.mode, r1.reason, r1.saturated)
+        assert r2.sigma_min == pytest.approx(r1.sigma_min, rel=1e-9, abs=1e-15)
+        modes.add(r1.mode)
+    assert {"nominal", "damped"} <= modes            # the states reach the singular set q2 = 0
+
+
+def test_a_mass_matrix_that_is_not_positive_definite_at_run_time_gives_the_safe_command():
+    text = """\
+plant: softening
+coordinates: [p]
+inputs: [u]
+parameters: {m: 1.0}
+mass_matrix: [[m - p**2]]
+envelope: {p: [-0.5, 0.5]}
+design: {poles: [-2, -3]}
+"""
+    core = ControllerCore(built_artifact(text))
+    u, record = core.step([0.2, 0.0], [0.0, 0.0, 0.0], t=0.01)
+    assert record.mode == "nominal" and math.isfinite(u[0])
+    u, record = core.step([1.5, 0.0], [0.0, 0.0, 0.0], t=0.02)      # M = -1.25: the model is void here
+    assert (record.mode, record.reason) == ("safe", "model_not_finite") and u == [0.0]
+
+
+def test_the_six_joint_arm_core_step_is_computed_torque():
+    # joint outputs: u = M v - F exactly (B = I, J = I), with v the outer-loop acceleration
+    from linz_ros.model import load_plant, numeric_function
+
+    plant = load_plant(BUNDLED / "loader_arm.yaml")
+    artifact = built_artifact(BUNDLED / "loader_arm.yaml")
+    core = ControllerCore(artifact)
+    core.config = core.config.with_overrides(input_limits=tuple((-1e9, 1e9) for _ in range(6)))
+    evaluate = numeric_function(list(plant.states) + list(plant.parameters),
+                                [list(plant.mechanics.M), list(plant.mechanics.F)])
+    gains = [np.asarray(g) for g in artifact.gains]
+    rng = np.random.default_rng(3)
+    for k in range(10):
+        x = list(rng.uniform(-1, 1, 12))
+        ref = []
+        for i in range(6):
+            ref += [x[i] + 0.01, 0.02, 0.3]
+        u, record = core.step(x, ref, t=0.002 * (k + 1))
+        M, F = evaluate(*x, *plant.parameters.values())
+        v = [ref[3 * i + 2] - gains[i][0] * (x[i] - ref[3 * i]) - gains[i][1] * (x[6 + i] - ref[3 * i + 1])
+             for i in range(6)]
+        expected = np.reshape(np.array(M, float), (6, 6)) @ v - np.array(F, float)
+        assert record.mode == "nominal"
+        np.testing.assert_allclose(u, expected, rtol=1e-9)

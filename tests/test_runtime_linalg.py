@@ -43,3 +43,29 @@ def test_two_by_two_singular_values_survive_huge_and_tiny_entries():
         expected = np.linalg.svd(A / factor, compute_uv=False) * factor
         assert smin == pytest.approx(expected[-1], rel=1e-12) and smax == pytest.approx(expected[0], rel=1e-12)
     assert singular_values([0.0, 0.0, 0.0, 0.0], 2) == (0.0, 0.0)
+
+
+@pytest.mark.parametrize("nq, m", [(1, 1), (2, 2), (3, 2), (3, 3), (6, 6), (6, 3)])
+def test_task_space_terms_match_a_direct_numpy_evaluation(nq, m):
+    from linz_ros.runtime._linalg import task_space_terms
+
+    rng = np.random.default_rng(nq * 10 + m)
+    for _ in range(10):
+        root = rng.normal(size=(nq, nq))
+        M = root @ root.T + nq * np.eye(nq)
+        F, B, J, c = rng.normal(size=nq), rng.normal(size=(nq, m)), rng.normal(size=(m, nq)), rng.normal(size=m)
+        A, b = task_space_terms(M.ravel().tolist(), F.tolist(), B.ravel().tolist(), J.ravel().tolist(),
+                                c.tolist(), nq, m)
+        np.testing.assert_allclose(np.reshape(A, (m, m)), J @ np.linalg.solve(M, B), rtol=1e-10, atol=1e-12)
+        np.testing.assert_allclose(b, J @ np.linalg.solve(M, F) + c, rtol=1e-10, atol=1e-12)
+
+
+@pytest.mark.parametrize("nq", [1, 2, 3, 5])
+def test_task_space_terms_refuse_a_mass_matrix_that_is_not_positive_definite(nq):
+    from linz_ros.runtime._linalg import task_space_terms
+
+    M = np.eye(nq)
+    M[-1, -1] = -0.5
+    with pytest.raises(ArithmeticError, match="not positive definite"):
+        task_space_terms(M.ravel().tolist(), [0.0] * nq, np.eye(nq).ravel().tolist(), np.eye(nq).ravel().tolist(),
+                         [0.0] * nq, nq, nq)

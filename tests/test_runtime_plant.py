@@ -39,3 +39,17 @@ def test_parse_assignments_errors_are_one_line():
     for bad, words in (["a"], "expected name=value"), (["a=x"], "a: expected a number"), (["a=inf"], "finite"):
         with pytest.raises(ConfigError, match=words):
             parse_assignments(bad, "--x")
+
+
+def test_a_mechanical_artifact_integrates_like_the_explicit_one():
+    from support import BUNDLED, REFERENCE
+
+    explicit = NumericPlant(built_artifact(BUNDLED / "survey_boat.yaml"))
+    vectorial = NumericPlant(built_artifact(REFERENCE / "survey_boat_mass_matrix.yaml"))
+    rng = np.random.default_rng(6)
+    for _ in range(20):
+        x, u = list(rng.uniform(-1, 1, 6)), list(rng.uniform(-20, 20, 2))
+        assert vectorial.derivative(x, u) == pytest.approx(explicit.derivative(x, u), rel=1e-12, abs=1e-12)
+    x0 = [0.0, 0.0, 0.3, 1.0, 0.1, 0.2]
+    assert vectorial.rk4(x0, [30.0, 2.0], 0.01, 100) == pytest.approx(explicit.rk4(x0, [30.0, 2.0], 0.01, 100),
+                                                                      rel=1e-10)

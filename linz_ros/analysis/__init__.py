@@ -12,6 +12,7 @@ invariant_zeros       finite zeros of a square linear system
 controllability_indices  Kronecker indices from the ranks of D_k
 plant_context         parameters and random envelope points for numeric decisions
 lie_chain             relative degree of one output and its derivatives h, L_f h, ...
+mechanical_terms      numeric M, F, B, J and J M^-1 B of a mechanical plant
 """
 
 from linz_ros.analysis._common import plant_context
@@ -21,11 +22,12 @@ from linz_ros.analysis._input_output import (InputOutputResult, ZeroDynamics, an
 from linz_ros.analysis._input_state import (DistributionInfo, InputStateResult, analyse_input_state,
                                             controllability_indices, lie_chain,
                                             relative_degree_of)
+from linz_ros.analysis._mechanical import MechanicalTerms, mechanical_terms
 from linz_ros.analysis._report import Report, analyse, render_text
 
 __all__ = [
     "analyse", "render_text", "Report", "analyse_input_state", "analyse_input_output",
     "sample_envelope", "invariant_zeros", "controllability_indices", "relative_degree_of",
     "decoupling_terms", "lie_chain", "DistributionInfo", "InputStateResult", "InputOutputResult",
-    "ZeroDynamics", "EnvelopeResult", "plant_context",
+    "ZeroDynamics", "EnvelopeResult", "plant_context", "MechanicalTerms", "mechanical_terms",
 ]

@@ -44,6 +44,31 @@ def show(expr: sp.Expr) -> str:
     return str(expr)
 
 
+#: Expressions with more tree nodes than this are summarised, not printed (a six-joint
+#: arm's mass-matrix entries print to hundreds of kilobytes).
+SHOW_BUDGET = 2000
+
+
+def tree_size_above(expr: sp.Expr, limit: int) -> bool:
+    """True when ``expr`` has more than ``limit`` nodes; stops counting there (cheap on big trees)."""
+    for count, _ in enumerate(sp.preorder_traversal(sp.sympify(expr)), start=1):
+        if count > limit:
+            return True
+    return False
+
+
+def small_enough(matrix: sp.Matrix, limit: int = SHOW_BUDGET) -> bool:
+    """True when every entry of ``matrix`` has at most ``limit`` nodes."""
+    return not any(tree_size_above(e, limit) for e in matrix)
+
+
+def show_bounded(expr: sp.Expr, limit: int = SHOW_BUDGET) -> str:
+    """:func:`show`, or a placeholder for an expression too large to print usefully."""
+    if tree_size_above(expr, limit):
+        return f"<expression of more than {limit} nodes>"
+    return show(expr)
+
+
 def depends_on_states(expr: sp.Expr, plant: Plant) -> bool:
     """True when ``expr`` contains a state symbol."""
     return bool(sp.sympify(expr).free_symbols & set(plant.states))

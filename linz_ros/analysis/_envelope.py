@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 import scipy.stats.qmc as qmc
@@ -49,8 +49,8 @@ def _evaluate_batch(matrix: sp.Matrix, plant: Plant, points: np.ndarray) -> np.n
     return real.reshape(count, *matrix.shape)
 
 
-def sample_envelope(plant: Plant, matrix: sp.Matrix, subject: str, samples: int = 1024,
-                    seed: int = 7) -> EnvelopeResult:
+def sample_envelope(plant: Plant, matrix: sp.Matrix | Callable[[np.ndarray], np.ndarray], subject: str,
+                    samples: int = 1024, seed: int = 7) -> EnvelopeResult:
     """Sample ``matrix`` over the plant's envelope with a scrambled Sobol sequence.
 
     States without envelope bounds stay at their operating-point values.
@@ -58,8 +58,10 @@ def sample_envelope(plant: Plant, matrix: sp.Matrix, subject: str, samples: int 
     Parameters
     ----------
     plant : Plant
-    matrix : sympy.Matrix
-        Usually the decoupling matrix A(x).
+    matrix : sympy.Matrix or callable
+        Usually the decoupling matrix A(x); or a function of K x n states returning
+        K x rows x cols values (nan where undefined), for matrices that are evaluated
+        numerically (J M^-1 B of a mechanical plant).
     subject : str
         What the matrix is, for the report.
     samples : int
@@ -78,7 +80,7 @@ def sample_envelope(plant: Plant, matrix: sp.Matrix, subject: str, samples: int 
     upper = np.array([plant.envelope[plant.states[i].name][1] for i in bounded])
     points = np.tile(base, (unit.shape[0], 1))
     points[:, bounded] = qmc.scale(unit, lower, upper)
-    values = _evaluate_batch(matrix, plant, points)
+    values = matrix(points) if callable(matrix) else _evaluate_batch(matrix, plant, points)
     finite = np.all(np.isfinite(values), axis=(1, 2))
     method = f"scrambled Sobol, {points.shape[0]} points over {len(bounded)} bounded state(s)"
     if not np.any(finite):

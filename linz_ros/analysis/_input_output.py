@@ -55,6 +55,7 @@ class InputOutputResult:
     singular_set_note: str = ""
     zero_dynamics_order: int | None = None
     zero_dynamics: ZeroDynamics | None = None
+    decoupling_structure: dict[str, Any] | None = None   # mechanical plants: A = J M^-1 B
 
     def to_json(self) -> dict[str, Any]:
         A = self.decoupling_matrix
@@ -70,6 +71,7 @@ class InputOutputResult:
             "singular_set_note": self.singular_set_note,
             "zero_dynamics_order": self.zero_dynamics_order,
             "zero_dynamics": None if self.zero_dynamics is None else self.zero_dynamics.to_json(),
+            "decoupling_structure": self.decoupling_structure,
         }
 
 

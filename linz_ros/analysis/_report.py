@@ -5,10 +5,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
-from linz_ros.analysis._common import plant_context, show
+from linz_ros.analysis._common import plant_context, show, show_bounded
 from linz_ros.analysis._envelope import EnvelopeResult, sample_envelope
 from linz_ros.analysis._input_output import InputOutputResult, analyse_input_output
 from linz_ros.analysis._input_state import InputStateResult, analyse_input_state, relative_degree_of
+from linz_ros.analysis._mechanical import (analyse_mechanical_input_output, analyse_mechanical_input_state,
+                                           mechanical_terms)
 from linz_ros.model import Plant
 
 __all__ = ["Report", "analyse", "render_text"]
@@ -35,13 +37,28 @@ class Report:
             "inputs": p.input_names,
             "parameters": {s.name: v for s, v in p.parameters.items()},
             "control_affine": True,
-            "drift": [show(e) for e in p.f],
-            "input_matrix": [[show(p.G[i, j]) for j in range(p.m)] for i in range(p.n)],
+            "drift": None if p.f is None else [show(e) for e in p.f],
+            "input_matrix": None if p.G is None else [[show(p.G[i, j]) for j in range(p.m)] for i in range(p.n)],
+            "mechanics": _mechanics_json(p),
             "operating_point": dict(p.operating_point),
             "input_state": self.input_state.to_json(),
             "input_output": None if self.input_output is None else self.input_output.to_json(),
             "envelope": None if self.envelope is None else self.envelope.to_json(),
         }
+
+
+def _mechanics_json(plant: Plant) -> dict[str, Any] | None:
+    mech = plant.mechanics
+    if mech is None:
+        return None
+    return {
+        "form": mech.form,
+        "coordinates": [q.name for q in mech.coordinates],
+        "velocities": [v.name for v in mech.velocities],
+        "mass_matrix": [[show_bounded(mech.M[i, j]) for j in range(mech.nq)] for i in range(mech.nq)],
+        "forces": [show_bounded(e) for e in mech.F],
+        "input_map": [[show_bounded(mech.B[i, j]) for j in range(plant.m)] for i in range(mech.nq)],
+    }
 
 
 def analyse(plant: Plant, samples: int = 1024) -> Report:
@@ -66,6 +83,8 @@ def analyse(plant: Plant, samples: int = 1024) -> Report:
     True
     """
     ctx = plant_context(plant)
+    if plant.mechanics is not None:
+        return _analyse_mechanical(plant, ctx, samples)
     input_state = analyse_input_state(plant, ctx)
     input_output = analyse_input_output(plant, ctx)
     envelope = None
@@ -73,6 +92,19 @@ def analyse(plant: Plant, samples: int = 1024) -> Report:
         subject_matrix, subject = _envelope_subject(plant, input_state, input_output, ctx)
         if subject_matrix is not None:
             envelope = sample_envelope(plant, subject_matrix, subject, samples)
+    return Report(plant, input_state, input_output, envelope)
+
+
+def _analyse_mechanical(plant: Plant, ctx, samples: int) -> Report:
+    """The analyses on the mass-matrix structure (M^-1 is never formed symbolically)."""
+    terms = mechanical_terms(plant)
+    input_state = analyse_mechanical_input_state(plant, terms, ctx)
+    input_output = analyse_mechanical_input_output(plant, terms, ctx)
+    envelope = None
+    if (plant.envelope and input_output is not None and None not in input_output.relative_degree_generic
+            and plant.h.shape[0] <= plant.m):
+        envelope = sample_envelope(plant, lambda points: terms.decoupling(points)[0],
+                                   "decoupling matrix J M^-1 B of the outputs", samples)
     return Report(plant, input_state, input_output, envelope)
 
 
@@ -121,6 +153,12 @@ def render_text(report: Report) -> str:
     if env is not None and env.min_sigma is not None:
         lines.append(f"  envelope: min sigma {_fmt(env.min_sigma)}, "
                      f"max condition {_fmt(env.max_condition)}")
+    if p.mechanics is not None:
+        form = {"mass_matrix": "mass-matrix form", "energy": "energy form (Lagrange's equations)",
+                "serial_arm": "serial arm (DH table)"}[p.mechanics.form]
+        law = ("M(q) q'' = F(q, q') + B(q) u" if p.mechanics.kinematics is None
+               else "M(q) v' = F(q, v) + B(q) u with q' = k(q, v)")
+        lines += ["", "MODEL", f"  {form}: {law}, {p.mechanics.nq} coordinates; M^-1 is never formed"]
     lines += ["", "INPUT-STATE", f"  {iss.reason}"]
     for d in iss.distributions:
         inv = {True: "involutive", False: "NOT involutive", None: "-"}[d.involutive]
@@ -138,6 +176,10 @@ def render_text(report: Report) -> str:
     if io is not None:
         lines += ["", "INPUT-OUTPUT", f"  {io.reason}",
                   f"  generic relative degree: {io.relative_degree_generic}"]
+        if io.decoupling_structure is not None:
+            lines.append(f"  decoupling matrix A(x) = {io.decoupling_structure['form']}, with J = dh/dq:")
+            for row in io.decoupling_structure["J"]:
+                lines.append(f"    [{', '.join(row)}]")
         if io.decoupling_matrix is not None:
             lines.append("  decoupling matrix A(x):")
             for i in range(io.decoupling_matrix.shape[0]):

@@ -293,6 +293,12 @@ class Artifact:
         return float(self.document["design"]["rate"])
 
     @property
+    def mechanical_coordinates(self) -> int | None:
+        """nq for a mechanical plant (programs carry M, F, B, J), None for an explicit one."""
+        mechanics = self.document["design"].get("mechanics")
+        return None if mechanics is None else int(mechanics["coordinates"])
+
+    @property
     def kind(self) -> str:
         """``input_output`` or ``input_state``."""
         return self.document["design"]["kind"]
@@ -521,8 +527,20 @@ def _check_consistency(document: dict[str, Any], source: str) -> None:
         need(name in programs, f"programs.{name}: missing")
     if design["kind"] == "input_state":
         need("transform" in programs, "programs.transform: missing (an input-state design carries T)")
-    expected_shapes = {"law": {"A": [m, m], "b": [m], "chain": [total]},
-                       "dynamics": {"f": [n], "G": [n, m]},
+    mechanics = design.get("mechanics")
+    need(mechanics is None or (isinstance(mechanics, dict) and isinstance(mechanics.get("coordinates"), int)
+                               and not isinstance(mechanics["coordinates"], bool)
+                               and 2 * mechanics["coordinates"] == n),
+         "design.mechanics: expected null or {coordinates: nq} with 2 nq states")
+    if mechanics is None:
+        law_shapes, dynamics_shapes = {"A": [m, m], "b": [m], "chain": [total]}, {"f": [n], "G": [n, m]}
+    else:
+        nq = mechanics["coordinates"]
+        structure = {"M": [nq, nq], "F": [nq], "B": [nq, m]}
+        dynamics_shapes = {**structure, "qdot": [nq]}
+        law_shapes = {**structure, "J": [m, nq], "c": [m], "chain": [total]}
+    expected_shapes = {"law": law_shapes,
+                       "dynamics": dynamics_shapes,
                        "transform": {"T": [n], "jacobian": [n, n]},
                        "inverse": {"x": [n]},
                        "singular_set": {"s": [1]}}

@@ -17,6 +17,7 @@ import sympy as sp
 
 from linz_ros.artifact.compiler import compile_program
 from linz_ros.codegen._printer import CodegenError
+from linz_ros.model import numeric_function
 from linz_ros.synthesis import Design
 
 __all__ = ["Verification", "verify_programs", "DEFAULT_TOLERANCE"]
@@ -98,7 +99,8 @@ def verify_programs(design: Design, programs, printed: dict[str, dict[str, Any]]
         compiled = compile_program(program.name, spec["arguments"], spec["temporaries"], spec["outputs"])
         symbols = [s for _, vector in program.arguments for s in vector]
         entries = [e for _, _, values in program.outputs for e in values]
-        reference = sp.lambdify(symbols, entries, modules="mpmath", dummify=True)
+        # sympy's own printer and CSE (not ours) keep big trees (six-joint arms) printable
+        reference = numeric_function(symbols, entries, "mpmath")
         first = _first_arguments(program, design, states)
         worst, worst_at, skipped = 0.0, None, 0
         for row in first:

@@ -48,6 +48,39 @@ def symbolic_programs(design: Design) -> list[SymbolicProgram]:
     p = list(plant.parameters)
     state_args = [("x", x), ("p", p)]
     chain = [e for c in design.chains for e in c.derivatives]
+    if design.mechanical:
+        programs = _mechanical_programs(design, state_args, chain)
+    else:
+        programs = _explicit_programs(design, state_args, chain)
+    singular = _singular_set_expression(design)
+    if singular is not None:
+        programs.append(SymbolicProgram("singular_set", state_args, [("s", (1,), [singular])]))
+    return programs
+
+
+def _mechanical_programs(design: Design, state_args, chain: list[sp.Expr]) -> list[SymbolicProgram]:
+    """M, F, B and the output terms J, J' q': the runtime assembles A = J M^-1 B itself.
+
+    J here is dy'/dv (J K with quasi-velocities) and c = (dy'/dq) q'; the simulator's
+    program adds the coordinate rates q' = k(q, v).
+    """
+    plant = design.plant
+    mech = plant.mechanics
+    h = sp.Matrix([c.expression for c in design.chains])
+    J, c = mech.decoupling_jacobian(h), mech.output_bias(h)
+    nq, m = mech.nq, plant.m
+    structure = [("M", (nq, nq), list(mech.M)), ("F", (nq,), list(mech.F)), ("B", (nq, m), list(mech.B))]
+    return [
+        SymbolicProgram("law", state_args, structure + [
+            ("J", (len(design.chains), nq), list(J)), ("c", (len(design.chains),), list(c)),
+            ("chain", (len(chain),), chain)]),
+        SymbolicProgram("dynamics", state_args, structure + [("qdot", (nq,), list(mech.coordinate_rates))]),
+    ]
+
+
+def _explicit_programs(design: Design, state_args, chain: list[sp.Expr]) -> list[SymbolicProgram]:
+    plant = design.plant
+    x, p = state_args[0][1], state_args[1][1]
     programs = [
         SymbolicProgram("law", state_args, [
             ("A", tuple(design.A.shape), list(design.A)),
@@ -65,9 +98,6 @@ def symbolic_programs(design: Design) -> list[SymbolicProgram]:
             z = list(transformed_symbols(plant.n))
             programs.append(SymbolicProgram("inverse", [("z", z), ("p", p)],
                                             [("x", (plant.n,), list(design.transform_inverse))]))
-    singular = _singular_set_expression(design)
-    if singular is not None:
-        programs.append(SymbolicProgram("singular_set", state_args, [("s", (1,), [singular])]))
     return programs
 
 
@@ -123,6 +153,8 @@ def _design_section(design: Design) -> dict[str, Any]:
         } for c in design.chains],
         "warnings": list(design.warnings),
         "notes": list(design.notes),
+        "mechanics": (None if not design.mechanical else
+                      {"form": design.plant.mechanics.form, "coordinates": design.plant.mechanics.nq}),
     }
 
 

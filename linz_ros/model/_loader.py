@@ -13,15 +13,20 @@ import yaml
 
 from linz_ros.artifact.grammar import RESERVED_NAMES, FUNCTIONS, names_in, parse_expression
 from linz_ros.errors import ExpressionSyntaxError, PlantFileError
-from linz_ros.model._plant import Plant
+from linz_ros.model._mechanics import MECHANICAL_FORMS, check_mass_matrix, read_mechanics, velocity_names
+from linz_ros.model._plant import Mechanics, Plant
 from linz_ros.model._symbolic import UnknownName, tree_to_sympy
 
 __all__ = ["load_plant", "plant_from_text", "expression_in"]
 
 _IDENTIFIER = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
-_TOP_LEVEL = ("plant", "description", "states", "inputs", "parameters", "definitions",
-              "dynamics", "outputs", "input_limits", "envelope", "operating_point", "design")
-_REQUIRED = ("plant", "states", "inputs", "dynamics")
+_TOP_LEVEL = ("plant", "description", "states", "coordinates", "velocities", "inputs", "parameters",
+              "definitions", "dynamics", "mass_matrix", "kinetic_energy", "potential_energy", "serial_arm",
+              "forces", "input_map", "kinematics", "outputs", "input_limits", "envelope", "operating_point", "design")
+_REQUIRED = ("plant", "inputs")
+#: Keys that only a mechanical form may carry, and the one key of each model form.
+_MECHANICAL_ONLY = ("coordinates", "velocities", "forces", "input_map", "kinematics")
+_MODEL_FORMS = ("dynamics",) + tuple(MECHANICAL_FORMS)
 _DESIGN_KEYS = ("rate", "poles", "lqr", "integral", "watchdog", "reference")
 _WATCHDOG_KEYS = ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "rate_limits",
                   "safe_command", "integral_limit", "hold_time")
@@ -259,6 +264,52 @@ def _read_dynamics(reader: _Reader, doc: Mapping, states: list[str], inputs: lis
     return sp.Matrix(drift), sp.Matrix(columns)
 
 
+def _model_form(reader: _Reader, doc: Mapping) -> str:
+    """Which model form the document uses: ``dynamics`` or one of the mechanical forms."""
+    given = [key for key in _MODEL_FORMS if doc.get(key) is not None]
+    if not given:
+        raise reader.fail("dynamics", "missing (required): give the model as dynamics (explicit form), "
+                                      "mass_matrix, kinetic_energy or serial_arm")
+    if len(given) > 1:
+        raise reader.fail(given[1], f"give one model form; {given[0]} is given as well")
+    form = given[0]
+    if form == "dynamics":
+        extra = [k for k in _MECHANICAL_ONLY + ("potential_energy",) if doc.get(k) is not None]
+        if extra:
+            raise reader.fail(extra[0], "belongs to the mechanical forms (mass_matrix, kinetic_energy, "
+                                        "serial_arm), not to dynamics")
+        if doc.get("states") is None:
+            raise reader.fail("states", "missing (required)")
+    else:
+        if doc.get("states") is not None:
+            raise reader.fail("states", "a mechanical plant's states are its coordinates and velocities; "
+                                        "give coordinates (and optionally velocities) instead")
+        if doc.get("coordinates") is None:
+            raise reader.fail("coordinates", "missing (required with " + form + ")")
+        if form != "kinetic_energy" and doc.get("potential_energy") is not None:
+            raise reader.fail("potential_energy", "belongs to the energy form (with kinetic_energy)")
+    return form
+
+
+def _read_mechanical_outputs(reader: _Reader, doc: Mapping, mechanics: Mechanics
+                             ) -> tuple[tuple[str, ...], sp.Matrix]:
+    """Outputs of a mechanical plant: functions of the coordinates (the joints when none are given)."""
+    if doc.get("outputs") is None:
+        if len(mechanics.coordinates) != mechanics.B.shape[1]:
+            return (), sp.zeros(0, 1)
+        names = tuple(reader.declare("outputs (default: the coordinates)", f"y_{q.name}", "output")
+                      for q in mechanics.coordinates)
+        return names, sp.Matrix(mechanics.coordinates)
+    names, h = _read_outputs(reader, doc)
+    velocities = set(mechanics.velocities)
+    for name, expr in zip(names, h):
+        used = sorted(expr.free_symbols & velocities, key=str)
+        if used:
+            raise reader.fail(f"outputs.{name}", f"depends on velocity {used[0]}; outputs of a mechanical plant "
+                                                 "are functions of the coordinates (relative degree 2)")
+    return names, h
+
+
 def _read_outputs(reader: _Reader, doc: Mapping) -> tuple[tuple[str, ...], sp.Matrix]:
     outputs = reader.mapping(doc, "outputs")
     allowed = set(reader.names)  # inputs are refused below, with the reason
@@ -448,24 +499,39 @@ def _read_document(doc: Any, source: str, digest: str) -> Plant:
     if not isinstance(name, str) or not _IDENTIFIER.match(name):
         raise reader.fail("plant", f"{_describe(name)} is not a valid identifier")
     description = reader.text(doc, "description", "description")
-    states = reader.name_list(doc, "states", "state")
+    form = _model_form(reader, doc)
+    if form == "dynamics":
+        states = reader.name_list(doc, "states", "state")
+        coordinates: list[str] = []
+    else:
+        coordinates = reader.name_list(doc, "coordinates", "state")
+        states = coordinates + velocity_names(reader, doc, coordinates)
     inputs = reader.name_list(doc, "inputs", "input")
     state_symbols = [sp.Symbol(s, real=True) for s in states]
     input_symbols = [sp.Symbol(u, real=True) for u in inputs]
     reader.table.update({s.name: s for s in state_symbols + input_symbols})
     parameters, units = _read_parameters(reader, doc)
     _read_definitions(reader, doc)
-    f, G = _read_dynamics(reader, doc, states, input_symbols)
-    output_names, h = _read_outputs(reader, doc)
+    mechanics = None
+    if form == "dynamics":
+        f, G = _read_dynamics(reader, doc, states, input_symbols)
+        output_names, h = _read_outputs(reader, doc)
+    else:
+        nq = len(coordinates)
+        mechanics = read_mechanics(reader, doc, form, state_symbols[:nq], state_symbols[nq:], input_symbols)
+        f = G = None
+        output_names, h = _read_mechanical_outputs(reader, doc, mechanics)
     input_limits = _read_bounds(reader, doc, "input_limits", inputs, "an input")
     envelope = _read_bounds(reader, doc, "envelope", states, "a state")
     operating_point = _read_operating_point(reader, doc, states, envelope)
+    if mechanics is not None:
+        check_mass_matrix(reader, form, mechanics, parameters, envelope, operating_point)
     design = _read_design(reader, doc, output_names, states, inputs)
     return Plant(
         name=name, description=description, states=tuple(state_symbols),
         inputs=tuple(input_symbols), parameters=parameters, units=units, f=f, G=G,
         output_names=output_names, h=h, input_limits=input_limits, envelope=envelope,
-        operating_point=operating_point, design=design, source=source, sha256=digest)
+        operating_point=operating_point, design=design, source=source, sha256=digest, mechanics=mechanics)
 
 
 def plant_from_text(text: str, source: str = "<string>") -> Plant:

@@ -7,7 +7,73 @@ from typing import Any
 
 import sympy as sp
 
-__all__ = ["Plant"]
+__all__ = ["Plant", "Mechanics"]
+
+
+@dataclass(frozen=True)
+class Mechanics:
+    """A mechanical plant's structure: ``M(q) v' = F(q, v) + B(q) u`` with ``q' = k(q, v)``.
+
+    The states are the coordinates q followed by the velocities v (v = q' unless
+    kinematics are given, as for a vessel in the vectorial form). M is never inverted
+    symbolically: the analysis and the runtime work with M, F, B and the output
+    Jacobian numerically.
+
+    Attributes
+    ----------
+    form : {"mass_matrix", "energy", "serial_arm"}
+        The plant-file form the model came from.
+    coordinates, velocities : tuple of sympy.Symbol
+    M : sympy.Matrix
+        Mass matrix, nq x nq, in q and the parameters.
+    F : sympy.Matrix
+        Generalized forces other than the inputs (Coriolis, gravity, friction), nq x 1.
+    B : sympy.Matrix
+        Input map, nq x m, in q and the parameters.
+    links : tuple of Link
+        The DH table of a serial arm (empty for the other forms).
+    gravity : sympy.Matrix or None
+        A serial arm's gravity vector in its base frame.
+    kinematics : sympy.Matrix or None
+        q' = k(q, v) when the velocities v are quasi-velocities (a vessel's body-frame
+        surge, sway and yaw rate); None when v = q'.
+    """
+
+    form: str
+    coordinates: tuple[sp.Symbol, ...]
+    velocities: tuple[sp.Symbol, ...]
+    M: sp.Matrix
+    F: sp.Matrix
+    B: sp.Matrix
+    links: tuple[Any, ...] = ()
+    gravity: sp.Matrix | None = None
+    kinematics: sp.Matrix | None = None
+
+    @property
+    def nq(self) -> int:
+        """Number of generalized coordinates."""
+        return len(self.coordinates)
+
+    @property
+    def coordinate_rates(self) -> sp.Matrix:
+        """q' as a column: the kinematics k(q, v) when given, else the velocities themselves."""
+        return sp.Matrix(self.velocities) if self.kinematics is None else sp.Matrix(self.kinematics)
+
+    def output_jacobian(self, h: sp.Matrix) -> sp.Matrix:
+        """J(q) = dh/dq for outputs h(q)."""
+        return sp.Matrix(h).jacobian(sp.Matrix(self.coordinates))
+
+    def output_rates(self, h: sp.Matrix) -> sp.Matrix:
+        """y' = J(q) q' (with q' = k(q, v) for quasi-velocities)."""
+        return self.output_jacobian(h) * self.coordinate_rates
+
+    def decoupling_jacobian(self, h: sp.Matrix) -> sp.Matrix:
+        """dy'/dv: the factor in front of M^-1 B in y'' (J, or J K for quasi-velocities)."""
+        return self.output_rates(h).jacobian(sp.Matrix(self.velocities))
+
+    def output_bias(self, h: sp.Matrix) -> sp.Matrix:
+        """The part of y'' that does not depend on v': (dy'/dq) q'."""
+        return self.output_rates(h).jacobian(sp.Matrix(self.coordinates)) * self.coordinate_rates
 
 
 @dataclass(frozen=True)
@@ -24,10 +90,11 @@ class Plant:
         Parameter symbol -> nominal value (float, SI units).
     units : dict
         Parameter name -> unit text, where the file gave one.
-    f : sympy.Matrix
-        Drift vector field, n x 1.
-    G : sympy.Matrix
-        Input matrix, n x m; column j is the vector field g_j.
+    f : sympy.Matrix or None
+        Drift vector field, n x 1; None for a mechanical plant (see ``mechanics``).
+    G : sympy.Matrix or None
+        Input matrix, n x m; column j is the vector field g_j; None for a mechanical
+        plant, whose f and G would need M(q)^-1 in closed form.
     output_names : tuple of str
     h : sympy.Matrix
         Outputs, p x 1 (p may be 0).
@@ -41,6 +108,9 @@ class Plant:
         File the plant came from.
     sha256 : str
         Hash of the file's bytes.
+    mechanics : Mechanics or None
+        The mass-matrix structure of a mechanical plant (mass-matrix, energy or
+        serial-arm form); None for the explicit form.
     """
 
     name: str
@@ -49,8 +119,8 @@ class Plant:
     inputs: tuple[sp.Symbol, ...]
     parameters: dict[sp.Symbol, float]
     units: dict[str, str]
-    f: sp.Matrix
-    G: sp.Matrix
+    f: sp.Matrix | None
+    G: sp.Matrix | None
     output_names: tuple[str, ...]
     h: sp.Matrix
     input_limits: dict[str, tuple[float, float]] = field(default_factory=dict)
@@ -59,6 +129,7 @@ class Plant:
     design: dict[str, Any] = field(default_factory=dict)
     source: str = "<string>"
     sha256: str = ""
+    mechanics: Mechanics | None = None
 
     @property
     def n(self) -> int:
@@ -89,6 +160,13 @@ class Plant:
         """The operating point as a list in state order."""
         return [self.operating_point[s.name] for s in self.states]
 
+    @property
+    def is_mechanical(self) -> bool:
+        """True for a plant in mass-matrix structure (f and G are not formed)."""
+        return self.mechanics is not None
+
     def closed_form_dynamics(self) -> sp.Matrix:
-        """f(x) + G(x) u as one column."""
+        """f(x) + G(x) u as one column (explicit plants only)."""
+        if self.f is None or self.G is None:
+            raise ValueError(f"plant {self.name} is mechanical: f and G are not formed symbolically")
         return self.f + self.G * sp.Matrix(self.inputs)

@@ -113,3 +113,48 @@ def _power(base: sp.Expr, exponent: sp.Expr) -> sp.Expr:
         if bits * abs(exponent) > MAX_BITS:
             raise ValueError("a constant in it is out of range")
     return base ** exponent
+
+
+def _cse_in_given_order(expressions):
+    return sp.cse(expressions, order="none")
+
+
+def numeric_function(arguments, expressions, modules: str = "numpy"):
+    """``sympy.lambdify`` that stays fast on big expression trees (six-joint arms).
+
+    Common subexpressions are eliminated first (sympy's CSE walks the tree as a graph,
+    without canonical reordering), and symbols are renamed only where their names are
+    not safe Python identifiers (lambdify's ``dummify`` rewrites the whole tree).
+
+    Parameters
+    ----------
+    arguments : sequence of sympy.Symbol
+    expressions : expression or nested lists of expressions
+    modules : str
+        As for ``sympy.lambdify`` (``numpy``, ``math``, ``mpmath``).
+
+    Returns
+    -------
+    callable
+
+    Examples
+    --------
+    >>> x, y = sp.symbols("x y")
+    >>> numeric_function([x, y], [x * y + sp.sin(x * y)], "math")(2.0, 0.0)
+    [0.0]
+    """
+    if not (isinstance(expressions, (list, tuple)) and expressions and isinstance(expressions[0], (list, tuple))):
+        return sp.lambdify(list(arguments), expressions, modules=modules, dummify=False, cse=_cse_in_given_order)
+    # sympy's CSE treats nested lists as opaque: eliminate over the flat list, then regroup
+    sizes = [len(group) for group in expressions]
+    flat = sp.lambdify(list(arguments), [e for group in expressions for e in group], modules=modules,
+                       dummify=False, cse=_cse_in_given_order)
+
+    def grouped(*values):
+        out, start, result = [], 0, flat(*values)
+        for size in sizes:
+            out.append(result[start:start + size])
+            start += size
+        return out
+
+    return grouped

@@ -12,7 +12,10 @@ from typing import Sequence
 
 import numpy as np
 
-__all__ = ["singular_values", "solve", "damped_solve"]
+__all__ = ["singular_values", "solve", "damped_solve", "spd_solve", "task_space_terms"]
+
+#: Up to this size a symmetric positive definite solve is plain float arithmetic (Cholesky).
+SMALL_SPD = 3
 
 
 def singular_values(a: Sequence[float], m: int) -> tuple[float, float]:
@@ -126,3 +129,141 @@ def damped_solve(a: Sequence[float], rhs: Sequence[float], m: int, damping: floa
     A = np.asarray(a, dtype=float).reshape(m, m)
     w = np.linalg.solve(A @ A.T + lam2 * np.eye(m), np.asarray(rhs, dtype=float))
     return (A.T @ w).tolist()
+
+
+def spd_solve(a: Sequence[float], columns: Sequence[Sequence[float]], n: int) -> list[list[float]]:
+    """Solve ``M X = [c_1 ... c_k]`` for symmetric positive definite M given flat (Cholesky).
+
+    Parameters
+    ----------
+    a : sequence of float
+        Row-major entries of M, length n*n (only the lower triangle is read).
+    columns : sequence of sequence of float
+        The right-hand sides, each of length n.
+    n : int
+
+    Returns
+    -------
+    list of list of float
+        One solution per right-hand side.
+
+    Raises
+    ------
+    ArithmeticError
+        When M is not positive definite (a pivot is not positive).
+
+    Examples
+    --------
+    >>> spd_solve([4.0, 2.0, 2.0, 3.0], [[2.0, 1.0]], 2)
+    [[0.5, 0.0]]
+    """
+    if n > SMALL_SPD:
+        M = np.asarray(a, dtype=float).reshape(n, n)
+        try:
+            L = np.linalg.cholesky(M)
+        except np.linalg.LinAlgError:
+            raise ArithmeticError("mass matrix is not positive definite") from None
+        rhs = np.asarray(columns, dtype=float).T
+        y = np.linalg.solve(L, rhs)
+        return np.linalg.solve(L.T, y).T.tolist()
+    # M = L L^T, row by row (Golub and Van Loan, Matrix Computations, alg. 4.2.1)
+    L = [[0.0] * n for _ in range(n)]
+    for i in range(n):
+        for j in range(i + 1):
+            acc = a[i * n + j] - sum(L[i][k] * L[j][k] for k in range(j))
+            if i == j:
+                if not acc > 0.0:
+                    raise ArithmeticError("mass matrix is not positive definite")
+                L[i][i] = math.sqrt(acc)
+            else:
+                L[i][j] = acc / L[j][j]
+    out = []
+    for c in columns:
+        y = [0.0] * n
+        for i in range(n):
+            y[i] = (c[i] - sum(L[i][k] * y[k] for k in range(i))) / L[i][i]
+        x = [0.0] * n
+        for i in reversed(range(n)):
+            x[i] = (y[i] - sum(L[k][i] * x[k] for k in range(i + 1, n))) / L[i][i]
+        out.append(x)
+    return out
+
+
+def task_space_terms(M: Sequence[float], F: Sequence[float], B: Sequence[float], J: Sequence[float],
+                     c: Sequence[float], nq: int, m: int) -> tuple[list[float], list[float]]:
+    """Decoupling matrix ``A = J M^-1 B`` (flat, m x m) and ``b = J M^-1 F + c`` of a mechanical plant.
+
+    For outputs y = h(q), ``y'' = J M^-1 (F + B u) + J' q'`` (Spong, Hutchinson and
+    Vidyasagar, Robot Modeling and Control, sec. 8.3), with ``c = J' q'``. M is never
+    inverted: ``M X = [B F]`` is solved with the Cholesky factor of M (closed form for
+    nq <= 2, plain floats for nq = 3, LAPACK above).
+
+    Parameters
+    ----------
+    M, F, B, J, c : sequence of float
+        Row-major: M nq x nq, F nq, B nq x m, J m x nq, c m.
+    nq, m : int
+
+    Returns
+    -------
+    (list of float, list of float)
+
+    Raises
+    ------
+    ArithmeticError
+        When M is not positive definite.
+
+    Examples
+    --------
+    >>> task_space_terms([4.0, 0.0, 0.0, 16.0], [2.0, 4.0], [1.0, 0.0, 0.0, 1.0],
+    ...                  [1.0, 0.0, 0.0, 1.0], [0.5, 0.0], 2, 2)
+    ([0.25, 0.0, 0.0, 0.0625], [1.0, 0.25])
+    """
+    if nq > SMALL_SPD:
+        return _task_space_terms_lapack(M, F, B, J, c, nq, m)
+    if nq == 1:
+        if not M[0] > 0.0:
+            raise ArithmeticError("mass matrix is not positive definite")
+        inv = 1.0 / M[0]
+        A = [J[r] * B[j] * inv for r in range(m) for j in range(m)]
+        return A, [J[r] * F[0] * inv + c[r] for r in range(m)]
+    if nq == 2:
+        p, q, s = M[0], M[1], M[3]
+        det = p * s - q * q
+        if not (p > 0.0 and det > 0.0):
+            raise ArithmeticError("mass matrix is not positive definite")
+        # M^-1 = [[s, -q], [-q, p]] / det applied to the columns of [B F]
+        columns = [(B[j], B[m + j]) for j in range(m)]
+        columns.append((F[0], F[1]))
+        solved = [((s * b0 - q * b1) / det, (p * b1 - q * b0) / det) for b0, b1 in columns]
+    else:
+        columns = [[B[i * m + j] for i in range(nq)] for j in range(m)]
+        columns.append(list(F))
+        solved = spd_solve(M, columns, nq)
+    A = [0.0] * (m * m)
+    b = [0.0] * m
+    for r in range(m):
+        row = J[r * nq:(r + 1) * nq]
+        for j in range(m + 1):
+            x = solved[j]
+            value = 0.0
+            for k in range(nq):
+                value += row[k] * x[k]
+            if j < m:
+                A[r * m + j] = value
+            else:
+                b[r] = value + c[r]
+    return A, b
+
+
+def _task_space_terms_lapack(M, F, B, J, c, nq: int, m: int) -> tuple[list[float], list[float]]:
+    try:
+        L = np.linalg.cholesky(np.array(M, dtype=float).reshape(nq, nq))
+    except np.linalg.LinAlgError:
+        raise ArithmeticError("mass matrix is not positive definite") from None
+    rhs = np.empty((nq, m + 1))
+    rhs[:, :m] = np.asarray(B, dtype=float).reshape(nq, m)
+    rhs[:, m] = F
+    X = np.linalg.solve(L.T, np.linalg.solve(L, rhs))
+    projected = np.asarray(J, dtype=float).reshape(m, nq) @ X
+    return projected[:, :m].ravel().tolist(), (projected[:, m] + np.asarray(c, dtype=float)).tolist()

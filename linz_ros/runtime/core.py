@@ -28,7 +28,7 @@ from typing import Any, Sequence
 
 from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
-from linz_ros.runtime._linalg import damped_solve, singular_values, solve
+from linz_ros.runtime._linalg import damped_solve, singular_values, solve, task_space_terms
 
 __all__ = ["ControllerCore", "StepRecord", "WatchdogConfig", "MODES", "REASONS"]
 
@@ -42,6 +42,11 @@ _isfinite = math.isfinite
 
 def _is_real(value: Any) -> bool:
     return isinstance(value, (int, float)) and not isinstance(value, bool) and not math.isnan(value)
+
+
+def _slot_slice(slots: dict, name: str) -> slice:
+    """Where output ``name`` of a compiled program lies in its flat result."""
+    return slice(slots[name].offset, slots[name].offset + slots[name].size)
 
 
 @dataclass(frozen=True)
@@ -292,8 +297,13 @@ class ControllerCore:
         self.parameters = parameters
         self._law = artifact.programs["law"]
         slots = self._law.slots
-        self._a_slice = slice(slots["A"].offset, slots["A"].offset + slots["A"].size)
-        self._b_slice = slice(slots["b"].offset, slots["b"].offset + slots["b"].size)
+        self._mechanical = artifact.mechanical_coordinates
+        if self._mechanical is None:
+            self._a_slice = _slot_slice(slots, "A")
+            self._b_slice = _slot_slice(slots, "b")
+        else:
+            # A = J M^-1 B and b = J M^-1 F + J' q' are assembled numerically at each step
+            self._structure = [_slot_slice(slots, k) for k in ("M", "F", "B", "J", "c")]
         self._chain_offset = slots["chain"].offset
         self._period = 1.0 / artifact.rate
         self._output_offsets = [sum(self.orders[:i]) for i in range(len(self.orders))]
@@ -424,8 +434,14 @@ class ControllerCore:
         if not all(map(_isfinite, values)):
             return self._refuse("model_not_finite", t, start, now)
         m = self.m
-        A = values[self._a_slice]
-        b = values[self._b_slice]
+        if self._mechanical is None:
+            A = values[self._a_slice]
+            b = values[self._b_slice]
+        else:
+            try:
+                A, b = task_space_terms(*(values[k] for k in self._structure), self._mechanical, m)
+            except (ArithmeticError, ValueError):
+                return self._refuse("model_not_finite", t, start, now)
         sigma_min, sigma_max = singular_values(A, m)
         condition = sigma_max / sigma_min if sigma_min > 0.0 else math.inf
         dt = 0.0 if last_t is None else min(t - last_t, config.max_dt)

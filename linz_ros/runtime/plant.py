@@ -13,6 +13,7 @@ import numpy as np
 
 from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
+from linz_ros.runtime._linalg import spd_solve
 
 __all__ = ["NumericPlant", "mismatched_parameters", "parse_assignments"]
 
@@ -101,8 +102,12 @@ class NumericPlant:
         self.parameters = list(artifact.nominal_parameters.tolist() if parameters is None else parameters)
         self._dynamics = artifact.programs["dynamics"]
         slots = self._dynamics.slots
-        self._f = slots["f"].offset
-        self._g = slots["G"].offset
+        self._nq = artifact.mechanical_coordinates
+        if self._nq is None:
+            self._f = slots["f"].offset
+            self._g = slots["G"].offset
+        else:
+            self._structure = [(slots[k].offset, slots[k].offset + slots[k].size) for k in ("M", "F", "B", "qdot")]
 
     def derivative(self, x: Sequence[float], u: Sequence[float]) -> list[float]:
         """dx/dt at state x under input u.
@@ -121,6 +126,8 @@ class NumericPlant:
             Where the model is not defined (e.g. a square root of a negative number).
         """
         values = self._dynamics(x, self.parameters)
+        if self._nq is not None:
+            return self._mechanical_derivative(x, u, values)
         n, m, f0, g0 = self.n, self.m, self._f, self._g
         out = []
         for i in range(n):
@@ -130,6 +137,14 @@ class NumericPlant:
                 acc += values[row + j] * u[j]
             out.append(acc)
         return out
+
+    def _mechanical_derivative(self, x: Sequence[float], u: Sequence[float], values: Sequence[float]) -> list[float]:
+        """(q' = k(q, v), v' = M^-1 (F + B u)) with a Cholesky solve (M is never inverted)."""
+        nq, m = self._nq, self.m
+        (m0, m1), (f0, _), (b0, _), (k0, k1) = self._structure
+        rhs = [values[f0 + i] + sum(values[b0 + i * m + j] * u[j] for j in range(m)) for i in range(nq)]
+        accelerations = spd_solve(values[m0:m1], [rhs], nq)[0]
+        return list(values[k0:k1]) + accelerations
 
     def rk4(self, x: Sequence[float], u: Sequence[float], h: float, steps: int = 1) -> list[float]:
         """Advance by ``steps`` classical Runge-Kutta steps of size h with u held constant.

@@ -6,6 +6,10 @@ expressions; the runtime solves ``A u = v - b`` numerically at each step, which 
 the conditioning of A visible. Input-state linearization of a single-input plant is
 the same law for the linearizing output T1 (relative degree n), with the coordinate
 change ``z = T(x) = (T1, L_f T1, ..., L_f^(n-1) T1)`` (Isidori, sec. 4.2).
+
+A mechanical plant ``M(q) q'' = F + B u`` with outputs h(q) keeps its structure: A = J M^-1 B
+and b = J M^-1 F + J' q' are assembled numerically at run time from M, F, B, J and J' q'
+(computed torque when h = q), so A and b are None here and M^-1 never appears in closed form.
 """
 
 from __future__ import annotations
@@ -17,7 +21,7 @@ from typing import Any
 import numpy as np
 import sympy as sp
 
-from linz_ros.analysis import Report, analyse, lie_chain, plant_context, sample_envelope
+from linz_ros.analysis import Report, analyse, lie_chain, mechanical_terms, plant_context, sample_envelope
 from linz_ros.errors import DesignError, PlantFileError
 from linz_ros.geometry import evaluate, lie_derivative
 from linz_ros.model import Plant, expression_in
@@ -98,8 +102,8 @@ class Design:
     report: Report
     kind: str                        # "input_output" or "input_state"
     chains: list[Chain]
-    A: sp.Matrix
-    b: sp.Matrix
+    A: sp.Matrix | None              # None for a mechanical plant (assembled at run time)
+    b: sp.Matrix | None
     integral: bool
     rate: float
     method: str
@@ -116,6 +120,11 @@ class Design:
     def relative_degree(self) -> list[int]:
         """Relative degree of each chain."""
         return [c.degree for c in self.chains]
+
+    @property
+    def mechanical(self) -> bool:
+        """True when the law is assembled at run time from M, F, B, J (a mechanical plant)."""
+        return self.plant.mechanics is not None
 
     @property
     def transform(self) -> list[sp.Expr]:
@@ -162,7 +171,8 @@ def synthesise(plant: Plant, options: DesignOptions | None = None, report: Repor
     warnings: list[str] = []
     notes: list[str] = []
     if kind == "input_output":
-        names, expressions, chains_sym, degrees, A, b = _input_output_terms(plant, report, warnings)
+        terms = _mechanical_law_terms if plant.mechanics is not None else _input_output_terms
+        names, expressions, chains_sym, degrees, A, b = terms(plant, report, warnings)
         inverse = None
     else:
         names, expressions, chains_sym, degrees, A, b = _input_state_terms(plant, report, options, ctx)
@@ -209,6 +219,15 @@ def _checked_chain(name: str, expr: sp.Expr, derivs: list[sp.Expr], degree: int,
 def _kind_of_design(plant: Plant, options: DesignOptions) -> str:
     if options.linearize not in ("auto", "outputs", "state"):
         raise DesignError(options.source, "--linearize", f"expected auto, outputs or state, got {options.linearize!r}")
+    if plant.mechanics is not None:
+        if options.linearize == "state" or options.linearizing_output is not None:
+            raise DesignError(options.source, "--linearize", "a mechanical plant is linearized through its outputs "
+                                                             "(computed torque on the coordinates when it declares "
+                                                             "none); input-state synthesis does not apply")
+        if plant.h.shape[0] == 0:
+            raise DesignError(plant.source, "outputs", "a mechanical plant with fewer inputs than coordinates "
+                                                       "needs outputs (as many as inputs)")
+        return "input_output"
     if options.linearize == "outputs" or (options.linearize == "auto" and plant.h.shape[0] > 0
                                           and options.linearizing_output is None):
         if plant.h.shape[0] == 0:
@@ -239,6 +258,24 @@ def _input_output_terms(plant: Plant, report: Report, warnings: list[str]):
     degrees = [int(d) for d in io.relative_degree_generic]
     return (list(plant.output_names), list(plant.h), io.chains, degrees, io.decoupling_matrix,
             io.drift_terms)
+
+
+def _mechanical_law_terms(plant: Plant, report: Report, warnings: list[str]):
+    """Chains (h, J q') of a mechanical plant; A and b stay None (assembled at run time)."""
+    io = report.input_output
+    assert io is not None
+    p, m = plant.h.shape[0], plant.m
+    if any(d is None for d in io.relative_degree_generic):
+        raise DesignError(plant.source, "outputs", io.reason)
+    if p != m:
+        raise DesignError(plant.source, "outputs", f"the law needs as many outputs as inputs "
+                                                   f"({p} output(s), {m} input(s))")
+    if io.relative_degree is None:
+        if "every sample" in io.reason or "could not decide" in io.reason:
+            raise DesignError(plant.source, "outputs", io.reason)
+        warnings.append(f"{io.reason}; the law is built for the generic relative degree and the "
+                        "singularity watchdog must keep the state away from the singular set")
+    return list(plant.output_names), list(plant.h), io.chains, [2] * p, None, None
 
 
 def _input_state_terms(plant: Plant, report: Report, options: DesignOptions, ctx):
@@ -394,7 +431,10 @@ def _sigma_reference(plant: Plant, report: Report, A: sp.Matrix, ctx, kind: str)
         envelope = sample_envelope(plant, A, "L_g L_f^(n-1) T1", 256)
     if envelope is not None and envelope.median_sigma:
         return float(envelope.median_sigma), "median smallest singular value of A over the envelope"
-    values = evaluate(A, ctx, plant.operating_vector())
+    if A is None:
+        values = mechanical_terms(plant).decoupling(np.array([plant.operating_vector()]))[0][0]
+    else:
+        values = evaluate(A, ctx, plant.operating_vector())
     if np.all(np.isfinite(values)):
         sigma = float(np.linalg.svd(values, compute_uv=False)[-1])
         if sigma > 0:
