@@ -128,7 +128,8 @@ def test_build_refuses_bad_designs_with_one_line(capsys, tmp_path, argv, words):
 
 
 @pytest.mark.parametrize("name, amplitude, duration", [("pick_arm", 0.03, 3.0), ("mast_camera", 0.2, 3.0),
-                                                       ("survey_boat", 0.5, 16.0)])
+                                                       ("survey_boat", 0.5, 16.0), ("loader_arm", 0.01, 3.0),
+                                                       ("survey_boat_thrusters", 0.2, 16.0)])
 def test_build_then_sim_tracks_with_the_designed_error_dynamics(capsys, tmp_path, name, amplitude, duration):
     assert _run(capsys, "build", str(BUNDLED / f"{name}.yaml"), "-o", str(tmp_path))[0] == 0
     artifact = tmp_path / f"{name}.artifact.json"

@@ -11,7 +11,8 @@ from linz_ros.errors import ConfigError
 from linz_ros.runtime import (ControllerCore, SimSettings, fit_decay_rate, make_reference, mismatched_parameters,
                               simulate)
 
-STEPS = {"pick_arm": (0.03, 3.0), "mast_camera": (0.2, 3.0), "survey_boat": (0.5, 16.0)}
+STEPS = {"pick_arm": (0.03, 3.0), "mast_camera": (0.2, 3.0), "survey_boat": (0.5, 16.0),
+         "loader_arm": (0.01, 3.0), "survey_boat_thrusters": (0.2, 16.0)}
 
 
 @pytest.mark.parametrize("name", sorted(STEPS))

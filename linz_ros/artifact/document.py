@@ -299,6 +299,12 @@ class Artifact:
         return None if mechanics is None else int(mechanics["coordinates"])
 
     @property
+    def computed_torque(self) -> bool:
+        """True when the law is u = M v - F: outputs are the coordinates and B is the identity."""
+        mechanics = self.document["design"].get("mechanics")
+        return bool(mechanics and mechanics.get("computed_torque"))
+
+    @property
     def kind(self) -> str:
         """``input_output`` or ``input_state``."""
         return self.document["design"]["kind"]
@@ -532,6 +538,9 @@ def _check_consistency(document: dict[str, Any], source: str) -> None:
                                and not isinstance(mechanics["coordinates"], bool)
                                and 2 * mechanics["coordinates"] == n),
          "design.mechanics: expected null or {coordinates: nq} with 2 nq states")
+    need(mechanics is None or mechanics.get("computed_torque", False) in (True, False)
+         and (not mechanics.get("computed_torque") or mechanics["coordinates"] == m),
+         "design.mechanics.computed_torque: expected true or false, true only with one input per coordinate")
     if mechanics is None:
         law_shapes, dynamics_shapes = {"A": [m, m], "b": [m], "chain": [total]}, {"f": [n], "G": [n, m]}
     else:

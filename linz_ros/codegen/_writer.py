@@ -154,8 +154,16 @@ def _design_section(design: Design) -> dict[str, Any]:
         "warnings": list(design.warnings),
         "notes": list(design.notes),
         "mechanics": (None if not design.mechanical else
-                      {"form": design.plant.mechanics.form, "coordinates": design.plant.mechanics.nq}),
+                      {"form": design.plant.mechanics.form, "coordinates": design.plant.mechanics.nq,
+                       "computed_torque": _is_computed_torque(design)}),
     }
+
+
+def _is_computed_torque(design: Design) -> bool:
+    """Outputs are the coordinates in order, B = I and v = q': then A = M^-1 and u = M v - F."""
+    mech = design.plant.mechanics
+    return ([c.expression for c in design.chains] == list(mech.coordinates) and mech.kinematics is None
+            and mech.B == sp.eye(mech.nq))
 
 
 def _analysis_section(design: Design) -> dict[str, Any]:

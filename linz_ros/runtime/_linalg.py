@@ -12,7 +12,8 @@ from typing import Sequence
 
 import numpy as np
 
-__all__ = ["singular_values", "solve", "damped_solve", "spd_solve", "task_space_terms"]
+__all__ = ["singular_values", "solve", "damped_solve", "spd_solve", "task_space_terms",
+           "inverse_mass_singular_values", "computed_torque"]
 
 #: Up to this size a symmetric positive definite solve is plain float arithmetic (Cholesky).
 SMALL_SPD = 3
@@ -267,3 +268,72 @@ def _task_space_terms_lapack(M, F, B, J, c, nq: int, m: int) -> tuple[list[float
     X = np.linalg.solve(L.T, np.linalg.solve(L, rhs))
     projected = np.asarray(J, dtype=float).reshape(m, nq) @ X
     return projected[:, :m].ravel().tolist(), (projected[:, m] + np.asarray(c, dtype=float)).tolist()
+
+
+def inverse_mass_singular_values(M: Sequence[float], n: int) -> tuple[float, float]:
+    """Smallest and largest singular value of M^-1 for symmetric positive definite M: 1 / eig(M).
+
+    Parameters
+    ----------
+    M : sequence of float
+        Row-major, n x n, symmetric.
+    n : int
+
+    Returns
+    -------
+    (float, float)
+        ``(1 / lambda_max, 1 / lambda_min)``.
+
+    Raises
+    ------
+    ArithmeticError
+        When M is not positive definite.
+
+    Examples
+    --------
+    >>> inverse_mass_singular_values([4.0, 0.0, 0.0, 0.5], 2)
+    (0.25, 2.0)
+    """
+    if n == 1:
+        low = high = M[0]
+    elif n == 2:
+        p, q, s = M[0], M[1], M[3]
+        mean, spread = 0.5 * (p + s), math.hypot(0.5 * (p - s), q)
+        high = mean + spread
+        low = (p * s - q * q) / high if high > 0.0 else -1.0      # product of the eigenvalues is det M
+    else:
+        eigenvalues = np.linalg.eigvalsh(np.asarray(M, dtype=float).reshape(n, n))
+        low, high = float(eigenvalues[0]), float(eigenvalues[-1])
+    if not low > 0.0:
+        raise ArithmeticError("mass matrix is not positive definite")
+    return 1.0 / high, 1.0 / low
+
+
+def computed_torque(M: Sequence[float], F: Sequence[float], v: Sequence[float], n: int) -> list[float]:
+    """The computed-torque law ``u = M v - F`` (Spong, Hutchinson and Vidyasagar, sec. 8.3).
+
+    Parameters
+    ----------
+    M : sequence of float
+        Row-major, n x n.
+    F, v : sequence of float
+        Generalized forces other than the inputs, and the commanded accelerations.
+    n : int
+
+    Returns
+    -------
+    list of float
+
+    Examples
+    --------
+    >>> computed_torque([2.0, 1.0, 1.0, 3.0], [0.5, -1.0], [1.0, 2.0], 2)
+    [3.5, 8.0]
+    """
+    out = []
+    for i in range(n):
+        row = M[i * n:(i + 1) * n]
+        acc = -F[i]
+        for k in range(n):
+            acc += row[k] * v[k]
+        out.append(acc)
+    return out

@@ -28,7 +28,8 @@ from typing import Any, Sequence
 
 from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
-from linz_ros.runtime._linalg import damped_solve, singular_values, solve, task_space_terms
+from linz_ros.runtime._linalg import (computed_torque, damped_solve, inverse_mass_singular_values, singular_values,
+                                      solve, task_space_terms)
 
 __all__ = ["ControllerCore", "StepRecord", "WatchdogConfig", "MODES", "REASONS"]
 
@@ -304,6 +305,8 @@ class ControllerCore:
         else:
             # A = J M^-1 B and b = J M^-1 F + J' q' are assembled numerically at each step
             self._structure = [_slot_slice(slots, k) for k in ("M", "F", "B", "J", "c")]
+        # joint-space outputs of an arm driven joint by joint (h = q, B = I): the computed-torque law
+        self._computed_torque = artifact.computed_torque
         self._chain_offset = slots["chain"].offset
         self._period = 1.0 / artifact.rate
         self._output_offsets = [sum(self.orders[:i]) for i in range(len(self.orders))]
@@ -434,21 +437,24 @@ class ControllerCore:
         if not all(map(_isfinite, values)):
             return self._refuse("model_not_finite", t, start, now)
         m = self.m
-        if self._mechanical is None:
-            A = values[self._a_slice]
-            b = values[self._b_slice]
-        else:
-            try:
-                A, b = task_space_terms(*(values[k] for k in self._structure), self._mechanical, m)
-            except (ArithmeticError, ValueError):
-                return self._refuse("model_not_finite", t, start, now)
-        sigma_min, sigma_max = singular_values(A, m)
+        A = b = None
+        try:
+            if self._computed_torque:
+                # A = M^-1: its singular values are 1 / eig(M), and u = M v - F needs no solve
+                sigma_min, sigma_max = inverse_mass_singular_values(values[self._structure[0]], m)
+            else:
+                if self._mechanical is None:
+                    A, b = values[self._a_slice], values[self._b_slice]
+                else:
+                    A, b = task_space_terms(*(values[k] for k in self._structure), self._mechanical, m)
+                sigma_min, sigma_max = singular_values(A, m)
+        except (ArithmeticError, ValueError):
+            return self._refuse("model_not_finite", t, start, now)
         condition = sigma_max / sigma_min if sigma_min > 0.0 else math.inf
         dt = 0.0 if last_t is None else min(t - last_t, config.max_dt)
         if self.integral and self._integrate_next and self._last_errors is not None:
             self._advance_integrators(dt)
         v, errors = self._outer_loop(values, ref)
-        rhs = [v[i] - b[i] for i in range(m)]
         warn = not sigma_min >= config.sigma_warn
         damping = 0.0
         if not sigma_min >= config.sigma_stop:      # also catches a nan sigma
@@ -458,10 +464,15 @@ class ControllerCore:
             if sigma_min < config.sigma_act:
                 ratio = sigma_min / config.sigma_act
                 damping = config.damping * math.sqrt(1.0 - ratio * ratio)
-                u = damped_solve(A, rhs, m, damping)
+                if A is None:
+                    A, b = task_space_terms(*(values[k] for k in self._structure), self._mechanical, m)
+                u = damped_solve(A, [v[i] - b[i] for i in range(m)], m, damping)
                 mode, reason = "damped", "near_singular"
+            elif A is None:
+                u = computed_torque(values[self._structure[0]], values[self._structure[1]], v, m)
+                mode, reason = "nominal", "ok"
             else:
-                u = solve(A, rhs, m)
+                u = solve(A, [v[i] - b[i] for i in range(m)], m)
                 mode, reason = "nominal", "ok"
         except (ArithmeticError, ValueError):
             self.last_t = t

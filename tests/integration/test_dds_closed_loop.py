@@ -16,11 +16,17 @@ BRINGUPS = {
     "pick_arm": ("smooth:tool_x=-0.05,tool_y=0.04,duration=1.0,at=3.0", [-0.05, 0.04], 2500, 2e-3),
     "mast_camera": ("smooth:pan_angle=0.3,tilt_angle=-0.2,duration=1.0,at=3.0", [0.3, -0.2], 1250, 1e-2),
     "survey_boat": ("smooth:point_north=0.5,point_east=0.2,duration=2.0,at=3.0", [0.5, 0.2], 360, 3e-2),
+    # mechanical plants: a six-joint arm from its DH table (computed torque) and a vessel in vectorial form
+    "loader_arm": ("smooth:y_q1=0.3,y_q2=-0.2,y_q3=0.2,y_q4=-0.3,y_q5=0.2,y_q6=0.4,duration=1.0,at=3.0",
+                   [0.3, -0.2, 0.2, -0.3, 0.2, 0.4], 2500, 1e-2),
+    "survey_boat_thrusters": ("smooth:y_north=0.5,y_east=-0.3,y_heading=0.3,duration=4.0,at=3.0",
+                              [0.5, -0.3, 0.3], 450, 3e-2),
 }
 # how the reference reaches the controller: the reference node's topic, or the built-in generator
 # (which starts at activation)
 SOURCES = {("pick_arm", False): "topic", ("pick_arm", True): "built-in", ("mast_camera", False): "topic",
-           ("survey_boat", False): "built-in"}
+           ("survey_boat", False): "built-in", ("loader_arm", False): "topic",
+           ("survey_boat_thrusters", False): "built-in"}
 
 
 def _topics(plant: str) -> TopicMap:
@@ -45,7 +51,8 @@ def built(tmp_path_factory):
 
 
 @pytest.mark.parametrize("plant, sim_time", [("pick_arm", False), ("pick_arm", True), ("mast_camera", False),
-                                             ("survey_boat", False)])
+                                             ("survey_boat", False), ("loader_arm", False),
+                                             ("survey_boat_thrusters", False)])
 def test_the_simulation_bringup_tracks_its_reference(bringup, built, domain_id, plant, sim_time):
     path, artifact = built[plant]
     spec, amplitudes, steps, tolerance = BRINGUPS[plant]
