@@ -194,3 +194,22 @@ def test_a_zero_inertia_serial_arm_is_refused_as_not_positive_definite():
     with pytest.raises(PlantFileError) as caught:
         plant_from_text(text, "arm.yaml")
     assert caught.value.field == "serial_arm" and "not positive definite at q1=0" in caught.value.problem
+
+
+def test_vessel_coriolis_terms_do_no_work():
+    # C(v) = C_RB(v) + C_A(v) is skew-symmetric (Fossen, Handbook of Marine Craft Hydrodynamics and
+    # Motion Control, 2011, property 6.2, from memory): with the damping set to zero, v^T F = 0
+    plant = load_plant(BUNDLED / "survey_boat_thrusters.yaml")
+    values = {s.name: v for s, v in plant.parameters.items()}
+    for name in ("Xu", "Yv", "Yr", "Nv", "Nr"):
+        values[name] = 0.0
+    F = numeric_function(list(plant.states) + list(plant.parameters), list(plant.mechanics.F))
+    rng = np.random.default_rng(8)
+    for _ in range(20):
+        x = rng.uniform(-1.5, 1.5, 6)
+        forces = np.array(F(*x, *values.values()), dtype=float)
+        assert abs(x[3:] @ forces) < 1e-12 * (1 + np.max(np.abs(forces)))
+        assert np.max(np.abs(forces)) > 1e-3
+    # and with damping, the damping dissipates: v^T F < 0
+    nominal = np.array(F(*[0.0, 0.0, 0.3, 0.8, 0.2, -0.3], *plant.parameters.values()), dtype=float)
+    assert np.array([0.8, 0.2, -0.3]) @ nominal < 0

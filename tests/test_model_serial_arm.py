@@ -157,3 +157,40 @@ def test_mass_matrix_and_newton_euler_bias_agree_on_energy_conservation():
         kinetic_power = v @ np.array(F, float)
         assert abs(kinetic_power + 0.5 * v @ Mdot @ v) < 1e-6 * (1 + abs(kinetic_power))
         assert abs(kinetic_power) > 1e-3          # the check is not trivially zero
+
+
+def test_three_link_planar_arm_matches_its_hand_derived_mass_matrix_and_gravity():
+    # M and g of a planar 3R arm written out from the centre-of-mass positions (the two-link
+    # derivation of Spong et al. sec. 7.4.1 carried one link further); C q' from the
+    # Christoffel symbols of that M (ibid. eq. 7.52)
+    plant = plant_from_text(THREE_LINK)
+    q = sp.symbols("q1:4", real=True)
+    w = sp.symbols("w1:4", real=True)
+    l1, l2, l3, m1, m2, m3, g = 0.5, 0.4, 0.3, 2.0, 1.5, 0.8, 9.81
+    lc1, lc2, lc3 = l1 / 2, l2 / 2, l3 / 2
+    I1, I2, I3 = 0.04, 0.02, 0.006
+    c2, c3, c23 = sp.cos(q[1]), sp.cos(q[2]), sp.cos(q[1] + q[2])
+    M11 = (I1 + I2 + I3 + m1 * lc1 ** 2 + m2 * (l1 ** 2 + lc2 ** 2 + 2 * l1 * lc2 * c2)
+           + m3 * (l1 ** 2 + l2 ** 2 + lc3 ** 2 + 2 * l1 * l2 * c2 + 2 * l1 * lc3 * c23 + 2 * l2 * lc3 * c3))
+    M12 = I2 + I3 + m2 * (lc2 ** 2 + l1 * lc2 * c2) + m3 * (l2 ** 2 + lc3 ** 2 + l1 * l2 * c2 + l1 * lc3 * c23
+                                                             + 2 * l2 * lc3 * c3)
+    M13 = I3 + m3 * (lc3 ** 2 + l1 * lc3 * c23 + l2 * lc3 * c3)
+    M22 = I2 + I3 + m2 * lc2 ** 2 + m3 * (l2 ** 2 + lc3 ** 2 + 2 * l2 * lc3 * c3)
+    M23 = I3 + m3 * (lc3 ** 2 + l2 * lc3 * c3)
+    M33 = I3 + m3 * lc3 ** 2
+    M = sp.Matrix([[M11, M12, M13], [M12, M22, M23], [M13, M23, M33]])
+    c1, c12, c123 = sp.cos(q[0]), sp.cos(q[0] + q[1]), sp.cos(q[0] + q[1] + q[2])
+    gravity = sp.Matrix([(m1 * lc1 + m2 * l1 + m3 * l1) * g * c1 + (m2 * lc2 + m3 * l2) * g * c12 + m3 * lc3 * g * c123,
+                         (m2 * lc2 + m3 * l2) * g * c12 + m3 * lc3 * g * c123,
+                         m3 * lc3 * g * c123])
+    coriolis = sp.Matrix([sum((M[k, j].diff(q[i]) + M[k, i].diff(q[j]) - M[i, j].diff(q[k])) / 2 * w[i] * w[j]
+                              for i in range(3) for j in range(3)) for k in range(3)])
+    expected = sp.lambdify(list(q) + list(w), [list(M), list(-coriolis - gravity)], modules="numpy")
+    evaluate = _numeric(plant, plant.mechanics.M, plant.mechanics.F)
+    rng = np.random.default_rng(31)
+    for _ in range(15):
+        x = rng.uniform(-2.5, 2.5, 6)
+        M_got, F_got = evaluate(*x, *plant.parameters.values())
+        M_ref, F_ref = expected(*x)
+        assert np.allclose(np.array(M_got, float), np.array(M_ref, float), rtol=1e-12)
+        assert np.allclose(np.array(F_got, float), np.array(F_ref, float), rtol=1e-11, atol=1e-11)
