@@ -253,3 +253,35 @@ def test_any_edit_of_a_sealed_artifact_loads_and_steps_or_is_refused(built, data
         return
     u, record = core.step([0.1, 0.2], [0.0, 0.0, 0.0], t=0.0)
     assert len(u) == 1
+
+
+@pytest.fixture(scope="module")
+def mechanical(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("mechanical")
+    design = synthesise(load_plant(BUNDLED / "loader_arm.yaml"))
+    document, _ = build_document(design, points=8)
+    return write_artifact(document, artifact_path(folder, "loader_arm")), document
+
+
+def test_a_mechanical_artifact_carries_its_structure_not_a_and_b(mechanical):
+    path, document = mechanical
+    artifact = load_artifact(path)
+    assert artifact.mechanical_coordinates == 6 and artifact.computed_torque
+    law = {out[0]: out[1] for out in document["programs"]["law"]["outputs"]}
+    assert law == {"M": [6, 6], "F": [6], "B": [6, 6], "J": [6, 6], "c": [6], "chain": [12]}
+    dynamics = {out[0]: out[1] for out in document["programs"]["dynamics"]["outputs"]}
+    assert dynamics == {"M": [6, 6], "F": [6], "B": [6, 6], "qdot": [6]}
+    assert document["design"]["mechanics"] == {"form": "serial_arm", "coordinates": 6, "computed_torque": True}
+
+
+@pytest.mark.parametrize("change, words", [
+    (lambda d: d["design"]["mechanics"].update(coordinates=5), "design.mechanics: expected null or {coordinates: nq}"),
+    (lambda d: d["design"]["mechanics"].update(computed_torque="yes"), "design.mechanics.computed_torque"),
+    (lambda d: d["design"].update(mechanics=None), "programs.law: A must have shape [6, 6]"),
+    (lambda d: d["programs"]["dynamics"]["outputs"].pop(), "programs.dynamics: qdot must have shape [6]"),
+])
+def test_an_inconsistent_mechanical_artifact_is_refused_even_when_resealed(mechanical, tmp_path, change, words):
+    path, _ = mechanical
+    with pytest.raises(ArtifactError) as caught:
+        load_artifact(_rewrite(path, tmp_path / "m.artifact.json", change), check_plant=False)
+    assert words in str(caught.value) and "\n" not in str(caught.value)

@@ -302,3 +302,27 @@ def test_sim_refuses_an_unwritable_field_log_folder(capsys, tmp_path):
     code, out, err = _run(capsys, "sim", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path / "o"),
                           "--field-log", str(tmp_path / "file" / "log"), "--no-plots")
     assert code == 2 and "field_log_folder" in err and len(err.strip().splitlines()) == 1
+
+
+def test_a_mass_matrix_that_is_not_positive_definite_is_one_line_and_exit_2(capsys, write_plant):
+    path = write_plant("""\
+plant: two
+coordinates: [a, b]
+inputs: [u1, u2]
+mass_matrix: [[1, 0], [0, cos(b)]]
+envelope: {b: [0, 3]}
+""")
+    code, out, err = _run(capsys, "check", str(path))
+    assert code == 2 and out == "" and err.count("\n") == 1
+    assert err.startswith(f"linz: {path}: mass_matrix: the mass matrix is not positive definite at a=")
+    assert "smallest eigenvalue -" in err
+
+
+def test_check_json_of_a_serial_arm_gives_its_structure(capsys):
+    code, out, err = _run(capsys, "check", str(BUNDLED / "loader_arm.yaml"), "--json", "--samples", "64")
+    assert code == 0, err
+    report = json.loads(out)
+    assert report["drift"] is None and report["mechanics"]["form"] == "serial_arm"
+    assert report["input_output"]["relative_degree"] == [2] * 6
+    assert report["input_output"]["decoupling_structure"]["form"] == "J(q) M(q)^-1 B(q)"
+    assert report["input_state"]["linearizable"] is True and report["envelope"]["min_sigma"] > 0
