@@ -94,3 +94,18 @@ outputs: {y: b}
     io = analyse(plant, samples=8).input_output
     assert io.relative_degree is None and io.relative_degree_generic == [None]
     assert "zero row" in io.reason
+
+
+def test_vessel_terms_separate_the_output_jacobian_from_the_velocity_factor():
+    # y = h(q) with q' = R(psi) v: H = dh/dq is what linearizes the output map, J = dy'/dv = H R(psi)
+    # is what multiplies M^-1 B; away from heading 0 they differ
+    plant = load_plant(REFERENCE / "survey_boat_mass_matrix.yaml")
+    terms = mechanical_terms(plant)
+    x = np.array([[0.4, -0.2, 0.7, 0.5, 0.1, -0.2]])
+    v = terms.evaluate(x)
+    psi = 0.7
+    H = np.array([[1.0, 0.0, -1.5 * np.sin(psi)], [0.0, 1.0, 1.5 * np.cos(psi)]])
+    R = np.array([[np.cos(psi), -np.sin(psi), 0.0], [np.sin(psi), np.cos(psi), 0.0], [0.0, 0.0, 1.0]])
+    np.testing.assert_allclose(v["H"][0], H, atol=1e-14)
+    np.testing.assert_allclose(v["J"][0], H @ R, atol=1e-14)
+    assert np.max(np.abs(H - H @ R)) > 0.1

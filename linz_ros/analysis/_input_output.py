@@ -14,7 +14,8 @@ from linz_ros.analysis._input_state import lie_chain, state_factors
 from linz_ros.geometry import NumericContext, evaluate, generic_rank, lie_derivative, rank_at
 from linz_ros.model import Plant
 
-__all__ = ["InputOutputResult", "ZeroDynamics", "analyse_input_output", "decoupling_terms"]
+__all__ = ["InputOutputResult", "ZeroDynamics", "analyse_input_output", "decoupling_terms",
+           "classified_zero_dynamics"]
 
 #: Finite invariant zeros are generalized eigenvalues below this magnitude.
 _FINITE_ZERO = 1e8
@@ -198,23 +199,47 @@ def _zero_dynamics(plant: Plant, order: int, ctx: NumericContext) -> ZeroDynamic
     closed = plant.f + plant.G * sp.Matrix([sp.Float(v) for v in u0])
     A_lin = evaluate(closed.jacobian(X), ctx, x0)
     C_lin = evaluate(plant.h.jacobian(X), ctx, x0)
-    zeros = invariant_zeros(A_lin, G0, C_lin)
-    zd = ZeroDynamics([float(v) for v in u0], zeros)
+    return classified_zero_dynamics([float(v) for v in u0], invariant_zeros(A_lin, G0, C_lin), order)
+
+
+def classified_zero_dynamics(u0: list[float], zeros: list[complex], order: int, method: str = "",
+                             critical: float = _CRITICAL_RE) -> ZeroDynamics:
+    """Stability of the linearized zero dynamics from the invariant zeros at an equilibrium.
+
+    Parameters
+    ----------
+    u0 : list of float
+        The equilibrium input.
+    zeros : list of complex
+        Finite invariant zeros of the linearization.
+    order : int
+        Order of the zero dynamics (n - sum of the relative degrees).
+    method : str
+        How the linearization was obtained, appended to the reason.
+    critical : float
+        Real parts within this distance of the imaginary axis count as critical.
+
+    Returns
+    -------
+    ZeroDynamics
+    """
+    zd = ZeroDynamics(u0, zeros)
     if len(zeros) != order:
         zd.reason = (f"the linearization has {len(zeros)} finite zeros but the zero dynamics have "
                      f"order {order}; stability not stated")
         return zd
     real = np.array([z.real for z in zeros])
-    if np.all(real < -_CRITICAL_RE):
+    suffix = f" ({method})" if method else ""
+    if np.all(real < -critical):
         zd.stability = "asymptotically stable"
-        zd.reason = "all eigenvalues of the linearized zero dynamics in the open left half-plane"
-    elif np.any(real > _CRITICAL_RE):
+        zd.reason = "all eigenvalues of the linearized zero dynamics in the open left half-plane" + suffix
+    elif np.any(real > critical):
         zd.stability = "unstable"
         zd.reason = ("an eigenvalue of the linearized zero dynamics in the right half-plane "
-                     "(non-minimum phase): an exact linearizing law would be unsafe")
+                     "(non-minimum phase): an exact linearizing law would be unsafe" + suffix)
     else:
         zd.stability = "critical"
-        zd.reason = "eigenvalues on the imaginary axis: the linearization does not decide stability"
+        zd.reason = "eigenvalues on the imaginary axis: the linearization does not decide stability" + suffix
     return zd
 
 

@@ -21,7 +21,8 @@ import numpy as np
 import sympy as sp
 
 from linz_ros.analysis._common import show_bounded, small_enough
-from linz_ros.analysis._input_output import InputOutputResult, ZeroDynamics, invariant_zeros
+from linz_ros.analysis._input_output import (InputOutputResult, ZeroDynamics, classified_zero_dynamics,
+                                             invariant_zeros)
 from linz_ros.analysis._input_state import DistributionInfo, InputStateResult, state_factors
 from linz_ros.geometry import NumericContext, numeric_rank
 from linz_ros.model import Plant, numeric_function
@@ -42,7 +43,7 @@ class MechanicalTerms:
 
     ``evaluate(points)`` takes K x n states and returns the matrices stacked over the
     points (M: K x nq x nq, F: K x nq, B: K x nq x m, J: K x p x nq, c: K x p), at the
-    nominal parameters.
+    nominal parameters; H: K x p x nq is dh/dq, k: K x nq the coordinate rates.
     """
 
     plant: Plant
@@ -58,7 +59,7 @@ class MechanicalTerms:
         params = [float(v) for v in self.plant.parameters.values()]
         with np.errstate(all="ignore"):
             raw = self._function(*points.T, *params)
-        shapes = {"M": (nq, nq), "F": (nq,), "B": (nq, m), "J": (p, nq), "c": (p,), "k": (nq,)}
+        shapes = {"M": (nq, nq), "F": (nq,), "B": (nq, m), "J": (p, nq), "c": (p,), "k": (nq,), "H": (p, nq)}
         out = {}
         for (name, shape), values in zip(shapes.items(), raw):
             columns = [np.broadcast_to(np.asarray(v, dtype=float), (count,)) for v in values]
@@ -104,7 +105,8 @@ def mechanical_terms(plant: Plant) -> MechanicalTerms:
     mech = plant.mechanics
     J = mech.decoupling_jacobian(plant.h) if plant.h.shape[0] else sp.zeros(0, mech.nq)
     c = mech.output_bias(plant.h) if plant.h.shape[0] else sp.zeros(0, 1)
-    parts = [list(mech.M), list(mech.F), list(mech.B), list(J), list(c), list(mech.coordinate_rates)]
+    H = mech.output_jacobian(plant.h) if plant.h.shape[0] else sp.zeros(0, mech.nq)
+    parts = [list(mech.M), list(mech.F), list(mech.B), list(J), list(c), list(mech.coordinate_rates), list(H)]
     function = numeric_function(list(plant.states) + list(plant.parameters), parts)
     return MechanicalTerms(plant, J, c, function)
 
@@ -248,22 +250,6 @@ def _mechanical_zero_dynamics(plant: Plant, terms: MechanicalTerms, order: int) 
     B_lin = np.zeros((n, m))
     B_lin[nq:, :] = np.linalg.solve(v["M"][0], v["B"][0])
     C_lin = np.zeros((m, n))
-    C_lin[:, :nq] = v["J"][0]
-    zeros = invariant_zeros(A_lin, B_lin, C_lin)
-    zd = ZeroDynamics([float(a) for a in u0], zeros)
-    if len(zeros) != order:
-        zd.reason = (f"the linearization has {len(zeros)} finite zeros but the zero dynamics have order {order}; "
-                     "stability not stated")
-        return zd
-    real = np.array([z.real for z in zeros])
-    if np.all(real < -_CRITICAL_RE):
-        zd.stability, zd.reason = "asymptotically stable", ("all eigenvalues of the linearized zero dynamics in "
-                                                            "the open left half-plane (central differences)")
-    elif np.any(real > _CRITICAL_RE):
-        zd.stability, zd.reason = "unstable", ("an eigenvalue of the linearized zero dynamics in the right "
-                                               "half-plane (non-minimum phase): an exact linearizing law would be "
-                                               "unsafe")
-    else:
-        zd.stability, zd.reason = "critical", ("eigenvalues on the imaginary axis: the linearization does not "
-                                               "decide stability")
-    return zd
+    C_lin[:, :nq] = v["H"][0]          # y = h(q): dh/dq (J is dy'/dv, which differs with kinematics)
+    return classified_zero_dynamics([float(a) for a in u0], invariant_zeros(A_lin, B_lin, C_lin), order,
+                                    "central differences", _CRITICAL_RE)
