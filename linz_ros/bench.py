@@ -7,6 +7,7 @@ states:
 - ``naive``: what one would write by hand: ``sympy.lambdify`` to numpy without common
   subexpression elimination, then the outer loop in numpy, ``numpy.linalg.solve`` for
   the law and ``numpy.linalg.svd`` for the conditioning;
+- ``lambdify_numpy``: plain ``sympy.lambdify`` to numpy, no CSE (expressions only);
 - ``lambdify_cse_math``: ``sympy.lambdify`` with CSE to the ``math`` module (expressions only);
 - ``compiled_c``: the expressions alone, printed by sympy's C code printer with CSE,
   built with the system's C compiler and called through ctypes (the near-limit reference);
@@ -70,6 +71,8 @@ class BenchResult:
             out["naive_over_core"] = us["naive"] / us["core"]
         if "law_only" in us:
             out["core_over_law_only"] = us["core"] / us["law_only"]
+        if "lambdify_numpy" in us and "compiled_c" in us:
+            out["lambdify_numpy_over_compiled_c"] = us["lambdify_numpy"] / us["compiled_c"]
         if "lambdify_cse_math" in us:
             out["lambdify_cse_math_over_law_only"] = us["lambdify_cse_math"] / us["law_only"]
         if "pinocchio_computed_torque" in us:
@@ -203,9 +206,7 @@ def _c_library(design: Design, workdir: Path) -> Callable | None:
 def _pinocchio_step(design: Design, artifact: Artifact) -> Callable[[list[float], list[float]], np.ndarray] | None:
     """Computed torque with Pinocchio for joint-space outputs of a serial arm (None otherwise)."""
     mech = design.plant.mechanics
-    if mech is None or not mech.links or not pinocchio_available():
-        return None
-    if [c.expression for c in design.chains] != list(mech.coordinates) or mech.B != sp.eye(mech.nq):
+    if mech is None or not mech.links or not artifact.computed_torque or not pinocchio_available():
         return None
     import pinocchio as pin
 
@@ -292,6 +293,8 @@ def run_bench(artifact: Artifact, design: Design | None, calls: int = 2000, roun
                 candidates["pinocchio_computed_torque"] = lambda k: computed_torque(np_states[k & 63],
                                                                                      np_refs[k & 63])
             x, p, exprs = _law_expressions(design)
+            plain_numpy = sp.lambdify([x, p], exprs, modules="numpy")
+            candidates["lambdify_numpy"] = lambda k: plain_numpy(np_states[k & 63], np_params)
             cse_math = sp.lambdify([x, p], exprs, modules="math", cse=True)
             candidates["lambdify_cse_math"] = lambda k: cse_math(states[k & 63], params)
             c_law = _c_library(design, Path(folder))

@@ -278,7 +278,7 @@ def _design_and_document(plant_file: str, args: argparse.Namespace, tolerance: f
     plant = load_plant(plant_file)
     design = synthesise(plant, _design_options(args))
     _check_reference_text(design.reference, design, plant.source)
-    document, verification = build_document(design, tolerance=tolerance or DEFAULT_TOLERANCE)
+    document, verification = build_document(design, tolerance=DEFAULT_TOLERANCE if tolerance is None else tolerance)
     return design, document, verification
 
 
@@ -504,6 +504,7 @@ def _run_sim(args: argparse.Namespace) -> int:
 
             files.append(write_artifact(document, out / f"{artifact.name}.artifact.json"))
         summary = result.summary()
+        summary["design_warnings"] = list(artifact.document["design"].get("warnings", []))
         summary["mismatch_percent"] = parse_assignments(args.mismatch, "--mismatch")
         summary["files"] = [str(f) for f in files] + ([str(f) for f in status.files] if status else [])
         (out / "summary.json").write_text(json.dumps(summary, indent=2) + "\n")
@@ -511,6 +512,8 @@ def _run_sim(args: argparse.Namespace) -> int:
         raise ConfigError("--out", f"cannot write to {out}: {err.strerror}") from None
     summary["files"].append(str(out / "summary.json"))
     print(json.dumps(summary, indent=2) if args.json else _sim_text(summary))
+    for warning in summary["design_warnings"]:
+        print(f"linz: warning: {warning}", file=sys.stderr)
     return 0
 
 
@@ -689,8 +692,8 @@ def _demo_bringup(artifact_path: Path, params: Path, out: Path, seconds: float) 
     try:
         from linz_ros.nodes.recorder import TopicMap, recording
     except ImportError as err:
-        print(f"rclpy is not available ({err}); install the [ros] extra or source a ROS 2 distribution")
-        return
+        raise ConfigError("bringup", f"rclpy is not available ({err}); install the [ros] extra, source a ROS 2 "
+                                     "distribution, or pass --no-ros to skip this step") from None
     from linz_ros.artifact import load_artifact
     from linz_ros.bringup import Bringup, isolated_environment, node_parameters
     from linz_ros.plotting import plot_run

@@ -82,3 +82,35 @@ def test_a_serial_arm_is_timed_against_pinocchio_computed_torque():
         np.testing.assert_allclose(naive(np.array(x), artifact.nominal_parameters, np.array(ref)), u, rtol=1e-9)
     result = run_bench(artifact, design, calls=50, rounds=1)
     assert "pinocchio_computed_torque" in result.microseconds and "core_over_pinocchio" in result.ratios()
+
+
+def test_the_plain_lambdify_references_evaluate_the_same_law(arm):
+    import sympy as sp
+
+    artifact, design = arm
+    x, p, exprs = _law_expressions(design)
+    params = artifact.nominal_parameters.tolist()
+    plain = sp.lambdify([x, p], exprs, modules="numpy")
+    cse_math = sp.lambdify([x, p], exprs, modules="math", cse=True)
+    law = artifact.programs["law"]
+    rng = np.random.default_rng(5)
+    for _ in range(10):
+        state = [rng.uniform(-0.6, 1.8), rng.uniform(0.15, 2.6), rng.uniform(-2, 2), rng.uniform(-2, 2)]
+        expected = np.array(law(state, params))
+        np.testing.assert_allclose(np.array(plain(np.array(state), np.array(params)), dtype=float), expected,
+                                   rtol=1e-12, atol=1e-12)
+        np.testing.assert_allclose(np.array(cse_math(state, params)), expected, rtol=1e-12, atol=1e-12)
+
+
+def test_run_bench_with_a_design_times_every_reference(arm):
+    artifact, design = arm
+    result = run_bench(artifact, design, calls=20, rounds=1)
+    expected = {"core", "law_only", "naive", "lambdify_numpy", "lambdify_cse_math"}
+    if shutil.which("cc") or shutil.which("gcc"):
+        expected.add("compiled_c")
+    assert set(result.microseconds) == expected
+    assert all(v > 0 for v in result.microseconds.values())
+    ratios = result.ratios()
+    assert ratios["naive_over_core"] == pytest.approx(result.microseconds["naive"] / result.microseconds["core"])
+    text = result.render_text()
+    assert "naive_over_core" in text and "goal >= 4" in text

@@ -6,11 +6,12 @@ import sys
 import time
 
 import numpy as np
-
 import pytest
 
 from support import BUNDLED, MINIMAL, REFERENCE, sampled_chain_error
 from linz_ros.cli import main
+from linz_ros.logs import read_logs
+from linz_ros.logs.analysis import control_gaps
 from linz_ros.runtime import fit_decay_rate
 
 
@@ -165,6 +166,19 @@ def test_sim_from_a_plant_file_with_overrides_plots_and_keeps_its_artifact(capsy
     assert json.loads((tmp_path / "summary.json").read_text())["mismatch_percent"] == {"J_cam": 20.0}
 
 
+def test_sim_shows_the_design_warnings_and_keeps_them_in_its_summary(capsys, tmp_path):
+    # poles at |p| T = 0.6 (250 Hz): the design warns, and a run of it must say so too
+    code, out, err = _run(capsys, "sim", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path), "--duration", "0.2",
+                          "--no-plots", "--poles", "pan_angle=-150,-160", "--json")
+    assert code == 0
+    summary = json.loads(out)
+    assert any("pan_angle: poles too fast for 250 Hz" in w for w in summary["design_warnings"])
+    assert "linz: warning: chain pan_angle: poles too fast for 250 Hz" in err
+    code, out, err = _run(capsys, "sim", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path), "--duration", "0.2",
+                          "--no-plots", "--json")
+    assert code == 0 and json.loads(out)["design_warnings"] == [] and "warning" not in err
+
+
 @pytest.mark.parametrize("argv, words", [
     (["--mismatch", "mass=5"], "--mismatch: 'mass' is not a parameter of mast_camera"),
     (["--reference", "ramp:amplitude=1"], "--reference: unknown kind 'ramp'"),
@@ -228,7 +242,19 @@ def test_demo_runs_the_whole_job_and_shows_the_watchdog(capsys, tmp_path):
     # three Python nodes and the tests share two cores: a rare late state may go stale, nothing else
     assert bringup["steps"] > 1000 and set(bringup["reasons"]) <= {"ok", "stale"}, bringup["reasons"]
     assert bringup["reasons"].get("stale", 0) <= 0.005 * bringup["steps"], bringup["reasons"]
-    assert max(o["max_error"] for o in bringup["outputs"].values()) < 2e-3, (bringup["outputs"], bringup["reasons"])
+    assert max(o["rms_error"] for o in bringup["outputs"].values()) < 1e-3, bringup["outputs"]
+    # every step, from the controller's field log: tight tracking wherever the loop ran on time; a gap
+    # (no state for over five periods: the two cores are shared with the test run) holds the command
+    # and costs up to a centimetre, so the 0.25 s after each gap are judged on their own
+    log = read_logs([tmp_path / "bringup" / "field_log"])
+    gaps = control_gaps(log)
+    t, error = log.column("t"), np.abs(log.block("y") - log.block("ref")).max(axis=1)
+    after_gap = np.zeros(len(t), dtype=bool)
+    for end in gaps["ends"]:
+        after_gap |= (t >= end) & (t < end + 0.25)
+    assert gaps["count"] <= 5, gaps
+    assert np.nanmax(error[~after_gap]) < 2e-3, gaps
+    assert np.nanmax(error) < 2e-2, gaps
     assert 0 in {d["level"] for d in bringup["diagnostics"]}
     for name in ("linz_controller.log", "linz_plant_sim.log", "run.csv", "outputs.png"):
         assert (tmp_path / "bringup" / name).stat().st_size > 0

@@ -1,14 +1,13 @@
 """Code generation: the grammar printer, the programs an artifact carries, the residual check."""
 
-import numpy as np
 import pytest
 import sympy as sp
 
-from support import BUNDLED, REFERENCE
+from support import BUNDLED, MINIMAL, REFERENCE
 from linz_ros.artifact.grammar import parse_expression
 from linz_ros.codegen import CodegenError, build_document, symbolic_programs, to_grammar
 from linz_ros.codegen import _writer
-from linz_ros.model import load_plant
+from linz_ros.model import load_plant, plant_from_text
 from linz_ros.model._symbolic import tree_to_sympy
 from linz_ros.synthesis import synthesise
 
@@ -66,6 +65,19 @@ def test_a_residual_above_the_tolerance_refuses_to_build(monkeypatch):
     document, verification = build_document(design, tolerance=1e-3)
     assert 1e-7 < verification.per_program["law"]["max_relative_residual"] < 1e-5
     assert document["verification"]["max_relative_residual"] == verification.max_relative_residual
+
+
+def test_a_program_that_cannot_be_checked_at_enough_points_is_refused():
+    # log(x1) is real only for x1 > 0: most of this envelope gives no finite reference to check against
+    text = (MINIMAL.replace("-k*sin(x1) + u", "-k*log(x1) + u") + "outputs: {y: x1}\n"
+            "envelope: {x1: [-3.0, 0.5], x2: [-1.0, 1.0]}\noperating_point: {x1: 0.25, x2: 0.0}\n")
+    design = synthesise(plant_from_text(text))
+    with pytest.raises(CodegenError, match="generated program 'law' could be checked at only [0-9]+ of 64 envelope "
+                                           "points .*; artifact not written"):
+        build_document(design)
+    narrowed = text.replace("x1: [-3.0, 0.5]", "x1: [0.05, 0.5]")
+    _, verification = build_document(synthesise(plant_from_text(narrowed)))
+    assert verification.skipped == 0 and verification.max_relative_residual < 1e-9
 
 
 def test_cse_shares_work_across_the_law():

@@ -127,3 +127,52 @@ def test_every_bundled_plant_has_a_bringup_parameter_file_for_its_nodes():
         for key in ("state_topic", "state_type", "state_fields", "command_topic", "command_type", "command_fields"):
             assert controller[key] == simulator[key], (params.name, key)
         assert document["/linz_reference"]["ros__parameters"]["topic"] == controller["reference_topic"]
+
+
+def _load_with_stand_in_launch(path: Path, monkeypatch):
+    """The launch file as a module, with ``launch``/``launch_ros`` replaced by recording stand-ins."""
+    import importlib.util
+    import types
+
+    class Recorded:
+        def __init__(self, *args, **kwargs):
+            self.args, self.kwargs = args, kwargs
+
+    class LaunchConfiguration(Recorded):
+        def perform(self, context):
+            return context[self.args[0]]
+
+    stand_ins = {"launch": {"LaunchDescription": Recorded}, "launch.actions": {
+        "DeclareLaunchArgument": Recorded, "OpaqueFunction": Recorded, "IncludeLaunchDescription": Recorded},
+        "launch.substitutions": {"LaunchConfiguration": LaunchConfiguration, "PathJoinSubstitution": Recorded},
+        "launch.launch_description_sources": {"PythonLaunchDescriptionSource": Recorded},
+        "launch_ros": {}, "launch_ros.actions": {"LifecycleNode": Recorded, "Node": Recorded},
+        "launch_ros.substitutions": {"FindPackageShare": Recorded}}
+    for name, members in stand_ins.items():
+        module = types.ModuleType(name)
+        module.__dict__.update(members)
+        monkeypatch.setitem(__import__("sys").modules, name, module)
+    spec = importlib.util.spec_from_file_location(path.stem.replace(".", "_"), path)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
+def test_the_hardware_bringup_remaps_the_parameter_files_topics(monkeypatch):
+    bringup = _load_with_stand_in_launch(ROOT / "launch" / "hardware_bringup.launch.py", monkeypatch)
+    declared = {a.args[0]: a.kwargs.get("default_value") for a in bringup.generate_launch_description().args[0]
+                if type(a).__name__ == "Recorded" and a.args and isinstance(a.args[0], str)}
+    assert {"artifact", "params_file", "state_topic", "command_topic", "reference_topic", "remaps"} <= set(declared)
+    context = {"artifact": "/tmp/arm.artifact.json", "params_file": str(ROOT / "config" / "pick_arm.yaml"),
+               "autostart": "false", "field_log_folder": "", "state_topic": "/robot/joints",
+               "command_topic": "/robot/efforts", "reference_topic": "", "remaps": "/diagnostics:=/robot/diagnostics"}
+    (node,) = bringup._controller(context)
+    assert node.kwargs["executable"] == "linz_controller"
+    assert node.kwargs["remappings"] == [("/pick_arm/joint_states", "/robot/joints"),
+                                         ("/pick_arm/joint_efforts", "/robot/efforts"),
+                                         ("/diagnostics", "/robot/diagnostics")]
+    params_file, overrides = node.kwargs["parameters"]
+    assert params_file == context["params_file"] and overrides["autostart"] is False
+    assert "state_topic" not in overrides              # remapped, not overridden
+    with pytest.raises(RuntimeError, match="remaps: expected FROM:=TO, got '/diagnostics'"):
+        bringup._controller({**context, "remaps": "/diagnostics"})

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from linz_ros.logs import StepLog, episodes, runs, summarise
-from linz_ros.logs.analysis import mode_switches, sequence_gaps
+from linz_ros.logs.analysis import control_gaps, mode_switches, sequence_gaps
 from linz_ros.runtime import MODES, REASONS
 
 LABELS = ["t", "sigma_min", "condition", "mode", "reason", "damping", "compute_time_us", "saturated_mask", "warn",
@@ -127,3 +127,14 @@ def test_the_summary_is_json_ready():
     summary = summarise(_log(sigma_min=sigma, condition=np.full(100, math.inf)))
     text = json.dumps(summary, allow_nan=False)
     assert '"max_condition": null' in text
+
+
+def test_control_gaps_are_intervals_of_more_than_five_periods_between_steps():
+    t = PERIOD * np.arange(100.0)
+    t[40:] += 0.035                 # 4.5 periods between records 39 and 40: not over the limit
+    t[70:] += 0.05                  # 6 periods between 69 and 70: a gap
+    gaps = control_gaps(_log(t=t))
+    assert gaps["count"] == 1 and gaps["ends"] == [pytest.approx(t[70])]
+    assert gaps["longest_s"] == pytest.approx(6 * PERIOD)
+    assert summarise(_log(t=t))["control_gaps"]["count"] == 1
+    assert control_gaps(_log())["count"] == 0

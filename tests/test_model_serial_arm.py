@@ -1,7 +1,6 @@
 """Serial arms from DH tables against forms derived independently (textbook, Lagrange, energy)."""
 
 import numpy as np
-import pytest
 import sympy as sp
 import sympy.physics.mechanics as me
 
@@ -61,7 +60,7 @@ def _three_link_by_lagrange():
     O = me.Point("O")
     O.set_vel(N, 0)
     frames, joint, angle = [], O, 0
-    lagrangian, bodies = 0, []
+    bodies = []
     for i in range(3):
         angle = angle + q[i]
         frame = N.orientnew(f"L{i}", "Axis", [angle, N.z])

@@ -105,3 +105,29 @@ def test_a_refused_publish_is_counted_and_never_fatal():
     node._send(Refusing(), object(), "command")
     assert node.window.publish_failures == 1 and "command not published" in logger.errors[0]
     assert node.window.level()[0] == b"\x02" and "refused by the middleware" in node.window.level()[1]
+
+
+@pytest.mark.parametrize("extrapolate", [True, False])
+def test_a_topic_reference_is_carried_forward_along_its_derivatives_until_the_next(make, extrapolate):
+    from linz_ros.nodes.controller import _ReferenceSource
+
+    node = make(reference_extrapolate=str(extrapolate).lower())
+    assert node.params["reference_extrapolate"] is extrapolate
+    node.trigger_configure()
+    assert node.core is not None
+    source = _ReferenceSource(node.core, "topic", 0.5, ["tool_x", "tool_y"], node.params["reference_extrapolate"])
+    # tool_x on a parabola x = 0.1 + 0.2 t + 0.5 t^2 sampled at t = 0; tool_y still
+    assert source.accept([0.1, 0.2, 1.0, 0.3, 0.0, 0.0], now=9.98)
+    assert source.sample([0.4, 1.2, 0.0, 0.0], now=9.99)[0] == 0.1     # one message: no interval to go by
+    assert source.accept([0.1, 0.2, 1.0, 0.3, 0.0, 0.0], now=10.0)    # messages 20 ms apart
+    ref = source.sample([0.4, 1.2, 0.0, 0.0], now=10.01)
+    expected = [0.1 + 0.2 * 0.01 + 0.5 * 0.01 ** 2, 0.2 + 0.01, 1.0, 0.3, 0.0, 0.0] if extrapolate else \
+        [0.1, 0.2, 1.0, 0.3, 0.0, 0.0]
+    assert ref == pytest.approx(expected, abs=1e-15)
+    assert source.sample([0.4, 1.2, 0.0, 0.0], now=10.0) == [0.1, 0.2, 1.0, 0.3, 0.0, 0.0]
+    # a stalled reference is carried one interval (20 ms) at most, then stays there until the timeout
+    at_interval = source.sample([0.4, 1.2, 0.0, 0.0], now=10.02)
+    assert source.sample([0.4, 1.2, 0.0, 0.0], now=10.3) == at_interval
+    assert at_interval[0] == pytest.approx(0.1 + 0.2 * 0.02 + 0.5 * 0.02 ** 2 if extrapolate else 0.1, abs=1e-15)
+    held = source.sample([0.4, 1.2, 0.0, 0.0], now=10.6)        # past the timeout: held, not extrapolated
+    assert source.stale and held == node.core.hold_reference([0.4, 1.2, 0.0, 0.0])

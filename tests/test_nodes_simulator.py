@@ -9,14 +9,13 @@ rclpy = pytest.importorskip("rclpy", reason="rclpy is not installed (pip install
 from sensor_msgs.msg import JointState  # noqa: E402
 
 from linz_ros.errors import ConfigError  # noqa: E402
-from support import BUNDLED, built_artifact  # noqa: E402
+from support import BUNDLED  # noqa: E402
 
 FIELDS = "['position.shoulder', 'position.elbow', 'velocity.shoulder', 'velocity.elbow']"
 
 
 @pytest.fixture
 def make(tmp_path):
-    from linz_ros.artifact import seal  # noqa: F401
     from linz_ros.codegen import artifact_path, build_document, write_artifact
     from linz_ros.model import load_plant
     from linz_ros.nodes.simulator import PlantSimulatorNode

@@ -5,6 +5,7 @@ import csv
 
 import numpy as np
 import pytest
+import yaml
 
 from support import BUNDLED, MINIMAL, REFERENCE, built_artifact, sampled_chain_error
 from linz_ros.errors import ConfigError
@@ -26,15 +27,18 @@ def test_tracking_error_follows_the_designed_error_dynamics(name):
     result = simulate(artifact, SimSettings(duration=duration, reference=reference))
     assert result.diverged_at is None and set(result.mode) == {"nominal"}
     summary = result.summary()
+    # the poles as the plant file states them, read here without the loader or the artifact
+    designed = yaml.safe_load((BUNDLED / f"{name}.yaml").read_text())["design"]["poles"]
     for i, (output, gains) in enumerate(zip(artifact.outputs, artifact.gains)):
+        chain_poles = np.sort(np.real(np.roots(np.r_[1.0, gains[::-1]])))
+        np.testing.assert_allclose(chain_poles, np.sort(designed[output]), rtol=1e-9, err_msg=output)
         expected = sampled_chain_error(gains, 1 / artifact.rate, -amplitude, len(result.t))
         error = result.errors()[:, i]
         assert np.max(np.abs(error - expected)) < 0.02 * amplitude, output
         expected_rate = fit_decay_rate(result.t, expected)
         assert summary["outputs"][output]["decay_rate"] == pytest.approx(expected_rate, rel=0.03), output
-        # and the sampled design decays like the slowest continuous pole (within sampling effects)
-        slowest = -max(np.real(np.roots(np.r_[1.0, gains[::-1]])))
-        assert expected_rate == pytest.approx(slowest, rel=0.1)
+        # and the sampled design decays like the plant file's slowest pole (within sampling effects)
+        assert expected_rate == pytest.approx(-max(designed[output]), rel=0.1)
         assert summary["outputs"][output]["final_error"] < 1e-3 * amplitude
 
 
@@ -48,6 +52,35 @@ def test_input_state_design_tracks_the_linearizing_output_and_reports_state_refe
     z = result.ref[:, :2]
     np.testing.assert_allclose(result.ref_state[:, 0], z[:, 0], atol=1e-12)
     np.testing.assert_allclose(1.5 * np.sin(result.ref_state[:, 1]), z[:, 1], atol=1e-12)
+
+
+KEPLER_DRIVE = """\
+plant: kepler_drive
+states: [x1, x2]
+inputs: [u]
+parameters: {e: 0.5}
+dynamics:
+  x1: x2 + e*sin(x2)
+  x2: u
+envelope: {x1: [-1.0, 1.0], x2: [-1.0, 1.0]}
+design: {rate: 200, poles: [-4, -5]}
+"""
+
+
+def test_an_input_state_design_without_a_closed_form_inverse_runs_on_newton():
+    # z2 = x2 + e sin x2 is Kepler's equation in x2: no elementary inverse, so the artifact carries
+    # no inverse program and the state references come from the warm-started Newton iteration
+    artifact = built_artifact(KEPLER_DRIVE)
+    assert "inverse" not in artifact.programs
+    assert any("Newton" in note for note in artifact.document["design"]["notes"])
+    reference = make_reference("smooth", [2], [0.0], 0.6, duration=2.0, at=0.2)
+    result = simulate(artifact, SimSettings(duration=4.0, reference=reference, initial=[0.0, 0.0]))
+    assert set(result.mode) == {"nominal"} and np.max(np.abs(result.errors())) < 0.005 * 0.6
+    z = result.ref[:, :2]
+    x_ref = result.ref_state
+    np.testing.assert_allclose(x_ref[:, 0], z[:, 0], atol=1e-10)
+    np.testing.assert_allclose(x_ref[:, 1] + 0.5 * np.sin(x_ref[:, 1]), z[:, 1], atol=1e-10)
+    assert np.max(np.abs(x_ref[:, 1])) > 0.2                   # the move exercises the nonlinearity
 
 
 def test_mismatch_noise_and_delay_degrade_tracking_but_stay_bounded():

@@ -56,17 +56,24 @@ def test_damped_command_is_continuous_at_the_act_threshold_and_bounded_near_the_
     # q2 near the value where sigma_min crosses sigma_act, in fine steps: no jump in the command
     q2s = np.linspace(0.2, 0.02, 2000)
     ref = core.hold_reference([0.4, 0.5, 0.0, 0.0])
-    commands, modes = [], []
+    commands, modes, damped = [], [], []
+    c = core.config
     for k, q2 in enumerate(q2s):
         u, record = core.step([0.4, q2, 0.0, 0.0], ref, t=1e-3 * (k + 1))
         commands.append(u)
         modes.append(record.mode)
         if record.mode == "damped":
+            damped.append((record.sigma_min, record.damping))
             # |u| <= |v - b| / (2 lambda) for the damped least-squares solution
             law = core.artifact.programs["law"].evaluate([0.4, q2, 0.0, 0.0], core.parameters)
             v = np.array(ref[2::3]) - 42 * (law["chain"][0::2] - np.array(ref[0::3])) - 13 * law["chain"][1::2]
             assert np.linalg.norm(u) <= np.linalg.norm(v - law["b"]) / (2 * record.damping) * (1 + 1e-9)
     assert "damped" in modes and "nominal" in modes
+    # sigma_min falls along the path and the damping grows with it: lambda = lambda_max sqrt(1 - (s / s_act)^2)
+    sigmas, dampings = np.array(damped).T
+    assert np.all(np.diff(sigmas) < 0) and np.all(np.diff(dampings) > 0)
+    assert dampings == pytest.approx(c.damping * np.sqrt(1 - (sigmas / c.sigma_act) ** 2), rel=1e-12)
+    assert dampings[0] < 0.05 * c.damping and dampings[-1] > 0.5 * c.damping
     switch = modes.index("damped")
     jumps = np.abs(np.diff(np.array(commands), axis=0)).max(axis=1)
     assert jumps[switch - 1] < 5 * np.median(jumps[max(0, switch - 50):switch - 1]) + 1e-9

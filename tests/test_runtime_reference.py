@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from linz_ros.errors import ConfigError
-from linz_ros.runtime import make_reference, parse_reference
+from linz_ros.runtime import extrapolate_reference, make_reference, parse_reference
 
 
 @pytest.mark.parametrize("kind, options", [("sine", {"period": 1.7, "at": 0.2}),
@@ -56,3 +56,19 @@ def test_bad_reference_text_is_one_line(text, words):
     with pytest.raises(ConfigError, match="reference") as info:
         parse_reference(text, [2], [0.0], ["y"])
     assert words in str(info.value)
+
+
+def test_extrapolation_is_exact_for_polynomials_of_the_chain_degree_and_converges_otherwise():
+    # a cubic y = 1 - t + 2 t^2 + 0.5 t^3 in a chain of degree 3: Taylor is exact at any dt
+    def cubic(t):
+        return [1 - t + 2 * t ** 2 + 0.5 * t ** 3, -1 + 4 * t + 1.5 * t ** 2, 4 + 3 * t, 3.0]
+    two_chains = cubic(0.3) + [0.7, 0.0, 0.0, 0.0]
+    assert extrapolate_reference(two_chains, [3, 3], 0.25) == pytest.approx(cubic(0.55) + [0.7, 0.0, 0.0, 0.0])
+    assert extrapolate_reference(two_chains, [3, 3], 0.0) == pytest.approx(two_chains)
+    # a smooth move of order 2: the error of the value falls as dt^3 (the held second derivative)
+    ref = make_reference("smooth", [2], [0.0], 0.4, duration=1.0)
+    errors = [abs(extrapolate_reference(ref.sample(0.3), [2], dt)[0] - ref.sample(0.3 + dt)[0])
+              for dt in (0.02, 0.01)]
+    assert 6.0 < errors[0] / errors[1] < 10.0
+    held = abs(ref.sample(0.3)[0] - ref.sample(0.31)[0])
+    assert errors[1] < 1e-3 * held            # far closer than holding the sample

@@ -9,8 +9,8 @@ from linz_ros.analysis._common import plant_context, show, show_bounded
 from linz_ros.analysis._envelope import EnvelopeResult, sample_envelope
 from linz_ros.analysis._input_output import InputOutputResult, analyse_input_output
 from linz_ros.analysis._input_state import InputStateResult, analyse_input_state, relative_degree_of
-from linz_ros.analysis._mechanical import (analyse_mechanical_input_output, analyse_mechanical_input_state,
-                                           mechanical_terms)
+from linz_ros.analysis._mechanical import (MechanicalTerms, analyse_mechanical_input_output,
+                                           analyse_mechanical_input_state, mechanical_terms)
 from linz_ros.model import Plant
 
 __all__ = ["Report", "analyse", "render_text"]
@@ -24,6 +24,7 @@ class Report:
     input_state: InputStateResult
     input_output: InputOutputResult | None
     envelope: EnvelopeResult | None
+    mechanical_terms: MechanicalTerms | None = None    # numeric M, F, B, J of a mechanical plant
 
     def to_json(self) -> dict[str, Any]:
         """The contract object of ``linz check --json``."""
@@ -105,7 +106,7 @@ def _analyse_mechanical(plant: Plant, ctx, samples: int) -> Report:
             and plant.h.shape[0] <= plant.m):
         envelope = sample_envelope(plant, lambda points: terms.decoupling(points)[0],
                                    "decoupling matrix J M^-1 B of the outputs", samples)
-    return Report(plant, input_state, input_output, envelope)
+    return Report(plant, input_state, input_output, envelope, terms)
 
 
 def _envelope_subject(plant, input_state, input_output, ctx):

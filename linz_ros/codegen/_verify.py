@@ -119,12 +119,21 @@ def verify_programs(design: Design, programs, printed: dict[str, dict[str, Any]]
         result.per_program[program.name] = {
             "max_relative_residual": worst, "skipped": skipped,
             "worst_point": None if worst_at is None else [float(v) for v in worst_at]}
+        if points - skipped < _least_verified(points):
+            raise CodegenError(f"generated program {program.name!r} could be checked at only {points - skipped} of "
+                               f"{points} envelope points (the symbolic expressions are not finite at the others); "
+                               "narrow the envelope to where the model is defined; artifact not written")
         if not worst <= tolerance:
             names = [s.name for s in program.arguments[0][1]]
             where = ", ".join(f"{n}={v:.4g}" for n, v in zip(names, worst_at))
             raise CodegenError(f"generated program {program.name!r} differs from the symbolic expressions by "
                                f"{worst:.3g} (tolerance {tolerance:g}) at {where}; artifact not written")
     return result
+
+
+def _least_verified(points: int) -> int:
+    """Points that must give a finite reference for a program to count as verified."""
+    return max(1, points // 4)
 
 
 def _first_arguments(program, design: Design, states: np.ndarray) -> np.ndarray:

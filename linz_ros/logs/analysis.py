@@ -19,7 +19,7 @@ from linz_ros.artifact import Artifact
 from linz_ros.logs.reader import StepLog, metadata_json
 from linz_ros.runtime import MODES, REASONS
 
-__all__ = ["Episode", "Thresholds", "episodes", "summarise", "thresholds_of"]
+__all__ = ["Episode", "Thresholds", "control_gaps", "episodes", "summarise", "thresholds_of"]
 
 _REFUSED = ("wrong_length", "non_finite_state", "bad_reference", "bad_time", "out_of_order", "stale",
             "future_stamp", "model_not_finite", "non_finite_command", "no_state", "bad_message")
@@ -199,6 +199,34 @@ def sequence_gaps(log: StepLog) -> int:
     return int(np.sum(steps[steps > 1] - 1))
 
 
+LATE_PERIODS = 5.0     # a step this many median periods after the one before it ends a control-loop gap
+
+
+def control_gaps(log: StepLog, periods: float = LATE_PERIODS) -> dict[str, Any]:
+    """Gaps in the control loop: consecutive steps more than ``periods`` median periods apart.
+
+    A gap means no state reached the controller for that long (a starved or late sensor,
+    a busy machine); the command was held meanwhile.
+
+    Parameters
+    ----------
+    log : StepLog
+    periods : float
+
+    Returns
+    -------
+    dict
+        ``count``, ``longest_s`` (the longest interval between steps), ``periods`` and
+        ``ends``: the times of the steps that end each gap (the first 20).
+    """
+    t = log.column("t")
+    period = _period(t)
+    steps = np.diff(t)
+    late = np.flatnonzero(np.isfinite(steps) & (steps > periods * period)) + 1 if period > 0 else np.array([], int)
+    return {"count": int(len(late)), "longest_s": float(np.nanmax(steps)) if len(steps) else 0.0,
+            "periods": periods, "ends": [float(t[i]) for i in late[:LISTED]]}
+
+
 def saturated_inputs(log: StepLog) -> np.ndarray:
     """(records, inputs) bool array from the saturation bit mask."""
     mask = np.nan_to_num(log.column("saturated_mask")).astype(np.int64)
@@ -270,6 +298,7 @@ def summarise(log: StepLog, artifact: Artifact | None = None) -> dict[str, Any]:
         "refused": refused,
         "compute_time_us": _percentiles(log.column("compute_time_us")),
         "missing_records": sequence_gaps(log),
+        "control_gaps": control_gaps(log),
         "dropped_by_writer": int(recorded["dropped_total"]) if recorded.get("dropped_total", "").isdigit() else None,
         "cut_files": [f for f, clean in log.clean_close.items() if not clean and log.sequence.max(initial=-1) >= 0],
         "problems": list(log.problems),

@@ -86,6 +86,9 @@ def summary_text(summary: dict[str, Any]) -> str:
     dropped = s["dropped_by_writer"]
     lines.append(f"  records missing in the files: {s['missing_records']}"
                  + (f"; dropped by the writer (as it reported): {dropped}" if dropped is not None else ""))
+    gaps = s["control_gaps"]
+    lines.append(f"  control-loop gaps over {gaps['periods']:g} periods: {gaps['count']}"
+                 + (f" (longest {1000 * gaps['longest_s']:.1f} ms between steps)" if gaps["count"] else ""))
     for f in s["cut_files"]:
         lines.append(f"  {f}: not closed cleanly (crash or kill): read up to its last flush")
     for problem in s["problems"]:

@@ -20,7 +20,6 @@ from pathlib import Path
 from typing import Any, Sequence
 
 import numpy as np
-import rclpy
 from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus, KeyValue
 from rcl_interfaces.msg import SetParametersResult
 from rclpy.clock import Clock, ClockType
@@ -32,7 +31,7 @@ from linz_ros.errors import LinzError
 from linz_ros.nodes._common import EXECUTORS, SAFETY_NOTICE, control_qos, declare, spin_node
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, labelled_array,
                                      message_class, set_stamp, stamp_seconds)
-from linz_ros.runtime import MODES, ControllerCore, WatchdogConfig, parse_reference
+from linz_ros.runtime import MODES, ControllerCore, WatchdogConfig, extrapolate_reference, parse_reference
 from linz_ros.runtime.fieldlog import (CONDITIONING_FIELDS, FieldLogSettings, FieldLogWriter, conditioning_labels,
                                        conditioning_values, open_field_log)
 
@@ -129,13 +128,16 @@ class DiagnosticWindow:
 class _ReferenceSource:
     """The reference vector at time t: from the reference topic, or from a built-in generator."""
 
-    def __init__(self, core: ControllerCore, spec: str, timeout: float, outputs: list[str]) -> None:
+    def __init__(self, core: ControllerCore, spec: str, timeout: float, outputs: list[str],
+                 extrapolate: bool = True) -> None:
         self.core = core
         self.spec = spec
         self.timeout = timeout
+        self.extrapolate = extrapolate
         self.outputs = outputs
         self.latest: list[float] | None = None
         self.latest_at = -math.inf
+        self.interval = 0.0            # between the last two reference messages
         self.generator = None
         self.origin: float | None = 0.0
         self.latched: list[float] | None = None
@@ -155,6 +157,7 @@ class _ReferenceSource:
         values = list(values)
         if len(values) != self.core.reference_size or not all(math.isfinite(v) for v in values):
             return False
+        self.interval = now - self.latest_at if math.isfinite(self.latest_at) else 0.0
         self.latest, self.latest_at = values, now
         return True
 
@@ -168,6 +171,11 @@ class _ReferenceSource:
         if self.latest is not None and now - self.latest_at <= self.timeout:
             self.stale = False
             self.latched = None
+            # carried forward at most one message interval: a reference that stalls mid-move stops
+            # moving after one interval (and is held at the outputs after the timeout)
+            ahead = min(now - self.latest_at, self.interval)
+            if self.extrapolate and ahead > 0.0:
+                return extrapolate_reference(self.latest, self.core.orders, ahead)
             return self.latest
         # no reference, or it stalled: hold the outputs where they were when it stopped
         self.stale = True
@@ -235,6 +243,9 @@ class ControllerNode(LifecycleNode):
                                  "'smooth:tool_x=0.05,duration=2' (starts at activation)", read_only=True)
         p["reference_timeout"] = declare(self, "reference_timeout", 0.5, "hold the outputs when the reference "
                                          "topic is older than this (s)", read_only=True, minimum=0.0)
+        p["reference_extrapolate"] = declare(self, "reference_extrapolate", True, "carry the latest topic "
+                                             "reference forward along its derivatives until the next one",
+                                             read_only=True)
         p["conditioning_topic"] = declare(self, "conditioning_topic", "~/conditioning", "per-step record topic",
                                           read_only=True)
         p["diagnostics_period"] = declare(self, "diagnostics_period", 1.0, "seconds between diagnostics",
@@ -369,7 +380,8 @@ class ControllerNode(LifecycleNode):
                                   "state_fields")
         self.command_map = FieldMap(p["command_type"], [f for f in p["command_fields"] if f], len(artifact.inputs),
                                     "command_fields")
-        self.reference = _ReferenceSource(core, p["reference"].strip(), p["reference_timeout"], artifact.outputs)
+        self.reference = _ReferenceSource(core, p["reference"].strip(), p["reference_timeout"], artifact.outputs,
+                                          p["reference_extrapolate"])
         self.core = core
         qos = control_qos()
         self._command_pub = self.create_lifecycle_publisher(self.command_map.cls, p["command_topic"], qos)

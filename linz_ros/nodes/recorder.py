@@ -53,6 +53,7 @@ class Recording:
     references: list[tuple[float, list[float]]] = field(default_factory=list)
     conditioning: list[tuple[float, list[float]]] = field(default_factory=list)
     diagnostics: list[tuple[float, int, str, dict[str, str]]] = field(default_factory=list)
+    conditioning_labels: list[str] = field(default_factory=list)   # as the layout of the last record says
 
 
 class BringupRecorder(Node):
@@ -110,6 +111,8 @@ class BringupRecorder(Node):
         self.recording.references.append((self._now(), list(message.data)))
 
     def _on_conditioning(self, message: Float64MultiArray) -> None:
+        if not self.recording.conditioning and message.layout.dim:
+            self.recording.conditioning_labels = message.layout.dim[0].label.split(",")
         self.recording.conditioning.append((self._now(), list(message.data)))
         self._notify("conditioning", message)
 

@@ -21,7 +21,7 @@ import numpy as np
 from rosgraph_msgs.msg import Clock
 
 from linz_ros.artifact import load_artifact
-from linz_ros.errors import ConfigError, LinzError
+from linz_ros.errors import ConfigError
 from linz_ros.nodes._common import RCLError, control_qos, declare, spin_node
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, message_class,
                                      set_stamp, split_seconds)

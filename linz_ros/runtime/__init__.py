@@ -14,10 +14,10 @@ simulate          the sampled closed loop offline; SimSettings, SimResult, fit_d
 from linz_ros.runtime.closed_loop import INTEGRATORS, SimResult, SimSettings, fit_decay_rate, simulate
 from linz_ros.runtime.core import MODES, REASONS, ControllerCore, StepRecord, WatchdogConfig
 from linz_ros.runtime.plant import NumericPlant, mismatched_parameters, parse_assignments
-from linz_ros.runtime.reference import KINDS, Reference, make_reference, parse_reference
+from linz_ros.runtime.reference import KINDS, Reference, extrapolate_reference, make_reference, parse_reference
 from linz_ros.runtime.transform import InverseResult, Transform
 
 __all__ = ["ControllerCore", "WatchdogConfig", "StepRecord", "MODES", "REASONS", "Reference",
-           "make_reference", "parse_reference", "KINDS", "NumericPlant", "mismatched_parameters",
+           "make_reference", "parse_reference", "extrapolate_reference", "KINDS", "NumericPlant", "mismatched_parameters",
            "parse_assignments", "Transform", "InverseResult", "simulate", "SimSettings", "SimResult",
            "fit_decay_rate", "INTEGRATORS"]

@@ -159,14 +159,7 @@ def spd_solve(a: Sequence[float], columns: Sequence[Sequence[float]], n: int) ->
     [[0.5, 0.0]]
     """
     if n > SMALL_SPD:
-        M = np.asarray(a, dtype=float).reshape(n, n)
-        try:
-            L = np.linalg.cholesky(M)
-        except np.linalg.LinAlgError:
-            raise ArithmeticError("mass matrix is not positive definite") from None
-        rhs = np.asarray(columns, dtype=float).T
-        y = np.linalg.solve(L, rhs)
-        return np.linalg.solve(L.T, y).T.tolist()
+        return _cholesky_solve_lapack(a, np.asarray(columns, dtype=float).T, n).T.tolist()
     # M = L L^T, row by row (Golub and Van Loan, Matrix Computations, alg. 4.2.1)
     L = [[0.0] * n for _ in range(n)]
     for i in range(n):
@@ -257,15 +250,20 @@ def task_space_terms(M: Sequence[float], F: Sequence[float], B: Sequence[float],
     return A, b
 
 
-def _task_space_terms_lapack(M, F, B, J, c, nq: int, m: int) -> tuple[list[float], list[float]]:
+def _cholesky_solve_lapack(a: Sequence[float], rhs: np.ndarray, n: int) -> np.ndarray:
+    """X with M X = rhs (n x k) through LAPACK's Cholesky factor of M given flat."""
     try:
-        L = np.linalg.cholesky(np.array(M, dtype=float).reshape(nq, nq))
+        L = np.linalg.cholesky(np.asarray(a, dtype=float).reshape(n, n))
     except np.linalg.LinAlgError:
         raise ArithmeticError("mass matrix is not positive definite") from None
+    return np.linalg.solve(L.T, np.linalg.solve(L, rhs))
+
+
+def _task_space_terms_lapack(M, F, B, J, c, nq: int, m: int) -> tuple[list[float], list[float]]:
     rhs = np.empty((nq, m + 1))
     rhs[:, :m] = np.asarray(B, dtype=float).reshape(nq, m)
     rhs[:, m] = F
-    X = np.linalg.solve(L.T, np.linalg.solve(L, rhs))
+    X = _cholesky_solve_lapack(M, rhs, nq)
     projected = np.asarray(J, dtype=float).reshape(m, nq) @ X
     return projected[:, :m].ravel().tolist(), (projected[:, m] + np.asarray(c, dtype=float)).tolist()
 

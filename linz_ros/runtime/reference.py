@@ -24,7 +24,7 @@ import numpy as np
 
 from linz_ros.errors import ConfigError
 
-__all__ = ["Reference", "make_reference", "parse_reference", "KINDS"]
+__all__ = ["Reference", "make_reference", "parse_reference", "extrapolate_reference", "KINDS"]
 
 KINDS = ("hold", "step", "sine", "smooth")
 #: Shortest period or duration accepted (seconds).
@@ -160,8 +160,8 @@ def make_reference(kind: str, orders: Sequence[int], base: Sequence[float],
     Examples
     --------
     >>> ref = make_reference("smooth", [2], [0.0], 1.0, duration=2.0)
-    >>> [round(v, 6) for v in ref.sample(1.0)], ref.sample(5.0)
-    ([0.5, 0.9375, 0.0], [1.0, 0.0, 0.0])
+    >>> [round(v, 6) for v in ref.sample(0.5)], ref.sample(5.0)
+    ([0.103516, 0.527344, 1.40625], [1.0, 0.0, 0.0])
     """
     if kind not in KINDS:
         raise ConfigError("reference", f"unknown kind {kind!r}; expected one of {', '.join(KINDS)}")
@@ -235,3 +235,44 @@ def parse_reference(text: str, orders: Sequence[int], base: Sequence[float], out
     common = settings.pop("amplitude", 0.0)
     amplitude = [per_output.get(name, common) for name in outputs]
     return make_reference(kind, orders, base, amplitude, **settings)
+
+
+def extrapolate_reference(values: Sequence[float], orders: Sequence[int], dt: float) -> list[float]:
+    """A reference vector carried ``dt`` seconds forward along its own derivatives.
+
+    Each chain's ``(y, y', ..., y^(r))`` is taken as the Taylor polynomial of degree r
+    about the time it was sampled, and every entry is re-evaluated ``dt`` later:
+    ``y^(k)(t + dt) = sum_{j >= k} y^(j) dt^(j-k) / (j-k)!`` (the highest derivative is
+    held). A reference published slower than the control rate then moves between its
+    samples instead of stepping.
+
+    Parameters
+    ----------
+    values : sequence of float
+        Per chain ``y_ref, y_ref', ..., y_ref^(r)``, chains in order.
+    orders : sequence of int
+        Relative degree r of each chain.
+    dt : float
+        Seconds since the sample (0 gives the values back).
+
+    Returns
+    -------
+    list of float
+
+    Examples
+    --------
+    >>> extrapolate_reference([1.0, 2.0, 4.0], [2], 0.5)
+    [2.5, 4.0, 4.0]
+    """
+    out: list[float] = []
+    start = 0
+    for r in orders:
+        chain = values[start:start + r + 1]
+        for k in range(r + 1):
+            term, total = 1.0, 0.0
+            for j in range(k, r + 1):
+                total += chain[j] * term
+                term *= dt / (j - k + 1)
+            out.append(total)
+        start += r + 1
+    return out

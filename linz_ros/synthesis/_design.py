@@ -432,7 +432,8 @@ def _sigma_reference(plant: Plant, report: Report, A: sp.Matrix, ctx, kind: str)
     if envelope is not None and envelope.median_sigma:
         return float(envelope.median_sigma), "median smallest singular value of A over the envelope"
     if A is None:
-        values = mechanical_terms(plant).decoupling(np.array([plant.operating_vector()]))[0][0]
+        terms = report.mechanical_terms or mechanical_terms(plant)
+        values = terms.decoupling(np.array([plant.operating_vector()]))[0][0]
     else:
         values = evaluate(A, ctx, plant.operating_vector())
     if np.all(np.isfinite(values)):

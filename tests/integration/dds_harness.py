@@ -7,9 +7,9 @@ import time
 from pathlib import Path
 from typing import Any, Callable
 
+import numpy as np
 import rclpy
 from lifecycle_msgs.srv import ChangeState, GetState
-from rcl_interfaces.msg import Parameter as ParameterMsg
 from rcl_interfaces.srv import SetParameters
 from rclpy.parameter import Parameter
 from sensor_msgs.msg import JointState
@@ -58,7 +58,6 @@ class Probe(BringupRecorder):
         super().__init__(artifact, topics, node_name="linz_probe", context=self._context, states=states)
         self.state_pub = self.create_publisher(self.state_map.cls, topics.state_topic, control_qos())
         self.controller = controller
-        self._outputs = len(artifact.outputs)
         self.change_client = self.create_client(ChangeState, f"/{controller}/change_state")
         self.get_client = self.create_client(GetState, f"/{controller}/get_state")
         self.parameter_client = self.create_client(SetParameters, f"/{controller}/set_parameters")
@@ -105,14 +104,25 @@ class Probe(BringupRecorder):
 
     # -- views of the recording ------------------------------------------------------------
     def steps(self, last: int | None = None) -> list[dict]:
-        """Conditioning records as dicts (mode and reason as words); only the ``last`` ones when given."""
+        """Conditioning records as dicts (mode and reason as words); only the ``last`` ones when given.
+
+        Fields are found by the labels of the message layout, as received over DDS.
+        """
+        if not self.recording.conditioning:
+            return []
+        labels = self.recording.conditioning_labels
+        assert labels, "the conditioning records carry no labelled layout"
+        index = {name: i for i, name in enumerate(labels)}
+        outputs = [index[f"y.{y}"] for y in self.artifact.outputs]
+        refs = [index[f"ref.{y}"] for y in self.artifact.outputs]
+        inputs = [index[f"u.{u}"] for u in self.artifact.inputs]
         rows = []
         records = self.recording.conditioning
         for received, data in (records if last is None else records[-last:]):
-            rows.append({"received": received, "t": data[0], "sigma_min": data[1], "condition": data[2],
-                         "mode": MODES[int(data[3])], "reason": REASONS[int(data[4])],
-                         "y": data[9:9 + self._outputs], "ref": data[9 + self._outputs:9 + 2 * self._outputs],
-                         "u": data[9 + 2 * self._outputs:]})
+            rows.append({"received": received, "t": data[index["t"]], "sigma_min": data[index["sigma_min"]],
+                         "condition": data[index["condition"]], "mode": MODES[int(data[index["mode"]])],
+                         "reason": REASONS[int(data[index["reason"]])], "y": [data[i] for i in outputs],
+                         "ref": [data[i] for i in refs], "u": [data[i] for i in inputs]})
         return rows
 
     def commands_finite(self) -> bool:
@@ -120,3 +130,35 @@ class Probe(BringupRecorder):
 
     def diagnostic_levels(self) -> list[int]:
         return [level for _, level, _, _ in self.recording.diagnostics]
+
+
+# -- the controller's own field log ---------------------------------------------------------------
+def field_log(folder: Path):
+    """Every control step the controller recorded (stop it first, so its file is closed)."""
+    from linz_ros.logs import read_logs
+
+    return read_logs([folder])
+
+
+def tracking_outside_gaps(log, settle: float = 0.05, after_gap: float = 0.25) -> tuple[float, dict]:
+    """Largest |y - y_ref| over accepted steps, leaving out the start and each control-loop gap.
+
+    The first ``settle`` fraction of the steps is left out, and ``after_gap`` seconds after
+    each gap (no state for over five periods: the two cores are shared with the test run, and
+    the command is held meanwhile), which are judged on their own by the caller.
+
+    Returns
+    -------
+    (float, dict)
+        The largest error, and :func:`linz_ros.logs.analysis.control_gaps` of the log.
+    """
+    from linz_ros.logs.analysis import control_gaps
+
+    gaps = control_gaps(log)
+    assert gaps["count"] <= 20, gaps           # each gap is listed, so each can be left out
+    t = log.column("t")
+    error = np.abs(log.block("y") - log.block("ref")).max(axis=1)
+    keep = np.arange(len(t)) >= int(settle * len(t))
+    for end in gaps["ends"]:
+        keep &= ~((t >= end) & (t < end + after_gap))
+    return float(np.nanmax(error[keep])), gaps

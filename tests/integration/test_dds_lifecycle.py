@@ -2,7 +2,9 @@
 
 import math
 import time
+from dataclasses import replace
 
+import pytest
 from lifecycle_msgs.msg import Transition
 
 from dds_harness import ARM_TOPICS, CONFIG, Probe, wait_until
@@ -86,6 +88,8 @@ def test_thresholds_change_while_active_and_topics_do_not(bringup, arm_artifact)
         assert not ok and "sigma_warn >= sigma_act" in reason
         ok, reason = probe.set_parameter("state_topic", "/elsewhere")
         assert not ok and reason
+        ok, reason = probe.set_parameter("artifact", str(path.with_name("other.artifact.json")))
+        assert not ok and "artifact" in reason
         ok, reason = probe.set_parameter("sigma_stop", 0.7)             # above the arm's sigma at HOLD
         assert not ok
         ok, reason = probe.set_parameter("sigma_warn", 0.9)
@@ -152,3 +156,32 @@ def test_a_new_stale_after_takes_effect_at_once_and_the_clock_cannot_change(brin
         assert stale_at - stopped < 0.25 * 1.5 + 0.3            # the timer was re-armed at the new period
     finally:
         probe.destroy_node()
+
+
+def test_remapped_topics_carry_the_state_and_the_command(bringup, arm_artifact):
+    path, artifact = arm_artifact
+    # -r FROM:=TO on the command line, as the hardware bringup's remappings do
+    bringup.start("linz_controller", PARAMS, {"artifact": str(path), "reference": "hold", **PROBE_FED},
+                  remaps={"/pick_arm/joint_states": "/robot/joints", "/pick_arm/joint_efforts": "/robot/efforts"})
+    assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
+    remapped = Probe(artifact, replace(ARM_TOPICS, state_topic="/robot/joints", command_topic="/robot/efforts"))
+    original = Probe(artifact, ARM_TOPICS)
+    try:
+        for _ in range(300):
+            remapped.publish_state(HOLD)
+            original.publish_state([0.4, 0.3, 0.0, 0.0])        # a different state on the old name: ignored
+            wait_until(lambda: False, 0.005, node=remapped)
+            original.spin_once(0.0)
+        wait_until(lambda: False, 0.3, node=original)
+    finally:
+        remapped.destroy_node()
+        original.destroy_node()
+    commands = remapped.recording.commands
+    assert len(commands) > 50 and all(u != [0.0, 0.0] for _, _, u in commands[-20:])
+    assert original.recording.commands == []                     # nothing on the parameter file's topic
+    # every step saw the remapped state (q2 = 1.2), never the one sent on the old name
+    steps = remapped.steps()
+    assert steps and {s["reason"] for s in steps} <= {"ok", "stale"}
+    law = artifact.programs["law"].evaluate(HOLD, artifact.nominal_parameters)
+    ok = [s for s in steps if s["reason"] == "ok"]
+    assert ok and all(s["y"] == pytest.approx(list(law["chain"][0::2]), abs=1e-9) for s in ok)

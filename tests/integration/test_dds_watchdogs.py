@@ -5,7 +5,7 @@ import time
 
 import numpy as np
 
-from dds_harness import ARM_TOPICS, CONFIG, Probe, wait_until
+from dds_harness import ARM_TOPICS, CONFIG, Probe, field_log, wait_until
 from linz_ros.bringup import node_parameters
 
 PARAMS = CONFIG / "pick_arm.yaml"
@@ -47,12 +47,31 @@ def test_a_trajectory_through_the_singular_set_warns_then_errors_and_stays_finit
         elif s["mode"] == "damped":
             assert w["sigma_stop"] <= s["sigma_min"] < w["sigma_act"]
     assert probe.commands_finite()
-    levels = [level for received, level, _, _ in probe.recording.diagnostics if received <= fed_until]
-    first_warn = levels.index(WARN)
-    first_error = levels.index(ERROR)
+    # the windows that saw steps: from the first state on (before it, the node warns that no state came)
+    first_state = probe.recording.conditioning[0][0]
+    windows = [(level, message, values) for received, level, message, values in probe.recording.diagnostics
+               if first_state < received <= fed_until]
+    levels = [level for level, _, _ in windows]
+    first_warn, first_error = levels.index(WARN), levels.index(ERROR)
     last_error = len(levels) - 1 - levels[::-1].index(ERROR)
     assert first_warn < first_error                         # WARN on the way in, then ERROR at the singularity
+    assert "near singular" in windows[first_warn][1] or "under the warn level" in windows[first_warn][1]
+    assert "singular" in windows[first_error][1]
     assert OK in levels[last_error + 1:]                    # and OK again once the arm is bent
+    # the key values describe the steps: the controller saw every step, the probe most of them
+    sigma = [float(v["window_min_sigma"]) for _, _, v in windows if v["window_min_sigma"] != "nan"]
+    seen = min(s["sigma_min"] for s in steps)
+    assert min(sigma) <= seen * (1 + 1e-5) and min(sigma) < w["sigma_stop"]
+    assert all(float(windows[i][2]["window_min_sigma"]) < w["sigma_stop"] for i in range(len(windows))
+               if levels[i] == ERROR and "singular" in windows[i][1])
+    assert max(float(v["max_condition"]) for _, _, v in windows) >= max(
+        s["condition"] for s in steps if math.isfinite(s["condition"])) * (1 - 1e-5)
+    for _, _, v in windows:
+        assert 0.0 <= float(v["saturated_fraction"]) <= 1.0
+        assert 0.0 < float(v["compute_time_p99_us"]) < 20000.0
+    rates = [float(v["loop_rate_hz"]) for _, _, v in windows[1:-1]]
+    fed_rate = len(steps) / (fed_until - first_state)
+    assert 0.5 * fed_rate < np.median(rates) < 2.0 * fed_rate, (rates, fed_rate)
     assert bringup.nodes["linz_controller"].alive()
 
 
@@ -118,9 +137,11 @@ def test_a_killed_simulator_makes_the_controller_go_stale_safe_within_its_timeou
         assert probe.steps(last=1)[-1]["u"] == [0.0, 0.0]
     finally:
         probe.destroy_node()
-    # stale once no state for stale_after, noticed by a timer running every stale_after / 2
+    # stale once no state for stale_after, noticed by a timer running every stale_after / 4 and
+    # confirmed on two of its checks: by design within 1.5 stale_after of the last state; the rest
+    # of the bound is process scheduling and DDS delivery to the probe on two shared cores
     print(f"stale-safe {1000 * delay:.1f} ms after kill -9 (stale_after {1000 * stale_after:.0f} ms)")
-    assert delay < 1.5 * stale_after + 0.2, delay          # confirmed on two checks, stale_after / 4 apart
+    assert delay < 1.5 * stale_after + 0.2, delay
     assert bringup.nodes["linz_controller"].alive()
 
 
@@ -154,22 +175,27 @@ def test_simulator_faults_a_nan_burst_and_a_frozen_sensor_are_caught(bringup, ar
     assert probe.commands_finite()
 
 
-def test_noise_drops_delay_and_mismatch_degrade_but_do_not_break_tracking(bringup, arm_artifact):
+def test_noise_drops_delay_and_mismatch_degrade_but_do_not_break_tracking(bringup, arm_artifact, tmp_path):
     path, artifact = arm_artifact
     bringup.start("linz_plant_sim", PARAMS, {"artifact": str(path), "noise": [1e-4], "drop_probability": 0.2,
                                              "delay": 0.004, "mismatch": ["m2=5", "I2=-5"]})
     bringup.start("linz_reference", PARAMS, {"artifact": str(path),
                                              "reference": "smooth:tool_x=-0.05,tool_y=0.04,duration=1.0,at=1.0"})
-    bringup.start("linz_controller", PARAMS, {"artifact": str(path), "stale_after": 0.2})
+    bringup.start("linz_controller", PARAMS, {"artifact": str(path), "stale_after": 0.2,
+                                              "field_log_folder": str(tmp_path / "log")})
     assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
-    probe = Probe(artifact, ARM_TOPICS)
+    probe = Probe(artifact, ARM_TOPICS, states=False)
     try:
         assert wait_until(lambda: len(probe.recording.conditioning) > 1200, timeout=30, node=probe)
         result = probe.to_result()
     finally:
         probe.destroy_node()
     assert set(result.summary()["reasons"]) == {"ok"}, result.summary()["reasons"]
-    assert 0.6 < len(probe.recording.states) / len(result.t) / 0.8 < 1.6      # about a fifth of the states dropped
+    bringup.stop("linz_controller")
+    # about a fifth of the states dropped: the controller stepped on about 80 % of the 2 ms stamps
+    t = field_log(tmp_path / "log").column("t")
+    stepped = len(t) / (round((t[-1] - t[0]) * artifact.rate) + 1)
+    assert 0.7 < stepped < 0.9, stepped
     errors = np.abs(result.errors()[len(result.t) // 5:])
     # the 5 % heavier forearm is a gravity error the PD outer loop leaves as an offset (no integral
     # action in this design): bounded, under two centimetres, and far above the nominal 1e-4
