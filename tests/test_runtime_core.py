@@ -373,3 +373,35 @@ def test_the_six_joint_arm_core_step_is_computed_torque():
         expected = np.reshape(np.array(M, float), (6, 6)) @ v - np.array(F, float)
         assert record.mode == "nominal"
         np.testing.assert_allclose(u, expected, rtol=1e-9)
+
+
+@pytest.mark.parametrize("integral", [False, True])
+def test_the_straight_line_outer_loop_is_the_chain_law(integral):
+    # v_i = y_ref_i^(r_i) - k_I eta_i - sum_d K_id (y_i^(d) - y_ref_i^(d)), minus b_i where the law carries b
+    design = ("design: {rate: 200, integral: true, poles: {y: [-3, -4, -5], z: [-2, -6]}}\n" if integral else
+              "design: {rate: 200, poles: {y: [-3, -4], z: [-2]}}\n")
+    text = ("plant: two_chains\nstates: [x1, x2, x3]\ninputs: [u1, u2]\nparameters: {k: 2.0}\n"
+            "dynamics: {x1: x2, x2: -k*sin(x1) + u1 + x3, x3: u2 - x3}\noutputs: {y: x1, z: x3}\n" + design)
+    core = ControllerCore(built_artifact(text))
+    rng = np.random.default_rng(int(integral))
+    for _ in range(20):
+        values = list(rng.normal(size=core.artifact.programs["law"].size))
+        ref = list(rng.normal(size=core.reference_size))
+        core.integrators = list(rng.normal(size=2))
+        w, errors = core._outer_loop(values, ref)
+        b = values[core._b_slice]
+        k, j = core._chain_offset, 0
+        for i, (r, gains) in enumerate(zip(core.orders, core.gains)):
+            k_integral, K = (gains[0], gains[1:]) if integral else (0.0, gains)
+            v = ref[j + r] - k_integral * core.integrators[i] - sum(K[d] * (values[k + d] - ref[j + d])
+                                                                   for d in range(r))
+            assert w[i] == pytest.approx(v - b[i], rel=1e-12, abs=1e-12)
+            assert errors[i] == values[k] - ref[j]
+            k, j = k + r, j + r + 1
+
+
+def test_a_state_whose_sum_overflows_is_still_finite():
+    from linz_ros.runtime.core import _all_finite
+
+    assert _all_finite([1e308, 1e308, -1.0]) and _all_finite([]) and _all_finite((0.5,))
+    assert not _all_finite([1.0, math.nan]) and not _all_finite([math.inf, -math.inf]) and not _all_finite([1e308, math.inf])

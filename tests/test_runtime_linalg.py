@@ -45,6 +45,17 @@ def test_two_by_two_singular_values_survive_huge_and_tiny_entries():
     assert singular_values([0.0, 0.0, 0.0, 0.0], 2) == (0.0, 0.0)
 
 
+def test_two_by_two_singular_values_agree_across_the_unscaled_and_scaled_paths():
+    # |A|_F^2 inside (1e-140, 1e140) is computed unscaled, outside it scaled by the largest entry
+    rng = np.random.default_rng(11)
+    base = rng.normal(size=(2, 2))
+    for exponent in (-75, -70, -69, -10, 0, 10, 69, 70, 75):
+        A = base * 10.0 ** exponent
+        smin, smax = singular_values(A.ravel().tolist(), 2)
+        expected = np.linalg.svd(base, compute_uv=False) * 10.0 ** exponent
+        assert smin == pytest.approx(expected[-1], rel=1e-12) and smax == pytest.approx(expected[0], rel=1e-12)
+
+
 @pytest.mark.parametrize("nq, m", [(1, 1), (2, 2), (3, 2), (3, 3), (6, 6), (6, 3)])
 def test_task_space_terms_match_a_direct_numpy_evaluation(nq, m):
     from linz_ros.runtime._linalg import task_space_terms
@@ -69,3 +80,22 @@ def test_task_space_terms_refuse_a_mass_matrix_that_is_not_positive_definite(nq)
     with pytest.raises(ArithmeticError, match="not positive definite"):
         task_space_terms(M.ravel().tolist(), [0.0] * nq, np.eye(nq).ravel().tolist(), np.eye(nq).ravel().tolist(),
                          [0.0] * nq, nq, nq)
+
+
+def test_three_by_three_singular_values_of_special_and_nearly_singular_matrices():
+    rng = np.random.default_rng(12)
+    U, _ = np.linalg.qr(rng.normal(size=(3, 3)))
+    V, _ = np.linalg.qr(rng.normal(size=(3, 3)))
+    cases = [np.eye(3), 2.5 * np.eye(3), np.diag([3.0, 3.0, 1.0]), np.diag([1.0, 0.0, 0.0]), np.zeros((3, 3)),
+             np.outer([1.0, 2.0, 3.0], [0.5, -1.0, 2.0])]                      # rank one
+    cases += [U @ np.diag([2.0, 1.0, tiny]) @ V.T for tiny in (1e-3, 1e-6, 1e-9)]  # down to sigma_min 1e-9
+    cases += [U @ np.diag([1.0, 1.0, 1e-4]) @ V.T, U @ np.diag([5.0, 1e-3, 1e-3]) @ V.T]
+    for A in cases:
+        smin, smax = singular_values(A.ravel().tolist(), 3)
+        sigma = np.linalg.svd(A, compute_uv=False)
+        # near a double eigenvalue of A^T A the trigonometric cubic loses to about sqrt(eps)
+        assert smax == pytest.approx(sigma[0], rel=1e-8, abs=1e-300)
+        # relative to sigma_min while sigma_max / sigma_mid is moderate; absolute otherwise
+        assert smin == pytest.approx(sigma[-1], rel=1e-6, abs=1e-12 * sigma[0]), (A, smin, sigma)
+    assert singular_values([np.nan] + [0.0] * 8, 3)[0] != singular_values([np.nan] + [0.0] * 8, 3)[0]
+    assert singular_values([np.inf] + [0.0] * 8, 3)[1] == np.inf

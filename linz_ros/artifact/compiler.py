@@ -105,6 +105,11 @@ class Program:
         """Evaluate; raises ArithmeticError or ValueError on a domain error (math backend)."""
         return self._function(*vectors)
 
+    @property
+    def function(self) -> Callable:
+        """The compiled function itself, as :meth:`__call__` without the call through it (hot loops)."""
+        return self._function
+
     def evaluate(self, *vectors: Sequence[float]) -> dict[str, np.ndarray]:
         """Evaluate and reshape every output; domain errors give nan instead of raising.
 

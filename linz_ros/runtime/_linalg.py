@@ -46,6 +46,14 @@ def singular_values(a: Sequence[float], m: int) -> tuple[float, float]:
         s = abs(a[0])
         return s, s
     if m == 2:
+        p, q, r, s = a[0], a[1], a[2], a[3]
+        frob = p * p + q * q + r * r + s * s
+        if 1e-140 < frob < 1e140:
+            # no square can have overflowed or lost precision to underflow: no scaling needed
+            det = abs(p * s - q * r)
+            disc = frob * frob - 4.0 * det * det
+            big = math.sqrt(0.5 * (frob + math.sqrt(disc if disc > 0.0 else 0.0)))
+            return det / big, big
         # scaled by the largest entry, so squares neither overflow nor underflow
         scale = max(abs(a[0]), abs(a[1]), abs(a[2]), abs(a[3]))
         if not scale > 0.0:
@@ -58,8 +66,49 @@ def singular_values(a: Sequence[float], m: int) -> tuple[float, float]:
         disc = frob * frob - 4.0 * det * det
         big = math.sqrt(0.5 * (frob + math.sqrt(disc if disc > 0.0 else 0.0)))
         return det / big * scale, big * scale
+    if m == 3:
+        return _singular_values_3(a)
     sigma = np.linalg.svd(np.asarray(a, dtype=float).reshape(m, m), compute_uv=False)
     return float(sigma[-1]), float(sigma[0])
+
+
+def _singular_values_3(a: Sequence[float]) -> tuple[float, float]:
+    # eigenvalues of G = A^T A in closed form (O. K. Smith, Comm. ACM 4(4), 1961: the
+    # trigonometric solution of the characteristic cubic); sigma_max and sigma_mid from them,
+    # sigma_min = |det A| / (sigma_max sigma_mid), which keeps it accurate when tiny; where two
+    # eigenvalues of G nearly coincide the cubic's solution is good to about sqrt(eps) relative
+    scale = max(map(abs, a))
+    if not scale > 0.0:
+        return (0.0, 0.0) if scale == 0.0 else (math.nan, math.nan)
+    if scale == math.inf:
+        return math.nan, math.inf
+    a0, a1, a2, a3, a4, a5, a6, a7, a8 = (v / scale for v in a)
+    g11 = a0 * a0 + a3 * a3 + a6 * a6
+    g22 = a1 * a1 + a4 * a4 + a7 * a7
+    g33 = a2 * a2 + a5 * a5 + a8 * a8
+    g12 = a0 * a1 + a3 * a4 + a6 * a7
+    g13 = a0 * a2 + a3 * a5 + a6 * a8
+    g23 = a1 * a2 + a4 * a5 + a7 * a8
+    q = (g11 + g22 + g33) / 3.0
+    off = g12 * g12 + g13 * g13 + g23 * g23
+    d1, d2, d3 = g11 - q, g22 - q, g33 - q
+    spread = math.sqrt((d1 * d1 + d2 * d2 + d3 * d3 + 2.0 * off) / 6.0)
+    if spread > 0.0:
+        b11, b22, b33 = d1 / spread, d2 / spread, d3 / spread
+        b12, b13, b23 = g12 / spread, g13 / spread, g23 / spread
+        half_det = 0.5 * (b11 * (b22 * b33 - b23 * b23) - b12 * (b12 * b33 - b23 * b13)
+                          + b13 * (b12 * b23 - b22 * b13))
+        phi = math.acos(max(-1.0, min(1.0, half_det))) / 3.0
+        largest = q + 2.0 * spread * math.cos(phi)
+        smallest = q + 2.0 * spread * math.cos(phi + 2.0 * math.pi / 3.0)
+        middle = 3.0 * q - largest - smallest
+    else:
+        largest = middle = q
+    s_max = math.sqrt(largest)
+    s_mid = math.sqrt(middle) if middle > 0.0 else 0.0
+    det = abs(a0 * (a4 * a8 - a5 * a7) - a1 * (a3 * a8 - a5 * a6) + a2 * (a3 * a7 - a4 * a6))
+    s_min = min(det / (s_max * s_mid), s_mid) if s_mid > 0.0 else 0.0
+    return s_min * scale, s_max * scale
 
 
 def solve(a: Sequence[float], rhs: Sequence[float], m: int) -> list[float]:
@@ -88,6 +137,17 @@ def solve(a: Sequence[float], rhs: Sequence[float], m: int) -> list[float]:
         p, q, r, s = a[0], a[1], a[2], a[3]
         det = p * s - q * r
         return [(s * rhs[0] - q * rhs[1]) / det, (p * rhs[1] - r * rhs[0]) / det]
+    if m == 3:
+        # the adjugate (Cramer's rule): forward error of order cond(A) eps (Higham, Accuracy and
+        # Stability of Numerical Algorithms, sec. 1.10.1), and the core solves here only where
+        # sigma_min >= sigma_act bounds cond(A); numpy costs ten times more per 3 x 3 call
+        a0, a1, a2, a3, a4, a5, a6, a7, a8 = a
+        c0, c3, c6 = a4 * a8 - a5 * a7, a5 * a6 - a3 * a8, a3 * a7 - a4 * a6
+        det = a0 * c0 + a1 * c3 + a2 * c6
+        r0, r1, r2 = rhs
+        return [(c0 * r0 + (a2 * a7 - a1 * a8) * r1 + (a1 * a5 - a2 * a4) * r2) / det,
+                (c3 * r0 + (a0 * a8 - a2 * a6) * r1 + (a2 * a3 - a0 * a5) * r2) / det,
+                (c6 * r0 + (a1 * a6 - a0 * a7) * r1 + (a0 * a4 - a1 * a3) * r2) / det]
     return np.linalg.solve(np.asarray(a, dtype=float).reshape(m, m), np.asarray(rhs, dtype=float)).tolist()
 
 
@@ -160,6 +220,8 @@ def spd_solve(a: Sequence[float], columns: Sequence[Sequence[float]], n: int) ->
     """
     if n > SMALL_SPD:
         return _cholesky_solve_lapack(a, np.asarray(columns, dtype=float).T, n).T.tolist()
+    if n == 3:
+        return _spd_solve_3(a, columns)
     # M = L L^T, row by row (Golub and Van Loan, Matrix Computations, alg. 4.2.1)
     L = [[0.0] * n for _ in range(n)]
     for i in range(n):
@@ -180,6 +242,32 @@ def spd_solve(a: Sequence[float], columns: Sequence[Sequence[float]], n: int) ->
         for i in reversed(range(n)):
             x[i] = (y[i] - sum(L[k][i] * x[k] for k in range(i + 1, n))) / L[i][i]
         out.append(x)
+    return out
+
+
+def _spd_solve_3(a: Sequence[float], columns: Sequence[Sequence[float]]) -> list[list[float]]:
+    # the 3 x 3 case of the row-by-row Cholesky factorisation above, written out (vessels)
+    d1 = a[0]
+    if not d1 > 0.0:
+        raise ArithmeticError("mass matrix is not positive definite")
+    l11 = math.sqrt(d1)
+    l21, l31 = a[3] / l11, a[6] / l11
+    d2 = a[4] - l21 * l21
+    if not d2 > 0.0:
+        raise ArithmeticError("mass matrix is not positive definite")
+    l22 = math.sqrt(d2)
+    l32 = (a[7] - l31 * l21) / l22
+    d3 = a[8] - l31 * l31 - l32 * l32
+    if not d3 > 0.0:
+        raise ArithmeticError("mass matrix is not positive definite")
+    l33 = math.sqrt(d3)
+    out = []
+    for c0, c1, c2 in columns:
+        y0 = c0 / l11
+        y1 = (c1 - l21 * y0) / l22
+        x2 = (c2 - l31 * y0 - l32 * y1) / l33 / l33
+        x1 = (y1 - l32 * x2) / l22
+        out.append([(y0 - l21 * x1 - l31 * x2) / l11, x1, x2])
     return out
 
 

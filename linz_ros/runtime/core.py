@@ -22,9 +22,10 @@ within ``hold_time``), ``safe``.
 from __future__ import annotations
 
 import math
+import operator
 import time
 from dataclasses import dataclass, fields, replace
-from typing import Any, Sequence
+from typing import Any, Callable, Sequence
 
 from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
@@ -39,6 +40,38 @@ REASONS = ("ok", "near_singular", "singular", "wrong_length", "non_finite_state"
            "bad_time", "out_of_order", "stale", "future_stamp", "model_not_finite", "non_finite_command",
            "no_state", "bad_message")
 _isfinite = math.isfinite
+
+
+def _all_finite(values: Sequence[float]) -> bool:
+    """Whether every value is finite: a finite sum proves it, otherwise each is looked at."""
+    # nan and +-inf make any float sum non-finite, so a finite sum needs no second look; a sum
+    # that overflowed on finite values falls through to the exact check
+    return _isfinite(sum(values)) or all(map(_isfinite, values))
+
+
+def _straight_line_outer_loop(layout: list[tuple], b_offset: int | None = None) -> Callable:
+    """The outer loop of :meth:`ControllerCore._outer_loop` as one function without loops.
+
+    It returns ``(w, e)``: ``w = v - b`` with b read from the law's values at ``b_offset``
+    (a plant whose law carries b), or ``w = v`` without it; e are the output errors. Built
+    from the core's own numbers only (offsets and the artifact's gains, printed with
+    ``repr`` of a float, which round-trips exactly), never from text in the file.
+    """
+    vs, errors = [], []
+    for i, (k, j, r, k_integral, gains) in enumerate(layout):
+        terms = [f"ref[{j + r}]"]
+        if k_integral != 0.0:
+            terms.append(f"{float(k_integral)!r} * integrators[{i}]")
+        terms += [f"{float(gains[d])!r} * (values[{k + d}] - ref[{j + d}])" for d in range(r)]
+        if b_offset is not None:
+            terms.append(f"values[{b_offset + i}]")
+        vs.append(" - ".join(terms))
+        errors.append(f"values[{k}] - ref[{j}]")
+    source = (f"def outer(values, ref, integrators):\n"
+              f"    return [{', '.join(vs)}], [{', '.join(errors)}]\n")
+    scope: dict = {}
+    exec(compile(source, "<outer loop>", "exec"), {"__builtins__": {}}, scope)   # noqa: S102
+    return scope["outer"]
 
 
 def _is_real(value: Any) -> bool:
@@ -296,8 +329,9 @@ class ControllerCore:
             raise ConfigError("parameters", f"expected {len(nominal)} finite values "
                                             f"({', '.join(artifact.parameter_names)})")
         self.parameters = parameters
-        self._law = artifact.programs["law"]
-        slots = self._law.slots
+        law = artifact.programs["law"]
+        self._law = law.function
+        slots = law.slots
         self._mechanical = artifact.mechanical_coordinates
         if self._mechanical is None:
             self._a_slice = _slot_slice(slots, "A")
@@ -310,6 +344,10 @@ class ControllerCore:
         self._chain_offset = slots["chain"].offset
         self._period = 1.0 / artifact.rate
         self._output_offsets = [sum(self.orders[:i]) for i in range(len(self.orders))]
+        outputs = [self._chain_offset + offset for offset in self._output_offsets]
+        # the outputs y_i out of the law's values, as a tuple even for one chain
+        self._outputs_of = (operator.itemgetter(*outputs) if len(outputs) > 1 else
+                            (lambda values, i=outputs[0]: (values[i],)))
         # per chain: offset in the law's output, offset in the reference, degree, K_I, K_0..K_(r-1)
         self._layout = []
         k, j = self._chain_offset, 0
@@ -318,6 +356,9 @@ class ControllerCore:
             self._layout.append((k, j, r, k_integral, gains[1:] if self.integral else gains))
             k += r
             j += r + 1
+        # w = v - b in one pass where the law carries b; v alone for mechanical plants
+        self._outer = _straight_line_outer_loop(
+            self._layout, self._b_slice.start if self._mechanical is None else None)
         self.reset()
 
     # -- state ------------------------------------------------------------------------
@@ -412,7 +453,7 @@ class ControllerCore:
             x = list(map(float, x))
         except (TypeError, ValueError, OverflowError):
             return self._refuse("wrong_length", t, start, now)
-        if not all(map(_isfinite, x)):
+        if not _all_finite(x):
             return self._refuse("non_finite_state", t, start, now)
         last_t = self.last_t
         if last_t is not None and t <= last_t:
@@ -428,13 +469,13 @@ class ControllerCore:
             ref = list(map(float, ref))
         except (TypeError, ValueError, OverflowError):
             return self._refuse("bad_reference", t, start, now)
-        if not all(map(_isfinite, ref)):
+        if not _all_finite(ref):
             return self._refuse("bad_reference", t, start, now)
         try:
             values = self._law(x, self.parameters)
         except (ArithmeticError, ValueError):
             return self._refuse("model_not_finite", t, start, now)
-        if not all(map(_isfinite, values)):
+        if not _all_finite(values):
             return self._refuse("model_not_finite", t, start, now)
         m = self.m
         A = b = None
@@ -454,7 +495,7 @@ class ControllerCore:
         dt = 0.0 if last_t is None else min(t - last_t, config.max_dt)
         if self.integral and self._integrate_next and self._last_errors is not None:
             self._advance_integrators(dt)
-        v, errors = self._outer_loop(values, ref)
+        w, errors = self._outer_loop(values, ref)
         warn = not sigma_min >= config.sigma_warn
         damping = 0.0
         if not sigma_min >= config.sigma_stop:      # also catches a nan sigma
@@ -466,13 +507,13 @@ class ControllerCore:
                 damping = config.damping * math.sqrt(1.0 - ratio * ratio)
                 if A is None:
                     A, b = task_space_terms(*(values[k] for k in self._structure), self._mechanical, m)
-                u = damped_solve(A, [v[i] - b[i] for i in range(m)], m, damping)
+                u = damped_solve(A, self._rhs(w, b), m, damping)
                 mode, reason = "damped", "near_singular"
             elif A is None:
-                u = computed_torque(values[self._structure[0]], values[self._structure[1]], v, m)
+                u = computed_torque(values[self._structure[0]], values[self._structure[1]], w, m)
                 mode, reason = "nominal", "ok"
             else:
-                u = solve(A, [v[i] - b[i] for i in range(m)], m)
+                u = solve(A, self._rhs(w, b), m)
                 mode, reason = "nominal", "ok"
         except (ArithmeticError, ValueError):
             self.last_t = t
@@ -488,10 +529,8 @@ class ControllerCore:
         self.last_good_command = u
         self._last_errors = errors
         self._integrate_next = not (config.anti_windup and (mode != "nominal" or any(saturated)))
-        k = self._chain_offset
         record = StepRecord(t, tuple(u), mode, reason, sigma_min, condition, warn, damping,
-                            tuple(saturated), time.perf_counter() - start,
-                            tuple(values[k + offset] for offset in self._output_offsets))
+                            tuple(saturated), time.perf_counter() - start, self._outputs_of(values))
         return u, record
 
     def safe_step(self, now: float, reason: str = "no_state", final: bool = False) -> tuple[list[float], StepRecord]:
@@ -531,16 +570,15 @@ class ControllerCore:
 
     # -- pieces -------------------------------------------------------------------------
     def _outer_loop(self, values: Sequence[float], ref: list[float]) -> tuple[list[float], list[float]]:
-        """v_i = y_ref_i^(r_i) - K_i . (eta_i, e_i, ..., e_i^(r_i - 1)); also the errors e_i."""
-        v, errors = [], []
-        integrators = self.integrators
-        for i, (k, j, r, k_integral, gains) in enumerate(self._layout):
-            acc = ref[j + r] - k_integral * integrators[i]
-            for d in range(r):
-                acc -= gains[d] * (values[k + d] - ref[j + d])
-            errors.append(values[k] - ref[j])
-            v.append(acc)
-        return v, errors
+        """w_i = v_i - b_i (or v_i, mechanical plants) and the errors e_i, where
+        v_i = y_ref_i^(r_i) - K_i . (eta_i, e_i, ..., e_i^(r_i - 1))."""
+        return self._outer(values, ref, self.integrators)
+
+    def _rhs(self, w: list[float], b: Sequence[float]) -> list[float]:
+        """v - b: ``w`` already is where the law carries b; a mechanical plant's b is assembled."""
+        if self._mechanical is None:
+            return w
+        return [w[i] - b[i] for i in range(self.m)]
 
     def _advance_integrators(self, dt: float) -> None:
         limit = self.config.integral_limit
