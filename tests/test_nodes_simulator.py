@@ -171,3 +171,17 @@ def test_a_publish_that_dds_refuses_is_counted_and_the_simulator_goes_on(make):
     for _ in range(6):
         sim._tick()
     assert len(published) == 6 and sim.publish_failures == 3 and sim.ticks == 6
+
+
+def test_a_sensor_delay_publishes_each_state_late_with_its_own_stamp(make):
+    from linz_ros.nodes.adapters import stamp_seconds
+
+    sim = make(state_delay=0.01)                          # five periods at 500 Hz
+    published = []
+    sim.state_pub.publish = lambda message: published.append((sim._now(), message))
+    for _ in range(20):
+        sim._tick()
+    assert len(published) == 20 - 5
+    for sent_at, message in published:                   # the stamp is when it was measured
+        assert sent_at - stamp_seconds(message) == pytest.approx(0.01, abs=1e-9)
+    assert len(sim.delayed_states) == 5

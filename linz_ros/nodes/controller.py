@@ -14,6 +14,7 @@ chosen, ``~/conditioning`` (one labelled Float64MultiArray per step) and
 
 from __future__ import annotations
 
+import gc
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -445,6 +446,10 @@ class ControllerNode(LifecycleNode):
     def on_activate(self, state: LifecycleState) -> TransitionCallbackReturn:
         self.core.reset()
         self.reference.restart(self._now())
+        # everything alive now (modules, the artifact, rclpy) stays out of the cyclic garbage
+        # collector's passes: a full pass over it takes tens of milliseconds, in the control loop
+        gc.collect()
+        gc.freeze()
         self.active = True
         self.get_logger().info("active: commanding")
         return super().on_activate(state)
@@ -457,6 +462,7 @@ class ControllerNode(LifecycleNode):
 
     def on_cleanup(self, state: LifecycleState) -> TransitionCallbackReturn:
         self._release()
+        gc.unfreeze()                  # the released artifact and core may be collected again
         return TransitionCallbackReturn.SUCCESS
 
     def on_error(self, state: LifecycleState) -> TransitionCallbackReturn:

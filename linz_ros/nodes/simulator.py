@@ -6,13 +6,15 @@ the state. With ``publish_clock`` it owns simulated time: it advances exactly on
 period per tick, publishes ``/clock`` and stamps states with it (run the controller with
 ``use_sim_time``); ``real_time_factor`` sets how fast ticks come. Faults for testing the
 controller are injected by parameters: sensor noise, dropped messages, a frozen sensor,
-a burst of NaN, parameter mismatch, input delay, a jump of the clock (a simulation reset:
+a burst of NaN, parameter mismatch, input delay, sensor delay (a state goes out
+``state_delay`` after its stamp), a jump of the clock (a simulation reset:
 simulated time, ``/clock`` and the state stamps move back or ahead once) and a flood
 (for a while every period is sampled and published ``flood_factor`` times).
 """
 
 from __future__ import annotations
 
+import gc
 import math
 from collections import deque
 from typing import Any, Sequence
@@ -73,6 +75,7 @@ class PlantSimulatorNode(Node):
         self.period = 1.0 / p["rate"]
         self.u = [0.0] * m
         self.pending: deque[tuple[float, list[float]]] = deque()
+        self.delayed_states: deque[tuple[float, Any]] = deque()      # (due, message) of a slow sensor
         self.rng = np.random.default_rng(p["seed"])
         self.sim_time = 0.0
         self.ticks = 0
@@ -92,6 +95,10 @@ class PlantSimulatorNode(Node):
         self.create_subscription(self.command_map.cls, p["command_topic"], self._on_command, qos)
         self.clock_pub = self.create_publisher(Clock, "/clock", 10) if p["publish_clock"] else None
         self.timer = self.create_timer(self.period / p["real_time_factor"], self._tick)
+        # the garbage collector's passes leave out what lives now (modules, the model): a full
+        # pass over it would stall the ticks, and the plant with them
+        gc.collect()
+        gc.freeze()
         self.get_logger().info(f"simulating {artifact.name} at {p['rate']:g} Hz "
                                f"({p['substeps']} RK4 steps a period)"
                                + (f", mismatch {', '.join(s for s in p['mismatch'] if s)}" if any(p["mismatch"]) else ""))
@@ -114,6 +121,8 @@ class PlantSimulatorNode(Node):
         p["noise"] = declare(self, "noise", [], "sensor noise standard deviation (one, or one per state)",
                              True, array_of=float)
         p["delay"] = declare(self, "delay", 0.0, "input delay (s)", True, 0.0, 10.0)
+        p["state_delay"] = declare(self, "state_delay", 0.0, "sensor delay (s): each state message goes out "
+                                   "this long after the time it is stamped with", True, 0.0, 10.0)
         p["drop_probability"] = declare(self, "drop_probability", 0.0, "chance of not publishing a state",
                                         True, 0.0, 1.0)
         p["freeze_at"] = declare(self, "freeze_at", -1.0, "from this time (s) repeat the last state message "
@@ -243,6 +252,7 @@ class PlantSimulatorNode(Node):
                 self.get_logger().info(f"flood over: last stamp {self.last_stamp:.6f} s")
         for k, x in enumerate(samples):        # each part stamped at the end of its share of the period
             self._publish_state(stamp - dt * (parts - 1 - k) / parts, x, elapsed)
+        self._send_due_states(self._now())
         self.last_stamp = stamp
 
     def _publish_state(self, stamp: float, x: list[float], elapsed: float) -> None:
@@ -260,8 +270,16 @@ class PlantSimulatorNode(Node):
             measured = [math.nan] * len(measured)
         message = self.state_map.write(measured)
         set_stamp(message, stamp)
-        self._send(self.state_pub, message)
         self.frozen = message
+        if p["state_delay"] > 0.0:
+            self.delayed_states.append((self._now() + p["state_delay"], message))
+            return
+        self._send(self.state_pub, message)
+
+    def _send_due_states(self, now: float) -> None:
+        """Publish the delayed state messages whose time has come (stamps unchanged)."""
+        while self.delayed_states and self.delayed_states[0][0] <= now + 1e-9:
+            self._send(self.state_pub, self.delayed_states.popleft()[1])
 
     def _send(self, publisher: Any, message: Any) -> None:
         """Publish; a message DDS refuses is lost, as a sensor's would be, not the end of the node.

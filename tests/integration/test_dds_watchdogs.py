@@ -178,7 +178,7 @@ def test_simulator_faults_a_nan_burst_and_a_frozen_sensor_are_caught(bringup, ar
 def test_noise_drops_delay_and_mismatch_degrade_but_do_not_break_tracking(bringup, arm_artifact, tmp_path):
     path, artifact = arm_artifact
     bringup.start("linz_plant_sim", PARAMS, {"artifact": str(path), "noise": [1e-4], "drop_probability": 0.2,
-                                             "delay": 0.004, "mismatch": ["m2=5", "I2=-5"]})
+                                             "delay": 0.004, "state_delay": 0.004, "mismatch": ["m2=5", "I2=-5"]})
     bringup.start("linz_reference", PARAMS, {"artifact": str(path),
                                              "reference": "smooth:tool_x=-0.05,tool_y=0.04,duration=1.0,at=1.0"})
     bringup.start("linz_controller", PARAMS, {"artifact": str(path), "stale_after": 0.2,
@@ -201,3 +201,20 @@ def test_noise_drops_delay_and_mismatch_degrade_but_do_not_break_tracking(bringu
     # action in this design): bounded, under two centimetres, and far above the nominal 1e-4
     assert np.nanmax(errors) < 0.02
     assert np.nanmean(errors) > 1e-3
+
+
+def test_a_sensor_slower_than_the_staleness_limit_gets_only_the_safe_command(bringup, arm_artifact):
+    path, artifact = arm_artifact
+    probe = Probe(artifact, ARM_TOPICS, states=False)
+    try:
+        # every state arrives 0.15 s after its stamp; the controller accepts states up to 0.05 s old
+        bringup.start("linz_plant_sim", PARAMS, {"artifact": str(path), "state_delay": 0.15})
+        bringup.start("linz_controller", PARAMS, {"artifact": str(path), "reference": "hold", "stale_after": 0.05})
+        assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
+        assert wait_until(lambda: len(probe.recording.conditioning) > 200, timeout=30, node=probe)
+    finally:
+        probe.destroy_node()
+    steps = probe.steps()
+    assert {s["reason"] for s in steps} == {"stale"}, {s["reason"] for s in steps}
+    assert all(s["u"] == [0.0, 0.0] for s in steps) and probe.commands_finite()
+    assert bringup.nodes["linz_controller"].alive()
