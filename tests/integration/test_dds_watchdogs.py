@@ -167,7 +167,9 @@ def test_simulator_faults_a_nan_burst_and_a_frozen_sensor_are_caught(bringup, ar
         probe.destroy_node()
     reasons = [s["reason"] for s in probe.steps()]
     burst = [i for i, r in enumerate(reasons) if r == "non_finite_state"]
-    assert 30 <= len(burst) <= 70, len(burst)                     # 0.1 s of NaN at 500 Hz                    # 0.1 s of NaN at 500 Hz
+    # 0.1 s of NaN at 500 Hz: 50 states, fewer when the loaded simulator ticks late (it then
+    # integrates the longer period) or the probe misses a record
+    assert 20 <= len(burst) <= 70, len(burst)
     assert reasons[burst[-1] + 1] == "ok", reasons[burst[-1]:burst[-1] + 5]   # nominal after the burst
     frozen = next(i for i, r in enumerate(reasons) if i > burst[-1] and r != "ok")
     assert set(reasons[frozen:]) <= {"out_of_order", "stale"}, set(reasons[frozen:])  # same stamp: refused
