@@ -252,7 +252,7 @@ def test_demo_runs_the_whole_job_and_shows_the_watchdog(capsys, tmp_path):
     steps = np.diff(t)
     for end in t[1:][steps > 5 * np.median(steps)]:
         after_gap |= (t >= end) & (t < end + 5.0 / 6.0)
-    assert after_gap.mean() < 1 / 3, gaps
+    assert (~after_gap).sum() >= 100, gaps              # enough steps on time to judge
     assert np.nanmax(error[~after_gap]) < 2e-3, (np.nanmax(error[~after_gap]), gaps)
     assert 0 in {d["level"] for d in bringup["diagnostics"]}
     for name in ("linz_controller.log", "linz_plant_sim.log", "run.csv", "outputs.png"):
