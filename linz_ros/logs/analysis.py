@@ -19,7 +19,7 @@ from linz_ros.artifact import Artifact
 from linz_ros.logs.reader import StepLog, metadata_json
 from linz_ros.runtime import MODES, REASONS
 
-__all__ = ["Episode", "Thresholds", "control_gaps", "episodes", "summarise", "thresholds_of"]
+__all__ = ["Episode", "Thresholds", "control_gaps", "episodes", "gap_ends", "summarise", "thresholds_of"]
 
 _REFUSED = ("wrong_length", "non_finite_state", "bad_reference", "bad_time", "out_of_order", "stale",
             "future_stamp", "model_not_finite", "non_finite_command", "no_state", "bad_message")
@@ -220,11 +220,30 @@ def control_gaps(log: StepLog, periods: float = LATE_PERIODS) -> dict[str, Any]:
         ``ends``: the times of the steps that end each gap (the first 20).
     """
     t = log.column("t")
+    steps = np.diff(t)
+    ends = gap_ends(t, periods)
+    return {"count": int(len(ends)), "longest_s": float(np.nanmax(steps)) if len(steps) else 0.0,
+            "periods": periods, "ends": [float(e) for e in ends[:LISTED]]}
+
+
+def gap_ends(t: np.ndarray, periods: float = LATE_PERIODS) -> np.ndarray:
+    """Times of every step that ends a control-loop gap (see :func:`control_gaps`), unlisted.
+
+    Parameters
+    ----------
+    t : numpy.ndarray
+        Step times.
+    periods : float
+
+    Returns
+    -------
+    numpy.ndarray
+    """
     period = _period(t)
     steps = np.diff(t)
-    late = np.flatnonzero(np.isfinite(steps) & (steps > periods * period)) + 1 if period > 0 else np.array([], int)
-    return {"count": int(len(late)), "longest_s": float(np.nanmax(steps)) if len(steps) else 0.0,
-            "periods": periods, "ends": [float(t[i]) for i in late[:LISTED]]}
+    if not period > 0:
+        return t[:0]
+    return t[1:][np.isfinite(steps) & (steps > periods * period)]
 
 
 def saturated_inputs(log: StepLog) -> np.ndarray:

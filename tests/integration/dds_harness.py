@@ -154,7 +154,7 @@ def tracking_outside_gaps(log, settle: float = 0.05, after_gap: float = 0.25) ->
     (float, dict)
         The largest error, and :func:`linz_ros.logs.analysis.control_gaps` of the log.
     """
-    from linz_ros.logs.analysis import control_gaps
+    from linz_ros.logs.analysis import control_gaps, gap_ends
 
     gaps = control_gaps(log)
     t = log.column("t")
@@ -166,9 +166,3 @@ def tracking_outside_gaps(log, settle: float = 0.05, after_gap: float = 0.25) ->
     assert keep.sum() >= min(100, settled.sum()), ("gap recoveries cover nearly the whole run", gaps)
     return float(np.nanmax(error[keep])), gaps
 
-
-def gap_ends(t: np.ndarray, periods: float = 5.0) -> np.ndarray:
-    """Times of all steps that end a control-loop gap (as control_gaps counts them, unlisted)."""
-    steps = np.diff(t)
-    period = float(np.median(steps[steps > 0])) if np.any(steps > 0) else 0.0
-    return t[1:][steps > periods * period] if period > 0 else t[:0]
