@@ -190,6 +190,9 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--seconds", type=_positive_float, default=6.0, metavar="S",
                       help="length of the ROS 2 simulation bringup (default 6)")
     demo.add_argument("--no-ros", action="store_true", help="skip the ROS 2 simulation bringup")
+    demo.add_argument("--wall-clock", action="store_true",
+                      help="run the bringup on the wall clock (default: simulated time, in lockstep with the "
+                           "controller, so that a busy machine slows the run down instead of starving the loop)")
     demo.set_defaults(run=_run_demo)
     return parser
 
@@ -676,8 +679,10 @@ def _run_demo(args: argparse.Namespace) -> int:
     if params is None:
         print(f"\n(no bringup parameter file config/{name}.yaml: the ROS 2 step is skipped)")
     elif not args.no_ros:
-        print(f"\n== 5. simulation bringup over DDS: simulator, reference and controller nodes ({args.seconds:g} s)")
-        _demo_bringup(artifact, params, out / "bringup", args.seconds)
+        clock = "wall clock" if args.wall_clock else "simulated time, lockstep"
+        print(f"\n== 5. simulation bringup over DDS: simulator, reference and controller nodes "
+              f"({args.seconds:g} s, {clock})")
+        _demo_bringup(artifact, params, out / "bringup", args.seconds, lockstep=not args.wall_clock)
     logs = [folder for folder in (out / "reach" / "field_log", out / "bringup" / "field_log") if folder.is_dir()]
     for step, folder in enumerate(logs, start=6):
         print(f"\n== {step}. logs: what the field log of {folder.parent.name} says")
@@ -687,8 +692,14 @@ def _run_demo(args: argparse.Namespace) -> int:
     return 0
 
 
-def _demo_bringup(artifact_path: Path, params: Path, out: Path, seconds: float) -> None:
-    """Start the three nodes as processes, record them over DDS, summarise and plot."""
+def _demo_bringup(artifact_path: Path, params: Path, out: Path, seconds: float, lockstep: bool = True) -> None:
+    """Start the three nodes as processes, listen over DDS, summarise and plot the field log.
+
+    With ``lockstep`` the simulator owns time (``/clock``) and waits for each command before
+    it advances, so the run covers ``seconds`` of simulated time however busy the machine is.
+    The summary, CSV and plots come from the controller's field log (every step); what was
+    heard over DDS (diagnostics, commands, states) is reported beside it.
+    """
     try:
         from linz_ros.nodes.recorder import TopicMap, recording
     except ImportError as err:
@@ -696,6 +707,8 @@ def _demo_bringup(artifact_path: Path, params: Path, out: Path, seconds: float) 
                                      "distribution, or pass --no-ros to skip this step") from None
     from linz_ros.artifact import load_artifact
     from linz_ros.bringup import Bringup, isolated_environment, node_parameters
+    from linz_ros.logs import read_logs
+    from linz_ros.logs.analysis import as_sim_result
     from linz_ros.plotting import plot_run
 
     artifact = load_artifact(artifact_path)
@@ -706,18 +719,35 @@ def _demo_bringup(artifact_path: Path, params: Path, out: Path, seconds: float) 
     env = isolated_environment()
     os.environ.update({k: env[k] for k in ("ROS_DOMAIN_ID", "ROS_AUTOMATIC_DISCOVERY_RANGE",
                                            "FASTDDS_BUILTIN_TRANSPORTS")})
+    field_log = (out / "field_log").resolve()
     print(f"  isolated DDS domain {env['ROS_DOMAIN_ID']}, localhost only; node logs in {out}")
     with recording(artifact, topics) as recorder, Bringup(out, env) as bringup:
         for executable in ("linz_plant_sim", "linz_reference", "linz_controller"):
-            overrides = {"artifact": str(artifact_path.resolve())}
+            overrides: dict[str, object] = {"artifact": str(artifact_path.resolve())}
+            if executable == "linz_plant_sim":
+                overrides.update({"publish_clock": lockstep, "lockstep": lockstep})
+            else:
+                overrides["use_sim_time"] = lockstep
             if executable == "linz_controller":
-                overrides["field_log_folder"] = str((out / "field_log").resolve())
+                overrides["field_log_folder"] = str(field_log)
             bringup.start(executable, params, overrides)
         if not bringup.wait_for_log("linz_controller", "active: commanding", timeout=30):
             raise ConfigError("bringup", "the controller did not become active; see "
                                          f"{bringup.nodes['linz_controller'].log}")
-        recorder.spin_for(seconds)
-    result = recorder.to_result()
+        if lockstep:       # simulated time may run slower than the wall clock: wait for it, within reason
+            wall_limit = 10.0 * seconds + 30.0
+            if not recorder.spin_for(wall_limit, until=lambda: _controller_time(recorder) >= seconds):
+                print(f"  only {_controller_time(recorder):.3g} s of simulated time in {wall_limit:g} s "
+                      "of wall time: the machine is very busy")
+        else:
+            recorder.spin_for(seconds)
+        # the controller first, so that its log ends with the loop, then the simulator's closing summary
+        bringup.stop("linz_controller")
+        bringup.stop("linz_plant_sim")
+        print("  simulator " + _simulator_summary(bringup.nodes["linz_plant_sim"].log_text()))
+    if not field_log.is_dir():
+        raise ConfigError("bringup", f"the controller wrote no field log; see the node logs in {out}")
+    result = as_sim_result(read_logs([field_log]), artifact, "from the controller's field log (every step)")
     if len(result.t) == 0:
         raise ConfigError("bringup", f"no control steps were recorded; see the node logs in {out}")
     files = [result.write_csv(out / "run.csv")] + plot_run(result, out)
@@ -728,8 +758,20 @@ def _demo_bringup(artifact_path: Path, params: Path, out: Path, seconds: float) 
     (out / "summary.json").write_text(json.dumps(summary, indent=2) + "\n")
     levels = sorted({("OK", "WARN", "ERROR", "STALE")[level] for _, level, _, _ in recorder.recording.diagnostics})
     print(_sim_text(summary).replace("sim ", "bringup ", 1))
-    print(f"  diagnostics seen: {', '.join(levels) or 'none'}; {len(recorder.recording.commands)} commands, "
-          f"{len(recorder.recording.states)} states received")
+    print(f"  heard over DDS: diagnostics {', '.join(levels) or 'none'}; {len(recorder.recording.commands)} "
+          f"commands, {len(recorder.recording.states)} states, {len(recorder.recording.conditioning)} step records")
+
+
+def _controller_time(recorder: Any) -> float:
+    """The time (``t``) of the last per-step record the recorder has heard, 0 before any."""
+    records = recorder.recording.conditioning
+    return records[-1][1][0] if records else 0.0
+
+
+def _simulator_summary(log_text: str) -> str:
+    """The simulator's closing summary line from its log, or a note that there is none."""
+    lines = [line for line in log_text.splitlines() if "]: run: " in line]
+    return lines[-1].split("]: ", 1)[-1] if lines else "wrote no run summary"
 
 
 def _parse_sub(argv: list[str]) -> argparse.Namespace:

@@ -138,3 +138,44 @@ def test_control_gaps_are_intervals_of_more_than_five_periods_between_steps():
     assert gaps["longest_s"] == pytest.approx(6 * PERIOD)
     assert summarise(_log(t=t))["control_gaps"]["count"] == 1
     assert control_gaps(_log())["count"] == 0
+
+
+def test_a_field_log_as_a_sim_result_gives_back_the_run_that_wrote_it(tmp_path):
+    from linz_ros.logs import read_logs
+    from linz_ros.logs.analysis import as_sim_result
+    from linz_ros.runtime import ControllerCore, SimSettings, WatchdogConfig, parse_reference, simulate
+    from linz_ros.runtime.fieldlog import FieldLogSettings, open_field_log
+    from support import BUNDLED, built_artifact
+
+    artifact = built_artifact(BUNDLED / "pick_arm.yaml")
+    # through the singular set: damped and safe steps, saturation
+    x0 = [float(artifact.document["plant"]["operating_point"][s]) for s in artifact.states]
+    reach = parse_reference("smooth:tool_x=0.12,tool_y=0.16,duration=1", artifact.relative_degree,
+                            ControllerCore(artifact).output_values(x0), artifact.outputs)
+    settings = SimSettings(duration=2.0, reference=reach, initial=x0)
+    writer = open_field_log(FieldLogSettings(tmp_path), artifact, WatchdogConfig.from_artifact(artifact))
+    run = simulate(artifact, settings, field_log=writer)
+    assert writer.close().state == "closed"
+    back = as_sim_result(read_logs([tmp_path]), artifact)
+    assert len(back.t) == len(run.t) and back.mode == run.mode and back.reason == run.reason
+    assert {"damped", "safe"} <= set(back.mode) and back.saturated.any()
+    np.testing.assert_allclose(back.t, run.t - run.t[0], atol=1e-12)
+    for name in ("x_measured", "u", "sigma_min", "condition", "saturated"):
+        np.testing.assert_array_equal(getattr(back, name), getattr(run, name), err_msg=name)
+    # the per-step record carries no outputs for a step that sent the safe command
+    safe = np.array(back.mode) == "safe"
+    assert np.isnan(back.y[safe]).all() and not np.isnan(back.y[~safe]).any()
+    np.testing.assert_array_equal(back.y[~safe], run.y[~safe])
+    np.testing.assert_array_equal(back.reference_values()[~safe], run.reference_values()[~safe])
+    ours, theirs = back.summary(), run.summary()
+    for key in ("steps", "min_sigma", "max_condition", "time_in_mode", "saturated_fraction", "reasons"):
+        assert ours[key] == theirs[key], key
+
+
+def test_a_field_log_of_another_plant_is_refused_by_name(tmp_path):
+    from linz_ros.logs import LogError
+    from linz_ros.logs.analysis import as_sim_result
+    from support import BUNDLED, built_artifact
+
+    with pytest.raises(LogError, match=r"hand.mcap: its y fields \['a'\] are not those of the artifact pick_arm"):
+        as_sim_result(_log(), built_artifact(BUNDLED / "pick_arm.yaml"))

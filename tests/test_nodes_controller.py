@@ -131,3 +131,46 @@ def test_a_topic_reference_is_carried_forward_along_its_derivatives_until_the_ne
     assert at_interval[0] == pytest.approx(0.1 + 0.2 * 0.02 + 0.5 * 0.02 ** 2 if extrapolate else 0.1, abs=1e-15)
     held = source.sample([0.4, 1.2, 0.0, 0.0], now=10.6)        # past the timeout: held, not extrapolated
     assert source.stale and held == node.core.hold_reference([0.4, 1.2, 0.0, 0.0])
+
+
+def test_bunched_reference_messages_do_not_cut_the_extrapolation_short(make):
+    from linz_ros.nodes.controller import _ReferenceSource
+
+    node = make()
+    node.trigger_configure()
+    source = _ReferenceSource(node.core, "topic", 0.5, ["tool_x", "tool_y"], True)
+    ramp = [0.0, 1.0, 0.0, 0.0, 0.0, 0.0]                    # tool_x at 1 m/s
+    for k in range(6):                                      # 100 Hz
+        assert source.accept(ramp, now=1.0 + 0.01 * k)
+    assert source.accept(ramp, now=1.0601)                  # one came late and the next at once
+    # carried 10 ms (the typical interval), not the 0.1 ms since the one before
+    assert source.sample([0.4, 1.2, 0.0, 0.0], now=1.08)[0] == pytest.approx(0.01, abs=1e-12)
+
+
+def test_in_simulated_time_a_slow_simulator_is_not_stale_until_the_no_state_timeout(make):
+    node = make(use_sim_time="true", reference="hold")
+    clock = node.get_clock()
+    clock.set_ros_time_override(Time(seconds=1.0, clock_type=clock.clock_type))
+    node.trigger_configure()
+    node.trigger_activate()
+    assert node.no_state_timeout() == pytest.approx(0.5)      # the larger of stale_after (0.2) and 0.5 s
+    records = []
+    node._conditioning_pub.publish = lambda message: records.append(REASONS[int(message.data[4])])
+    node._on_state(_state(1.0))
+    steady = {"now": node._steady_now()}
+    node._steady_now = lambda: steady["now"]
+    steady["now"] += 0.3               # simulated time stands still: 0.3 s of wall time, no state
+    node._check_stale()
+    node._check_stale()
+    assert records == ["ok"]
+    steady["now"] += 0.3               # 0.6 s: the simulator is gone, confirmed on the second check
+    node._check_stale()
+    node._check_stale()
+    assert records == ["ok", "stale"]
+
+
+def test_the_no_state_timeout_is_stale_after_on_the_wall_clock_unless_set(make):
+    node = make(reference="hold")
+    node.trigger_configure()
+    assert node.no_state_timeout() == pytest.approx(0.2)
+    assert make(reference="hold", no_state_timeout=2.0).no_state_timeout() == 2.0

@@ -185,3 +185,48 @@ def test_a_sensor_delay_publishes_each_state_late_with_its_own_stamp(make):
     for sent_at, message in published:                   # the stamp is when it was measured
         assert sent_at - stamp_seconds(message) == pytest.approx(0.01, abs=1e-9)
     assert len(sim.delayed_states) == 5
+
+
+def test_lockstep_holds_simulated_time_until_the_command_comes_back(make):
+    sim = make(lockstep=True)
+    states, clocks = [], []
+    sim.state_pub.publish = states.append
+    sim.clock_pub.publish = clocks.append
+    sim._tick()
+    for _ in range(5):                                   # no command: time stands still, nothing is sent
+        sim._tick()
+    assert sim.ticks == 1 and len(states) == 1 and len(clocks) == 1 and sim.owed_tick
+    sim._on_command(_command([14.0, -0.09]))             # the answer runs the tick that was owed at once
+    assert sim.ticks == 2 and len(states) == 2 and sim.applied == 1 and not sim.owed_tick
+    assert _clock_seconds(clocks[-1]) == pytest.approx(2 * sim.period)
+    sim._tick()                                           # waiting again for the answer to state 2
+    assert sim.ticks == 2
+
+
+def test_lockstep_advances_without_a_command_after_its_timeout(make):
+    import time
+
+    sim = make(lockstep=True, lockstep_timeout=0.01)
+    sim.state_pub.publish = lambda message: None
+    sim._tick()
+    sim._tick()
+    assert sim.ticks == 1
+    time.sleep(0.02)
+    sim._tick()
+    assert sim.ticks == 2 and sim.lockstep_timeouts == 1
+    assert "lockstep timeouts 1" in sim.summary()
+
+
+def test_lockstep_needs_simulated_time(make):
+    with pytest.raises(ConfigError, match="lockstep: needs publish_clock: true"):
+        make(lockstep=True, publish_clock=False)
+
+
+def test_the_summary_counts_states_sent_and_dropped(make):
+    sim = make(drop_probability=0.5, seed=3)
+    sim.state_pub.publish = lambda message: None
+    for _ in range(200):
+        sim._tick()
+    assert sim.states_sent + sim.states_dropped == 200 and 60 < sim.states_dropped < 140
+    assert sim.summary().startswith("run: 0.400 s simulated, ") and \
+        f"states sent {sim.states_sent}, dropped {sim.states_dropped}," in sim.summary()

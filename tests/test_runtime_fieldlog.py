@@ -96,6 +96,17 @@ def test_rotation_by_time(tmp_path):
     assert len(status.files) >= 2 and sum(len(read_logs([f])) for f in status.files) == 40
 
 
+def test_a_quiet_writer_leaves_no_file_without_records(tmp_path):
+    writer = _writer(tmp_path, max_seconds=0.02, flush_period=0.01)
+    for k in range(5):
+        writer.put(_row(k))
+    time.sleep(0.2)                             # ten rotation periods with nothing to write
+    writer.put(_row(5))
+    status = writer.close()
+    assert len(status.files) == 2
+    assert [len(read_logs([f])) for f in status.files] == [5, 1]
+
+
 def test_after_a_crash_the_log_reads_back_up_to_the_last_flush(tmp_path):
     writer = _writer(tmp_path, flush_period=0.05)
     for k in range(500):

@@ -16,10 +16,11 @@ from typing import Any
 import numpy as np
 
 from linz_ros.artifact import Artifact
-from linz_ros.logs.reader import StepLog, metadata_json
-from linz_ros.runtime import MODES, REASONS
+from linz_ros.logs.reader import LogError, StepLog, metadata_json
+from linz_ros.runtime import MODES, REASONS, SimResult
 
-__all__ = ["Episode", "Thresholds", "control_gaps", "episodes", "gap_ends", "summarise", "thresholds_of"]
+__all__ = ["Episode", "Thresholds", "as_sim_result", "control_gaps", "episodes", "gap_ends", "summarise",
+           "thresholds_of"]
 
 _REFUSED = ("wrong_length", "non_finite_state", "bad_reference", "bad_time", "out_of_order", "stale",
             "future_stamp", "model_not_finite", "non_finite_command", "no_state", "bad_message")
@@ -252,6 +253,46 @@ def saturated_inputs(log: StepLog) -> np.ndarray:
     inputs = log.names("u")
     return np.stack([(mask >> i) & 1 == 1 for i in range(len(inputs))], axis=1) if inputs else \
         np.zeros((len(mask), 0), dtype=bool)
+
+
+def as_sim_result(log: StepLog, artifact: Artifact, note: str = "from the controller's field log") -> SimResult:
+    """A field log as a :class:`~linz_ros.runtime.SimResult`, for the run summary, CSV and plots.
+
+    One row per record, time from the first record. The reference carries y_ref only (the
+    log does not record its derivatives, which are left at zero); the state is the one
+    the step used (nan where the step refused it).
+
+    Parameters
+    ----------
+    log : StepLog
+        A field log of ``artifact``'s controller (with the ``x.*`` fields).
+    artifact : Artifact
+    note : str
+        Kept in the result's notes.
+
+    Returns
+    -------
+    SimResult
+
+    Raises
+    ------
+    LogError
+        When the log's outputs, inputs or states are not the artifact's.
+    """
+    for prefix, names in (("y", artifact.outputs), ("u", artifact.inputs), ("x", artifact.states)):
+        if log.names(prefix) != list(names):
+            raise LogError(", ".join(log.files) or "log", f"its {prefix} fields {log.names(prefix)} are not "
+                                                         f"those of the artifact {artifact.name} ({list(names)})")
+    t = log.column("t")
+    ref = np.zeros((len(t), sum(r + 1 for r in artifact.relative_degree)))
+    offsets = np.cumsum([0] + [r + 1 for r in artifact.relative_degree[:-1]])
+    ref[:, offsets] = log.block("ref")
+    x = log.block("x")
+    return SimResult(artifact=artifact, reference=None, t=t - t[0] if len(t) else t, x=x, x_measured=x, ref=ref,
+                     y=log.block("y"), u=log.block("u"), sigma_min=log.column("sigma_min"),
+                     condition=log.column("condition"), mode=[MODES[int(v)] for v in log.column("mode")],
+                     reason=[REASONS[int(v)] for v in log.column("reason")], saturated=saturated_inputs(log),
+                     compute_time=log.column("compute_time_us") * 1e-6, notes=[note])
 
 
 def summarise(log: StepLog, artifact: Artifact | None = None) -> dict[str, Any]:

@@ -16,6 +16,8 @@ from __future__ import annotations
 
 import gc
 import math
+import statistics
+from collections import deque
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Sequence
@@ -44,6 +46,9 @@ DYNAMIC = ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "h
 _UNSET = -1.0
 #: In simulated time a state may be stamped ahead of the last /clock this node has handled.
 SIM_TIME_FUTURE_TOLERANCE = 0.5
+#: In simulated time, wall seconds without a state before the safe command, at the least: a slow
+#: simulator holds simulated time still, and its next state is not late in it.
+SIM_TIME_NO_STATE_TIMEOUT = 0.5
 
 
 @dataclass
@@ -138,7 +143,8 @@ class _ReferenceSource:
         self.outputs = outputs
         self.latest: list[float] | None = None
         self.latest_at = -math.inf
-        self.interval = 0.0            # between the last two reference messages
+        self.interval = 0.0            # typical time between reference messages (median of the last few)
+        self._intervals: deque[float] = deque(maxlen=9)
         self.generator = None
         self.origin: float | None = 0.0
         self.latched: list[float] | None = None
@@ -158,7 +164,11 @@ class _ReferenceSource:
         values = list(values)
         if len(values) != self.core.reference_size or not all(math.isfinite(v) for v in values):
             return False
-        self.interval = now - self.latest_at if math.isfinite(self.latest_at) else 0.0
+        if math.isfinite(self.latest_at):
+            # the median, not the last gap: messages that arrive bunched (a late one, then the next
+            # at once) would otherwise stop the extrapolation after almost no time
+            self._intervals.append(now - self.latest_at)
+            self.interval = statistics.median(self._intervals)
         self.latest, self.latest_at = values, now
         return True
 
@@ -172,8 +182,8 @@ class _ReferenceSource:
         if self.latest is not None and now - self.latest_at <= self.timeout:
             self.stale = False
             self.latched = None
-            # carried forward at most one message interval: a reference that stalls mid-move stops
-            # moving after one interval (and is held at the outputs after the timeout)
+            # carried forward at most one typical message interval: a reference that stalls mid-move
+            # stops moving after one interval (and is held at the outputs after the timeout)
             ahead = min(now - self.latest_at, self.interval)
             if self.extrapolate and ahead > 0.0:
                 return extrapolate_reference(self.latest, self.core.orders, ahead)
@@ -267,6 +277,11 @@ class ControllerNode(LifecycleNode):
         p["future_tolerance"] = declare(self, "future_tolerance", _UNSET, "accept stamps this far ahead of now "
                                         "(s); -1: stale_after, or 0.5 s in simulated time, where /clock and the "
                                         "states travel apart", read_only=True, minimum=-1.0)
+        p["no_state_timeout"] = declare(self, "no_state_timeout", _UNSET, "wall-clock seconds without an "
+                                        "accepted state before the safe command, whatever time says (a dead "
+                                        "simulator stops /clock too); -1: stale_after, or the larger of stale_after "
+                                        "and 0.5 s in simulated time, where a slow simulator holds time still",
+                                        read_only=True, minimum=-1.0)
         p["field_log_folder"] = declare(self, "field_log_folder", "", "write every step's record to MCAP field "
                                         "logs in this folder ('': no field log)", read_only=True)
         p["field_log_max_mb"] = declare(self, "field_log_max_mb", 256.0, "start a new log file at this size (MB; "
@@ -593,13 +608,30 @@ class ControllerNode(LifecycleNode):
         # a command computed from a state carries its stamp (traceable); a refusal is stamped now
         self._publish(u, record, stamp if accepted else now, ref if accepted else None, x)
 
+    def no_state_timeout(self) -> float:
+        """Wall-clock seconds without an accepted state before the stale timer sends the safe command.
+
+        Returns
+        -------
+        float
+            ``no_state_timeout`` when set; otherwise ``stale_after``, and in simulated time
+            at least :data:`SIM_TIME_NO_STATE_TIMEOUT` (staleness proper is judged on the
+            stamps against simulated time, which stands still while the simulator is slow).
+        """
+        if self.params["no_state_timeout"] != _UNSET:
+            return float(self.params["no_state_timeout"])
+        stale_after = self.core.config.stale_after if self.core is not None else 0.0
+        if self.get_parameter("use_sim_time").value:
+            return max(stale_after, SIM_TIME_NO_STATE_TIMEOUT)
+        return stale_after
+
     def _check_stale(self) -> None:
         if not self.active or self.core is None:
             return
         now = self._now()
         steady_gap = (self._steady_now() - self._last_state_steady) if self._last_state_steady is not None else 0.0
         stale_by_stamp = now != 0.0 and self.core.is_stale(now)     # now == 0: simulated time not started
-        stale = self.core.last_t is not None and (stale_by_stamp or steady_gap > self.core.config.stale_after)
+        stale = self.core.last_t is not None and (stale_by_stamp or steady_gap > self.no_state_timeout())
         if not stale:
             self._stale_suspect = False
             return

@@ -4,7 +4,10 @@ Each tick (``rate`` Hz) advances the plant by one period with fixed-step RK4 sub
 under the last command received (zero-order hold, optionally delayed), then publishes
 the state. With ``publish_clock`` it owns simulated time: it advances exactly one
 period per tick, publishes ``/clock`` and stamps states with it (run the controller with
-``use_sim_time``); ``real_time_factor`` sets how fast ticks come. Faults for testing the
+``use_sim_time``); ``real_time_factor`` sets how fast ticks come at most. With ``lockstep``
+as well, simulated time waits for the controller: after publishing a state the simulator
+does not advance until a command has come back (or ``lockstep_timeout`` wall seconds have
+passed), so a run gives the same result on a loaded machine as on an idle one. Faults for testing the
 controller are injected by parameters: sensor noise, dropped messages, a frozen sensor,
 a burst of NaN, parameter mismatch, input delay, sensor delay (a state goes out
 ``state_delay`` after its stamp), a jump of the clock (a simulation reset:
@@ -16,6 +19,7 @@ from __future__ import annotations
 
 import gc
 import math
+import time
 from collections import deque
 from typing import Any, Sequence
 
@@ -90,6 +94,13 @@ class PlantSimulatorNode(Node):
         self.applied = 0
         self.rejected = 0
         self.publish_failures = 0
+        self.states_sent = 0
+        self.states_dropped = 0          # by the drop_probability fault
+        self.late_ticks = 0              # ticks more than 1.5 periods (wall clock) after the previous one
+        self.last_steady: float | None = None
+        self.awaiting: tuple[int, float] | None = None    # lockstep: (commands then, steady time sent)
+        self.owed_tick = False           # lockstep: a tick came while waiting; run it when the command does
+        self.lockstep_timeouts = 0
         qos = control_qos()
         self.state_pub = self.create_publisher(self.state_map.cls, p["state_topic"], qos)
         self.create_subscription(self.command_map.cls, p["command_topic"], self._on_command, qos)
@@ -133,6 +144,10 @@ class PlantSimulatorNode(Node):
         p["publish_clock"] = declare(self, "publish_clock", False, "own simulated time and publish /clock", True)
         p["real_time_factor"] = declare(self, "real_time_factor", 1.0, "simulated seconds per wall second "
                                         "(with publish_clock)", True, 0.01, 100.0)
+        p["lockstep"] = declare(self, "lockstep", False, "with publish_clock: after each published state wait "
+                                "for a command before advancing simulated time", True)
+        p["lockstep_timeout"] = declare(self, "lockstep_timeout", 1.0, "wall seconds to wait for a command in "
+                                        "lockstep before advancing without one", True, 0.001, 60.0)
         p["seed"] = declare(self, "seed", 1, "random seed of the faults", True)
         p["brake_until_command"] = declare(self, "brake_until_command", True, "hold the plant still until the "
                                            "first command arrives (a brake released by the controller)", True)
@@ -155,6 +170,9 @@ class PlantSimulatorNode(Node):
                                                "simulated time to zero or before")
         if p["seed"] < 0:
             raise ConfigError("seed", f"expected a whole number >= 0, got {p['seed']}")
+        if p["lockstep"] and not p["publish_clock"]:
+            raise ConfigError("lockstep", "needs publish_clock: true (only simulated time can wait for the "
+                                          "controller)")
         if not p["publish_clock"]:
             p["real_time_factor"] = 1.0
         return p
@@ -177,6 +195,25 @@ class PlantSimulatorNode(Node):
             return
         self.commands += 1
         self.pending.append((self._now() + self.p["delay"], u))
+        if self.owed_tick:
+            self.owed_tick = False
+            self._tick()
+
+    def _waiting_for_command(self) -> bool:
+        """Lockstep: True while the state last sent is unanswered and the timeout has not run out."""
+        if self.awaiting is None:
+            return False
+        commands, since = self.awaiting
+        if self.commands > commands:
+            self.awaiting = None
+            return False
+        if time.monotonic() - since < self.p["lockstep_timeout"]:
+            return True
+        self.awaiting = None
+        self.lockstep_timeouts += 1
+        self.get_logger().warning(f"lockstep: no command for {self.p['lockstep_timeout']:g} s; advancing without "
+                                  f"one ({self.lockstep_timeouts} so far)", throttle_duration_sec=2.0)
+        return False
 
     def _apply_due_commands(self, now: float) -> None:
         while self.pending and self.pending[0][0] <= now:
@@ -210,6 +247,10 @@ class PlantSimulatorNode(Node):
                                      else "(state stamps)"))
 
     def _tick(self) -> None:
+        if self.p["lockstep"] and self._waiting_for_command():
+            self.owed_tick = True
+            return
+        self.owed_tick = False
         now = self._now()
         if self.started is None:
             self.started = now
@@ -218,6 +259,11 @@ class PlantSimulatorNode(Node):
         else:
             dt = self.period if self.last_tick is None else min(max(now - self.last_tick, 0.0), 5 * self.period)
         self.last_tick = now
+        steady = time.monotonic()
+        if self.last_steady is not None and steady - self.last_steady > 1.5 * self.period / self.p["real_time_factor"]:
+            self.late_ticks += 1
+        self.last_steady = steady
+        sent = self.states_sent
         self._apply_due_commands(now)
         parts = self._parts(self._elapsed(now))
         substeps = -(-self.p["substeps"] // parts)          # per part: at least one RK4 step
@@ -254,6 +300,8 @@ class PlantSimulatorNode(Node):
             self._publish_state(stamp - dt * (parts - 1 - k) / parts, x, elapsed)
         self._send_due_states(self._now())
         self.last_stamp = stamp
+        if self.p["lockstep"] and self.states_sent > sent:
+            self.awaiting = (self.commands, time.monotonic())
 
     def _publish_state(self, stamp: float, x: list[float], elapsed: float) -> None:
         p = self.p
@@ -261,6 +309,7 @@ class PlantSimulatorNode(Node):
             self._send(self.state_pub, self.frozen)     # a stuck sensor: same values, same stamp
             return
         if p["drop_probability"] > 0 and self.rng.random() < p["drop_probability"]:
+            self.states_dropped += 1
             return
         measured = list(x)
         if self.noise is not None:
@@ -281,6 +330,18 @@ class PlantSimulatorNode(Node):
         while self.delayed_states and self.delayed_states[0][0] <= now + 1e-9:
             self._send(self.state_pub, self.delayed_states.popleft()[1])
 
+    def summary(self) -> str:
+        """One line of what the run did: time, ticks, states and commands (logged at shut-down)."""
+        simulated = f"{self.ticks * self.period:.3f} s simulated, " if self.clock_pub is not None else ""
+        return (f"run: {simulated}{self.late_ticks} late ticks; states sent {self.states_sent}, dropped {self.states_dropped}, "
+                f"not published {self.publish_failures}; commands received {self.commands}, applied "
+                f"{self.applied}, rejected {self.rejected}"
+                + (f"; lockstep timeouts {self.lockstep_timeouts}" if self.p["lockstep"] else ""))
+
+    def shutdown_safely(self) -> None:
+        """Log :meth:`summary` (called by ``spin_node`` before the node is destroyed)."""
+        self.get_logger().info(self.summary())
+
     def _send(self, publisher: Any, message: Any) -> None:
         """Publish; a message DDS refuses is lost, as a sensor's would be, not the end of the node.
 
@@ -290,6 +351,8 @@ class PlantSimulatorNode(Node):
         """
         try:
             publisher.publish(message)
+            if publisher is self.state_pub:
+                self.states_sent += 1
         except RCLError as err:
             self.publish_failures += 1
             self.get_logger().warning(f"message not published ({self.publish_failures} so far): "

@@ -322,7 +322,8 @@ class FieldLogWriter:
                             break
                 now = time.monotonic()
                 if now - last_flush >= period:
-                    self._writer.flush()
+                    if self._writer is not None:
+                        self._writer.flush()
                     last_flush = now
                     self._rotate_if_due(now)
                 if self._stop.is_set() and self._queue.empty():
@@ -337,21 +338,21 @@ class FieldLogWriter:
         if len(values) != len(self.labels):
             raise ValueError(f"record of {len(values)} values for {len(self.labels)} labels")
         data = encode_labelled_array(self._label, values)
+        if self._writer is None:                 # the last file was finished by a rotation
+            self._open_next()
         self._writer.add_message(channel_id=self._channel, log_time=log_time_ns, publish_time=log_time_ns,
                                  sequence=sequence, data=data)
         self.status.written += 1
         self._file_written += 1
         if self.settings.max_bytes and self._stream.tell() >= self.settings.max_bytes:
-            self._writer.flush()
-            self._next_file()
+            self._finish_file()
 
     def _rotate_if_due(self, now: float) -> None:
-        if self.settings.max_seconds and now - self._opened_at >= self.settings.max_seconds:
-            self._next_file()
-
-    def _next_file(self) -> None:
-        self._finish_file()
-        self._open_next()
+        # a rotation finishes the file; the next one opens with the next record, so a quiet
+        # node never leaves files without records (the first file is opened at start-up)
+        if self.settings.max_seconds and self._writer is not None and self._file_written \
+                and now - self._opened_at >= self.settings.max_seconds:
+            self._finish_file()
 
     def _open_next(self) -> None:
         folder = Path(self.settings.folder).expanduser()

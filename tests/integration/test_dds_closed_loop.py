@@ -21,24 +21,24 @@ BRINGUPS = {
     "pick_arm": ("smooth:tool_x=-0.05,tool_y=0.04,duration=1.0,at=6.0", [-0.05, 0.04], 4000, 3e-3),
     "mast_camera": ("smooth:pan_angle=0.3,tilt_angle=-0.2,duration=1.0,at=6.0", [0.3, -0.2], 2000, 1e-2),
     "survey_boat": ("smooth:point_north=0.5,point_east=0.2,duration=2.0,at=3.0", [0.5, 0.2], 360, 3e-2),
-    # mechanical plants: a six-joint arm from its DH table (computed torque) and a vessel in vectorial form
+    # mechanical plants: a six-joint arm from its DH table (computed torque) and a vessel in vectorial form,
+    # both in lockstep with built-in references: measured 3e-4 and 1e-3
     "loader_arm": ("smooth:y_q1=0.3,y_q2=-0.2,y_q3=0.2,y_q4=-0.3,y_q5=0.2,y_q6=0.4,duration=1.0,at=6.0",
-                   [0.3, -0.2, 0.2, -0.3, 0.2, 0.4], 5000, 1e-2),
+                   [0.3, -0.2, 0.2, -0.3, 0.2, 0.4], 5000, 2e-3),
     "survey_boat_thrusters": ("smooth:y_north=0.5,y_east=-0.3,y_heading=0.3,duration=4.0,at=3.0",
-                              [0.5, -0.3, 0.3], 450, 3e-2),
+                              [0.5, -0.3, 0.3], 450, 5e-3),
 }
 # how the reference reaches the controller: the reference node's topic, or the built-in generator
-# (which starts at activation)
-SOURCES = {("pick_arm", False): "topic", ("pick_arm", True): "built-in", ("mast_camera", False): "topic",
-           ("survey_boat", False): "built-in", ("loader_arm", True): "topic",
-           ("survey_boat_thrusters", False): "built-in"}
-# simulated seconds per wall second, where the simulator owns time. The six-joint arm's model costs
-# about 0.6 ms an evaluation in Python, so its simulator needs most of a core at 500 Hz: on two cores
-# shared with the controller, the reference node and the test run it falls behind wall time, and the
-# loop would be judged on the machine's load; in simulated time at half speed it keeps its pace.
-# The arm's simulated-time run goes at half speed too: the controller's command must arrive before
-# the next tick, and on a loaded machine it did not always at full speed.
-REAL_TIME_FACTOR = {"loader_arm": 0.5, "pick_arm": 0.5}
+# (which starts at activation). A topic reference is timed by its arrival (the message carries no
+# stamp): when the reference node runs late the controller follows it late, by the lag times the
+# reference's speed, which for the six-joint arm's fast move exceeds its tolerance; its reference is
+# built in.
+SOURCES = {("pick_arm", False): "topic", ("pick_arm", True): "built-in", ("mast_camera", True): "topic",
+           ("survey_boat", False): "built-in", ("loader_arm", True): "built-in",
+           ("survey_boat_thrusters", True): "built-in"}
+# In simulated time the simulator runs in lockstep: simulated time waits for each command, so the
+# loop closes every period however loaded the shared cores are, and the tracking is the design's.
+# The wall-time runs show the loop keeping up in real time; their gaps are judged on their own.
 
 
 def _topics(plant: str) -> TopicMap:
@@ -62,9 +62,9 @@ def built(tmp_path_factory):
     return out
 
 
-@pytest.mark.parametrize("plant, sim_time", [("pick_arm", False), ("pick_arm", True), ("mast_camera", False),
+@pytest.mark.parametrize("plant, sim_time", [("pick_arm", False), ("pick_arm", True), ("mast_camera", True),
                                              ("survey_boat", False), ("loader_arm", True),
-                                             ("survey_boat_thrusters", False)])
+                                             ("survey_boat_thrusters", True)])
 def test_the_simulation_bringup_tracks_its_reference(bringup, built, domain_id, plant, sim_time, tmp_path):
     path, artifact = built[plant]
     spec, amplitudes, steps, tolerance = BRINGUPS[plant]
@@ -73,9 +73,12 @@ def test_the_simulation_bringup_tracks_its_reference(bringup, built, domain_id, 
     # controller its first subscriber, whose arrival starts the move
     probe = Probe(artifact, _topics(plant), states=False)
     try:
-        clock = {"publish_clock": True, "real_time_factor": REAL_TIME_FACTOR.get(plant, 1.0)} if sim_time else {}
+        clock = {"publish_clock": True, "lockstep": True} if sim_time else {}
         source = SOURCES[(plant, sim_time)]
-        controller = {"artifact": str(path), "use_sim_time": sim_time, "stale_after": 0.2,
+        # tracking is what this test is about: on a shared two-core machine a state can be late by more
+        # than the bringup's 25 periods, so the staleness limit is wider here (it is tested on its own);
+        # in lockstep a late state is a slow simulator, which simulated time waits for
+        controller = {"artifact": str(path), "use_sim_time": sim_time, "stale_after": 1.0 if sim_time else 0.2,
                       "field_log_folder": str(tmp_path / "log")}
         if source == "topic":
             bringup.start("linz_reference", params, {"artifact": str(path), "use_sim_time": sim_time,
@@ -83,13 +86,11 @@ def test_the_simulation_bringup_tracks_its_reference(bringup, built, domain_id, 
         else:
             controller["reference"] = spec
         bringup.start("linz_plant_sim", params, {"artifact": str(path), **clock})
-        # tracking is what this test is about: on a shared two-core machine a state can be late by more
-        # than the bringup's 25 periods, so the staleness limit is wider here (it is tested on its own)
         bringup.start("linz_controller", params, controller)
         assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
         assert wait_until(lambda: probe.recording.conditioning, timeout=30, node=probe)
         first = len(probe.recording.conditioning)
-        assert wait_until(lambda: len(probe.recording.conditioning) > first + steps, timeout=60, node=probe), \
+        assert wait_until(lambda: len(probe.recording.conditioning) > first + steps, timeout=120, node=probe), \
             f"only {len(probe.recording.conditioning) - first} control steps recorded"
         result = probe.to_result()
     finally:
@@ -110,6 +111,10 @@ def test_the_simulation_bringup_tracks_its_reference(bringup, built, domain_id, 
     slowest = min(-max(np.real(np.roots(np.r_[1.0, g[::-1]]))) for g in artifact.gains)
     worst, gaps = tracking_outside_gaps(log, after_gap=min(1.0, max(0.25, 5.0 / slowest)))
     print(f"{plant}: worst tracking error {worst:.3g} (tolerance {tolerance:g}), {gaps['count']} control-loop gaps")
+    if sim_time:            # lockstep: a state every period, one simulated period after the one before
+        assert gaps["count"] == 0, gaps
+        stepped = log.column("t")[np.argmax(np.isfinite(log.block("y")).all(axis=1)):]
+        np.testing.assert_allclose(np.diff(stepped), 1.0 / artifact.rate, rtol=1e-6)
     assert worst < tolerance, (worst, gaps)
     y = log.block("y")
     accepted = np.flatnonzero(np.isfinite(y).all(axis=1))
@@ -120,6 +125,7 @@ def test_the_simulation_bringup_tracks_its_reference(bringup, built, domain_id, 
 def _check_diagnostics(probe, log, artifact, controller) -> None:
     """/diagnostics at the parameter file's period, with key values that agree with the steps."""
     diagnostics = probe.recording.diagnostics
+    # on the steady clock, whatever clock the loop runs on: diagnostics go on while simulated time waits
     received = np.array([r for r, _, _, _ in diagnostics])
     assert len(received) >= 3, len(received)
     period = float(controller["diagnostics_period"])
