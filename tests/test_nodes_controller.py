@@ -174,3 +174,16 @@ def test_the_no_state_timeout_is_stale_after_on_the_wall_clock_unless_set(make):
     node.trigger_configure()
     assert node.no_state_timeout() == pytest.approx(0.2)
     assert make(reference="hold", no_state_timeout=2.0).no_state_timeout() == 2.0
+
+
+def test_without_simulated_time_the_loop_reads_the_system_clock_the_node_clock_gives(make):
+    node = make(reference="hold")
+    assert not node._system_time
+    node.trigger_configure()
+    assert node._system_time
+    assert abs(node._now() - node.get_clock().now().nanoseconds * 1e-9) < 0.01
+    node.trigger_cleanup()
+    assert not node._system_time
+    sim = make(use_sim_time="true", reference="hold")
+    sim.trigger_configure()
+    assert not sim._system_time and sim._now() == 0.0          # simulated time before the first /clock

@@ -17,6 +17,7 @@ from __future__ import annotations
 import gc
 import math
 import statistics
+import time
 from collections import deque
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -209,6 +210,7 @@ class ControllerNode(LifecycleNode):
         super().__init__(node_name, **kwargs)
         self.get_logger().warning(SAFETY_NOTICE)
         self._declare_parameters()
+        self._system_time = False          # True once configured without simulated time (see _configure)
         self.core: ControllerCore | None = None
         self.active = False
         self.configure_error = ""
@@ -399,6 +401,9 @@ class ControllerNode(LifecycleNode):
         self.reference = _ReferenceSource(core, p["reference"].strip(), p["reference_timeout"], artifact.outputs,
                                           p["reference_extrapolate"])
         self.core = core
+        # without simulated time the node's clock is the system clock: read it directly in the
+        # loop (rclpy's Clock.now costs about ten microseconds); use_sim_time is fixed from here on
+        self._system_time = not self.get_parameter("use_sim_time").value
         qos = control_qos()
         self._command_pub = self.create_lifecycle_publisher(self.command_map.cls, p["command_topic"], qos)
         self._conditioning_pub = self.create_lifecycle_publisher(Float64MultiArray, p["conditioning_topic"], qos)
@@ -508,9 +513,12 @@ class ControllerNode(LifecycleNode):
         self._owned_subscriptions, self._owned_timers = [], []
         self._command_pub = self._conditioning_pub = None
         self.core = None
+        self._system_time = False
 
     # -- the loop -------------------------------------------------------------------------
     def _now(self) -> float:
+        if self._system_time:
+            return time.time()
         return self.get_clock().now().nanoseconds * 1e-9
 
     def _steady_now(self) -> float:
