@@ -130,7 +130,9 @@ def _measure(rate: float, seconds: float, slice_seconds: float, executor: str, a
                                 env=env, stdout=log, stderr=log, start_new_session=True)
         bringup.start("linz_controller", ROOT / "config" / "pick_arm.yaml",
                       {"artifact": str(artifact), "reference": "hold", "executor": executor, "stale_after": 0.5})
-        bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
+        if not bringup.wait_for_log("linz_controller", "active: commanding", timeout=30):
+            echo.terminate()
+            raise SystemExit(f"the controller did not become active; see {bringup.log_dir}")
         try:
             results = _driver(rate, seconds, slice_seconds, context)
         finally:

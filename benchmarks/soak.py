@@ -161,7 +161,8 @@ def main() -> None:
         node = bringup.start("linz_controller", ROOT / "config" / "pick_arm.yaml",
                              {"artifact": str(artifact), "reference": "hold", "stale_after": 0.5,
                               "field_log_folder": str(field_log)})
-        bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
+        if not bringup.wait_for_log("linz_controller", "active: commanding", timeout=30):
+            raise SystemExit(f"the controller did not become active; see {bringup.log_dir}")
         controller = drive(args.rate, args.seconds, context, node.process.pid)
     context.try_shutdown()
 

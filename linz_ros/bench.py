@@ -166,11 +166,18 @@ def _naive_step(design: Design, artifact: Artifact) -> Callable:
     return step
 
 
-def _c_library(design: Design, workdir: Path) -> Callable | None:
-    """The law's expressions as one C function, compiled and loaded with ctypes."""
+class _NoCompiledReference(Exception):
+    """The compiled-C reference could not be made (the message says why)."""
+
+
+def _c_library(design: Design, workdir: Path) -> Callable:
+    """The law's expressions as one C function, compiled and loaded with ctypes.
+
+    Raises ``_NoCompiledReference`` with the reason when there is no compiler or it fails.
+    """
     compiler = shutil.which("cc") or shutil.which("gcc")
     if compiler is None:
-        return None
+        raise _NoCompiledReference("no C compiler found (cc or gcc)")
     x, p, exprs = _law_expressions(design)
     slots = {s: sp.Symbol(f"x[{i}]") for i, s in enumerate(x)}
     slots.update({s: sp.Symbol(f"p[{i}]") for i, s in enumerate(p)})
@@ -185,8 +192,11 @@ def _c_library(design: Design, workdir: Path) -> Callable | None:
     try:
         subprocess.run([compiler, "-O2", "-shared", "-fPIC", "-o", str(library), str(c_file), "-lm"],
                        check=True, capture_output=True, timeout=120)
-    except (subprocess.SubprocessError, OSError):
-        return None
+    except subprocess.CalledProcessError as err:
+        first = (err.stderr or b"").decode(errors="replace").strip().splitlines()
+        raise _NoCompiledReference(f"{compiler} failed on the printed law ({first[0] if first else err})") from None
+    except (subprocess.SubprocessError, OSError) as err:
+        raise _NoCompiledReference(f"{compiler} could not be run ({err})") from None
     handle = ctypes.CDLL(str(library))
     handle.law.restype = None
     handle.law.argtypes = [ctypes.POINTER(ctypes.c_double)] * 3
@@ -297,13 +307,14 @@ def run_bench(artifact: Artifact, design: Design | None, calls: int = 2000, roun
             candidates["lambdify_numpy"] = lambda k: plain_numpy(np_states[k & 63], np_params)
             cse_math = sp.lambdify([x, p], exprs, modules="math", cse=True)
             candidates["lambdify_cse_math"] = lambda k: cse_math(states[k & 63], params)
-            c_law = _c_library(design, Path(folder))
-            if c_law is None:
-                notes.append("no C compiler found (cc or gcc): compiled_c not measured")
-            else:
+            try:
+                c_law = _c_library(design, Path(folder))
                 candidates["compiled_c"] = lambda k: c_law(states[k & 63])
+            except _NoCompiledReference as why:
+                notes.append(f"{why}: compiled_c not measured")
         else:
-            notes.append("plant file not available: only the artifact's own candidates were timed")
+            notes.append("plant file not available, or changed since the build: only the artifact's own "
+                         "candidates were timed")
         for function in candidates.values():       # warm up
             _time_per_call(function, min(calls, 200, _calls_for(function, calls, 0.5)))
         per_round = {name: _calls_for(function, calls) for name, function in candidates.items()}

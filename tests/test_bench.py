@@ -114,3 +114,16 @@ def test_run_bench_with_a_design_times_every_reference(arm):
     assert ratios["naive_over_core"] == pytest.approx(result.microseconds["naive"] / result.microseconds["core"])
     text = result.render_text()
     assert "naive_over_core" in text and "goal >= 4" in text
+
+
+@pytest.mark.parametrize("compiler, words", [(None, "no C compiler found (cc or gcc)"),
+                                             ("/bin/false", "/bin/false failed on the printed law")])
+def test_a_missing_or_failing_compiler_is_named_in_the_notes(arm, monkeypatch, compiler, words):
+    import linz_ros.bench as bench
+
+    artifact, design = arm
+    monkeypatch.setattr(bench.shutil, "which", lambda name: compiler)
+    result = run_bench(artifact, design, calls=20, rounds=1)
+    assert "compiled_c" not in result.microseconds
+    assert any(note.startswith(words) and note.endswith("compiled_c not measured") for note in result.notes), \
+        result.notes

@@ -118,6 +118,7 @@ def test_build_writes_a_verified_artifact_and_reports_the_design(capsys, tmp_pat
     (["--lqr-q", "1,1"], "design.lqr.q: expected 4 weights"),
     (["--linearize", "state"], "inputs: input-state synthesis covers single-input plants"),
     (["--rate", "0"], "expected a positive number"),
+    (["--lqr-q", "1,1,1,1", "--poles", "tool_x=-1,-2"], "--poles: give either poles or LQR weights"),
 ])
 def test_build_refuses_bad_designs_with_one_line(capsys, tmp_path, argv, words):
     try:
@@ -188,6 +189,10 @@ def test_sim_shows_the_design_warnings_and_keeps_them_in_its_summary(capsys, tmp
     (["--duration", "-2"], "expected a positive number"),
     (["--seed", "-1"], "expected a whole number >= 0"),
     (["--poles", "pan_angle=nan,-1"], "design.poles.pan_angle: poles must be finite numbers"),
+    (["--mismatch", "all=-100"], "--mismatch: all=-100: a change of -100 % or less"),
+    (["--delay", "1e308"], "--delay: 1e+308 s is longer than the run (5 s)"),
+    (["--duration", "1e9"], "--duration: 1e+09 s at 250 Hz is more than 10,000,000 control steps"),
+    (["--reference", "smooth:amplitude=0.1,duration=1e308"], "reference duration: expected at most 1e+06 s"),
 ])
 def test_sim_refuses_bad_options_with_one_line(capsys, tmp_path, argv, words):
     try:
@@ -195,6 +200,16 @@ def test_sim_refuses_bad_options_with_one_line(capsys, tmp_path, argv, words):
     except SystemExit as exit_:
         code, err = exit_.code, capsys.readouterr().err
     assert code == 2 and words in err and err.count("\n") == 1
+
+
+def test_an_initial_state_where_the_outputs_are_not_defined_is_one_line(capsys, write_plant, tmp_path):
+    plant = write_plant(MINIMAL + "outputs: {y: sqrt(x1)}\noperating_point: {x1: 1.0, x2: 0.0}\n"
+                        "envelope: {x1: [0.5, 2.0], x2: [-1.0, 1.0]}\n")
+    for value, words in (("-1", "--initial: the outputs are not defined at this state (ValueError"),
+                         ("1e400", "--initial: x1: expected a finite number")):
+        code, _, err = _run(capsys, "sim", str(plant), "-o", str(tmp_path), "--no-plots", "--initial",
+                            f"x1={value}")
+        assert code == 2 and words in err and err.count("\n") == 1, err
 
 
 def test_sim_of_an_artifact_refuses_design_overrides_and_tampering(capsys, tmp_path):

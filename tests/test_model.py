@@ -123,6 +123,8 @@ BAD = [
      "design.watchdog.sigma_act", "0.2 is above sigma_warn 0.1"),
     ("negative stale time", MINIMAL + "design: {watchdog: {stale_after: -1}}\n", "design.watchdog.stale_after",
      "must be positive"),
+    ("stale time past an hour", MINIMAL + "design: {watchdog: {hold_time: 1e12}}\n", "design.watchdog.hold_time",
+     "expected at most 3600 s, got 1e+12"),
     ("rate limit of a non-input", MINIMAL + "design: {watchdog: {rate_limits: {w: 1}}}\n",
      "design.watchdog.rate_limits.w", "'w' is not an input"),
     ("zero rate limit", MINIMAL + "design: {watchdog: {rate_limits: {u: 0}}}\n",

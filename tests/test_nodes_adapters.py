@@ -49,9 +49,18 @@ def test_odometry_yaw_comes_from_the_quaternion():
     assert mapping.read(mapping.write([-2.9])) == pytest.approx([-2.9])      # through +-pi
 
 
-def test_an_empty_field_list_means_data_in_order():
+def test_an_empty_field_list_means_data_in_order_and_nothing_more():
     mapping = FieldMap("std_msgs/msg/Float64MultiArray", [], 3, "f")
-    assert mapping.read(Float64MultiArray(data=[1.0, 2.0, 3.0, 4.0])) == [1.0, 2.0, 3.0]
+    assert mapping.read(Float64MultiArray(data=[1.0, 2.0, 3.0])) == [1.0, 2.0, 3.0]
+    # a longer array is another layout: refused rather than read in part
+    with pytest.raises(MessageError, match="data has 4 entries, exactly 3 needed") as info:
+        mapping.read(Float64MultiArray(data=[1.0, 2.0, 3.0, 4.0]))
+    assert info.value.reason == "wrong_length"
+
+
+def test_named_entries_are_read_from_a_longer_array():
+    mapping = FieldMap("std_msgs/msg/Float64MultiArray", ["data.0", "-data.3"], 2, "f")
+    assert mapping.read(Float64MultiArray(data=[1.0, 2.0, 3.0, 4.0, 5.0])) == [1.0, -4.0]
 
 
 @pytest.mark.parametrize("message, reason", [

@@ -1,4 +1,7 @@
-"""The controller node in-process (no DDS): a backward jump of simulated time."""
+"""The controller node in-process (no DDS): clocks and stamps, staleness, references, parameter checks."""
+
+import math
+import time
 
 import pytest
 
@@ -76,12 +79,13 @@ def test_in_wall_time_a_stamp_going_back_is_refused_and_the_history_kept(make):
     node.trigger_configure()
     node.trigger_activate()
     records = []
-    node._conditioning_pub.publish = records.append
+    node._conditioning_pub.publish = lambda message: records.append(
+        (REASONS[int(message.data[4])], MODES[int(message.data[3])]))
     now = node.get_clock().now().nanoseconds * 1e-9
     node._on_state(_state(now))
     node._on_state(_state(now - 1.0))                     # a stamp going back is refused, no reset
     assert node.core.last_t == pytest.approx(now)
-    assert len(records) == 2
+    assert records == [("ok", "nominal"), ("out_of_order", "safe")]
 
 
 def test_a_refused_publish_is_counted_and_never_fatal():
@@ -187,3 +191,80 @@ def test_without_simulated_time_the_loop_reads_the_system_clock_the_node_clock_g
     sim = make(use_sim_time="true", reference="hold")
     sim.trigger_configure()
     assert not sim._system_time and sim._now() == 0.0          # simulated time before the first /clock
+
+
+def test_a_zero_header_stamp_is_taken_as_now_and_counted(make):
+    node = make(reference="hold")
+    node.trigger_configure()
+    node.trigger_activate()
+    records = []
+    node._conditioning_pub.publish = lambda message: records.append(REASONS[int(message.data[4])])
+    message = JointState(name=["shoulder", "elbow"], position=[0.4, 1.2], velocity=[0.0, 0.0])   # stamp 0
+    node._on_state(message)
+    assert records == ["ok"] and node.core.last_t == pytest.approx(time.time(), abs=1.0)
+    values = {kv.key: kv.value for kv in node.window.values(node._now())}
+    assert values["unstamped_count"] == "1"
+
+
+def test_a_watchdog_change_that_cannot_hold_is_refused_and_changes_nothing(make):
+    from rclpy.parameter import Parameter
+
+    node = make(reference="hold")
+    result = node.set_parameters([Parameter("sigma_warn", value=-0.5)])[0]      # unconfigured: checked too
+    assert not result.successful and "sigma_warn must be -1" in result.reason
+    node.trigger_configure()
+    node.trigger_activate()
+    timers, config = list(node._owned_timers), node.core.config
+    for value in (1e12, 3601.0):                  # a stale_after past an hour: refused, the node goes on
+        result = node.set_parameters([Parameter("stale_after", value=value)])[0]
+        assert not result.successful
+    assert node.core.config is config and node._owned_timers == timers
+    result = node.set_parameters([Parameter("stale_after", value=0.5)])[0]
+    assert result.successful and node.core.config.stale_after == 0.5 and node._owned_timers != timers
+    assert node._owned_timers[0].timer_period_ns == 125_000_000
+
+
+def test_whole_number_parameters_keep_their_range():
+    from linz_ros.errors import ConfigError
+    from linz_ros.nodes._common import declare
+    from rclpy.node import Node
+
+    context = rclpy.Context()
+    rclpy.init(args=["--ros-args", "-p", "depth:=-5"], context=context)
+    node = Node("ranged", context=context)
+    try:
+        with pytest.raises(ConfigError, match="depth"):
+            declare(node, "depth", 20000, "queue depth", True, minimum=1)
+    finally:
+        node.destroy_node()
+        context.try_shutdown()
+
+
+def test_an_unknown_executor_is_one_line_and_exit_code_2(capsys):
+    from linz_ros.nodes._common import declare, spin_node
+    from rclpy.node import Node
+
+    class Minimal(Node):
+        def __init__(self):
+            super().__init__("minimal_executor_check")
+            declare(self, "executor", "single_threaded", "executor", True)
+
+    assert spin_node(Minimal, ["--ros-args", "-p", "executor:=bogus"]) == 2
+    assert capsys.readouterr().err.strip().endswith(
+        "executor: expected one of single_threaded, events, got 'bogus'")
+
+
+def test_a_bad_first_state_does_not_fix_the_built_in_reference_to_nan(make):
+    node = make(reference="smooth:tool_x=0.05,duration=1")
+    node.trigger_configure()
+    node.trigger_activate()
+    records = []
+    node._conditioning_pub.publish = lambda message: records.append(REASONS[int(message.data[4])])
+    now = time.time()
+    bad = JointState(name=["shoulder", "elbow"], position=[math.nan, math.nan], velocity=[0.0, 0.0])
+    bad.header.stamp.sec, bad.header.stamp.nanosec = split_seconds(now)
+    node._on_state(bad)                                # a sensor starting up
+    for k in range(1, 4):
+        node._on_state(_state(now + 0.002 * k))
+    assert records == ["non_finite_state", "ok", "ok", "ok"]
+    assert node.reference.generator.base == pytest.approx(node.core.output_values([0.4, 1.2, 0.0, 0.0]))

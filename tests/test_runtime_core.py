@@ -205,6 +205,9 @@ def test_watchdog_settings_are_checked(arm):
         WatchdogConfig.from_artifact(arm, max_dt=0.0)
     with pytest.raises(ConfigError, match="input_limits: input 1"):
         WatchdogConfig.from_artifact(arm, input_limits=((-1.0, 1.0), (2.0, 1.0)))
+    for key in ("stale_after", "hold_time", "future_tolerance"):      # timers of such periods overflow
+        with pytest.raises(ConfigError, match=f"{key}: expected at most 3600 s, got 1e[+]12"):
+            WatchdogConfig.from_artifact(arm, **{key: 1e12})
 
 
 def test_a_stamp_from_the_future_is_refused_and_does_not_block_later_states(arm):

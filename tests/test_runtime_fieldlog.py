@@ -243,3 +243,42 @@ def test_a_damaged_chunk_is_skipped_and_named_and_the_rest_reads(tmp_path):
     assert 800 < len(log) < 2000                     # a chunk lost, or the rest after a broken length
     assert any("damaged chunk" in p or "read up to the damage" in p for p in log.problems), log.problems
     assert all("\n" not in p for p in log.problems)
+
+
+_WITHOUT_MCAP = """
+import sys
+from pathlib import Path
+
+class _Blocked:                                  # as on a ROS 2 distribution: no mcap package
+    def find_spec(self, name, path=None, target=None):
+        if name.split(".")[0] in ("mcap", "mcap_ros2"):
+            raise ImportError(f"No module named {name!r}")
+
+sys.meta_path.insert(0, _Blocked())
+from linz_ros.errors import ConfigError
+from linz_ros.runtime.fieldlog import FieldLogSettings, FieldLogWriter
+try:
+    import linz_ros.nodes.controller, linz_ros.nodes.simulator, linz_ros.nodes.reference
+    print("nodes import")
+except ImportError as err:
+    print("nodes need", err.name)
+try:
+    FieldLogWriter(FieldLogSettings(Path(sys.argv[1])), ["t"], {})
+except ConfigError as err:
+    print("refused:", err)
+"""
+
+
+def test_without_the_mcap_package_the_nodes_run_and_a_field_log_is_refused_by_name(tmp_path):
+    import subprocess
+    import sys
+
+    pytest.importorskip("rclpy", reason="rclpy is not installed (pip install '.[ros]')")
+    done = subprocess.run([sys.executable, "-c", _WITHOUT_MCAP, str(tmp_path / "log")], capture_output=True,
+                          text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    lines = done.stdout.splitlines()
+    assert lines[0] == "nodes import"
+    assert lines[1].startswith("refused: field_log_folder: a field log needs the Python package mcap ") and \
+        "pip install mcap mcap-ros2-support" in lines[1], lines
+    assert not (tmp_path / "log").exists() or not any((tmp_path / "log").iterdir())

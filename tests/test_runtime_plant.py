@@ -32,6 +32,9 @@ def test_mismatch_changes_only_the_named_parameters_and_all_changes_every_one():
     assert mismatched_parameters(artifact, {"all": -50.0}) == pytest.approx([1.0])
     with pytest.raises(ConfigError, match="--mismatch: 'm' is not a parameter of demo \\(k\\)"):
         mismatched_parameters(artifact, {"m": 5.0})
+    for change in (-100.0, -150.0):                    # zeroed or flipped: another machine
+        with pytest.raises(ConfigError, match="a change of -100 % or less zeroes the parameter"):
+            mismatched_parameters(artifact, {"k": change})
 
 
 def test_parse_assignments_errors_are_one_line():

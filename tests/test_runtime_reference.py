@@ -1,5 +1,7 @@
 """Reference generators: values and derivatives (checked by finite differences), parsing."""
 
+import math
+
 import numpy as np
 import pytest
 
@@ -72,3 +74,18 @@ def test_extrapolation_is_exact_for_polynomials_of_the_chain_degree_and_converge
     assert 6.0 < errors[0] / errors[1] < 10.0
     held = abs(ref.sample(0.3)[0] - ref.sample(0.31)[0])
     assert errors[1] < 1e-3 * held            # far closer than holding the sample
+
+
+@pytest.mark.parametrize("spec, words", [
+    ("smooth:amplitude=0.1,duration=1e308", "reference duration: expected at most 1e[+]06 s"),
+    ("sine:amplitude=0.1,period=2e6", "reference period: expected at most"),
+    ("step:amplitude=0.1,at=-2e6", "reference at: expected at most"),
+])
+def test_times_past_the_longest_are_one_line(spec, words):
+    with pytest.raises(ConfigError, match=words):
+        parse_reference(spec, [2], [0.0], ["y"])
+
+
+def test_a_base_that_is_not_finite_is_refused():
+    with pytest.raises(ConfigError, match="reference base: expected a finite number, got nan"):
+        make_reference("smooth", [2], [math.nan], 1.0, duration=1.0)

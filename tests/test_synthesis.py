@@ -3,7 +3,6 @@ the coordinate change of input-state designs, and every refusal with its one lin
 
 import math
 
-import control
 import numpy as np
 import pytest
 import scipy.signal
@@ -21,9 +20,22 @@ from linz_ros.synthesis import (DesignOptions, chain_matrices, closed_form_inver
 from linz_ros.analysis import plant_context
 
 
+def _python_control():
+    """python-control (PyPI: control), the outside reference for the gains; a test extra."""
+    return pytest.importorskip("control", reason="python-control is not installed (pip install '.[test]')")
+
+
+def test_python_control_is_installed_with_the_test_dependencies():
+    # the gain checks below skip without it; with the test extra they must run
+    import importlib.util
+
+    assert importlib.util.find_spec("control") is not None, "pip install '.[test]'"
+
+
 # -- gains on Brunovsky chains ----------------------------------------------------------------
 @pytest.mark.parametrize("poles", [[-2.0, -3.0], [-1.0, -4.0, -6.0], [-3 + 2j, -3 - 2j, -5.0], [-0.8, -1.0, -1.3, -2.0]])
 def test_pole_placement_gains_match_python_control_and_scipy(poles):
+    control = _python_control()
     A, B = chain_matrices(len(poles))
     ours = gains_from_poles(poles)
     np.testing.assert_allclose(ours, np.ravel(control.place(A, B, poles)), rtol=1e-9)   # python-control place
@@ -47,6 +59,7 @@ def test_complex_poles_need_their_conjugate():
 
 
 def test_lqr_gains_match_python_control_on_stacked_chains():
+    control = _python_control()
     orders, q, r = [2, 3], [4.0, 1.0, 9.0, 2.0, 0.5], [0.5, 2.0]
     gains, P = gains_from_lqr(orders, q, r)
     blocks = [chain_matrices(k) for k in orders]
@@ -60,6 +73,7 @@ def test_lqr_gains_match_python_control_on_stacked_chains():
 
 
 def test_sampled_loop_matches_python_control_zero_order_hold():
+    control = _python_control()
     K = gains_from_poles([-6.0, -7.0])
     A, B = chain_matrices(2)
     T = 1 / 50

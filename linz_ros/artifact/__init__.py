@@ -14,8 +14,8 @@ compile_program   grammar text -> fast Python function (math or numpy backend)
 """
 
 from linz_ros.artifact.compiler import Program, compile_program
-from linz_ros.artifact.document import (FORMAT, FORMAT_VERSION, Artifact, artifact_from_text, content_hash,
-                                        load_artifact, read_document, seal)
+from linz_ros.artifact.document import (FORMAT, FORMAT_VERSION, MAX_WATCHDOG_SECONDS, Artifact, artifact_from_text,
+                                        content_hash, load_artifact, read_document, seal)
 
 __all__ = ["load_artifact", "artifact_from_text", "Artifact", "read_document", "seal", "content_hash", "compile_program",
-           "Program", "FORMAT", "FORMAT_VERSION"]
+           "Program", "FORMAT", "FORMAT_VERSION", "MAX_WATCHDOG_SECONDS"]

@@ -51,6 +51,9 @@ __all__ = ["FORMAT", "FORMAT_VERSION", "seal", "canonical_text", "content_hash",
 FORMAT = "linz_ros controller artifact"
 FORMAT_VERSION = 1
 REQUIRED_PROGRAMS = ("law", "dynamics")
+#: Longest time a watchdog setting (``stale_after``, ``hold_time``, ``future_tolerance``) may take,
+#: in seconds: an hour is past any control loop, and timers of longer periods overflow.
+MAX_WATCHDOG_SECONDS = 3600.0
 _MAX_BYTES = 64_000_000
 _SECTIONS = ("plant", "design", "analysis", "watchdog", "programs", "verification")
 

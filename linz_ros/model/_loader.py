@@ -11,6 +11,7 @@ from typing import Any, Mapping
 import sympy as sp
 import yaml
 
+from linz_ros.artifact.document import MAX_WATCHDOG_SECONDS
 from linz_ros.artifact.grammar import RESERVED_NAMES, FUNCTIONS, names_in, parse_expression
 from linz_ros.errors import ExpressionSyntaxError, PlantFileError
 from linz_ros.model._mechanics import MECHANICAL_FORMS, check_mass_matrix, read_mechanics, velocity_names
@@ -430,6 +431,8 @@ def _read_watchdog(reader: _Reader, section: Any, inputs: list[str]) -> dict[str
             value = reader.number(f"design.watchdog.{key}", section[key])
             if value < 0 or (value == 0 and key not in ("sigma_stop",)):
                 raise reader.fail(f"design.watchdog.{key}", f"must be positive, got {value:g}")
+            if key in ("stale_after", "hold_time") and value > MAX_WATCHDOG_SECONDS:
+                raise reader.fail(f"design.watchdog.{key}", f"expected at most {MAX_WATCHDOG_SECONDS:g} s, got {value:g}")
             result[key] = value
     levels = [(k, result[k]) for k in ("sigma_warn", "sigma_act", "sigma_stop") if k in result]
     for (high_key, high), (low_key, low) in zip(levels, levels[1:]):

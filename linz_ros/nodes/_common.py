@@ -9,7 +9,7 @@ from typing import Any, Callable, Sequence
 
 import rclpy
 from rclpy.signals import SignalHandlerOptions
-from rcl_interfaces.msg import FloatingPointRange, ParameterDescriptor, ParameterType
+from rcl_interfaces.msg import FloatingPointRange, IntegerRange, ParameterDescriptor, ParameterType
 from rclpy.executors import ExternalShutdownException, SingleThreadedExecutor
 from rclpy.exceptions import (InvalidParameterTypeException, InvalidParameterValueException, NameValidationException,
                               ParameterException)
@@ -51,7 +51,7 @@ def declare(node: Node, name: str, default: Any, description: str, read_only: bo
     read_only : bool
         May not change after start-up (topics, the artifact).
     minimum, maximum : float, optional
-        Range of a double parameter.
+        Range of a double or integer parameter.
     array_of : type, optional
         Element type of an array parameter (float or str).
 
@@ -70,7 +70,11 @@ def declare(node: Node, name: str, default: Any, description: str, read_only: bo
             value = {float: Parameter.Type.DOUBLE_ARRAY, str: Parameter.Type.STRING_ARRAY}[array_of]
     else:
         descriptor.type = _TYPES[type(default)]
-    if minimum is not None or maximum is not None:
+    if (minimum is not None or maximum is not None) and type(default) is int:
+        descriptor.integer_range = [IntegerRange(
+            from_value=int(minimum) if minimum is not None else -2**63,
+            to_value=int(maximum) if maximum is not None else 2**63 - 1, step=1)]
+    elif minimum is not None or maximum is not None:
         descriptor.floating_point_range = [FloatingPointRange(
             from_value=float(minimum if minimum is not None else -1e308),
             to_value=float(maximum if maximum is not None else 1e308), step=0.0)]
@@ -145,6 +149,9 @@ def spin_node(make_node: Callable[[], Node], args: Sequence[str] | None, executo
             return 2
         choice = executor_name or (node.get_parameter("executor").value if node.has_parameter("executor")
                                    else "single_threaded")
+        if choice not in EXECUTORS:
+            print(f"{_program()}: executor: expected one of {', '.join(EXECUTORS)}, got {choice!r}", file=sys.stderr)
+            return 2
         if choice == "events":
             from rclpy.experimental import EventsExecutor
 

@@ -196,7 +196,8 @@ class FieldMap:
         A ROS message type name (see the module docstring).
     fields : sequence of str
         One field path per entry of the vector, in the vector's order; empty for
-        ``data.0, data.1, ...`` of a Float64MultiArray.
+        ``data.0, data.1, ...`` of a Float64MultiArray, whose messages must then hold
+        exactly ``size`` entries (with fields named, longer arrays are read in part).
     size : int
         Length of the vector.
     option : str
@@ -213,6 +214,7 @@ class FieldMap:
         self.cls = _CLASSES[type_name]
         if size < 1:
             raise ConfigError(option, f"expected at least one entry, got {size}")
+        self.exact = not fields              # the default layout: the array is the vector, no more
         if not fields:
             if type_name != "std_msgs/msg/Float64MultiArray":
                 raise ConfigError(option, f"{type_name} needs one field per entry ({size} expected)")
@@ -271,11 +273,13 @@ class FieldMap:
             indices = [int(f.path.split(".")[1]) for f in self.fields]
             signs = [f.sign for f in self.fields]
             need = max(indices) + 1
+            exact = self.exact
 
             def read_array(message) -> list[float]:
                 data = message.data
-                if len(data) < need:
-                    raise MessageError("wrong_length", f"data has {len(data)} entries, {need} needed")
+                if len(data) < need or (exact and len(data) != need):
+                    raise MessageError("wrong_length", f"data has {len(data)} entries, "
+                                                       f"{'exactly ' if exact else ''}{need} needed")
                 return [s * data[i] for i, s in zip(indices, signs)]
 
             return read_array

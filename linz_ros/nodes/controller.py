@@ -30,7 +30,7 @@ from rclpy.clock import Clock, ClockType
 from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackReturn
 from std_msgs.msg import Float64MultiArray
 
-from linz_ros.artifact import load_artifact
+from linz_ros.artifact import MAX_WATCHDOG_SECONDS, load_artifact
 from linz_ros.errors import LinzError
 from linz_ros.nodes._common import EXECUTORS, SAFETY_NOTICE, control_qos, declare, spin_node
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, labelled_array,
@@ -69,6 +69,7 @@ class DiagnosticWindow:
     reference_stale: int = 0
     reference_missing: int = 0
     publish_failures: int = 0
+    unstamped: int = 0                 # states whose header stamp was zero (judged by arrival)
     compute: list[float] = field(default_factory=list)
 
     def add(self, record) -> None:
@@ -126,7 +127,7 @@ class DiagnosticWindow:
                  ("stale_count", self.stale), ("rejected_count", self.rejected),
                  ("reference_stale_count", self.reference_stale),
                  ("reference_missing_count", self.reference_missing),
-                 ("publish_failures", self.publish_failures),
+                 ("publish_failures", self.publish_failures), ("unstamped_count", self.unstamped),
                  ("loop_rate_hz", self.steps / span), ("compute_time_p99_us", p99)]
         pairs += [(f"mode_{m}", c) for m, c in self.modes.items()]
         return [KeyValue(key=k, value=f"{v:.6g}" if isinstance(v, float) else str(v)) for k, v in pairs]
@@ -161,6 +162,14 @@ class _ReferenceSource:
         self.origin = now if now > 0.0 else None
         self.latched = None
 
+    def _outputs_at(self, x: Sequence[float]) -> list[float] | None:
+        """The outputs at ``x``, or None where they are not finite (a bad or out-of-domain state)."""
+        try:
+            values = self.core.output_values([float(v) for v in x])
+        except (ArithmeticError, ValueError, TypeError):
+            return None
+        return values if all(math.isfinite(v) for v in values) else None
+
     def accept(self, values: Sequence[float], now: float) -> bool:
         values = list(values)
         if len(values) != self.core.reference_size or not all(math.isfinite(v) for v in values):
@@ -176,7 +185,10 @@ class _ReferenceSource:
     def sample(self, x: Sequence[float], now: float) -> list[float]:
         if self.spec != "topic":
             if self.generator is None:
-                self.generator = parse_reference(self.spec, self.core.orders, self.core.output_values(x), self.outputs)
+                base = self._outputs_at(x)
+                if base is None:        # the core refuses this state; the move starts from the next good one
+                    return [math.nan] * self.core.reference_size
+                self.generator = parse_reference(self.spec, self.core.orders, base, self.outputs)
             if self.origin is None and now > 0.0:
                 self.origin = now
             return self.generator.sample(now - (self.origin if self.origin is not None else now))
@@ -273,17 +285,19 @@ class ControllerNode(LifecycleNode):
                            ("stale_after", "refuse states older than this (s)"),
                            ("hold_time", "how long 'hold' repeats the last command (s)"),
                            ("integral_limit", "bound on each integrator")):
-            p[name] = declare(self, name, _UNSET, f"{text}; -1: the artifact's value", minimum=-1.0)
+            p[name] = declare(self, name, _UNSET, f"{text}; -1: the artifact's value", minimum=-1.0,
+                              maximum=MAX_WATCHDOG_SECONDS if name in ("stale_after", "hold_time") else None)
         p["rate_limits"] = declare(self, "rate_limits", [], "per input, units per second (0: none); "
                                    "empty: the artifact's", array_of=float)
         p["future_tolerance"] = declare(self, "future_tolerance", _UNSET, "accept stamps this far ahead of now "
                                         "(s); -1: stale_after, or 0.5 s in simulated time, where /clock and the "
-                                        "states travel apart", read_only=True, minimum=-1.0)
+                                        "states travel apart", read_only=True, minimum=-1.0,
+                                        maximum=MAX_WATCHDOG_SECONDS)
         p["no_state_timeout"] = declare(self, "no_state_timeout", _UNSET, "wall-clock seconds without an "
                                         "accepted state before the safe command, whatever time says (a dead "
                                         "simulator stops /clock too); -1: stale_after, or the larger of stale_after "
                                         "and 0.5 s in simulated time, where a slow simulator holds time still",
-                                        read_only=True, minimum=-1.0)
+                                        read_only=True, minimum=-1.0, maximum=MAX_WATCHDOG_SECONDS)
         p["field_log_folder"] = declare(self, "field_log_folder", "", "write every step's record to MCAP field "
                                         "logs in this folder ('': no field log)", read_only=True)
         p["field_log_max_mb"] = declare(self, "field_log_max_mb", 256.0, "start a new log file at this size (MB; "
@@ -338,6 +352,11 @@ class ControllerNode(LifecycleNode):
         if limits is not None and any(v < 0 for v in limits):
             return SetParametersResult(successful=False, reason="rate_limits must be >= 0 (0: no limit)")
         values = dict(self.params, **changed)
+        negative = [k for k in DYNAMIC if k != "rate_limits" and k in changed and changed[k] != _UNSET
+                    and not changed[k] >= 0]
+        if negative:
+            return SetParametersResult(successful=False, reason=f"{negative[0]} must be -1 (the artifact's value) "
+                                                                f"or >= 0, got {changed[negative[0]]:g}")
         levels = [(k, values[k]) for k in ("sigma_warn", "sigma_act", "sigma_stop") if values[k] != _UNSET]
         for (high_key, high), (low_key, low) in zip(levels, levels[1:]):
             if low > high:
@@ -348,15 +367,18 @@ class ControllerNode(LifecycleNode):
             return SetParametersResult(successful=True)
         try:
             config = WatchdogConfig.from_artifact(self.core.artifact, **self._watchdog_overrides(values))
-        except LinzError as err:
-            return SetParametersResult(successful=False, reason=str(err))
+            # the staleness check at the new period, made before anything changes
+            rearmed = [self._stale_timer(config.stale_after)] \
+                if config.stale_after != self.core.config.stale_after and self._owned_timers else None
+        except (LinzError, ValueError, OverflowError) as err:
+            return SetParametersResult(successful=False, reason=str(err).splitlines()[0] if str(err) else
+                                       type(err).__name__)
         self.params.update(changed)
-        stale_changed = config.stale_after != self.core.config.stale_after
         self.core.config = config
-        if stale_changed and self._owned_timers:           # re-arm the staleness check at the new period
+        if rearmed is not None:
             for timer in self._owned_timers:
                 self.destroy_timer(timer)
-            self._owned_timers = [self._stale_timer(config.stale_after)]
+            self._owned_timers = rearmed
         self.get_logger().info(f"watchdog settings changed: {', '.join(sorted(changed))}")
         return SetParametersResult(successful=True)
 
@@ -412,6 +434,7 @@ class ControllerNode(LifecycleNode):
         self._no_ref = [math.nan] * len(core.orders)
         self._conditioning_message = labelled_array([0.0] * len(self._conditioning_labels), self._conditioning_labels)
         self._command_message = self.command_map.cls()
+        self._stamped_type = hasattr(self.state_map.cls, "header")
         self._owned_subscriptions = [self.create_subscription(self.state_map.cls, p["state_topic"], self._on_state, qos)]
         if self.reference.spec == "topic":
             self._owned_subscriptions.append(self.create_subscription(Float64MultiArray, p["reference_topic"],
@@ -584,7 +607,12 @@ class ControllerNode(LifecycleNode):
     def _step(self, message: Any) -> None:
         now = self._now()
         stamp = stamp_seconds(message)
-        stamp = now if stamp is None else stamp
+        if stamp is None:
+            stamp = now
+            if self._stamped_type:         # a header left at zero: staleness by arrival only
+                self.window.unstamped += 1
+                self.get_logger().warning("state message with a zero header stamp: taken as received now; "
+                                          "staleness is then judged by arrival only", throttle_duration_sec=10.0)
         if now == 0.0:
             # simulated time before the first /clock message: the stamp is the only time there is
             now = stamp

@@ -227,16 +227,26 @@ def fit_decay_rate(t: np.ndarray, error: np.ndarray, upper: float = 1e-1, lower:
     return float(-slope)
 
 
+#: Most control steps one offline run may take (every step is kept in memory, about 1 kB).
+MAX_SIM_STEPS = 10_000_000
+
+
 def _check_settings(artifact: Artifact, settings: SimSettings) -> None:
     n = len(artifact.states)
     if not (math.isfinite(settings.duration) and settings.duration > 0):
         raise ConfigError("--duration", f"expected a positive number of seconds, got {settings.duration}")
+    if settings.duration * artifact.rate > MAX_SIM_STEPS:
+        raise ConfigError("--duration", f"{settings.duration:g} s at {artifact.rate:g} Hz is more than "
+                                        f"{MAX_SIM_STEPS:,} control steps; run it in parts")
     if settings.integrator not in INTEGRATORS:
         raise ConfigError("--integrator", f"expected one of {', '.join(INTEGRATORS)}, got {settings.integrator!r}")
     if not (isinstance(settings.substeps, int) and settings.substeps >= 1):
         raise ConfigError("--substeps", f"expected a whole number >= 1, got {settings.substeps}")
     if not (math.isfinite(settings.delay) and settings.delay >= 0):
         raise ConfigError("--delay", f"expected a number of seconds >= 0, got {settings.delay}")
+    if settings.delay > settings.duration:
+        raise ConfigError("--delay", f"{settings.delay:g} s is longer than the run ({settings.duration:g} s): no "
+                                     "command would arrive")
     if settings.initial is not None and len(settings.initial) != n:
         raise ConfigError("--initial", f"expected {n} values")
     if settings.noise is not None and (len(settings.noise) != n or any(not (s >= 0) for s in settings.noise)):
@@ -276,8 +286,7 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
                             else [operating[s] for s in artifact.states])]
     reference = settings.reference
     if reference is None:
-        base = core.output_values(x)
-        reference = make_reference("hold", artifact.relative_degree, base)
+        reference = make_reference("hold", artifact.relative_degree, initial_outputs(core, x))
     if reference.size != core.reference_size:
         raise ConfigError("--reference", f"expected a reference for chains of degrees {artifact.relative_degree}")
     T = 1.0 / artifact.rate
@@ -354,6 +363,33 @@ def _reference_states(artifact: Artifact, ref: np.ndarray) -> np.ndarray:
         solution = transform.inverse(values[:n])
         rows.append(solution.x if solution.converged else [math.nan] * n)
     return np.array(rows)
+
+
+def initial_outputs(core: ControllerCore, x: Sequence[float]) -> list[float]:
+    """The outputs at the initial state, from which references start.
+
+    Parameters
+    ----------
+    core : ControllerCore
+    x : sequence of float
+
+    Returns
+    -------
+    list of float
+
+    Raises
+    ------
+    ConfigError
+        When the outputs are not defined or not finite there (``--initial``).
+    """
+    try:
+        values = core.output_values([float(v) for v in x])
+    except (ArithmeticError, ValueError) as err:
+        raise ConfigError("--initial", f"the outputs are not defined at this state ({type(err).__name__}: "
+                                       f"{err})") from None
+    if not all(math.isfinite(v) for v in values):
+        raise ConfigError("--initial", f"the outputs are not finite at this state ({values})")
+    return values
 
 
 def _outputs_of(core: ControllerCore, x: Sequence[float]) -> list[float]:

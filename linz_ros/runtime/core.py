@@ -27,7 +27,7 @@ import time
 from dataclasses import dataclass, fields, replace
 from typing import Any, Callable, Sequence
 
-from linz_ros.artifact.document import Artifact
+from linz_ros.artifact.document import MAX_WATCHDOG_SECONDS, Artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime._linalg import (computed_torque, damped_solve, inverse_mass_singular_values, singular_values,
                                       solve, task_space_terms)
@@ -225,6 +225,10 @@ class WatchdogConfig:
                                            f"{self.sigma_warn:g}, {self.sigma_act:g}, {self.sigma_stop:g}")
         if self.stale_after <= 0:
             raise ConfigError("stale_after", "must be positive")
+        for key in ("stale_after", "hold_time", "future_tolerance"):
+            value = getattr(self, key)
+            if value is not None and value > MAX_WATCHDOG_SECONDS:
+                raise ConfigError(key, f"expected at most {MAX_WATCHDOG_SECONDS:g} s, got {value:g}")
         if len(self.rate_limits) != m or not all(_is_real(r) and r > 0 for r in self.rate_limits):
             raise ConfigError("rate_limits", f"expected {m} positive numbers, one per input (inf for none)")
         for i, pair in enumerate(self.input_limits):

@@ -27,13 +27,14 @@ import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import IO, Any, Callable, Mapping, Sequence
-
-from mcap.writer import CompressionType, Writer
+from typing import IO, TYPE_CHECKING, Any, Callable, Mapping, Sequence
 
 from linz_ros.artifact import Artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime.core import MODES, REASONS, StepRecord
+
+if TYPE_CHECKING:
+    from mcap.writer import Writer
 
 __all__ = ["CONDITIONING_FIELDS", "conditioning_labels", "conditioning_values", "FIELD_LOG_TOPIC", "FIELD_LOG_SCHEMA", "FLOAT64_MULTIARRAY_DEFINITION", "FieldLogSettings",
            "FieldLogStatus", "FieldLogWriter", "encode_labelled_array", "field_log_labels", "metadata_strings",
@@ -205,6 +206,20 @@ class FieldLogStatus:
         return self.files[-1] if self.files else None
 
 
+def _mcap_writer() -> Callable[[IO[bytes]], Writer]:
+    """The MCAP writer (LZ4 chunks of 512 kB), imported only when a field log is opened.
+
+    A ROS 2 distribution has no package for the ``mcap`` library; the nodes run without it
+    and only a field log needs it.
+    """
+    try:
+        from mcap.writer import CompressionType, Writer
+    except ImportError as err:
+        raise ConfigError("field_log_folder", f"a field log needs the Python package mcap ({err}); install it with "
+                                              "pip install mcap mcap-ros2-support, or leave the folder empty") from None
+    return lambda stream: Writer(stream, chunk_size=512 * 1024, compression=CompressionType.LZ4)
+
+
 class FieldLogWriter:
     """Writes field-log records to rotating MCAP files from a thread of its own.
 
@@ -248,6 +263,7 @@ class FieldLogWriter:
         self._stream = None
         self._opened_at = 0.0
         self._file_written = 0
+        self._writer_class = _mcap_writer()
         try:
             self._open_next()
         except OSError as err:
@@ -361,7 +377,7 @@ class FieldLogWriter:
         path = folder / f"{self.settings.prefix}_{started}_{self._file_index:03d}.mcap"
         self._file_index += 1
         stream = self._opener(path)               # "xb": never overwrite an earlier log
-        writer = Writer(stream, chunk_size=512 * 1024, compression=CompressionType.LZ4)
+        writer = self._writer_class(stream)
         writer.start(profile="ros2", library="linz_ros field log")
         schema = writer.register_schema(FIELD_LOG_SCHEMA, "ros2msg", FLOAT64_MULTIARRAY_DEFINITION.encode())
         self._channel = writer.register_channel(FIELD_LOG_TOPIC, "cdr", schema,

@@ -73,13 +73,21 @@ def mismatched_parameters(artifact: Artifact, percent: Mapping[str, float]) -> l
     Raises
     ------
     ConfigError
-        For a name that is not a parameter.
+        For a name that is not a parameter, or a change of -100 % or less (which would
+        zero a parameter or flip its sign: a different machine, not a mismatched one).
     """
     names = artifact.parameter_names
     unknown = [k for k in percent if k not in names and k != "all"]
     if unknown:
         raise ConfigError("--mismatch", f"{unknown[0]!r} is not a parameter of {artifact.name} "
                                         f"({', '.join(names) or 'it has none'})")
+    for name, value in percent.items():
+        if not math.isfinite(value):
+            raise ConfigError("--mismatch", f"{name}: expected a finite percentage, got {value}")
+    too_low = [k for k, v in percent.items() if not v > -100.0]
+    if too_low:
+        raise ConfigError("--mismatch", f"{too_low[0]}={percent[too_low[0]]:g}: a change of -100 % or less zeroes "
+                                        "the parameter or flips its sign; expected more than -100")
     common = percent.get("all", 0.0)
     return [value * (1.0 + percent.get(name, common) / 100.0)
             for name, value in zip(names, artifact.nominal_parameters.tolist())]

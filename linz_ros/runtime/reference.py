@@ -29,6 +29,9 @@ __all__ = ["Reference", "make_reference", "parse_reference", "extrapolate_refere
 KINDS = ("hold", "step", "sine", "smooth")
 #: Shortest period or duration accepted (seconds).
 _SHORTEST = 1e-4
+#: Longest time a reference's start, period or duration may take (seconds; about 11 days):
+#: the smooth move's polynomial takes powers of its duration.
+_LONGEST = 1e6
 _OPTIONS = {"hold": (), "step": ("amplitude", "at"), "sine": ("amplitude", "period", "at"),
             "smooth": ("amplitude", "duration", "at")}
 
@@ -171,9 +174,13 @@ def make_reference(kind: str, orders: Sequence[int], base: Sequence[float],
     amplitude = [float(a) for a in amplitude]
     if len(amplitude) != len(orders) or len(base) != len(orders):
         raise ConfigError("reference", f"expected {len(orders)} amplitude and base values, one per output")
-    for name, value in (("at", at), ("period", period), ("duration", duration), *zip(["amplitude"] * len(amplitude), amplitude)):
+    for name, value in (("at", at), ("period", period), ("duration", duration), *zip(["amplitude"] * len(amplitude), amplitude),
+                        *zip(["base"] * len(base), base)):
         if not math.isfinite(value):
             raise ConfigError(f"reference {name}", f"expected a finite number, got {value}")
+    for name, value in (("at", at), ("period", period), ("duration", duration)):
+        if abs(value) > _LONGEST:
+            raise ConfigError(f"reference {name}", f"expected at most {_LONGEST:g} s, got {value:g}")
     if period <= 0 or duration <= 0:
         raise ConfigError("reference", "period and duration must be positive")
     if period < _SHORTEST or duration < _SHORTEST:

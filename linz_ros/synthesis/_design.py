@@ -321,6 +321,8 @@ def _rate_and_integral(plant: Plant, options: DesignOptions, notes: list[str]) -
 def _outer_loop_gains(plant: Plant, options: DesignOptions, names: list[str], degrees: list[int],
                       integral: bool):
     orders = [d + int(integral) for d in degrees]
+    if options.poles is not None and options.lqr is not None:
+        raise DesignError(options.source, "--poles", "give either poles or LQR weights (--lqr-q, --lqr-r), not both")
     poles = options.poles if options.poles is not None else plant.design.get("poles")
     file_poles = plant.design.get("poles")
     if isinstance(options.poles, dict) and isinstance(file_poles, dict):

@@ -106,7 +106,7 @@ def test_malformed_state_messages_give_the_safe_command_and_a_diagnostic(bringup
             step = probe.steps(last=1)[-1]
             assert step["mode"] == "safe" and step["u"] == [0.0, 0.0], label
             assert step["reason"] == reason, (label, step["reason"])
-            wait_until(lambda: len(probe.recording.commands) > commands_before, timeout=5, node=probe)
+            assert wait_until(lambda: len(probe.recording.commands) > commands_before, timeout=5, node=probe), label
             stamp = probe.recording.commands[-1][1]
             assert abs(stamp - sent_at) < 1.0, (label, stamp - sent_at)   # stamped now, not with the bad stamp
         before = len(probe.recording.conditioning)
