@@ -36,6 +36,7 @@ from linz_ros.nodes._common import EXECUTORS, SAFETY_NOTICE, control_qos, declar
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, labelled_array,
                                      message_class, set_stamp, stamp_seconds)
 from linz_ros.runtime import MODES, ControllerCore, WatchdogConfig, extrapolate_reference, parse_reference
+from linz_ros.runtime.closed_loop import initial_outputs
 from linz_ros.runtime.fieldlog import (CONDITIONING_FIELDS, FieldLogSettings, FieldLogWriter, conditioning_labels,
                                        conditioning_values, open_field_log)
 
@@ -162,14 +163,6 @@ class _ReferenceSource:
         self.origin = now if now > 0.0 else None
         self.latched = None
 
-    def _outputs_at(self, x: Sequence[float]) -> list[float] | None:
-        """The outputs at ``x``, or None where they are not finite (a bad or out-of-domain state)."""
-        try:
-            values = self.core.output_values([float(v) for v in x])
-        except (ArithmeticError, ValueError, TypeError):
-            return None
-        return values if all(math.isfinite(v) for v in values) else None
-
     def accept(self, values: Sequence[float], now: float) -> bool:
         values = list(values)
         if len(values) != self.core.reference_size or not all(math.isfinite(v) for v in values):
@@ -185,8 +178,9 @@ class _ReferenceSource:
     def sample(self, x: Sequence[float], now: float) -> list[float]:
         if self.spec != "topic":
             if self.generator is None:
-                base = self._outputs_at(x)
-                if base is None:        # the core refuses this state; the move starts from the next good one
+                try:
+                    base = initial_outputs(self.core, x)
+                except LinzError:       # the core refuses this state; the move starts from the next good one
                     return [math.nan] * self.core.reference_size
                 self.generator = parse_reference(self.spec, self.core.orders, base, self.outputs)
             if self.origin is None and now > 0.0:
@@ -651,15 +645,13 @@ class ControllerNode(LifecycleNode):
         -------
         float
             ``no_state_timeout`` when set; otherwise ``stale_after``, and in simulated time
-            at least :data:`SIM_TIME_NO_STATE_TIMEOUT` (staleness proper is judged on the
+            (or before configure) at least :data:`SIM_TIME_NO_STATE_TIMEOUT` (staleness proper is judged on the
             stamps against simulated time, which stands still while the simulator is slow).
         """
         if self.params["no_state_timeout"] != _UNSET:
             return float(self.params["no_state_timeout"])
         stale_after = self.core.config.stale_after if self.core is not None else 0.0
-        if self.get_parameter("use_sim_time").value:
-            return max(stale_after, SIM_TIME_NO_STATE_TIMEOUT)
-        return stale_after
+        return stale_after if self._system_time else max(stale_after, SIM_TIME_NO_STATE_TIMEOUT)
 
     def _check_stale(self) -> None:
         if not self.active or self.core is None:

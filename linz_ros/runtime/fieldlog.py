@@ -263,7 +263,7 @@ class FieldLogWriter:
         self._stream = None
         self._opened_at = 0.0
         self._file_written = 0
-        self._writer_class = _mcap_writer()
+        self._new_writer = _mcap_writer()
         try:
             self._open_next()
         except OSError as err:
@@ -377,7 +377,7 @@ class FieldLogWriter:
         path = folder / f"{self.settings.prefix}_{started}_{self._file_index:03d}.mcap"
         self._file_index += 1
         stream = self._opener(path)               # "xb": never overwrite an earlier log
-        writer = self._writer_class(stream)
+        writer = self._new_writer(stream)
         writer.start(profile="ros2", library="linz_ros field log")
         schema = writer.register_schema(FIELD_LOG_SCHEMA, "ros2msg", FLOAT64_MULTIARRAY_DEFINITION.encode())
         self._channel = writer.register_channel(FIELD_LOG_TOPIC, "cdr", schema,
