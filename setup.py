@@ -28,7 +28,10 @@ setup(
             "ros-kilted-sensor-msgs", "ros-kilted-geometry-msgs", "ros-kilted-nav-msgs",
             "ros-kilted-diagnostic-msgs", "ros-kilted-lifecycle-msgs", "ros-kilted-rosgraph-msgs",
         ],
-        "test": ["pytest>=7", "hypothesis>=6", "control>=0.10", "colcon-common-extensions", "pin>=2.7"],
+        "test": ["pytest>=7", "hypothesis>=6", "control>=0.10", "colcon-common-extensions", "pin>=2.7",
+                 "cryptography>=41"],
+        # signed artifacts: linz keygen, linz build --sign-key, trusted keys on the robot
+        "sign": ["cryptography>=41"],
     },
     zip_safe=True,
     maintainer="linz_ros developers",

@@ -41,7 +41,12 @@ from linz_ros.crosscheck import pinocchio_available, pinocchio_reference
 from linz_ros.runtime import ControllerCore
 from linz_ros.synthesis import Design
 
-__all__ = ["BenchResult", "run_bench"]
+__all__ = ["BenchResult", "run_bench", "GOALS"]
+
+#: The goals the ratios are judged against: ratio -> (comparison, bound, label).
+GOALS = {"core_over_compiled_c": ("<=", 10.0, "goal <= 10"),
+         "naive_over_core": (">=", 4.0, "goal >= 4"),
+         "core_over_pinocchio": ("<=", 3.0, "goal <= 3 (serial arms)")}
 
 
 @dataclass
@@ -79,10 +84,27 @@ class BenchResult:
             out["core_over_pinocchio"] = us["core"] / us["pinocchio_computed_torque"]
         return out
 
+    def goals(self) -> dict[str, dict]:
+        """Each ratio that has a goal: its value, the goal, and whether it was met.
+
+        Returns
+        -------
+        dict
+            Ratio name -> ``{"ratio", "goal", "met"}``.
+        """
+        out = {}
+        for name, value in self.ratios().items():
+            if name in GOALS:
+                comparison, bound, label = GOALS[name]
+                met = value <= bound if comparison == "<=" else value >= bound
+                out[name] = {"ratio": value, "goal": label, "met": bool(met)}
+        return out
+
     def to_json(self) -> dict:
         """The ``linz bench --json`` object."""
         return {"plant": self.plant, "calls_per_round": self.calls, "rounds": self.rounds,
-                "microseconds_per_call": self.microseconds, "ratios": self.ratios(), "notes": self.notes}
+                "microseconds_per_call": self.microseconds, "ratios": self.ratios(), "goals": self.goals(),
+                "notes": self.notes}
 
     def render_text(self) -> str:
         """A table of microseconds per call and the ratios."""
@@ -90,10 +112,10 @@ class BenchResult:
         for name, value in sorted(self.microseconds.items(), key=lambda kv: kv[1]):
             lines.append(f"  {name:<20} {value:9.2f} us")
         lines.append("")
-        goals = {"core_over_compiled_c": "goal <= 10", "naive_over_core": "goal >= 4",
-                 "core_over_pinocchio": "goal <= 3 (serial arms)"}
+        goals = self.goals()
         for name, value in self.ratios().items():
-            lines.append(f"  {name:<32} {value:7.2f}  {goals.get(name, '')}")
+            verdict = f"({goals[name]['goal']}: {'met' if goals[name]['met'] else 'MISSED'})" if name in goals else ""
+            lines.append(f"  {name:<32} {value:7.2f}  {verdict}".rstrip())
         lines.extend(f"  note: {note}" for note in self.notes)
         return "\n".join(lines)
 

@@ -6,6 +6,7 @@ check   decide whether and where a plant can be feedback linearized
 build   synthesise the law and write a verified controller artifact
 sim     run the sampled closed loop offline; CSV, plots and a summary
 bench   time the controller step against reference implementations
+keygen  make a key pair for signing artifacts (linz build --sign-key, trusted keys on the robot)
 demo    the whole job on the bundled example (check, build, two simulations)
 
 Exit codes: 0 when the work ran (whatever the verdict), 2 for bad input (one line on
@@ -46,6 +47,25 @@ def _positive_int(text: str) -> int:
     if value < 1:
         raise argparse.ArgumentTypeError(f"expected a number of at least 1, got {value}")
     return value
+
+
+#: Upper bounds of the counting options (more would run for days or exhaust memory).
+MAX_SAMPLES = 1_000_000
+MAX_BENCH_CALLS = 1_000_000
+MAX_BENCH_ROUNDS = 1_000
+
+
+def _count_at_most(maximum: int):
+    """An argparse type for whole numbers from 1 to ``maximum``."""
+
+    def convert(text: str) -> int:
+        value = _positive_int(text)
+        if value > maximum:
+            raise argparse.ArgumentTypeError(f"expected at most {maximum:_}, got {text[:20]}"
+                                             f"{'...' if len(text) > 20 else ''}")
+        return value
+
+    return convert
 
 
 def _nonnegative_int(text: str) -> int:
@@ -106,8 +126,8 @@ def _build_parser() -> argparse.ArgumentParser:
                              description="Decide whether and where a plant can be feedback linearized.")
     check.add_argument("plant", metavar="PLANT", help="plant file (YAML)")
     check.add_argument("--json", action="store_true", help="print one JSON object instead of text")
-    check.add_argument("--samples", type=_positive_int, default=1024,
-                       help="envelope samples for the conditioning sweep (default 1024)")
+    check.add_argument("--samples", type=_count_at_most(MAX_SAMPLES), default=1024,
+                       help=f"envelope samples for the conditioning sweep (default 1024, at most {MAX_SAMPLES:_})")
     check.set_defaults(run=_run_check)
 
     build = verbs.add_parser("build", help="synthesise the controller and write its artifact",
@@ -119,8 +139,16 @@ def _build_parser() -> argparse.ArgumentParser:
     build.add_argument("--tolerance", type=_positive_float, default=None, metavar="TOL",
                        help="largest accepted residual of the generated code against sympy (default 1e-9)")
     build.add_argument("--json", action="store_true", help="print one JSON object instead of text")
+    build.add_argument("--sign-key", metavar="PRIVATE.pem",
+                       help="sign the artifact with this Ed25519 private key (from linz keygen)")
     _add_design_options(build)
     build.set_defaults(run=_run_build)
+
+    keygen = verbs.add_parser("keygen", help="make a key pair for signing artifacts",
+                              description="Write an Ed25519 private key (mode 0600; keep it on the build machine) "
+                                          "and its public key (give it to the robots: trusted_keys) into DIR.")
+    keygen.add_argument("folder", metavar="DIR", help="folder for the two PEM files (existing keys are kept)")
+    keygen.set_defaults(run=_run_keygen)
 
     sim = verbs.add_parser("sim", help="simulate the closed loop offline",
                            description="Run the controller core at its rate against the plant (zero-order "
@@ -141,6 +169,11 @@ def _build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--delay", type=_nonnegative_float, default=0.0, metavar="S", help="input delay, seconds")
     sim.add_argument("--initial", action="append", default=[], metavar="STATE=VALUE",
                      help="initial state (default: the operating point)")
+    sim.add_argument("--force-initial", action="store_true",
+                     help="accept an --initial state outside the plant's envelope")
+    sim.add_argument("--watchdog", action="append", default=[], metavar="SETTING=VALUE",
+                     help="override a watchdog setting for this run (e.g. envelope_action=warn, "
+                          "divergence_time=1; lists as comma-separated values)")
     sim.add_argument("--integrator", choices=("rk4", "scipy"), default="rk4",
                      help="rk4: fixed-step RK4 sub-steps (default); scipy: adaptive RK45")
     sim.add_argument("--substeps", type=_positive_int, default=4, help="RK4 steps per control period (default 4)")
@@ -153,6 +186,8 @@ def _build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--json", action="store_true", help="print the summary as one JSON object")
     sim.add_argument("--field-log", metavar="DIR",
                      help="also write every step's record to a field log in DIR, as the controller node does")
+    sim.add_argument("--trusted-key", action="append", default=[], metavar="FILE",
+                     help="accept the artifact only when signed with this public key (repeatable)")
     _add_design_options(sim)
     sim.set_defaults(run=_run_sim)
 
@@ -160,11 +195,15 @@ def _build_parser() -> argparse.ArgumentParser:
                              description="Time ControllerCore.step and, on the same expressions, a naive "
                                          "numpy pipeline and a compiled-C evaluation; print the ratios.")
     bench.add_argument("source", metavar="PLANT_OR_ARTIFACT", help="a plant file or an artifact (*.json)")
-    bench.add_argument("--calls", type=_positive_int, default=2000, help="calls per round (default 2000)")
-    bench.add_argument("--rounds", type=_positive_int, default=7, help="rounds (default 7)")
+    bench.add_argument("--calls", type=_count_at_most(MAX_BENCH_CALLS), default=2000,
+                       help=f"calls per round (default 2000, at most {MAX_BENCH_CALLS:_})")
+    bench.add_argument("--rounds", type=_count_at_most(MAX_BENCH_ROUNDS), default=7,
+                       help=f"rounds (default 7, at most {MAX_BENCH_ROUNDS:_})")
     bench.add_argument("--allow-plant-change", action="store_true",
                        help="accept an artifact whose plant file changed since the build")
     bench.add_argument("--json", action="store_true", help="print one JSON object instead of text")
+    bench.add_argument("--trusted-key", action="append", default=[], metavar="FILE",
+                       help="accept the artifact only when signed with this public key (repeatable)")
     bench.set_defaults(run=_run_bench)
 
     logs = verbs.add_parser("logs", help="summarise field logs: near-singular and saturated episodes",
@@ -242,8 +281,12 @@ def _poles(items: list[str]) -> dict[str, list[complex]] | list[complex] | None:
                     from None
         if not poles:
             raise DesignError("<command line>", "--poles", f"no poles in {item!r}")
+        name = name.strip()
+        if (name in named) if name else (unnamed is not None):
+            raise DesignError("<command line>", "--poles", f"given twice for {('output ' + name) if name else 'the chain'}"
+                                                           "; give each chain's poles once")
         if name:
-            named[name.strip()] = poles
+            named[name] = poles
         else:
             unnamed = poles
     if unnamed is not None:
@@ -302,12 +345,19 @@ def _check_reference_text(text: str | None, design, source: str) -> None:
 def _run_build(args: argparse.Namespace) -> int:
     from linz_ros.codegen import artifact_path, write_artifact
 
+    key = None
+    if args.sign_key is not None:           # read before the build: a bad key costs no synthesis
+        from linz_ros.artifact.signing import load_private_key, sign_artifact_file
+
+        key = load_private_key(args.sign_key)
     design, document, verification = _design_and_document(args.plant, args, args.tolerance)
     path = write_artifact(document, artifact_path(args.out, design.plant.name))
+    signed_by = sign_artifact_file(path, key) if key is not None else None
     if args.json:
-        print(json.dumps(_build_summary(design, verification, path), indent=2))
+        print(json.dumps(dict(_build_summary(design, verification, path), signed_by=signed_by), indent=2))
     else:
-        print(_build_text(design, verification, path))
+        print(_build_text(design, verification, path)
+              + (f"\n  signed with key {signed_by[:16]} ({args.sign_key})" if signed_by else ""))
     for warning in design.warnings:
         print(f"linz: warning: {warning}", file=sys.stderr)
     return 0
@@ -364,15 +414,18 @@ def _artifact_and_design(source: str, args: argparse.Namespace, need_design: boo
     """An artifact (loaded, or built in memory from a plant file) and its design when at hand."""
     from linz_ros.artifact import artifact_from_text, load_artifact, seal
 
+    trusted_keys = getattr(args, "trusted_key", None) or None
     if _is_artifact(source):
         if _has_design_overrides(args):
             raise ConfigError("design options", "an artifact's design is fixed; give the plant file to "
                                                 "change poles, weights, rate or integral action")
-        artifact = load_artifact(source, allow_plant_change=args.allow_plant_change)
+        artifact = load_artifact(source, allow_plant_change=args.allow_plant_change, trusted_keys=trusted_keys)
         design = None
         if need_design:
             design = _design_from_artifact_plant(artifact, args)
         return artifact, design, None
+    if trusted_keys:
+        raise ConfigError("--trusted-key", f"checks a signed artifact; {source} is a plant file, built here unsigned")
     design, document, _ = _design_and_document(source, args)
     text = seal(document)
     return artifact_from_text(text, source=f"{design.plant.name} (built from {source})"), design, document
@@ -463,7 +516,7 @@ def _reference(artifact, args: argparse.Namespace, x0: list[float]):
         return parse_reference(text, artifact.relative_degree, base, artifact.outputs)
     except ConfigError as err:
         if args.reference:
-            raise
+            raise (err if err.field == "--reference" else ConfigError("--reference", str(err))) from None
         raise ConfigError(f"{artifact.document['plant']['source']}: design.reference", err.problem) from None
 
 
@@ -473,11 +526,13 @@ def _run_sim(args: argparse.Namespace) -> int:
     artifact, _, document = _artifact_and_design(args.source, args, need_design=False)
     operating = artifact.document["plant"]["operating_point"]
     x0 = _state_vector(artifact, args.initial, "--initial", [float(operating[s]) for s in artifact.states])
+    if not args.force_initial:
+        _check_initial_inside_envelope(artifact, x0)
     settings = SimSettings(
         duration=args.duration, reference=_reference(artifact, args, x0), initial=x0,
         plant_parameters=mismatched_parameters(artifact, parse_assignments(args.mismatch, "--mismatch")),
         noise=_noise(artifact, args.noise), delay=args.delay, substeps=args.substeps,
-        integrator=args.integrator, seed=args.seed)
+        integrator=args.integrator, seed=args.seed, config=_watchdog_overrides(artifact, args.watchdog))
     show = args.progress if args.progress is not None else sys.stderr.isatty()
     field_log = None
     if args.field_log:
@@ -521,6 +576,49 @@ def _run_sim(args: argparse.Namespace) -> int:
     return 0
 
 
+def _check_initial_inside_envelope(artifact, x0: list[float]) -> None:
+    """Refuse an initial state outside the envelope (the design was checked only inside it)."""
+    envelope = artifact.document["plant"].get("envelope", {})
+    for name, value in zip(artifact.states, x0):
+        if name in envelope and not envelope[name][0] <= value <= envelope[name][1]:
+            lo, hi = envelope[name]
+            raise ConfigError("--initial", f"{name} = {value:g} lies outside the envelope [{lo:g}, {hi:g}]; "
+                                           "add --force-initial to run it anyway")
+
+
+def _watchdog_overrides(artifact, items: list[str]):
+    """``--watchdog SETTING=VALUE`` as a checked WatchdogConfig, or None without overrides."""
+    from linz_ros.artifact.watchdog import SETTING_NAMES
+    from linz_ros.artifact.watchdog import setting as watchdog_setting
+    from linz_ros.runtime import WatchdogConfig
+
+    if not items:
+        return None
+    overrides: dict[str, Any] = {}
+    for item in items:
+        name, _, text = item.partition("=")
+        name, text = name.strip(), text.strip()
+        if name not in SETTING_NAMES or name == "safe_command":
+            choices = ", ".join(n for n in SETTING_NAMES if n != "safe_command")
+            raise ConfigError("--watchdog", f"{name[:40]!r} is not a watchdog setting; expected one of {choices}")
+        if name in overrides:
+            raise ConfigError("--watchdog", f"{name} given twice")
+        row = watchdog_setting(name)
+        if row.shape == "choice":
+            overrides[name] = text
+        elif row.shape == "scalar":
+            values = _numbers(text, f"--watchdog {name}") if text else [math.nan]
+            if len(values) != 1:            # never drop the rest of a list silently
+                raise ConfigError("--watchdog", f"{name}: expected one number, got {len(values)}")
+            overrides[name] = values[0]
+        else:
+            overrides[name] = tuple(math.inf if v == 0 else v for v in _numbers(text, f"--watchdog {name}"))
+    try:
+        return WatchdogConfig.from_artifact(artifact, **overrides)
+    except ConfigError as err:
+        raise ConfigError("--watchdog", f"{err.field}: {err.problem}") from None
+
+
 def _fmt(value: float | None, spec: str = ".3g") -> str:
     return "n/a" if value is None else format(value, spec)
 
@@ -528,14 +626,22 @@ def _fmt(value: float | None, spec: str = ".3g") -> str:
 def _sim_text(summary: dict[str, Any]) -> str:
     lines = [f"sim {summary['plant']}: {summary['duration']:g} s at {summary['rate']:g} Hz, "
              f"{summary['steps']} steps"]
+    at = "" if summary["verdict_at"] is None else f" at t = {summary['verdict_at']:.4g} s"
+    lines.append(f"  verdict: {summary['verdict']}{at} ({summary['verdict_detail']})")
     for name, o in summary["outputs"].items():
+        rate = (f"fitted decay rate {_fmt(o['decay_rate'])} 1/s" if summary["verdict"] == "tracked"
+                else "no decay rate (the run did not track)")
         lines.append(f"  {name}: rms error {_fmt(o['rms_error'])}, final {_fmt(o['final_error'])}, "
-                     f"max {_fmt(o['max_error'])}, fitted decay rate {_fmt(o['decay_rate'])} 1/s")
+                     f"max {_fmt(o['max_error'])}, {rate}")
     modes = ", ".join(f"{m} {t:.3g} s" for m, t in summary["time_in_mode"].items() if t > 0)
     lines.append(f"  min sigma {_fmt(summary['min_sigma'])}, max condition {_fmt(summary['max_condition'])}; "
                  f"modes: {modes}")
     saturated = ", ".join(f"{u} {100 * f:.1f}%" for u, f in summary["saturated_fraction"].items())
     lines.append(f"  saturated: {saturated}")
+    alarms = ", ".join(f"{name.replace('_', ' ')} {count} step(s)" for name, count in summary["alarm_steps"].items()
+                       if count)
+    if alarms:
+        lines.append(f"  watchdog alarms: {alarms}")
     ct = summary["compute_time_us"]
     if ct:
         lines.append(f"  step compute time: p50 {ct['p50']:.1f} us, p99 {ct['p99']:.1f} us")
@@ -548,7 +654,11 @@ def _sim_text(summary: dict[str, Any]) -> str:
 def _run_logs(args: argparse.Namespace) -> int:
     from linz_ros.logs import plot_log, read_logs, summarise, summary_text, write_csv, write_html
 
+    for option in ("csv", "plots", "html", "artifact"):
+        if getattr(args, option) is not None and not getattr(args, option).strip():
+            raise ConfigError(f"--{option}", "expected a file or folder name, got an empty one")
     log = read_logs(args.paths)
+    _refuse_writing_over_logs(log, args)
     artifact = _log_artifact(log, args.artifact)
     summary = summarise(log, artifact)
     text = summary_text(summary)
@@ -574,6 +684,17 @@ def _run_logs(args: argparse.Namespace) -> int:
     return 0
 
 
+def _refuse_writing_over_logs(log: Any, args: argparse.Namespace) -> None:
+    """An output named like one of the logs read (``--csv run.mcap``) would destroy that log."""
+    from linz_ros.logs import log_files
+
+    inputs = {p.resolve() for p in log_files(args.paths)}
+    for option in ("csv", "html"):
+        target = getattr(args, option)
+        if target and Path(target).resolve() in inputs:
+            raise ConfigError(f"--{option}", f"{target} is one of the logs being read; writing there would destroy it")
+
+
 def _log_artifact(log: Any, path: str | None):
     """The artifact to read a log against: the one given, else the one attached to the log."""
     from linz_ros.artifact import artifact_from_text, load_artifact
@@ -587,6 +708,17 @@ def _log_artifact(log: Any, path: str | None):
     except LinzError as err:
         log.problems.append(f"the attached artifact is not usable ({err}); plots without the singular set")
         return None
+
+
+# -- keygen ---------------------------------------------------------------------------------------
+def _run_keygen(args: argparse.Namespace) -> int:
+    from linz_ros.artifact.signing import generate_keys, key_fingerprint, load_public_key
+
+    private, public = generate_keys(args.folder)
+    print(f"wrote {private} (private: keep it on the build machine; linz build --sign-key {private})")
+    print(f"wrote {public} (public, key {key_fingerprint(load_public_key(public))[:16]}: give it to the robots, "
+          "parameter trusted_keys, or --trusted-key)")
+    return 0
 
 
 # -- bench ----------------------------------------------------------------------------------------
@@ -661,7 +793,7 @@ def _run_demo(args: argparse.Namespace) -> int:
     from linz_ros.analysis import analyse, render_text
     from linz_ros.model import load_plant
 
-    plant_file = Path(args.plant) if args.plant else bundled_plant(DEMO_PLANT)
+    plant_file = Path(args.plant) if args.plant is not None else bundled_plant(DEMO_PLANT)
     out = Path(args.out)
     print(f"== 1. check {plant_file}")
     report = analyse(load_plant(plant_file), samples=512)
@@ -775,6 +907,12 @@ def _simulator_summary(log_text: str) -> str:
     return lines[-1].split("]: ", 1)[-1] if lines else "wrote no run summary"
 
 
+def _terminal_safe(text: str) -> str:
+    """The text with what a terminal would act on escaped: line breaks, escape sequences, bidi
+    controls and lone surrogates (from file names or YAML escapes) are shown as ``\\n``, ``\\x1b``..."""
+    return text if text.isprintable() else "".join(c if c.isprintable() else repr(c)[1:-1] for c in text)
+
+
 def _parse_sub(argv: list[str]) -> argparse.Namespace:
     return _build_parser().parse_args(argv)
 
@@ -796,7 +934,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return args.run(args)
     except LinzError as err:
-        print(f"linz: {err}", file=sys.stderr)
+        print(f"linz: {_terminal_safe(str(err))}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("linz: interrupted", file=sys.stderr)

@@ -7,11 +7,45 @@ any :class:`LinzError` into a single line on stderr and exit code 2.
 from __future__ import annotations
 
 __all__ = ["LinzError", "ExpressionSyntaxError", "LocatedError", "PlantFileError", "AnalysisError", "DesignError",
-           "ArtifactError", "ConfigError"]
+           "ArtifactError", "ConfigError", "quoted", "MAX_QUOTED", "MAX_MESSAGE"]
+
+#: Characters of user text (a path, a field, an option) quoted in a message at most.
+MAX_QUOTED = 120
+#: Characters of a whole message at most (the problem may quote user text too).
+MAX_MESSAGE = 1000
+
+
+def quoted(text: str, width: int = MAX_QUOTED) -> str:
+    """User text for a message: as given, or its first characters, ``...`` and its length.
+
+    Parameters
+    ----------
+    text : str
+    width : int
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> quoted("x" * 200, 10)
+    'xxxxxxxxxx... (200 characters)'
+    """
+    return text if len(text) <= width else f"{text[:width]}... ({len(text)} characters)"
 
 
 class LinzError(ValueError):
-    """Base class of all errors caused by user input (files, parameters, options)."""
+    """Base class of all errors caused by user input (files, parameters, options).
+
+    A message longer than :data:`MAX_MESSAGE` is cut there (user text of any length must
+    not flood the terminal); the parts that name the input are capped by :func:`quoted`.
+    """
+
+    def __init__(self, *args: object) -> None:
+        if len(args) == 1 and isinstance(args[0], str) and len(args[0]) > MAX_MESSAGE:
+            args = (quoted(args[0], MAX_MESSAGE),)
+        super().__init__(*args)
 
 
 class ExpressionSyntaxError(LinzError):
@@ -60,7 +94,7 @@ class LocatedError(LinzError):
         self.source = source
         self.field = field
         self.problem = problem
-        parts = [source] + ([field] if field else []) + [problem]
+        parts = [quoted(source)] + ([quoted(field)] if field else []) + [problem]
         super().__init__(": ".join(parts))
 
 
@@ -91,7 +125,7 @@ class ArtifactError(LinzError):
     def __init__(self, source: str, problem: str) -> None:
         self.source = source
         self.problem = problem
-        super().__init__(f"{source}: {problem}")
+        super().__init__(f"{quoted(source)}: {problem}")
 
 
 class ConfigError(LinzError):
@@ -108,4 +142,4 @@ class ConfigError(LinzError):
     def __init__(self, field: str, problem: str) -> None:
         self.field = field
         self.problem = problem
-        super().__init__(f"{field}: {problem}")
+        super().__init__(f"{quoted(field)}: {problem}")

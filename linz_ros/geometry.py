@@ -44,6 +44,9 @@ ZERO_DIGITS = 30
 ZERO_ATOL = 1e-15
 #: Matrices whose entries together exceed this many operations get a numeric generic rank.
 SYMBOLIC_RANK_BUDGET = 400
+#: Matrices with more entries than this get a numeric generic rank too (symbolic
+#: elimination costs about entries^1.5 zero tests, however simple the entries).
+SYMBOLIC_RANK_MAX_ENTRIES = 144
 
 
 # -- Lie algebra ---------------------------------------------------------------------
@@ -409,8 +412,11 @@ def fits_symbolic_budget(matrix: sp.Matrix) -> bool:
     Returns
     -------
     bool
-        Whether the entries together have at most :data:`SYMBOLIC_RANK_BUDGET` operations.
+        Whether the entries together have at most :data:`SYMBOLIC_RANK_BUDGET` operations
+        and there are at most :data:`SYMBOLIC_RANK_MAX_ENTRIES` of them.
     """
+    if matrix.rows * matrix.cols > SYMBOLIC_RANK_MAX_ENTRIES:
+        return False
     total = 0
     for entry in matrix:
         total += sp.count_ops(entry)

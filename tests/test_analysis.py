@@ -249,7 +249,7 @@ def test_text_report_puts_the_verdict_first():
     lines = text.splitlines()
     assert lines[3] == "VERDICT"
     assert "input-state linearizable:  no" in lines[4]
-    assert "relative degree not defined here" in lines[5]
+    assert "no (relative degree not defined at the operating point" in lines[5]
 
 
 def test_drift_terms_and_decoupling_matrix_give_the_output_second_derivative():
@@ -271,3 +271,90 @@ def test_drift_terms_and_decoupling_matrix_give_the_output_second_derivative():
     for _ in range(5):
         point = rng.uniform(-1, 1, len(args))
         np.testing.assert_allclose(np.ravel(ours(point)), np.ravel(direct(point)), rtol=1e-10, atol=1e-12)
+
+
+# -- singular everywhere, verdicts that agree with their reasons, budgets -------------------
+DECOUPLING_RANK_ONE = """
+plant: p
+states: [x1, x2]
+inputs: [u1, u2]
+parameters: {a: 2, b: 0.5}
+dynamics:
+  x1: u1 + a*u2
+  x2: b*u1 + u2
+outputs: {y1: x1, y2: x2}
+"""
+
+
+def test_a_parameter_factor_zero_at_the_nominal_values_makes_the_singular_set_everywhere():
+    report = analyse(plant_from_text(DECOUPLING_RANK_ONE))           # det A = 1 - a b = 0
+    io = report.to_json()["input_output"]
+    assert "rank 1 < 2 everywhere" in io["reason"]
+    assert io["singular_set"] == "0" and io["singular_set_everywhere"] is True
+    assert io["singular_set_empty"] is False and io["linearizable"] is False
+    text = render_text(report)
+    assert "singular set: everywhere (det A = 0 at every state" in text
+    assert "input-output linearizable: no (the decoupling matrix is singular everywhere)" in text
+    # the nonsingular case still reports nowhere
+    fine = analyse(plant_from_text(DECOUPLING_RANK_ONE.replace("b: 0.5", "b: 0.25"))).to_json()["input_output"]
+    assert fine["singular_set"] == "1" and fine["singular_set_everywhere"] is False
+
+
+def test_single_input_singular_set_with_a_zero_parameter_factor_is_everywhere():
+    text = """
+plant: p
+states: [x1, x2]
+inputs: [u]
+parameters: {a: 0}
+dynamics:
+  x1: a*cos(2*x1)**2*x2
+  x2: u
+"""
+    report = analyse(plant_from_text(text))          # det[g, ad_f g] = a cos(2 x1)^2
+    iss = report.to_json()["input_state"]
+    assert iss["singular_set"] == "0" and iss["singular_set_everywhere"] is True
+    assert "loses rank everywhere" in render_text(report)
+    nonzero = analyse(plant_from_text(text.replace("a: 0", "a: 3"))).to_json()["input_state"]
+    assert nonzero["singular_set"] == "cos(2*x1)" and nonzero["singular_set_everywhere"] is False
+
+
+def test_verdict_line_agrees_with_an_undecided_detail():
+    report = analyse(plant_from_text("plant: p\nstates: [th, w]\ninputs: [u]\n"
+                                     "dynamics: {th: w, w: u}\noutputs: {y: log(th)}\n"))
+    text = render_text(report)
+    assert report.input_output.reason.startswith("could not decide")
+    assert "input-output linearizable: could not decide (the decoupling matrix is not finite" in text
+    assert report.to_json()["input_output"]["linearizable"] is None
+
+
+def test_a_linearizing_output_undefined_at_the_operating_point_is_not_verified():
+    report = analyse(plant_from_text("plant: p\nstates: [th, w]\ninputs: [u]\n"
+                                     "dynamics: {th: w, w: u}\noutputs: {y: log(th)}\n"))
+    iss = report.input_state
+    assert [str(e) for e in iss.linearizing_outputs] == ["th"]
+    assert "log(th) would have relative degree n but is undefined at the operating point" in \
+        iss.linearizing_output_note
+
+
+def test_more_outputs_than_inputs_names_the_reason_in_verdict_and_detail():
+    report = analyse(plant_from_text("plant: p\nstates: [x1, x2]\ninputs: [u]\n"
+                                     "dynamics: {x1: x2, x2: u}\noutputs: {y1: x1, y2: x2}\n"))
+    text = render_text(report)
+    assert "input-output linearizable: no (2 outputs but 1 input: give as many outputs as inputs)" in text
+    assert "2 outputs but 1 input: the decoupling matrix is 2 x 1" in report.input_output.reason
+    assert "plant p: 2 states, 1 input, 2 outputs" in text
+    assert "inputs:" not in text.split("\n")[0] and "(s)" not in text
+
+
+def test_plants_beyond_the_state_budget_are_undecided_at_once():
+    from linz_ros.analysis._report import MAX_ANALYSIS_STATES
+    n = MAX_ANALYSIS_STATES + 1
+    dynamics = ", ".join(f"x{i}: x{i + 1}" for i in range(1, n)) + f", x{n}: u"
+    plant = plant_from_text(f"plant: p\nstates: [{', '.join(f'x{i}' for i in range(1, n + 1))}]\ninputs: [u]\n"
+                            f"dynamics: {{{dynamics}}}\noutputs: {{y: x1}}\n")
+    report = analyse(plant)
+    assert report.input_state.linearizable is None
+    assert report.input_state.reason == (f"could not decide within the budget: {n} states, the geometric "
+                                         f"analysis handles at most {MAX_ANALYSIS_STATES}")
+    assert report.input_output.linearizable is None
+    assert "input-output linearizable: could not decide (within the budget" in render_text(report)

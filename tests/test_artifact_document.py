@@ -1,7 +1,9 @@
 """The artifact file: round trip, hash, plant-file check, consistency, forbidden content."""
 
 import json
+import re
 import shutil
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -161,6 +163,50 @@ def test_the_plant_check_does_not_depend_on_the_current_folder(tmp_path, monkeyp
     (tmp_path / "decoy" / "plants" / "k.yaml").write_text("an unrelated file with the same relative name\n")
     monkeypatch.chdir(tmp_path / "decoy")
     assert load_artifact(deployed / "k.artifact.json").plant_check == "matches"   # by its absolute path
+
+
+def _sparse(path, size):
+    with open(path, "wb") as stream:
+        stream.truncate(size)                         # no blocks on disk: reading it whole would take minutes
+    return path
+
+
+@pytest.mark.parametrize("make, words", [
+    (lambda p: Path("/proc/self/mem"), "cannot read: Input/output error"),
+    (lambda p: _sparse(p / "huge.yaml", 8 * 2**30), "larger than 64 MB"),
+    (lambda p: Path("/dev/zero"), "is not a regular file"),
+    (lambda p: p, "is a folder"),
+])
+def test_a_recorded_plant_path_that_cannot_be_read_is_not_compared(built, tmp_path, make, words):
+    path, _, _ = built
+    target = make(tmp_path)
+    resealed = _rewrite(path, tmp_path / "r.artifact.json", lambda d: d["plant"].update(
+        source_absolute=str(target), source_from_artifact="no/such/plant.yaml"))
+    check = load_artifact(resealed).plant_check
+    assert check.startswith(f"plant file {target} cannot be read (") and words in check
+    assert check.endswith("; not compared") and "\n" not in check
+
+
+@pytest.mark.parametrize("make, words", [
+    (lambda p: Path("/proc/self/mem"), "cannot read: Input/output error"),
+    (lambda p: _sparse(p / "huge.yaml", 8 * 2**30), "larger than 64 MB"),
+    (lambda p: Path("/dev/zero"), "is not a regular file"),
+    (lambda p: p / "missing.yaml", "not found"),
+])
+def test_a_given_plant_path_that_cannot_be_read_is_one_line(built, tmp_path, make, words):
+    path, _, _ = built
+    target = make(tmp_path)
+    with pytest.raises(ArtifactError, match=f"plant file {re.escape(str(target))}:? {words}") as caught:
+        load_artifact(path, plant_path=target)
+    assert "\n" not in str(caught.value)
+
+
+def test_odd_recorded_plant_paths_are_hints_only(built, tmp_path):
+    path, _, _ = built
+    resealed = _rewrite(path, tmp_path / "r.artifact.json", lambda d: d["plant"].update(
+        source_absolute="/tmp/a\u0000b", source_from_artifact="x" * 5000))
+    check = load_artifact(resealed).plant_check
+    assert "cannot be read" in check and check.endswith("not compared")
 
 
 def test_missing_file_and_folder(tmp_path):

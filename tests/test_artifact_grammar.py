@@ -96,3 +96,13 @@ def test_numbers_and_non_text_inputs():
         parse_expression(True)
     with pytest.raises(ExpressionSyntaxError, match="expected an expression"):
         parse_expression([1, 2])
+
+
+def test_a_yaml_alias_bomb_given_as_an_expression_is_refused_quickly():
+    """A nested list of 9**10 strings (YAML aliases share it): the message quotes a bounded repr,
+    never ``str()`` of the whole (which would take minutes and gigabytes)."""
+    bomb: list = ["lol"] * 9
+    for _ in range(9):
+        bomb = [bomb] * 9
+    with pytest.raises(ExpressionSyntaxError, match=r"^cannot read '\[\[\[.*\.\.\.': expected an expression"):
+        parse_expression(bomb)

@@ -36,7 +36,8 @@ def test_the_naive_pipeline_gives_the_core_command(arm):
     artifact, design = arm
     naive = _naive_step(design, artifact)
     core = ControllerCore(artifact, None)
-    core.config = core.config.with_overrides(input_limits=((-1e9, 1e9), (-1e9, 1e9)))
+    # random states over [-1, 1] leave the envelope: the envelope watchdog only warns here
+    core.config = core.config.with_overrides(input_limits=((-1e9, 1e9), (-1e9, 1e9)), envelope_action="warn")
     rng = np.random.default_rng(8)
     for k in range(10):
         x = [rng.uniform(-0.6, 1.8), rng.uniform(0.6, 2.6), rng.uniform(-2, 2), rng.uniform(-2, 2)]
@@ -71,7 +72,8 @@ def test_a_serial_arm_is_timed_against_pinocchio_computed_torque():
     design = synthesise(plant_from_text(joint_space))
     step = _pinocchio_step(design, artifact)
     core = ControllerCore(artifact)
-    core.config = core.config.with_overrides(input_limits=((-1e9, 1e9), (-1e9, 1e9)))
+    # random states over [-1, 1] leave the envelope: the envelope watchdog only warns here
+    core.config = core.config.with_overrides(input_limits=((-1e9, 1e9), (-1e9, 1e9)), envelope_action="warn")
     naive = _naive_step(design, artifact)
     rng = np.random.default_rng(2)
     for k in range(10):
@@ -127,3 +129,14 @@ def test_a_missing_or_failing_compiler_is_named_in_the_notes(arm, monkeypatch, c
     assert "compiled_c" not in result.microseconds
     assert any(note.startswith(words) and note.endswith("compiled_c not measured") for note in result.notes), \
         result.notes
+
+
+def test_goals_are_judged_met_or_missed_in_text_and_json():
+    from linz_ros.bench import BenchResult
+    result = BenchResult("p", 10, 2, {"core": 12.1, "compiled_c": 1.0, "naive": 100.0, "law_only": 3.0})
+    text = result.render_text()
+    assert "core_over_compiled_c               12.10  (goal <= 10: MISSED)" in text
+    assert "naive_over_core                     8.26  (goal >= 4: met)" in text
+    goals = result.to_json()["goals"]
+    assert goals["core_over_compiled_c"]["met"] is False and goals["naive_over_core"]["met"] is True
+    assert "core_over_law_only" not in goals

@@ -1,7 +1,6 @@
 """The process launcher: commands, environments, values on the command line, logs, cleanup."""
 
 import sys
-import time
 
 import pytest
 
@@ -66,6 +65,7 @@ def test_stop_escalates_and_kills_a_process_that_ignores_sigint(tmp_path, monkey
     bringup = Bringup(tmp_path, isolated_environment(domain_id=5, base={}))
     node = bringup.start("linz_plant_sim")
     assert bringup.wait_for_log("linz_plant_sim", "up", timeout=30)
-    started = time.monotonic()
+    # killed by SIGKILL (-9), not waited out: the process ignores SIGINT and SIGTERM and, left alone,
+    # would end its 60 s sleep with code 0; how quickly stop() escalates is not judged by the clock
     assert bringup.stop("linz_plant_sim", timeout=0.5) == -9
-    assert time.monotonic() - started < 5 and not node.alive()
+    assert not node.alive()

@@ -208,7 +208,7 @@ def test_an_initial_state_where_the_outputs_are_not_defined_is_one_line(capsys, 
     for value, words in (("-1", "--initial: the outputs are not defined at this state (ValueError"),
                          ("1e400", "--initial: x1: expected a finite number")):
         code, _, err = _run(capsys, "sim", str(plant), "-o", str(tmp_path), "--no-plots", "--initial",
-                            f"x1={value}")
+                            f"x1={value}", "--force-initial")
         assert code == 2 and words in err and err.count("\n") == 1, err
 
 
@@ -363,3 +363,130 @@ def test_check_json_of_a_serial_arm_gives_its_structure(capsys):
     assert report["input_output"]["relative_degree"] == [2] * 6
     assert report["input_output"]["decoupling_structure"]["form"] == "J(q) M(q)^-1 B(q)"
     assert report["input_state"]["linearizable"] is True and report["envelope"]["min_sigma"] > 0
+
+
+@pytest.mark.parametrize("option", ["--csv", "--plots", "--html"])
+def test_logs_refuses_an_empty_output_name(tmp_path, capsys, option):
+    from linz_ros.runtime.fieldlog import FieldLogSettings, FieldLogWriter
+    labels = ["t", "sigma_min", "condition", "mode", "reason", "damping", "compute_time_us", "saturated_mask", "warn"]
+    writer = FieldLogWriter(FieldLogSettings(tmp_path / "log"), labels, {})
+    writer.put([0.0, 1.0, 1.0, 0.0, 0.0, 0.0, 5.0, 0.0, 0.0])
+    writer.close()
+    code, out, err = _run(capsys, "logs", str(tmp_path / "log"), option, "")
+    assert code == 2 and out == ""
+    assert err == f"linz: {option}: expected a file or folder name, got an empty one\n"
+
+
+def test_sim_refuses_an_initial_state_outside_the_envelope_unless_forced(capsys, tmp_path):
+    plant = str(REFERENCE / "flexible_joint.yaml")
+    code, out, err = _run(capsys, "sim", plant, "--initial", "q1=2", "--no-plots", "-o", str(tmp_path))
+    assert code == 2 and err.strip() == ("linz: --initial: q1 = 2 lies outside the envelope [-1.5, 1.5]; "
+                                         "add --force-initial to run it anyway")
+    code, out, err = _run(capsys, "sim", plant, "--initial", "q1=2", "--force-initial", "--no-plots", "--json",
+                          "--duration", "0.2", "-o", str(tmp_path))
+    summary = json.loads(out)
+    assert code == 0 and summary["verdict"] == "left_envelope" and summary["verdict_at"] == 0.0
+
+
+def test_sim_flags_the_softer_shaft_in_text_and_json(capsys, tmp_path):
+    plant = tmp_path / "shaft.yaml"
+    plant.write_text((REFERENCE / "flexible_joint.yaml").read_text()
+                     + "design: {rate: 200, poles: {y: [-4, -5, -6, -7]}}\n")
+    argv = ["sim", str(plant), "--mismatch", "k=-20", "--reference", "smooth:amplitude=1,duration=1,at=0.2",
+            "--no-plots", "-o", str(tmp_path / "out"), "--field-log", str(tmp_path / "log")]
+    code, out, err = _run(capsys, *argv)
+    assert code == 0
+    verdict = next(line for line in out.splitlines() if "verdict:" in line)
+    assert ("left_envelope at t = " in verdict or "diverged at t = " in verdict), out
+    assert "fitted decay rate" not in out and "no decay rate (the run did not track)" in out
+    code, out, err = _run(capsys, "logs", str(tmp_path / "log"), "--json")
+    summary = json.loads(out)
+    assert summary["verdict"]["word"] in ("left_envelope", "diverged")
+    assert summary["watchdog_alarms"]["outside_envelope"]["acted"] > 0
+
+
+def test_sim_watchdog_overrides_are_checked_against_the_table(capsys, tmp_path):
+    plant = str(REFERENCE / "flexible_joint.yaml")
+    for item, words in (("envelope_action=stop", "--watchdog: envelope_action: expected one of warn, safe"),
+                        ("sigma_wran=1", "--watchdog: 'sigma_wran' is not a watchdog setting"),
+                        ("stale_after=0", "--watchdog: stale_after: expected a number > 0, got 0")):
+        code, out, err = _run(capsys, "sim", plant, "--watchdog", item, "--no-plots", "-o", str(tmp_path))
+        assert code == 2 and err.strip().startswith(f"linz: {words}"), err
+    code, out, err = _run(capsys, "sim", plant, "--watchdog", "envelope_action=warn", "--no-plots", "--duration",
+                          "0.1", "-o", str(tmp_path))
+    assert code == 0
+
+
+def test_counting_options_are_bounded_in_one_line(capsys):
+    plant = str(BUNDLED / "mast_camera.yaml")
+    for argv, words in ((("check", plant, "--samples", "999999999999"), "argument --samples: expected at most 1_000_000"),
+                        (("bench", plant, "--rounds", "1000000000"), "argument --rounds: expected at most 1_000"),
+                        (("bench", plant, "--calls", "1000000000"), "argument --calls: expected at most 1_000_000")):
+        with pytest.raises(SystemExit) as stop:
+            main(list(argv))
+        assert stop.value.code == 2
+        err = capsys.readouterr().err
+        assert words in err and len(err.strip().splitlines()) == 1, err
+
+
+def test_poles_given_twice_for_one_output_are_refused(capsys, tmp_path):
+    code, out, err = _run(capsys, "build", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path),
+                          "--poles", "pan_angle=-5,-3", "--poles", "pan_angle=-2,-4")
+    assert code == 2
+    assert err.strip() == "linz: <command line>: --poles: given twice for output pan_angle; give each chain's poles once"
+
+
+def test_check_reads_only_regular_files_and_quotes_long_paths_briefly(capsys, tmp_path):
+    code, out, err = _run(capsys, "check", "/dev/zero")
+    assert code == 2 and err.strip() == "linz: /dev/zero: is not a regular file (a device, pipe or socket?)"
+    long_path = str(tmp_path / ("a" * 100_000))
+    code, out, err = _run(capsys, "check", long_path)
+    assert code == 2 and len(err) < 400 and f"... ({len(long_path)} characters)" in err, err
+
+
+def test_a_zero_parameter_that_divides_ends_check_and_build_with_one_line(capsys, tmp_path):
+    plant = tmp_path / "zero.yaml"
+    plant.write_text("plant: p\nstates: [th, w]\ninputs: [u]\nparameters: {J: {value: 0.0}}\n"
+                     "dynamics: {th: w, w: (u - th) / J}\noutputs: {y: th}\nenvelope: {th: [-1, 1]}\n")
+    for verb in ("check", "build"):
+        code, out, err = _run(capsys, verb, str(plant), *(["-o", str(tmp_path)] if verb == "build" else []))
+        assert code == 2
+        assert err.strip() == f"linz: {plant}: parameters.J: is 0, and dynamics.w divides by it ((u - th) / J)"
+
+
+def test_build_echoes_poles_in_the_order_given(capsys, tmp_path):
+    code, out, err = _run(capsys, "build", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path), "--json",
+                          "--poles", "pan_angle=-3,-5", "--poles", "tilt_angle=-2,-4")
+    assert code == 0
+    chains = {c["name"]: c["poles"] for c in json.loads(out)["chains"]}
+    np.testing.assert_allclose(chains["pan_angle"], [[-3, 0], [-5, 0]], atol=1e-9)
+    np.testing.assert_allclose(chains["tilt_angle"], [[-2, 0], [-4, 0]], atol=1e-9)
+
+
+@pytest.mark.parametrize("name, shown", [("pl\nant.yaml", "pl\\nant.yaml"), ("pl\x1b[2Jant.yaml", "pl\\x1b[2Jant.yaml"),
+                                         ("pl\u202eant.yaml", "pl\\u202eant.yaml"), ("pl\udcffant.yaml", "pl\\udcffant.yaml")])
+def test_error_lines_escape_what_a_terminal_would_act_on(capsys, tmp_path, name, shown):
+    """File names with line breaks, escape sequences, bidi overrides or undecodable bytes: still one plain line."""
+    code, out, err = _run(capsys, "check", str(tmp_path / name))
+    assert code == 2 and err == f"linz: {tmp_path}/{shown}: no such file\n"
+
+
+def test_logs_refuses_to_write_over_a_log_it_reads(capsys, reach_field_log):
+    log = next((reach_field_log / "log").glob("*.mcap"))
+    before = log.read_bytes()
+    code, out, err = _run(capsys, "logs", str(reach_field_log / "log"), "--csv", str(log))
+    assert code == 2 and err == f"linz: --csv: {log} is one of the logs being read; writing there would destroy it\n"
+    assert log.read_bytes() == before
+
+
+def test_logs_refuses_an_empty_artifact_name(capsys, reach_field_log):
+    code, out, err = _run(capsys, "logs", str(reach_field_log / "log"), "--artifact", "")
+    assert code == 2 and err == "linz: --artifact: expected a file or folder name, got an empty one\n"
+
+
+def test_sim_names_the_reference_option_and_refuses_a_list_for_one_watchdog_number(capsys, tmp_path):
+    plant = str(BUNDLED / "mast_camera.yaml")
+    code, out, err = _run(capsys, "sim", plant, "-o", str(tmp_path), "--reference", "step:amplitude=nan")
+    assert code == 2 and err.startswith("linz: --reference: reference amplitude: expected a finite number")
+    code, out, err = _run(capsys, "sim", plant, "-o", str(tmp_path), "--watchdog", "stale_after=1,2")
+    assert code == 2 and err == "linz: --watchdog: stale_after: expected one number, got 2\n"

@@ -163,3 +163,15 @@ def test_sampled_involutivity_matches_the_symbolic_decision():
     assert result.method.startswith("numeric") and result.involutive is False
     flat = involutivity([sp.Matrix([pad, 0, 0]), sp.Matrix([0, pad, 0])], X, ctx)
     assert flat.method.startswith("numeric") and flat.involutive is True
+
+
+def test_large_matrices_get_a_numeric_generic_rank_however_simple_their_entries():
+    from linz_ros.geometry import SYMBOLIC_RANK_MAX_ENTRIES, fits_symbolic_budget
+    side = int(SYMBOLIC_RANK_MAX_ENTRIES ** 0.5) + 1
+    x = sp.symbols(f"x0:{side}")
+    shift = sp.Matrix(side, side, lambda i, j: 1 if j == i + 1 else 0)     # a chain of integrators: ops 0
+    assert not fits_symbolic_budget(shift)
+    assert fits_symbolic_budget(shift[: side - 1, : side - 1])
+    ctx = NumericContext.around(x, {}, [0.0] * side)
+    result = generic_rank(shift, ctx)
+    assert result.rank == side - 1 and result.method.startswith("numeric")

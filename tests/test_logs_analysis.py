@@ -179,3 +179,69 @@ def test_a_field_log_of_another_plant_is_refused_by_name(tmp_path):
 
     with pytest.raises(LogError, match=r"hand.mcap: its y fields \['a'\] are not those of the artifact pick_arm"):
         as_sim_result(_log(), built_artifact(BUNDLED / "pick_arm.yaml"))
+
+
+@pytest.mark.filterwarnings("error")             # numpy's RuntimeWarnings would print before the summary
+def test_nan_and_inf_anywhere_give_a_clean_summary_without_warnings():
+    from linz_ros.logs import summary_text
+    n = 60
+    t = PERIOD * np.arange(n)
+    t[[5, 6]] = [np.nan, np.inf]                 # refused bad stamps are recorded as they came
+    mode = np.zeros(n)
+    mode[20:25] = MODES.index("damped")
+    mode[30] = np.nan                            # a damaged record
+    reason = np.zeros(n)
+    reason[5:7] = REASONS.index("bad_time")
+    reason[40] = np.inf
+    sigma = np.ones(n)
+    sigma[3:8] = [0.1, np.nan, np.inf, 0.05, np.nan]
+    mask = np.zeros(n)
+    mask[10:12] = [np.inf, np.nan]
+    log = _log(n, t=t, mode=mode, reason=reason, sigma_min=sigma, condition=1 / sigma, saturated_mask=mask,
+               compute_time_us=np.where(np.arange(n) == 9, np.inf, 10.0))
+    summary = summarise(log)
+    text = summary_text(summary)
+    assert summary["records"] == n and summary["min_sigma"] == pytest.approx(0.05)
+    assert summary["refused"]["bad_time"]["records"] == 2
+    assert summary["saturation"]["f"]["fraction"] == 0.0                  # a damaged mask saturates nothing
+    assert summary["mode_switches"]["by_kind"] == {"nominal->damped": 1, "damped->nominal": 1,
+                                                   "nominal->unknown": 1, "unknown->nominal": 1}
+    groups = [summary["near_singular"]["under_warn"], *summary["refused"].values()]
+    assert all(math.isfinite(e["start"]) and math.isfinite(e["duration"]) for g in groups for e in g["episodes"])
+    assert "near-singular" in text or "sigma" in text
+
+
+def test_watchdog_alarms_are_counted_flagged_and_acted(tmp_path):
+    from linz_ros.logs import read_logs
+    from linz_ros.logs.analysis import summarise
+    from linz_ros.runtime import SimSettings, WatchdogConfig, simulate
+    from linz_ros.runtime.fieldlog import FieldLogSettings, open_field_log
+    from support import BUNDLED, built_artifact
+
+    artifact = built_artifact(BUNDLED / "pick_arm.yaml")
+    for action, acted in (("safe", True), ("warn", False)):
+        config = WatchdogConfig.from_artifact(artifact, envelope_action=action)
+        folder = tmp_path / action
+        writer = open_field_log(FieldLogSettings(folder), artifact, config, source="test")
+        # start outside the envelope (q2 below 0.15 - 0.245): flagged from the first step
+        result = simulate(artifact, SimSettings(duration=0.2, initial=[0.4, -0.2, 0.0, 0.0], config=config),
+                          field_log=writer)
+        writer.close()
+        summary = summarise(read_logs([folder]), artifact)
+        alarm = summary["watchdog_alarms"]["outside_envelope"]
+        flagged = int(np.count_nonzero(result.alarm_mask() & 1))
+        assert alarm["records"] == flagged > 0 and alarm["first"] == pytest.approx(0.0, abs=1e-6)
+        assert (alarm["acted"] > 0) == acted
+        assert summary["verdict"]["word"] == "left_envelope"
+
+
+@pytest.mark.parametrize("text", ["nan", "inf", "-1e999", "1" * 400])
+def test_non_finite_recorded_levels_are_not_used(text):
+    """Levels recorded as "nan" or "inf" read as floats; the summary then crashed formatting None."""
+    from linz_ros.logs import summary_text
+    from linz_ros.logs.analysis import thresholds_of
+
+    log = _log()
+    log.metadata["linz_watchdog"] = {"sigma_warn": text, "sigma_act": "0.2", "sigma_stop": "0.05"}
+    assert thresholds_of(log) is None
+    assert "watchdog levels unknown" in summary_text(summarise(log))

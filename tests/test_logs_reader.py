@@ -96,3 +96,92 @@ def test_log_files_searches_folders(tmp_path):
     _mcap_bag(tmp_path / "run" / "a.mcap") if (tmp_path / "run").mkdir() is None else None
     (tmp_path / "run" / "notes.txt").write_text("x")
     assert [p.name for p in log_files([tmp_path])] == ["a.mcap"]
+
+
+def _sqlite_bag(path, rows):
+    db = sqlite3.connect(path)
+    db.execute("CREATE TABLE topics(id INTEGER PRIMARY KEY, name TEXT, type TEXT, serialization_format TEXT, "
+               "offered_qos_profiles TEXT)")
+    db.execute("CREATE TABLE messages(id INTEGER PRIMARY KEY, topic_id INTEGER, timestamp INTEGER, data BLOB)")
+    db.execute("INSERT INTO topics VALUES (1, '/linz_controller/conditioning', 'std_msgs/msg/Float64MultiArray', "
+               "'cdr', '')")
+    db.executemany("INSERT INTO messages(topic_id, timestamp, data) VALUES (1, ?, ?)", rows)
+    db.commit()
+    db.close()
+    return path
+
+
+def test_a_sqlite_bag_with_null_message_data_reads_the_rest_and_says_so(tmp_path):
+    from linz_ros.runtime.fieldlog import encode_labelled_array
+    rows = [(10**18 + k, None if k in (3, 7) else encode_labelled_array(LABELS, _row(k))) for k in range(20)]
+    rows.append((10**18 + 99, "text, not bytes"))
+    log = read_logs([_sqlite_bag(tmp_path / "bag_0.db3", rows)])
+    assert len(log) == 18
+    assert any("2 message(s) of the conditioning topic skipped: they have no data (NULL)" in p for p in log.problems)
+    assert any("1 message(s)" in p and "hold str instead of bytes" in p for p in log.problems)
+
+
+def _field_log_prefix(path, n, schema_text=FLOAT64_MULTIARRAY_DEFINITION, finish=False):
+    """An MCAP field log as a crash leaves it: records flushed, never finished (no closing records)."""
+    from mcap.writer import Writer
+    from linz_ros.runtime.fieldlog import FIELD_LOG_SCHEMA, FIELD_LOG_TOPIC, encode_labelled_array
+    stream = open(path, "wb")
+    writer = Writer(stream)
+    writer.start(profile="ros2", library="test")
+    schema = writer.register_schema(FIELD_LOG_SCHEMA, "ros2msg", schema_text.encode())
+    channel = writer.register_channel(FIELD_LOG_TOPIC, "cdr", schema)
+    for k in range(n):
+        writer.add_message(channel, 10**18 + k, encode_labelled_array(LABELS, _row(k)), 10**18 + k, sequence=k)
+    writer.finish() if finish else writer.flush()
+    stream.close()
+    return path
+
+
+def test_a_schema_that_does_not_parse_is_one_line_naming_the_channel(tmp_path, capfd):
+    path = _field_log_prefix(tmp_path / "garbage.mcap", 5, schema_text="\x01 !!! not a message ::: 9", finish=True)
+    with pytest.raises(LogError, match=r"garbage.mcap: .*channel /linz/field_log: its schema "
+                                       r"std_msgs/msg/Float64MultiArray does not parse .*its 5 message\(s\) skipped"
+                       ) as caught:
+        read_logs([path])
+    assert "\n" not in str(caught.value)
+    assert capfd.readouterr().err == ""           # the schema parser's own complaint is not printed
+    good = _mcap_bag(tmp_path / "good.mcap")      # beside a usable file: that one is read, the other named
+    log = read_logs([good, path])
+    assert len(log) == 50 and any("does not parse" in p for p in log.problems)
+
+
+def test_a_log_followed_by_a_long_run_of_zeros_stops_at_the_zeros_without_reading_them(tmp_path):
+    from linz_ros.logs.reader import _read_mcap
+    path = _field_log_prefix(tmp_path / "prealloc.mcap", 300)
+    written = path.stat().st_size
+    with open(path, "r+b") as stream:
+        stream.truncate(200 * 2**20)              # sparse: 200 MB of zeros after the records
+    records = _read_mcap(path)
+    assert len(records.rows) == 300
+    assert records.bytes_read < written + 64 and records.records_scanned < 20
+    (problem,) = records.problems
+    assert f"no MCAP record at byte {written} (opcode 0)" in problem and "read up to the damage, 300 messages" \
+        in problem
+    assert len(read_logs([path])) == 300
+
+
+def test_a_record_longer_than_the_rest_of_the_file_is_not_read(tmp_path):
+    from linz_ros.logs.reader import _read_mcap
+    path = _field_log_prefix(tmp_path / "long.mcap", 10)
+    written = path.stat().st_size
+    with open(path, "ab") as stream:                # a chunk record claiming a terabyte
+        stream.write(b"\x06" + (2**40).to_bytes(8, "little") + b"\x00" * 100)
+    records = _read_mcap(path)
+    assert len(records.rows) == 10 and records.bytes_read < written + 64
+    assert "claims 1099511627776 bytes, more than the 100 left" in records.problems[0]
+
+
+def test_metadata_json_nested_too_deeply_is_kept_as_text():
+    """A parameters record nested 10 000 deep raised RecursionError out of ``linz logs``."""
+    from linz_ros.logs import StepLog
+    from linz_ros.logs.reader import metadata_json
+
+    deep = "[" * 10_000 + "]" * 10_000
+    log = StepLog(["t"], np.zeros((0, 1)), np.zeros(0), np.zeros(0, dtype=np.int64), [],
+                  {"linz_parameters": {"parameters": deep}})
+    assert metadata_json(log, "linz_parameters", "parameters") == deep

@@ -79,3 +79,16 @@ def test_plots_csv_and_html(reach_log, tmp_path):
     page = write_html(summary, summary_text(summary), images, tmp_path / "report.html").read_text()
     assert page.count("data:image/png;base64,") == 3 and "Episodes under the act level" in page
     assert "<script" not in page and "http" not in page.replace("http-equiv", "")     # self-contained
+
+
+def test_plots_of_a_log_without_inputs_leave_out_the_inputs_panel(tmp_path):
+    """A log whose records carry no ``u.*`` fields crashed matplotlib (a figure of zero rows)."""
+    from linz_ros.runtime.fieldlog import FieldLogWriter
+
+    labels = ["t", "sigma_min", "condition", "mode", "reason", "damping", "compute_time_us", "saturated_mask", "warn"]
+    writer = FieldLogWriter(FieldLogSettings(tmp_path / "log"), labels, {})
+    writer.put([0.0, 1.0, 1.0, 0.0, 0.0, 0.0, 5.0, 0.0, 0.0])
+    writer.put([0.01, 1.0, 1.0, 0.0, 0.0, 0.0, 5.0, 0.0, 0.0])
+    writer.close()
+    images = plot_log(read_logs([tmp_path / "log"]), tmp_path / "plots")
+    assert [p.name for p in images] == ["conditioning.png"]

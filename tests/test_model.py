@@ -3,7 +3,7 @@
 import sympy as sp
 import pytest
 
-from support import BUNDLED, MINIMAL
+from support import BUNDLED, MINIMAL, REFERENCE
 from linz_ros.errors import PlantFileError
 from linz_ros.model import load_plant, plant_from_text
 
@@ -80,7 +80,7 @@ def test_bundled_plants_load(path):
 BAD = [
     ("unknown symbol", MINIMAL.replace("-k*sin(x1)", "-q*sin(x1)"), "dynamics.x2", "unknown symbol 'q'"),
     ("missing dynamics", MINIMAL.replace("  x1: x2\n", ""), "dynamics", "missing an entry for state(s) x1"),
-    ("extra dynamics", MINIMAL + "  x3: x1\n", "dynamics", "not states: x3"),
+    ("extra dynamics", MINIMAL + "  x3: x1\n", "dynamics", "'x3' is not a state"),
     ("non-affine term", MINIMAL.replace("+ u", "+ x1*u**2"), "dynamics.x2", "term 'u**2*x1' is nonlinear in u"),
     ("input inside a function", MINIMAL.replace("+ u", "+ sin(u)"), "dynamics.x2", "term 'sin(u)' is nonlinear in u"),
     ("duplicate state", MINIMAL.replace("[x1, x2]", "[x1, x1]"), "states[1]", "duplicate name 'x1' (already a state)"),
@@ -122,13 +122,13 @@ BAD = [
     ("watchdog levels out of order", MINIMAL + "design: {watchdog: {sigma_warn: 0.1, sigma_act: 0.2}}\n",
      "design.watchdog.sigma_act", "0.2 is above sigma_warn 0.1"),
     ("negative stale time", MINIMAL + "design: {watchdog: {stale_after: -1}}\n", "design.watchdog.stale_after",
-     "must be positive"),
+     "expected a number > 0, got -1"),
     ("stale time past an hour", MINIMAL + "design: {watchdog: {hold_time: 1e12}}\n", "design.watchdog.hold_time",
      "expected at most 3600 s, got 1e+12"),
     ("rate limit of a non-input", MINIMAL + "design: {watchdog: {rate_limits: {w: 1}}}\n",
      "design.watchdog.rate_limits.w", "'w' is not an input"),
     ("zero rate limit", MINIMAL + "design: {watchdog: {rate_limits: {u: 0}}}\n",
-     "design.watchdog.rate_limits.u", "must be positive"),
+     "design.watchdog.rate_limits.u", "expected a number > 0, got 0"),
     ("safe command of a non-input", MINIMAL + "design: {watchdog: {safe_command: {w: 0}}}\n",
      "design.watchdog.safe_command.w", "'w' is not an input"),
     ("safe command word", MINIMAL + "design: {watchdog: {safe_command: brake}}\n",
@@ -157,7 +157,7 @@ def test_design_section_reads_poles_lists_watchdog_and_reference():
     assert plant.design["reference"] == "step:amplitude=1"
     assert plant.design["watchdog"] == {"sigma_warn": 0.5, "sigma_stop": 0.0, "hold_time": 0.2,
                                         "safe_command": {"kind": "fixed", "value": [0.25]},
-                                        "rate_limits": {"u": 10.0}}
+                                        "rate_limits": [10.0]}
 
 
 def test_missing_file_and_folder(tmp_path):
@@ -205,3 +205,104 @@ def test_any_yaml_document_loads_or_is_refused_cleanly(doc):
         plant_from_text(yaml.safe_dump(doc))
     except PlantFileError as err:
         assert "\n" not in str(err)
+
+
+# -- values that parse but cannot be meant; bounded reading --------------------------------
+ZERO_INERTIA = """
+plant: p
+states: [th, w]
+inputs: [u]
+parameters:
+  J: {value: 0.0}
+dynamics:
+  th: w
+  w: (u - th) / J
+"""
+
+
+def test_a_parameter_that_is_zero_and_divides_is_named_with_the_expression():
+    with pytest.raises(PlantFileError, match=r"parameters\.J: is 0, and dynamics\.w divides by it \(\(u - th\) / J\)"):
+        plant_from_text(ZERO_INERTIA)
+    with pytest.raises(PlantFileError, match=r"parameters\.J: is 0, and definitions\.k divides by it"):
+        plant_from_text(ZERO_INERTIA.replace("dynamics:", "definitions: {k: 1/J}\ndynamics:"))
+
+
+def test_a_constant_beyond_a_float_is_refused_at_load_naming_the_field():
+    text = MINIMAL.replace("  x2: -k*sin(x1) + u\n", "  x2: 1e308*1e308*x1 + u\n")
+    assert "1e308*1e308" in text
+    with pytest.raises(PlantFileError, match=r"dynamics\.x2: .* beyond the range of a float .*1\.00e\+616"):
+        plant_from_text(text)
+
+
+@pytest.mark.parametrize("unit", ["kg", "kg m^2", "kg*m^2", "kg m2", "kg·m²"])
+def test_a_mass_or_inertia_that_is_not_positive_is_refused(unit):
+    text = ZERO_INERTIA.replace("{value: 0.0}", f"{{value: -1, unit: '{unit}'}}")
+    with pytest.raises(PlantFileError, match=r"parameters\.J: (a mass|an inertia) \(unit .*\) must be positive, got -1"):
+        plant_from_text(text)
+    assert plant_from_text(text.replace("-1", "2")).parameters
+
+
+def test_a_misspelled_state_key_in_dynamics_is_named_with_the_missing_one():
+    text = MINIMAL.replace("  x2: -k*sin(x1) + u\n", "  x3: u\n")
+    assert "x3: u" in text
+    with pytest.raises(PlantFileError, match=r"dynamics: 'x3' is not a state \(did you mean 'x2'\?\); "
+                                             r"no equation for x2"):
+        plant_from_text(text)
+
+
+def test_definitions_that_double_each_other_are_refused_naming_the_definition():
+    chain = "\n".join(["  d1: x1*x1 + x1"] + [f"  d{i}: d{i - 1}*d{i - 1} + d{i - 1}" for i in range(2, 31)])
+    text = f"plant: p\nstates: [x1]\ninputs: [u]\ndefinitions:\n{chain}\ndynamics:\n  x1: d30 + u\n"
+    with pytest.raises(PlantFileError, match=r"definitions\.d\d+: expression too large: more than 20000 nodes"):
+        plant_from_text(text)
+
+
+def test_names_with_a_trailing_newline_are_refused():
+    with pytest.raises(PlantFileError, match=r"plant: 'p\\n' is not a valid identifier"):
+        plant_from_text(MINIMAL.replace("plant: demo", 'plant: "p\\n"', 1))
+    with pytest.raises(PlantFileError, match=r"states\[0\]: 'x1\\n' is not a valid name"):
+        plant_from_text(MINIMAL.replace("states: [x1, x2]", 'states: ["x1\\n", x2]', 1))
+
+
+def test_only_regular_files_are_read(tmp_path):
+    import os
+    fifo = tmp_path / "pipe.yaml"
+    os.mkfifo(fifo)                     # opening it would block forever
+    with pytest.raises(PlantFileError, match=r"pipe\.yaml: is not a regular file"):
+        load_plant(fifo)
+    with pytest.raises(PlantFileError, match=r"/dev/zero: is not a regular file"):
+        load_plant("/dev/zero")         # would be read without end
+    with pytest.raises(PlantFileError, match=r"is a folder, not a plant file"):
+        load_plant(tmp_path)
+    with pytest.raises(PlantFileError, match=r"cannot read: Not a directory"):
+        load_plant(tmp_path / "pipe.yaml" / "x.yaml")
+
+
+def test_a_serial_arm_link_mass_that_is_not_positive_is_refused_naming_the_joint():
+    text = (REFERENCE / "pick_arm_serial.yaml").read_text()
+    bad = text.replace("m2: {value: 1.9, unit: kg}", "m2: {value: -1.9, unit: kg}")
+    assert bad != text
+    with pytest.raises(PlantFileError, match=r"serial_arm\.joints\[1\]\.mass: the mass of joint 2's link must be "
+                                             r"positive, got -1\.9"):
+        plant_from_text(bad)
+
+
+def test_a_serial_arm_beyond_the_joint_limit_is_refused_at_once():
+    from linz_ros.model._mechanics import MAX_JOINTS
+    n = MAX_JOINTS + 1
+    joint = "    - {type: revolute, a: 0.1, alpha: 0, d: 0, theta: 0, mass: 1, com: [0, 0, 0], inertia: [1, 1, 1]}"
+    text = (f"plant: arm\ncoordinates: [{', '.join(f'q{i}' for i in range(n))}]\n"
+            f"inputs: [{', '.join(f't{i}' for i in range(n))}]\nserial_arm:\n  joints:\n" + "\n".join([joint] * n))
+    with pytest.raises(PlantFileError, match=rf"serial_arm\.joints: too large: {n} joints, at most {MAX_JOINTS}"):
+        plant_from_text(text)
+
+
+def test_a_plant_name_too_long_for_a_file_name_is_refused():
+    """The plant name names the artifact and output files: a 1 MB name failed only at writing, after synthesis."""
+    with pytest.raises(PlantFileError, match=r"<string>: plant: a name of 300 characters; at most 100"):
+        plant_from_text(MINIMAL.replace("plant: demo", "plant: " + "d" * 300))
+
+
+def test_an_empty_plant_path_is_refused_as_empty_not_as_the_current_folder():
+    with pytest.raises(PlantFileError, match=r"^'': expected a plant file name, got an empty one$"):
+        load_plant("")

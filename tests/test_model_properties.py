@@ -228,10 +228,10 @@ def test_long_sums_load_in_linear_time():
     terms = [f"{i}*x1**{i}" for i in range(1, 1601)]
     document = yaml.safe_load(MINIMAL)
     document["dynamics"]["x2"] = " + ".join(terms) + " + u"
-    start = time.perf_counter()
+    start = time.process_time()          # this process's CPU time: not the shared cores' load
     plant = _outcome(_dump(document))
     assert isinstance(plant, Plant) and len(sp.Add.make_args(plant.f[1])) == len(terms)
-    assert time.perf_counter() - start < 10.0
+    assert time.process_time() - start < 10.0
 
 
 @_settings(150)
@@ -326,9 +326,9 @@ def test_alias_bombs_are_refused_quickly(where):
                 "safe_command": base + f"design: {{watchdog: {{safe_command: {bomb}}}}}\n",
                 "poles": base + f"design: {{poles: {bomb}}}\n",
                 "states": base.replace("states: [x1, x2]", f"states: {bomb}")}[where]
-        start = time.perf_counter()
+        start = time.process_time()      # this process's CPU time: not the shared cores' load
         outcome = _outcome(text)
-        assert time.perf_counter() - start < 1.0
+        assert time.process_time() - start < 1.0
         assert isinstance(outcome, PlantFileError)
         _assert_clean(outcome)
 

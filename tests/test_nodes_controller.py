@@ -268,3 +268,62 @@ def test_a_bad_first_state_does_not_fix_the_built_in_reference_to_nan(make):
         node._on_state(_state(now + 0.002 * k))
     assert records == ["non_finite_state", "ok", "ok", "ok"]
     assert node.reference.generator.base == pytest.approx(node.core.output_values([0.4, 1.2, 0.0, 0.0]))
+
+
+def test_trusted_keys_refuse_an_unsigned_artifact_at_configure_and_accept_a_signed_one(make, tmp_path):
+    pytest.importorskip("cryptography", reason="signing needs cryptography (pip install cryptography)")
+    from lifecycle_msgs.msg import State
+    from linz_ros.artifact.signing import generate_keys, load_private_key, sign_artifact_file
+    private, public = generate_keys(tmp_path / "keys")
+    node = make(trusted_keys=f"['{public}']")
+    node.trigger_configure()
+    assert node._state_machine.current_state[0] == State.PRIMARY_STATE_UNCONFIGURED
+    assert "not signed, and only artifacts signed with a trusted key are accepted" in node.configure_error
+    sign_artifact_file(tmp_path / "pick_arm.artifact.json", load_private_key(private))
+    signed = make(trusted_keys=f"['{public}']")
+    signed.trigger_configure()
+    assert signed.configure_error == "" and signed.core.artifact.signature_check.startswith("signed by trusted key")
+
+
+def test_the_watchdog_parameters_come_from_the_table_and_are_checked_by_it(make):
+    from rclpy.parameter import Parameter
+
+    from linz_ros.artifact.watchdog import WATCHDOG_SETTINGS
+
+    node = make(reference="hold")
+    for row in WATCHDOG_SETTINGS:
+        assert node.has_parameter(row.name), row.name
+        descriptor = node.describe_parameter(row.name)
+        assert row.help in descriptor.description
+        assert descriptor.read_only == (not row.runtime)
+    node.trigger_configure()
+    node.trigger_activate()
+    config = node.core.config
+    result = node.set_parameters([Parameter("envelope_action", value="stop")])[0]
+    assert not result.successful and result.reason == "envelope_action: expected one of warn, safe, got 'stop'"
+    result = node.set_parameters([Parameter("divergence_error", value=[0.1])])[0]      # one per output: two
+    assert not result.successful and "divergence_error" in result.reason and node.core.config is config
+    result = node.set_parameters([Parameter("envelope_action", value="warn"),
+                                  Parameter("divergence_error", value=[0.1, 0.0])])[0]
+    assert result.successful
+    assert node.core.config.envelope_action == "warn" and node.core.config.divergence_error == (0.1, math.inf)
+
+
+def test_diagnostics_name_an_envelope_alarm(make):
+    from diagnostic_msgs.msg import DiagnosticStatus
+
+    from linz_ros.nodes.controller import DiagnosticWindow
+    from linz_ros.runtime import StepRecord
+
+    window = DiagnosticWindow(started=0.0)
+    window.add(StepRecord(0.0, (0.0, 0.0), "safe", "outside_envelope", 0.5, 2.0, False, 0.0, (False, False), 1e-5,
+                          (), 1))
+    level, text = window.level()
+    assert level == DiagnosticStatus.ERROR and "outside the envelope 1x" in text
+    values = {kv.key: kv.value for kv in window.values(1.0)}
+    assert values["outside_envelope_count"] == "1" and values["diverging_count"] == "0"
+    warned = DiagnosticWindow(started=0.0)
+    warned.add(StepRecord(0.0, (0.0, 0.0), "nominal", "diverging", 0.5, 2.0, False, 0.0, (False, False), 1e-5,
+                          (0.1, 0.2), 2))
+    level, text = warned.level()
+    assert level == DiagnosticStatus.WARN and "diverging 1x (warn only)" in text

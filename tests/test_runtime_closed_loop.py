@@ -147,6 +147,8 @@ def test_csv_holds_every_step_with_named_columns(tmp_path):
 @pytest.mark.parametrize("settings, words", [
     (SimSettings(duration=0.0), "--duration"), (SimSettings(integrator="euler"), "--integrator"),
     (SimSettings(substeps=0), "--substeps"), (SimSettings(delay=-1.0), "--delay"),
+    (SimSettings(substeps=1_000_000_000), "--substeps: expected a whole number from 1 to 1000"),
+    (SimSettings(duration=40_000.0, substeps=1000), "--substeps: 1000 sub-steps for each of 10,000,000"),
     (SimSettings(initial=[0.0]), "--initial: expected 4 values"), (SimSettings(noise=[-1.0] * 4), "--noise"),
 ])
 def test_settings_out_of_range_are_refused(settings, words):
@@ -160,3 +162,78 @@ def test_fit_decay_rate_ignores_transient_and_noise_floor():
     assert fit_decay_rate(t, e) == pytest.approx(2.0, rel=0.03)
     assert fit_decay_rate(t, np.ones_like(t)) is None
     assert fit_decay_rate(t[:3], e[:3]) is None
+
+
+def _flexible_joint_under_mismatch(**overrides):
+    """The flexible joint (Spong 1987) with its shaft 20 % softer than the design assumes."""
+    from linz_ros.runtime import WatchdogConfig
+    artifact = built_artifact((REFERENCE / "flexible_joint.yaml").read_text()
+                              + "design: {rate: 200, poles: {y: [-4, -5, -6, -7]}}\n")
+    core = ControllerCore(artifact)
+    reference = make_reference("smooth", artifact.relative_degree, core.output_values([0.0] * 4),
+                               amplitude=[1.0], duration=1.0, at=0.2)
+    config = WatchdogConfig.from_artifact(artifact, **overrides)
+    return artifact, simulate(artifact, SimSettings(duration=5.0, reference=reference, config=config,
+                                                    plant_parameters=mismatched_parameters(artifact, {"k": -20.0})))
+
+
+def test_a_run_that_leaves_its_envelope_is_flagged_as_it_happens():
+    artifact, result = _flexible_joint_under_mismatch()
+    summary = result.summary()
+    from linz_ros.runtime.closed_loop import outside_envelope
+    assert not outside_envelope(artifact, result.x[:1], 0.1).any()
+    first_out = result.t[np.flatnonzero(outside_envelope(artifact, result.x, 0.1))[0]]
+    assert np.max(np.abs(result.x[:, [0, 2]])) > 1.8                        # q1 or q2 beyond 1.5 widened by 10 %
+    k = int(np.flatnonzero(result.alarm_mask() & 1)[0])
+    assert result.t[k] == pytest.approx(first_out, abs=result.period)     # the watchdog saw it at once
+    assert result.reason[k] == "outside_envelope" and result.mode[k] == "safe"
+    assert summary["verdict"] in ("diverged", "left_envelope") and summary["verdict_at"] is not None
+    assert summary["alarm_steps"]["outside_envelope"] > 0
+    assert summary["outputs"]["y"]["decay_rate"] is None                    # never a decay rate for this
+    assert any("outside_envelope first at t" in note for note in summary["notes"])
+
+
+def test_with_the_watchdogs_warning_only_the_run_still_reads_as_diverged():
+    artifact, result = _flexible_joint_under_mismatch(envelope_action="warn", divergence_action="warn")
+    summary = result.summary()
+    assert summary["verdict"] in ("left_envelope", "diverged")
+    assert summary["alarm_steps"]["outside_envelope"] > 0
+    assert summary["time_in_mode"]["safe"] == 0.0 and "outside_envelope" in summary["reasons"]
+    assert summary["outputs"]["y"]["decay_rate"] is None
+
+
+def test_the_nominal_run_tracks_and_reports_its_decay_rate():
+    artifact, result = _flexible_joint_under_mismatch()
+    nominal = simulate(artifact, SimSettings(duration=5.0, reference=result.reference))
+    summary = nominal.summary()
+    assert (summary["verdict"], summary["verdict_at"]) == ("tracked", None)
+    assert summary["outputs"]["y"]["decay_rate"] is not None
+    assert summary["alarm_steps"] == {"outside_envelope": 0, "diverging": 0}
+
+
+def test_verdicts_for_held_safe_saturated_and_not_settled():
+    from linz_ros.runtime import WatchdogConfig, run_verdict
+    artifact = built_artifact(BUNDLED / "mast_camera.yaml")
+    core = ControllerCore(artifact)
+    y0 = core.output_values([0.0] * 4)
+    move = make_reference("smooth", artifact.relative_degree, y0, amplitude=[0.8, -0.4], duration=2.0, at=0.25)
+    assert run_verdict(simulate(artifact, SimSettings(duration=3.0, reference=move))).word == "tracked"
+    cut = simulate(artifact, SimSettings(duration=3.0, reference=move, config=WatchdogConfig.from_artifact(
+        artifact, input_limits=((-0.05, 0.05), (-0.05, 0.05)))))
+    assert run_verdict(cut).word in ("saturated", "held_safe", "left_envelope")
+    step = make_reference("step", artifact.relative_degree, y0, amplitude=[0.3, 0.0], at=0.0)
+    short = simulate(artifact, SimSettings(duration=0.3, reference=step))      # ends mid-transient
+    assert run_verdict(short).word == "not_settled"
+    stop = WatchdogConfig.from_artifact(artifact, sigma_warn=1e9, sigma_act=1e9, sigma_stop=1e9)
+    held = run_verdict(simulate(artifact, SimSettings(duration=0.5, config=stop)))
+    assert (held.word, held.at) == ("held_safe", 0.0)
+
+
+def test_the_adaptive_integrator_has_a_budget():
+    from linz_ros.runtime.plant import IntegrationBudgetError, NumericPlant
+    artifact = built_artifact(BUNDLED / "pick_arm.yaml")
+    plant = NumericPlant(artifact)
+    with pytest.raises(IntegrationBudgetError, match="more than 20,000 evaluations"):
+        plant.adaptive([0.4, 1.2, 1e6, 0.0], [0.0, 0.0], 0.002)   # Coriolis terms ~ w1^2 = 1e12
+    result = simulate(artifact, SimSettings(duration=0.05, integrator="scipy", initial=[0.4, 1.2, 1e6, 0.0]))
+    assert result.diverged_at is not None and "adaptive integrator needed more than" in result.summary()["notes"][-1]

@@ -24,9 +24,12 @@ def _sigma_numpy(core, x):
 
 
 def test_a_trajectory_through_the_singular_set_switches_modes_as_specified(arm):
-    # the stretched arm (q2 = 0) is singular for the tool point: sigma_min ~ |sin q2|
-    core = ControllerCore(arm)
+    # the stretched arm (q2 = 0) is singular for the tool point: sigma_min ~ |sin q2|; the path
+    # leaves the envelope (q2 >= 0.15, widened by 10 % of its range), where the envelope watchdog
+    # is set to warn so the singularity watchdog alone decides the mode
+    core = ControllerCore(arm, WatchdogConfig.from_artifact(arm, envelope_action="warn"))
     c = core.config
+    low = c.widened_envelope()[1][1]
     q2_path = np.concatenate([np.linspace(0.9, -0.4, 400), np.linspace(-0.4, 0.9, 400)])
     ref = core.hold_reference([0.4, 0.9, 0.0, 0.0])
     seen, previous = [], None
@@ -40,7 +43,10 @@ def test_a_trajectory_through_the_singular_set_switches_modes_as_specified(arm):
         expected = ("safe" if sigma < c.sigma_stop else "damped" if sigma < c.sigma_act else "nominal")
         assert record.mode == expected, (q2, sigma)
         assert record.warn == (sigma < c.sigma_warn)
-        assert record.reason == {"safe": "singular", "damped": "near_singular", "nominal": "ok"}[expected]
+        outside = q2 < low
+        assert record.alarms == int(outside)
+        nominal = "outside_envelope" if outside else "ok"
+        assert record.reason == {"safe": "singular", "damped": "near_singular", "nominal": nominal}[expected]
         assert all(math.isfinite(v) for v in u) and len(u) == 2
         assert record.compute_time > 0
         if expected == "safe":
@@ -189,17 +195,17 @@ def test_fixed_safe_command_and_staleness(arm):
 
 
 def test_watchdog_settings_are_checked(arm):
-    with pytest.raises(ConfigError, match="sigma_act: expected sigma_warn >= sigma_act >= sigma_stop"):
+    with pytest.raises(ConfigError, match="sigma_act: 100 is above sigma_warn .*; expected sigma_warn >= sigma_act"):
         WatchdogConfig.from_artifact(arm, sigma_act=100.0)
     with pytest.raises(ConfigError, match="unknown watchdog setting"):
         WatchdogConfig.from_artifact(arm, sigma_wran=1.0)
-    with pytest.raises(ConfigError, match="rate_limits: expected 2 positive numbers"):
+    with pytest.raises(ConfigError, match="rate_limits: expected 2 entries, one per input, got 1"):
         WatchdogConfig.from_artifact(arm, rate_limits=(1.0,))
-    with pytest.raises(ConfigError, match="damping: expected a positive number"):
+    with pytest.raises(ConfigError, match="damping: expected a number > 0, got 0"):
         WatchdogConfig.from_artifact(arm, damping=0.0)
     with pytest.raises(ConfigError, match="parameters: expected 9 finite values"):
         ControllerCore(arm, parameters=[1.0])
-    with pytest.raises(ConfigError, match="damping: expected a number >= 0, got '0.1'"):
+    with pytest.raises(ConfigError, match="damping: expected a number, got '0.1'"):
         WatchdogConfig.from_artifact(arm, damping="0.1")
     with pytest.raises(ConfigError, match="max_dt: expected a positive number"):
         WatchdogConfig.from_artifact(arm, max_dt=0.0)
@@ -358,8 +364,9 @@ def test_the_six_joint_arm_core_step_is_computed_torque():
 
     plant = load_plant(BUNDLED / "loader_arm.yaml")
     artifact = built_artifact(BUNDLED / "loader_arm.yaml")
-    core = ControllerCore(artifact)
-    core.config = core.config.with_overrides(input_limits=tuple((-1e9, 1e9) for _ in range(6)))
+    # random states over [-1, 1] leave the arm's envelope: the envelope watchdog only warns here
+    core = ControllerCore(artifact, WatchdogConfig.from_artifact(
+        artifact, envelope_action="warn", input_limits=tuple((-1e9, 1e9) for _ in range(6))))
     evaluate = numeric_function(list(plant.states) + list(plant.parameters),
                                 [list(plant.mechanics.M), list(plant.mechanics.F)])
     gains = [np.asarray(g) for g in artifact.gains]
@@ -408,3 +415,86 @@ def test_a_state_whose_sum_overflows_is_still_finite():
 
     assert _all_finite([1e308, 1e308, -1.0]) and _all_finite([]) and _all_finite((0.5,))
     assert not _all_finite([1.0, math.nan]) and not _all_finite([math.inf, -math.inf]) and not _all_finite([1e308, math.inf])
+
+
+def test_an_accepted_future_stamp_does_not_lock_out_the_states_after_it(arm):
+    # one state stamped 0.24 s ahead (inside a 0.3 s tolerance) used to make every state up to
+    # that stamp "out of order": 0.24 s of safe command
+    core = ControllerCore(arm, WatchdogConfig.from_artifact(arm, future_tolerance=0.3))
+    x = [0.4, 1.2, 0.0, 0.0]
+    ref = core.hold_reference(x)
+    assert core.step(x, ref, t=1.0, now=1.0)[1].mode == "nominal"
+    assert core.step(x, ref, t=1.24, now=1.002)[1].mode == "nominal"      # skewed, accepted
+    for k in range(2, 50):
+        now = 1.002 + 0.002 * k
+        u, record = core.step(x, ref, t=now, now=now)
+        assert (record.mode, record.reason) == ("nominal", "ok"), k
+    u, record = core.step(x, ref, t=now, now=now)                         # a true repeat is still refused
+    assert record.reason == "out_of_order"
+
+
+def test_the_envelope_watchdog_acts_outside_the_widened_envelope_only(arm):
+    core = ControllerCore(arm)
+    config = core.config
+    (i, lo, hi), = [b for b in config.widened_envelope() if b[0] == 1]
+    assert (lo, hi) == pytest.approx((0.15 - 0.1 * 2.45, 2.6 + 0.1 * 2.45))     # q2: [0.15, 2.6] widened 10 %
+    x = [0.4, 1.2, 0.0, 0.0]
+    ref = core.hold_reference(x)
+    inside = core.step([0.4, hi - 1e-9, 0.0, 0.0], ref, t=0.002)[1]
+    assert (inside.mode, inside.alarms) == ("nominal", 0)
+    u, outside = core.step([0.4, hi + 1e-6, 0.0, 0.0], ref, t=0.004)
+    assert (outside.mode, outside.reason, outside.alarms) == ("safe", "outside_envelope", 1)
+    assert u == [0.0, 0.0] and math.isfinite(outside.sigma_min)
+    back = core.step(x, ref, t=0.006)[1]
+    assert (back.mode, back.reason, back.alarms) == ("nominal", "ok", 0)     # not latched
+    warn = ControllerCore(arm, config.with_overrides(envelope_action="warn"))
+    u, flagged = warn.step([0.4, hi + 1e-6, 0.0, 0.0], ref, t=0.002)
+    assert (flagged.mode, flagged.reason, flagged.alarms) == ("nominal", "outside_envelope", 1)
+    assert u != [0.0, 0.0]
+
+
+def test_the_divergence_watchdog_trips_on_a_growing_error_and_latches_until_reset(arm):
+    core = ControllerCore(arm, WatchdogConfig.from_artifact(arm, divergence_error=(0.01, 0.01),
+                                                          divergence_time=0.1, envelope_action="warn"))
+    x = [0.4, 1.2, 0.0, 0.0]
+    y = core.output_values(x)
+    p = [y[0], 0.0, 0.0, y[1], 0.0, 0.0]
+    records = []
+    for k in range(200):                      # the reference runs away from the arm: 0.2 m/s
+        t = 0.002 * (k + 1)
+        ref = [y[0] + 0.2 * t, 0.0, 0.0, y[1], 0.0, 0.0]
+        records.append(core.step(x, ref, t=t)[1])
+    crossed = next(k for k, r in enumerate(records) if abs(0.2 * 0.002 * (k + 1)) > 0.01)
+    first = next(k for k, r in enumerate(records) if r.alarms & 2)
+    assert records[first].t - records[crossed].t == pytest.approx(0.1, abs=0.0021)
+    assert all(r.mode == "nominal" for r in records[:first])
+    assert all((r.mode, r.reason) == ("safe", "diverging") for r in records[first:])
+    back = core.step(x, p, t=1.0)[1]
+    assert (back.mode, back.reason) == ("safe", "diverging")             # latched: the model is wrong
+    core.reset()
+    assert core.step(x, p, t=1.002)[1].mode == "nominal"
+
+
+def test_a_large_error_that_decays_is_a_transient_not_divergence(arm):
+    core = ControllerCore(arm, WatchdogConfig.from_artifact(arm, divergence_error=(0.01, 0.01),
+                                                          divergence_time=0.05))
+    x = [0.4, 1.2, 0.0, 0.0]
+    y = core.output_values(x)
+    for k in range(200):                      # error 0.1 falling to zero: above the bound for 0.36 s
+        t = 0.002 * (k + 1)
+        offset = max(0.0, 0.1 - 0.25 * t)
+        u, record = core.step(x, [y[0] + offset, 0.0, 0.0, y[1], 0.0, 0.0], t=t)
+        assert record.alarms == 0 and record.mode == "nominal", t
+
+
+def test_watchdog_changes_reach_the_envelope_and_divergence_checks(arm):
+    core = ControllerCore(arm)
+    x_out = [0.4, 3.2, 0.0, 0.0]
+    ref = core.hold_reference([0.4, 1.2, 0.0, 0.0])
+    assert core.step(x_out, ref, t=0.002)[1].reason == "outside_envelope"
+    core.config = core.config.with_overrides(envelope_margin=0.5)
+    assert core.step(x_out, ref, t=0.004)[1].reason == "ok"
+    with pytest.raises(ConfigError, match="divergence_error: expected 2 bounds, one per output"):
+        core.config = core.config.with_overrides(divergence_error=(1.0,))
+    with pytest.raises(ConfigError, match="envelope_action: expected one of warn, safe, got 'stop'"):
+        WatchdogConfig.from_artifact(arm, envelope_action="stop")

@@ -282,3 +282,21 @@ def test_without_the_mcap_package_the_nodes_run_and_a_field_log_is_refused_by_na
     assert lines[1].startswith("refused: field_log_folder: a field log needs the Python package mcap ") and \
         "pip install mcap mcap-ros2-support" in lines[1], lines
     assert not (tmp_path / "log").exists() or not any((tmp_path / "log").iterdir())
+
+
+def test_a_fast_run_is_cut_into_chunks_by_record_count_so_one_flipped_byte_loses_one_chunk(tmp_path):
+    from linz_ros.runtime.fieldlog import CHUNK_RECORDS
+    writer = _writer(tmp_path)                       # the default flush period: 5000 records come far faster
+    for k in range(5000):
+        assert writer.put(_row(k), log_time_ns=10**18 + k * 2_000_000)
+    path = writer.close().path
+    data = bytearray(path.read_bytes())
+    data[len(data) // 2] ^= 0x10                     # one flipped bit in the middle of the file
+    damaged = tmp_path / "flipped.mcap"
+    damaged.write_bytes(bytes(data))
+    log = read_logs([damaged])
+    assert 5000 - CHUNK_RECORDS <= len(log) < 5000
+    assert any("1 damaged chunk(s) skipped" in p for p in log.problems), log.problems
+    kept = set(log.sequence.tolist())                # what is lost is one run of consecutive records
+    lost = sorted(set(range(5000)) - kept)
+    assert lost == list(range(lost[0], lost[0] + len(lost)))

@@ -56,3 +56,11 @@ def test_a_mechanical_artifact_integrates_like_the_explicit_one():
     x0 = [0.0, 0.0, 0.3, 1.0, 0.1, 0.2]
     assert vectorial.rk4(x0, [30.0, 2.0], 0.01, 100) == pytest.approx(explicit.rk4(x0, [30.0, 2.0], 0.01, 100),
                                                                       rel=1e-10)
+
+
+def test_a_name_given_twice_is_refused_not_overwritten():
+    """``--mismatch k=1 --mismatch k=2`` silently kept the last value."""
+    with pytest.raises(ConfigError, match=r"^--mismatch: k given twice$"):
+        parse_assignments(["k=1", "k=2"], "--mismatch")
+    with pytest.raises(ConfigError, match=r"^--initial: x1 given twice$"):
+        parse_assignments(["x1=0.1,x1=0.2"], "--initial")

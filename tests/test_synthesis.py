@@ -295,3 +295,23 @@ def test_designs_that_cannot_be_built_are_one_line(text, options, words):
     message = str(info.value)
     assert words in message and "\n" not in message
     assert message.startswith(("p.yaml", "<command line>"))
+
+
+def test_poles_are_kept_in_the_order_given():
+    plant = load_plant(BUNDLED / "mast_camera.yaml")
+    design = synthesise(plant, DesignOptions(poles={"pan_angle": [-3, -5], "tilt_angle": [-2 - 1j, -2 + 1j]}))
+    pan, tilt = design.chains
+    np.testing.assert_allclose(pan.poles, [-3, -5], atol=1e-9)
+    np.testing.assert_allclose(tilt.poles, [-2 - 1j, -2 + 1j], atol=1e-9)
+
+
+def test_absurd_lqr_weights_are_refused_in_one_line_without_a_solver_warning():
+    import warnings
+    plant = load_plant(BUNDLED / "mast_camera.yaml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        with pytest.raises(DesignError, match=r"<command line>: --lqr-q: weight 1e\+308 is outside "
+                                              r"\[1e-12, 1e\+12\] \(or 0\)"):
+            synthesise(plant, DesignOptions(lqr={"q": [1e308, 1, 1, 1]}))
+        with pytest.raises(DesignError, match=r"--lqr-r: weight 1e-20 is outside"):
+            synthesise(plant, DesignOptions(lqr={"r": [1e-20, 1]}))

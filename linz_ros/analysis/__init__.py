@@ -8,6 +8,7 @@ Report                the result, with ``to_json()`` for the command-line contra
 analyse_input_state   input-state verdict, distributions D_k, indices, linearizing output
 analyse_input_output  relative degree, decoupling matrix, singular set, zero dynamics
 sample_envelope       conditioning of a matrix over the operating envelope
+output_ranges         range of each output over the envelope (default divergence bounds)
 invariant_zeros       finite zeros of a square linear system
 controllability_indices  Kronecker indices from the ranks of D_k
 plant_context         parameters and random envelope points for numeric decisions
@@ -16,7 +17,7 @@ mechanical_terms      numeric M, F, B, J and J M^-1 B of a mechanical plant
 """
 
 from linz_ros.analysis._common import plant_context
-from linz_ros.analysis._envelope import EnvelopeResult, sample_envelope
+from linz_ros.analysis._envelope import EnvelopeResult, envelope_points, output_ranges, sample_envelope
 from linz_ros.analysis._input_output import (InputOutputResult, ZeroDynamics, analyse_input_output,
                                              decoupling_terms, invariant_zeros)
 from linz_ros.analysis._input_state import (DistributionInfo, InputStateResult, analyse_input_state,
@@ -27,7 +28,7 @@ from linz_ros.analysis._report import Report, analyse, render_text
 
 __all__ = [
     "analyse", "render_text", "Report", "analyse_input_state", "analyse_input_output",
-    "sample_envelope", "invariant_zeros", "controllability_indices", "relative_degree_of",
+    "sample_envelope", "envelope_points", "output_ranges", "invariant_zeros", "controllability_indices", "relative_degree_of",
     "decoupling_terms", "lie_chain", "DistributionInfo", "InputStateResult", "InputOutputResult",
     "ZeroDynamics", "EnvelopeResult", "plant_context", "MechanicalTerms", "mechanical_terms",
 ]

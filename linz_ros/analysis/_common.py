@@ -69,6 +69,44 @@ def show_bounded(expr: sp.Expr, limit: int = SHOW_BUDGET) -> str:
     return show(expr)
 
 
+def count(number: int, noun: str, plural: str = "") -> str:
+    """``1 input``, ``2 inputs``: a number with its noun in the right form.
+
+    Parameters
+    ----------
+    number : int
+    noun : str
+        The singular.
+    plural : str
+        The plural when not ``noun + "s"``.
+
+    Returns
+    -------
+    str
+
+    Examples
+    --------
+    >>> count(1, "input"), count(3, "output"), count(2, "matrix", "matrices")
+    ('1 input', '3 outputs', '2 matrices')
+    """
+    return f"{number} {noun if number == 1 else (plural or noun + 's')}"
+
+
+def names_are(names: list[str], noun: str) -> str:
+    """``output y is`` or ``outputs y1, y2 are``.
+
+    Parameters
+    ----------
+    names : list of str
+    noun : str
+
+    Returns
+    -------
+    str
+    """
+    return f"{noun} {names[0]} is" if len(names) == 1 else f"{noun}s {', '.join(names)} are"
+
+
 def depends_on_states(expr: sp.Expr, plant: Plant) -> bool:
     """True when ``expr`` contains a state symbol."""
     return bool(sp.sympify(expr).free_symbols & set(plant.states))

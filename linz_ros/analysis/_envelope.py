@@ -11,7 +11,7 @@ import sympy as sp
 
 from linz_ros.model import Plant
 
-__all__ = ["EnvelopeResult", "sample_envelope"]
+__all__ = ["EnvelopeResult", "sample_envelope", "envelope_points", "output_ranges"]
 
 
 @dataclass
@@ -38,7 +38,8 @@ class EnvelopeResult:
 
 def _evaluate_batch(matrix: sp.Matrix, plant: Plant, points: np.ndarray) -> np.ndarray:
     """Evaluate ``matrix`` at K points (K x n) -> K x rows x cols, nan where undefined."""
-    entries = list(sp.Matrix(matrix).subs(plant.nominal))
+    # an entry undefined at the nominal values (zoo) evaluates to nan, as at a singular point
+    entries = [e.xreplace({sp.zoo: sp.nan}) for e in sp.Matrix(matrix).subs(plant.nominal)]
     fn = sp.lambdify([plant.states], entries, modules="numpy", dummify=True, cse=True)
     count = points.shape[0]
     with np.errstate(all="ignore"):
@@ -47,6 +48,62 @@ def _evaluate_batch(matrix: sp.Matrix, plant: Plant, points: np.ndarray) -> np.n
     stacked = np.stack(columns, axis=1)
     real = np.where(np.abs(stacked.imag) > 1e-12 * (1 + np.abs(stacked.real)), np.nan, stacked.real)
     return real.reshape(count, *matrix.shape)
+
+
+def envelope_points(plant: Plant, samples: int = 1024, seed: int = 7) -> tuple[np.ndarray, list[int]]:
+    """Points over the plant's envelope (scrambled Sobol); unbounded states at the operating point.
+
+    Parameters
+    ----------
+    plant : Plant
+    samples : int
+        Rounded up to a power of two (Sobol balance).
+    seed : int
+
+    Returns
+    -------
+    points : numpy.ndarray
+        K x n.
+    bounded : list of int
+        Indices of the states the envelope bounds.
+    """
+    bounded = [i for i, s in enumerate(plant.states) if s.name in plant.envelope]
+    base = np.asarray(plant.operating_vector(), dtype=float)
+    power = max(0, int(np.ceil(np.log2(max(samples, 1)))))
+    unit = qmc.Sobol(d=len(bounded), scramble=True, seed=seed).random_base2(power)
+    lower = np.array([plant.envelope[plant.states[i].name][0] for i in bounded])
+    upper = np.array([plant.envelope[plant.states[i].name][1] for i in bounded])
+    points = np.tile(base, (unit.shape[0], 1))
+    points[:, bounded] = qmc.scale(unit, lower, upper)
+    return points, bounded
+
+
+def output_ranges(plant: Plant, outputs: list[sp.Expr], samples: int = 256) -> list[float] | None:
+    """Range (max - min) of each output over the envelope, or None without an envelope.
+
+    Parameters
+    ----------
+    plant : Plant
+    outputs : list of sympy.Expr
+        Functions of the states.
+    samples : int
+
+    Returns
+    -------
+    list of float or None
+        None also when an output is nowhere finite over the samples.
+    """
+    if not plant.envelope:
+        return None
+    points, _ = envelope_points(plant, samples)
+    values = _evaluate_batch(sp.Matrix(outputs), plant, points)[:, :, 0]
+    ranges = []
+    for column in values.T:
+        finite = column[np.isfinite(column)]
+        if finite.size == 0:
+            return None
+        ranges.append(float(np.ptp(finite)))
+    return ranges
 
 
 def sample_envelope(plant: Plant, matrix: sp.Matrix | Callable[[np.ndarray], np.ndarray], subject: str,
@@ -72,14 +129,7 @@ def sample_envelope(plant: Plant, matrix: sp.Matrix | Callable[[np.ndarray], np.
     -------
     EnvelopeResult
     """
-    bounded = [i for i, s in enumerate(plant.states) if s.name in plant.envelope]
-    base = np.asarray(plant.operating_vector(), dtype=float)
-    power = max(0, int(np.ceil(np.log2(max(samples, 1)))))
-    unit = qmc.Sobol(d=len(bounded), scramble=True, seed=seed).random_base2(power)
-    lower = np.array([plant.envelope[plant.states[i].name][0] for i in bounded])
-    upper = np.array([plant.envelope[plant.states[i].name][1] for i in bounded])
-    points = np.tile(base, (unit.shape[0], 1))
-    points[:, bounded] = qmc.scale(unit, lower, upper)
+    points, bounded = envelope_points(plant, samples, seed)
     values = matrix(points) if callable(matrix) else _evaluate_batch(matrix, plant, points)
     finite = np.all(np.isfinite(values), axis=(1, 2))
     method = f"scrambled Sobol, {points.shape[0]} points over {len(bounded)} bounded state(s)"

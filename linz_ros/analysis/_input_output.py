@@ -9,8 +9,8 @@ import numpy as np
 import scipy.linalg
 import sympy as sp
 
-from linz_ros.analysis._common import show, tidy
-from linz_ros.analysis._input_state import lie_chain, state_factors
+from linz_ros.analysis._common import count, names_are, show, tidy
+from linz_ros.analysis._input_state import EVERYWHERE, lie_chain, state_factors
 from linz_ros.geometry import NumericContext, evaluate, generic_rank, lie_derivative, rank_at
 from linz_ros.model import Plant
 
@@ -57,11 +57,20 @@ class InputOutputResult:
     zero_dynamics_order: int | None = None
     zero_dynamics: ZeroDynamics | None = None
     decoupling_structure: dict[str, Any] | None = None   # mechanical plants: A = J M^-1 B
+    summary: str = ""            # the reason in a few words, for the verdict line
+
+    @property
+    def linearizable(self) -> bool | None:
+        """True with a relative degree here, None when undecided (the reason says why), else False."""
+        if self.relative_degree is not None:
+            return True
+        return None if self.reason.startswith("could not decide") else False
 
     def to_json(self) -> dict[str, Any]:
         A = self.decoupling_matrix
         return {
             "outputs": self.outputs,
+            "linearizable": self.linearizable,
             "relative_degree": self.relative_degree,
             "relative_degree_generic": self.relative_degree_generic,
             "reason": self.reason,
@@ -69,6 +78,7 @@ class InputOutputResult:
                                                           for i in range(A.shape[0])],
             "singular_set": None if self.singular_set is None else show(self.singular_set),
             "singular_set_empty": None if self.singular_set is None else self.singular_set == 1,
+            "singular_set_everywhere": None if self.singular_set is None else self.singular_set == EVERYWHERE,
             "singular_set_note": self.singular_set_note,
             "zero_dynamics_order": self.zero_dynamics_order,
             "zero_dynamics": None if self.zero_dynamics is None else self.zero_dynamics.to_json(),
@@ -136,21 +146,25 @@ def analyse_input_output(plant: Plant, ctx: NumericContext) -> InputOutputResult
     if A is None:
         lost = [names[i] for i, d in enumerate(degrees) if d is None]
         return InputOutputResult(names, None, degrees,
-                                 f"output(s) {', '.join(lost)} are not affected by any input "
-                                 f"within {plant.n} derivatives (infinite relative degree)")
+                                 f"{names_are(lost, 'output')} not affected by any input "
+                                 f"within {count(plant.n, 'derivative')} (infinite relative degree)",
+                                 summary=f"{names_are(lost, 'output')} not reached by any input")
     result = InputOutputResult(names, None, degrees, "", decoupling_matrix=A, drift_terms=b, chains=chains)
     if p > m:
-        result.reason = f"{p} outputs but only {m} inputs: the decoupling matrix cannot have full row rank"
+        result.reason, result.summary = more_outputs_than_inputs(p, m)
         return result
     result.singular_set, result.singular_set_note = _singular_set(A, plant, ctx)
     generic = generic_rank(A, ctx)
     at_point = rank_at(A, ctx, plant.operating_vector())
     if generic.rank is None or at_point is None:
         result.reason = "could not decide: the decoupling matrix is not finite at the operating point"
+        result.summary = "the decoupling matrix is not finite at the operating point"
         return result
     if generic.rank < p:
         result.reason = (f"the decoupling matrix has rank {generic.rank} < {p} everywhere: the outputs "
                          "cannot be decoupled by static feedback (dynamic extension may help)")
+        result.summary = "the decoupling matrix is singular everywhere"
+        result.singular_set = EVERYWHERE
         return result
     total = sum(degrees)
     result.zero_dynamics_order = plant.n - total
@@ -159,12 +173,30 @@ def analyse_input_output(plant: Plant, ctx: NumericContext) -> InputOutputResult
                 f"the decoupling matrix has rank {at_point} < {p}")
         result.reason = (f"relative degree not defined at the operating point: {what} there "
                          f"(it lies on the singular set); generic relative degree {degrees}")
+        result.summary = "relative degree not defined at the operating point (on the singular set)"
         return result
     result.relative_degree = list(degrees)
     result.reason = (f"relative degree {degrees} at the operating point; "
                      f"zero dynamics of order {result.zero_dynamics_order}")
     result.zero_dynamics = _zero_dynamics(plant, result.zero_dynamics_order, ctx)
     return result
+
+
+def more_outputs_than_inputs(p: int, m: int) -> tuple[str, str]:
+    """The reason (and its summary) why p > m outputs cannot be linearized by static feedback.
+
+    Parameters
+    ----------
+    p, m : int
+        Numbers of outputs and inputs.
+
+    Returns
+    -------
+    reason, summary : str
+    """
+    return (f"{count(p, 'output')} but {count(m, 'input')}: the decoupling matrix is {p} x {m} and cannot have "
+            f"full row rank; give as many outputs as inputs (a square decoupling matrix)",
+            f"{count(p, 'output')} but {count(m, 'input')}: give as many outputs as inputs")
 
 
 def _singular_set(A: sp.Matrix, plant: Plant, ctx: NumericContext) -> tuple[sp.Expr | None, str]:

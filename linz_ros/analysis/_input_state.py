@@ -14,7 +14,12 @@ from linz_ros.geometry import (NumericContext, bracket_blocks, evaluate, evaluat
                                lie_derivative, numeric_rank, sampled_rank)
 from linz_ros.model import Plant
 
-__all__ = ["DistributionInfo", "InputStateResult", "analyse_input_state", "relative_degree_of", "lie_chain"]
+__all__ = ["DistributionInfo", "InputStateResult", "analyse_input_state", "relative_degree_of", "lie_chain",
+           "EVERYWHERE", "state_factors", "describe_singular_set"]
+
+#: The singular-set expression of a matrix singular everywhere: its zero set is every state
+#: (``1``, never zero, means nowhere).
+EVERYWHERE = sp.Integer(0)
 
 
 @dataclass
@@ -57,6 +62,7 @@ class InputStateResult:
             "linearizing_outputs": [show(e) for e in self.linearizing_outputs],
             "linearizing_output_note": self.linearizing_output_note,
             "singular_set": None if self.singular_set is None else show(self.singular_set),
+            "singular_set_everywhere": None if self.singular_set is None else self.singular_set == EVERYWHERE,
         }
 
 
@@ -143,6 +149,8 @@ def analyse_input_state(plant: Plant, ctx: NumericContext) -> InputStateResult:
         result.controllability_indices = controllability_indices(ranks, m)
     if m == 1:
         result.singular_set = _controllability_singular_set(plant, generators, ctx)
+        if infos[-1].rank_generic is not None and infos[-1].rank_generic < n:
+            result.singular_set = EVERYWHERE
         if result.linearizable:
             # a coordinate x_i can only work if row i of D_(n-2) vanishes at the samples
             annihilating = [i for i in range(n) if np.allclose(at_samples[:, i, : n - 1], 0.0)
@@ -252,22 +260,59 @@ def _controllability_singular_set(plant: Plant, generators: list[sp.Matrix], ctx
 def state_factors(expr: sp.Expr, plant: Plant) -> sp.Expr:
     """The state-dependent factors of the numerator of ``expr``: where it vanishes.
 
-    Constant and parameter-only factors are dropped, and so are factors that sympy
-    proves positive or negative for all real states at the nominal parameters (sums of
-    squares such as det M); ``1`` means "nowhere".
+    Constant and parameter-only factors are dropped when nonzero at the nominal
+    parameters, and so are factors that sympy proves positive or negative for all real
+    states there (sums of squares such as det M). ``1`` means "nowhere"; ``0`` means
+    "everywhere" (:data:`EVERYWHERE`): a factor, or the whole expression, that is zero at
+    the nominal parameters.
+
+    Examples
+    --------
+    >>> from linz_ros.model import plant_from_text
+    >>> plant = plant_from_text("plant: p\\nstates: [x]\\ninputs: [u]\\nparameters: {a: 0}\\ndynamics: {x: u}")
+    >>> x, a = plant.states[0], list(plant.parameters)[0]
+    >>> state_factors(a * sp.cos(x) ** 2, plant), state_factors(2 * sp.cos(x), plant)
+    (0, cos(x))
     """
     numerator, _ = sp.fraction(sp.cancel(sp.together(expr)))
-    _, factors = sp.factor_list(numerator)
+    coefficient, factors = sp.factor_list(numerator)
+    if coefficient == 0:
+        return EVERYWHERE
     kept = sp.Integer(1)
     for factor, _power in factors:
         factor = tidy(factor)
-        if not depends_on_states(factor, plant):
-            continue
         nominal = factor.subs(plant.nominal)
+        if not depends_on_states(factor, plant):
+            if nominal == 0:
+                return EVERYWHERE
+            continue
+        if nominal == 0:
+            return EVERYWHERE
         if nominal.is_positive or nominal.is_negative:
             continue
         kept *= factor
     return -kept if kept.could_extract_minus_sign() else kept
+
+
+def describe_singular_set(expr: sp.Expr, what: str = "") -> str:
+    """The singular set in words: ``nowhere``, ``everywhere (...)`` or ``where s(x) = 0``.
+
+    Parameters
+    ----------
+    expr : sympy.Expr
+        As returned by :func:`state_factors`.
+    what : str
+        The determinant or coefficient it came from, named for "everywhere".
+
+    Returns
+    -------
+    str
+    """
+    if expr == 1:
+        return "nowhere"
+    if expr == EVERYWHERE:
+        return f"everywhere ({what or 'it'} = 0 at every state, at the nominal parameters)"
+    return f"where {show(expr)} = 0"
 
 
 def relative_degree_of(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[int | None, sp.Expr]:
@@ -337,24 +382,39 @@ def find_linearizing_output(plant: Plant, generators: list[sp.Matrix], ctx: Nume
         candidates.append(plant.h[0])
     D = sp.Matrix.hstack(*generators[: n - 1]) if n > 1 else sp.zeros(n, 0)
     unique = list(dict.fromkeys(candidates))
-    found = [c for c in unique if _is_linearizing_output(c, plant, ctx)]
+    undefined: list[sp.Expr] = []
+    found = [c for c in unique if _is_linearizing_output(c, plant, ctx, undefined)]
     if not found and n > 1:
         for potential in _annihilator_potentials(D, plant, ctx):
-            if _is_linearizing_output(potential, plant, ctx):
+            if _is_linearizing_output(potential, plant, ctx, undefined):
                 found.append(potential)
                 break
+    skipped = ("; " + ", ".join(show(c) for c in undefined) + " would have relative degree n but "
+               + ("is" if len(undefined) == 1 else "are") + " undefined at the operating point") if undefined else ""
     if found:
-        return found[:3], "verified: relative degree n with L_g L_f^(n-1) T1 nonzero at the operating point"
-    return [], ("none found by the search (coordinates, the plant's output, exact annihilators); "
-                "supply a candidate output in the plant file's outputs to have it checked")
+        return found[:3], ("verified: relative degree n with L_g L_f^(n-1) T1 nonzero at the operating point"
+                           + skipped)
+    return [], ("none found by the search (coordinates, the plant's output, exact annihilators)" + skipped
+                + "; supply a candidate output in the plant file's outputs to have it checked")
 
 
-def _is_linearizing_output(candidate: sp.Expr, plant: Plant, ctx: NumericContext) -> bool:
-    degree, coefficient = relative_degree_of(candidate, plant, ctx)
+def _is_linearizing_output(candidate: sp.Expr, plant: Plant, ctx: NumericContext,
+                           undefined: list[sp.Expr] | None = None) -> bool:
+    """Relative degree n, and T1, its chain and L_g L_f^(n-1) T1 finite, the last nonzero, at x0.
+
+    A candidate of relative degree n that is not finite at x0 (``log(th)`` at th = 0) is
+    appended to ``undefined``.
+    """
+    degree, coefficient, chain = lie_chain(candidate, plant, ctx)
     if degree != plant.n:
         return False
-    value = evaluate(coefficient, ctx, plant.operating_vector())
-    return bool(abs(value[0, 0]) > 1e-9)
+    x0 = plant.operating_vector()
+    values = evaluate(sp.Matrix([*chain, coefficient[0, 0]]), ctx, x0)
+    if not np.all(np.isfinite(values)):
+        if undefined is not None:
+            undefined.append(candidate)
+        return False
+    return bool(abs(values[-1, 0]) > 1e-9)
 
 
 def _annihilator_potentials(D: sp.Matrix, plant: Plant, ctx: NumericContext):

@@ -21,9 +21,10 @@ import numpy as np
 import sympy as sp
 
 from linz_ros.analysis._common import show_bounded, small_enough
+from linz_ros.analysis._common import names_are
 from linz_ros.analysis._input_output import (InputOutputResult, ZeroDynamics, classified_zero_dynamics,
-                                             invariant_zeros)
-from linz_ros.analysis._input_state import DistributionInfo, InputStateResult, state_factors
+                                             invariant_zeros, more_outputs_than_inputs)
+from linz_ros.analysis._input_state import EVERYWHERE, DistributionInfo, InputStateResult, state_factors
 from linz_ros.geometry import NumericContext, numeric_rank
 from linz_ros.model import Plant, numeric_function
 
@@ -185,11 +186,12 @@ def analyse_mechanical_input_output(plant: Plant, terms: MechanicalTerms, ctx: N
     result = InputOutputResult(names, None, degrees, "", chains=chains, decoupling_structure=structure)
     if any(d is None for d in degrees):
         lost = [names[i] for i, d in enumerate(degrees) if d is None]
-        result.reason = (f"output(s) {', '.join(lost)}: J M^-1 B has a zero row (constant output, or an "
-                         "underactuated direction with relative degree above 2; use the explicit form)")
+        result.reason = (f"{names_are(lost, 'output')} not reached: J M^-1 B has a zero row (constant output, or "
+                         "an underactuated direction with relative degree above 2; use the explicit form)")
+        result.summary = f"{names_are(lost, 'output')} not reached by any input"
         return result
     if p > m:
-        result.reason = f"{p} outputs but only {m} inputs: the decoupling matrix cannot have full row rank"
+        result.reason, result.summary = more_outputs_than_inputs(p, m)
         return result
     result.singular_set, result.singular_set_note = _mechanical_singular_set(plant, terms)
     generic = max((numeric_rank(a) for a in A_samples if np.all(np.isfinite(a))), default=None)
@@ -197,15 +199,19 @@ def analyse_mechanical_input_output(plant: Plant, terms: MechanicalTerms, ctx: N
     at_point = numeric_rank(A_here[0]) if np.all(np.isfinite(A_here[0])) else None
     if generic is None or at_point is None:
         result.reason = "could not decide: J M^-1 B is not finite at the operating point"
+        result.summary = "J M^-1 B is not finite at the operating point"
         return result
     if generic < p:
         result.reason = (f"J M^-1 B has rank {generic} < {p} at every sample: the outputs cannot be "
                          "decoupled by static feedback")
+        result.summary = "the decoupling matrix is singular everywhere"
+        result.singular_set = EVERYWHERE
         return result
     result.zero_dynamics_order = plant.n - 2 * p
     if at_point < p:
         result.reason = (f"relative degree not defined at the operating point: J M^-1 B has rank {at_point} "
                          f"< {p} there (it lies on the singular set); generic relative degree {degrees}")
+        result.summary = "relative degree not defined at the operating point (on the singular set)"
         return result
     result.relative_degree = list(degrees)
     result.reason = (f"relative degree {degrees} at the operating point (mechanical structure, A = J M^-1 B); "

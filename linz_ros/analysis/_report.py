@@ -5,15 +5,21 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
-from linz_ros.analysis._common import plant_context, show, show_bounded
+from linz_ros.analysis._common import count, plant_context, show, show_bounded
 from linz_ros.analysis._envelope import EnvelopeResult, sample_envelope
 from linz_ros.analysis._input_output import InputOutputResult, analyse_input_output
-from linz_ros.analysis._input_state import InputStateResult, analyse_input_state, relative_degree_of
+from linz_ros.analysis._input_state import (EVERYWHERE, InputStateResult, analyse_input_state,
+                                            describe_singular_set, relative_degree_of)
 from linz_ros.analysis._mechanical import (MechanicalTerms, analyse_mechanical_input_output,
                                            analyse_mechanical_input_state, mechanical_terms)
 from linz_ros.model import Plant
 
-__all__ = ["Report", "analyse", "render_text"]
+__all__ = ["Report", "analyse", "render_text", "MAX_ANALYSIS_STATES"]
+
+#: States of an explicit plant at most for the geometric analysis: brackets and Lie
+#: derivatives grow with every order, and a linear chain of 60 integrators already takes
+#: seconds. Above it the verdicts are "could not decide", saying so.
+MAX_ANALYSIS_STATES = 30
 
 
 @dataclass
@@ -86,6 +92,8 @@ def analyse(plant: Plant, samples: int = 1024) -> Report:
     ctx = plant_context(plant)
     if plant.mechanics is not None:
         return _analyse_mechanical(plant, ctx, samples)
+    if plant.n > MAX_ANALYSIS_STATES:
+        return _beyond_budget(plant)
     input_state = analyse_input_state(plant, ctx)
     input_output = analyse_input_output(plant, ctx)
     envelope = None
@@ -94,6 +102,17 @@ def analyse(plant: Plant, samples: int = 1024) -> Report:
         if subject_matrix is not None:
             envelope = sample_envelope(plant, subject_matrix, subject, samples)
     return Report(plant, input_state, input_output, envelope)
+
+
+def _beyond_budget(plant: Plant) -> Report:
+    """The report of a plant too large for the analysis: undecided, with the budget named."""
+    reason = (f"could not decide within the budget: {plant.n} states, the geometric analysis handles at most "
+              f"{MAX_ANALYSIS_STATES}")
+    outputs = None
+    if plant.h.shape[0]:
+        outputs = InputOutputResult(list(plant.output_names), None, [None] * plant.h.shape[0], reason,
+                                    summary=reason.removeprefix("could not decide "))
+    return Report(plant, InputStateResult(None, reason), outputs, None)
 
 
 def _analyse_mechanical(plant: Plant, ctx, samples: int) -> Report:
@@ -123,6 +142,14 @@ def _yes_no(value: bool | None) -> str:
     return {True: "yes", False: "no", None: "could not decide"}[value]
 
 
+def _input_output_verdict(io: InputOutputResult) -> str:
+    """The verdict line: yes with the relative degree, or no / could not decide with the reason's summary."""
+    if io.linearizable:
+        return f"yes (relative degree {io.relative_degree})"
+    summary = io.summary or io.reason.removeprefix("could not decide: ")
+    return f"{_yes_no(io.linearizable)} ({summary})"
+
+
 def _fmt(value: float | None) -> str:
     return "n/a" if value is None else f"{value:.4g}"
 
@@ -142,15 +169,12 @@ def render_text(report: Report) -> str:
     p = report.plant
     iss, io, env = report.input_state, report.input_output, report.envelope
     at = ", ".join(f"{k}={v:g}" for k, v in p.operating_point.items())
-    lines = [f"plant {p.name}: {p.n} states, {p.m} input(s), "
-             f"{len(p.output_names)} output(s)  [{p.source}]",
+    lines = [f"plant {p.name}: {count(p.n, 'state')}, {count(p.m, 'input')}, "
+             f"{count(len(p.output_names), 'output')}  [{p.source}]",
              f"operating point: {at}", "", "VERDICT"]
     lines.append(f"  input-state linearizable:  {_yes_no(iss.linearizable)}")
     if io is not None:
-        ok = io.relative_degree is not None
-        degree = io.relative_degree if ok else "not defined here"
-        lines.append(f"  input-output linearizable: {'yes' if ok else 'no'} "
-                     f"(relative degree {degree})")
+        lines.append(f"  input-output linearizable: {_input_output_verdict(io)}")
     if env is not None and env.min_sigma is not None:
         lines.append(f"  envelope: min sigma {_fmt(env.min_sigma)}, "
                      f"max condition {_fmt(env.max_condition)}")
@@ -168,7 +192,7 @@ def render_text(report: Report) -> str:
     if iss.controllability_indices:
         lines.append(f"  controllability indices: {iss.controllability_indices}")
     if iss.singular_set is not None:
-        where = "nowhere" if iss.singular_set == 1 else f"where {show(iss.singular_set)} = 0"
+        where = describe_singular_set(iss.singular_set, f"det[g, ..., ad_f^{p.n - 1} g]")
         lines.append(f"  [g, ..., ad_f^{p.n - 1} g] loses rank {where}")
     for T1 in iss.linearizing_outputs:
         lines.append(f"  linearizing output T1 = {show(T1)}")
@@ -187,8 +211,9 @@ def render_text(report: Report) -> str:
                 row = ", ".join(show(e) for e in io.decoupling_matrix.row(i))
                 lines.append(f"    [{row}]")
         if io.singular_set is not None:
-            where = "nowhere" if io.singular_set == 1 else f"{show(io.singular_set)} = 0"
-            lines.append(f"  singular set: {where}  ({io.singular_set_note})")
+            where = describe_singular_set(io.singular_set, "det A" if len(io.outputs) > 1 else "L_g L_f^(r-1) h")
+            note = "" if io.singular_set == EVERYWHERE else f"  ({io.singular_set_note})"
+            lines.append(f"  singular set: {where.removeprefix('where ')}{note}")
         elif io.singular_set_note:
             lines.append(f"  singular set: {io.singular_set_note}")
         if io.zero_dynamics_order is not None:
@@ -210,5 +235,6 @@ def render_text(report: Report) -> str:
                          f"{' (singular sample)' if env.max_condition is None else ''}")
             lines.append(f"  median smallest singular value {_fmt(env.median_sigma)}")
         if env.skipped:
-            lines.append(f"  {env.skipped} sample(s) where the matrix is not finite were skipped")
+            lines.append(f"  {count(env.skipped, 'sample')} where the matrix is not finite "
+                         f"{'was' if env.skipped == 1 else 'were'} skipped")
     return "\n".join(lines)

@@ -22,11 +22,14 @@ Layout (format version 1)::
               law (A, b, chain), dynamics (f, G), and optionally transform (T, jacobian),
               inverse (x), singular_set (s)
     verification: points, skipped, tolerance, max_relative_residual, per_program, reference
-    sha256:   SHA-256 of the canonical JSON of everything else
+    signature: optional {algorithm: "ed25519", public_key_sha256, value (base64)}, over the
+              same canonical text as the hash (see :mod:`linz_ros.artifact.signing`)
+    sha256:   SHA-256 of the canonical JSON of everything but itself and the signature
 
 Public names
 ------------
-seal, canonical_text, content_hash, read_document, Artifact, load_artifact, FORMAT, FORMAT_VERSION
+seal, canonical_text, signed_body, content_hash, read_document, Artifact, load_artifact, FORMAT,
+FORMAT_VERSION
 """
 
 from __future__ import annotations
@@ -34,28 +37,31 @@ from __future__ import annotations
 import hashlib
 import json
 import math
+import os
 import re
 import stat
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Iterator, Sequence
 
 import numpy as np
 
 from linz_ros.artifact.compiler import Program, compile_program
+from linz_ros.artifact.watchdog import MAX_WATCHDOG_SECONDS, PLANT_FILE_SETTINGS, watchdog_problem
 from linz_ros.errors import ArtifactError
 
-__all__ = ["FORMAT", "FORMAT_VERSION", "seal", "canonical_text", "content_hash", "read_document",
+__all__ = ["FORMAT", "FORMAT_VERSION", "seal", "canonical_text", "signed_body", "content_hash", "read_document",
            "Artifact", "load_artifact", "artifact_from_text", "REQUIRED_PROGRAMS"]
 
 FORMAT = "linz_ros controller artifact"
 FORMAT_VERSION = 1
 REQUIRED_PROGRAMS = ("law", "dynamics")
-#: Longest time a watchdog setting (``stale_after``, ``hold_time``, ``future_tolerance``) may take,
-#: in seconds: an hour is past any control loop, and timers of longer periods overflow.
-MAX_WATCHDOG_SECONDS = 3600.0
-_MAX_BYTES = 64_000_000
+_MAX_BYTES = 64_000_000       # an artifact, a plant file compared with it
+_BLOCK = 1 << 20
 _SECTIONS = ("plant", "design", "analysis", "watchdog", "programs", "verification")
+#: The fields that neither the content hash nor the signature covers: themselves. A signature is
+#: added to a sealed artifact without changing its hash, and an unsigned one hashes as before.
+_UNCOVERED = ("sha256", "signature")
 
 
 def canonical_text(document: dict[str, Any]) -> str:
@@ -73,8 +79,22 @@ def canonical_text(document: dict[str, Any]) -> str:
     return json.dumps(document, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False)
 
 
+def signed_body(document: dict[str, Any]) -> dict[str, Any]:
+    """Everything the content hash and the signature cover: all but ``sha256`` and ``signature``.
+
+    Parameters
+    ----------
+    document : dict
+
+    Returns
+    -------
+    dict
+    """
+    return {k: v for k, v in document.items() if k not in _UNCOVERED}
+
+
 def content_hash(document: dict[str, Any]) -> str:
-    """SHA-256 of the canonical text of everything but the ``sha256`` field.
+    """SHA-256 of the canonical text of everything but the ``sha256`` and ``signature`` fields.
 
     Parameters
     ----------
@@ -85,17 +105,17 @@ def content_hash(document: dict[str, Any]) -> str:
     str
         Hex digest.
     """
-    body = {k: v for k, v in document.items() if k != "sha256"}
-    return hashlib.sha256(canonical_text(body).encode("ascii")).hexdigest()
+    return hashlib.sha256(canonical_text(signed_body(document)).encode("ascii")).hexdigest()
 
 
 def seal(document: dict[str, Any]) -> str:
-    """Add the content hash and return the file text (indented JSON, hash last).
+    """Add the content hash and return the file text (indented JSON, signature if any, hash last).
 
     Parameters
     ----------
     document : dict
-        A complete artifact without ``sha256``.
+        A complete artifact; a ``sha256`` in it is replaced, a ``signature`` kept (it
+        verifies only while the covered content is unchanged).
 
     Returns
     -------
@@ -108,8 +128,10 @@ def seal(document: dict[str, Any]) -> str:
     >>> json.loads(text)["sha256"] == content_hash(json.loads(text))
     True
     """
-    body = {k: v for k, v in document.items() if k != "sha256"}
-    sealed = dict(body, sha256=content_hash(body))
+    sealed = signed_body(document)
+    if "signature" in document:
+        sealed["signature"] = document["signature"]
+    sealed["sha256"] = content_hash(sealed)
     return json.dumps(sealed, indent=1, ensure_ascii=True, allow_nan=False) + "\n"
 
 
@@ -197,28 +219,61 @@ def _parse_json(text: str) -> Any:
         raise ValueError("arrays or mappings nested too deeply") from None
 
 
-def _read_bounded(path: Path, source: str) -> bytes:
-    """The file's bytes, refusing anything but a regular file of at most the size limit."""
+def _open_regular(path: Path, source: str) -> int:
+    """A descriptor of ``path``, refusing anything but a regular file of at most the size limit.
+
+    Opened without blocking (a FIFO or a device put in a file's place never hangs the
+    load) and checked on the open descriptor, so the file cannot be swapped in between.
+    """
     try:
-        info = path.stat()
+        mode = path.stat().st_mode
+        if stat.S_ISREG(mode):                          # devices are never opened: opening some acts
+            descriptor = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_NOCTTY", 0))
     except FileNotFoundError:
         raise ArtifactError(source, "no such file") from None
     except OSError as err:
-        raise ArtifactError(source, f"cannot read: {err.strerror}") from None
-    if stat.S_ISDIR(info.st_mode):
-        raise ArtifactError(source, "is a folder, not an artifact")
-    if not stat.S_ISREG(info.st_mode):
-        raise ArtifactError(source, "is not a regular file")
-    if info.st_size > _MAX_BYTES:
-        raise ArtifactError(source, f"larger than {_MAX_BYTES // 1_000_000} MB")
-    try:
-        with path.open("rb") as handle:
-            raw = handle.read(_MAX_BYTES + 1)
-    except OSError as err:
-        raise ArtifactError(source, f"cannot read: {err.strerror}") from None
-    if len(raw) > _MAX_BYTES:
-        raise ArtifactError(source, f"larger than {_MAX_BYTES // 1_000_000} MB")
-    return raw
+        raise ArtifactError(source, f"cannot read: {err.strerror or err}") from None
+    except ValueError as err:                           # a NUL byte in the name
+        raise ArtifactError(source, f"cannot read: {err}") from None
+    if not stat.S_ISREG(mode):
+        raise ArtifactError(source, "is a folder, not a file" if stat.S_ISDIR(mode) else "is not a regular file")
+    info = os.fstat(descriptor)
+    if not stat.S_ISREG(info.st_mode) or info.st_size > _MAX_BYTES:
+        os.close(descriptor)
+        raise ArtifactError(source, "is not a regular file" if not stat.S_ISREG(info.st_mode)
+                            else f"larger than {_MAX_BYTES // 1_000_000} MB")
+    return descriptor
+
+
+def _bounded_blocks(path: Path, source: str) -> Iterator[bytes]:
+    """The file's bytes in blocks (see :func:`_open_regular`); at most the size limit, whatever the
+    file says its size is (files under /proc say 0)."""
+    with os.fdopen(_open_regular(path, source), "rb", buffering=0) as handle:
+        total = 0
+        while True:
+            try:
+                block = handle.read(_BLOCK)
+            except OSError as err:
+                raise ArtifactError(source, f"cannot read: {err.strerror or err}") from None
+            if not block:
+                return
+            total += len(block)
+            if total > _MAX_BYTES:
+                raise ArtifactError(source, f"larger than {_MAX_BYTES // 1_000_000} MB")
+            yield block
+
+
+def _read_bounded(path: Path, source: str) -> bytes:
+    """The file's bytes, refusing anything but a regular file of at most the size limit."""
+    return b"".join(_bounded_blocks(path, source))
+
+
+def _bounded_sha256(path: Path, source: str) -> str:
+    """SHA-256 of a regular file of at most the size limit, read in blocks (never whole)."""
+    digest = hashlib.sha256()
+    for block in _bounded_blocks(path, source):
+        digest.update(block)
+    return digest.hexdigest()
 
 
 @dataclass
@@ -235,13 +290,18 @@ class Artifact:
         Compiled with the ``math`` backend (scalars, one control step).
     plant_check : str
         What was found when comparing the plant file's hash ("matches", "changed
-        (allowed)", "plant file not found; not compared", or "not checked").
+        (allowed)", "plant file not found; not compared", "plant file ... cannot be read
+        (...); not compared", or "not checked").
+    signature_check : str
+        "signed by trusted key <fingerprint>" when trusted keys were given (the load
+        refuses anything else), otherwise "not checked".
     """
 
     source: str
     document: dict[str, Any]
     programs: dict[str, Program]
     plant_check: str
+    signature_check: str = "not checked"
     _numpy: dict[str, Program] = field(default_factory=dict, repr=False)
 
     # -- names and numbers -------------------------------------------------------------
@@ -378,31 +438,55 @@ def _checked_programs(document: dict[str, Any], source: str) -> dict[str, Progra
 
 def _check_plant_file(document: dict[str, Any], source: str, plant_path: str | Path | None,
                       allow_plant_change: bool) -> str:
+    """Compare the plant file with the hash recorded at build time.
+
+    A plant file given by the caller must be readable: anything else is an
+    ``ArtifactError``. The recorded locations are only hints (a deployed artifact travels
+    without its plant file, and a resealed one may name any path): the first that exists
+    is compared, and one that cannot be read (not a regular file, too large, an I/O error)
+    is reported as "cannot be read (...); not compared", never read whole or followed
+    into a device.
+    """
     plant = document["plant"]
     recorded = plant.get("source_sha256")
-    candidates: list[Path] = []
     if plant_path is not None:
-        candidates.append(Path(plant_path))
-    else:
-        # beside the artifact as it was at build time, then where it was built; never
-        # relative to the current folder, which may hold an unrelated file of that name
-        relative = plant.get("source_from_artifact")
-        if isinstance(relative, str):
-            candidates.append(Path(source).resolve().parent / relative)
-        absolute = plant.get("source_absolute")
-        if isinstance(absolute, str) and Path(absolute).is_absolute():
-            candidates.append(Path(absolute))
-    existing = next((p for p in candidates if p.is_file()), None)
-    if existing is None:
-        if plant_path is not None:
-            raise ArtifactError(source, f"plant file {plant_path} not found")
-        return "plant file not found; not compared"
-    digest = hashlib.sha256(existing.read_bytes()).hexdigest()
+        where = str(plant_path)
+        try:
+            digest = _bounded_sha256(Path(plant_path), where)
+        except ArtifactError as err:
+            problem = " not found" if err.problem == "no such file" else f": {err.problem}"
+            raise ArtifactError(source, f"plant file {where}{problem}") from None
+        return _compare_plant(digest, recorded, where, source, allow_plant_change)
+    for candidate in _recorded_plant_paths(plant, source):
+        try:
+            digest = _bounded_sha256(candidate, str(candidate))
+        except ArtifactError as err:
+            if err.problem == "no such file":
+                continue
+            return f"plant file {candidate} cannot be read ({err.problem}); not compared"
+        return _compare_plant(digest, recorded, str(candidate), source, allow_plant_change)
+    return "plant file not found; not compared"
+
+
+def _recorded_plant_paths(plant: dict[str, Any], source: str) -> list[Path]:
+    # beside the artifact as it was at build time, then where it was built; never
+    # relative to the current folder, which may hold an unrelated file of that name
+    candidates: list[Path] = []
+    relative = plant.get("source_from_artifact")
+    if isinstance(relative, str) and relative:
+        candidates.append(Path(source).resolve().parent / relative)    # the artifact was read: it resolves
+    absolute = plant.get("source_absolute")
+    if isinstance(absolute, str) and os.path.isabs(absolute):
+        candidates.append(Path(absolute))
+    return candidates
+
+
+def _compare_plant(digest: str, recorded: Any, where: str, source: str, allow_plant_change: bool) -> str:
     if digest == recorded:
         return "matches"
     if allow_plant_change:
-        return f"plant file {existing} changed since the build (allowed)"
-    raise ArtifactError(source, f"the plant file {existing} has changed since this artifact was built; "
+        return f"plant file {where} changed since the build (allowed)"
+    raise ArtifactError(source, f"the plant file {where} has changed since this artifact was built; "
                                 "rebuild with linz build, or accept it with --allow-plant-change")
 
 
@@ -433,7 +517,7 @@ def artifact_from_text(text: str, source: str = "<memory>") -> Artifact:
 
 
 def load_artifact(path: str | Path, plant_path: str | Path | None = None, allow_plant_change: bool = False,
-                  check_plant: bool = True) -> Artifact:
+                  check_plant: bool = True, trusted_keys: Sequence[str | Path | bytes] | None = None) -> Artifact:
     """Load, verify and compile a controller artifact (numpy only; never sympy).
 
     Parameters
@@ -448,6 +532,10 @@ def load_artifact(path: str | Path, plant_path: str | Path | None = None, allow_
         Accept a plant file whose hash differs from the recorded one.
     check_plant : bool
         Compare with the plant file at all.
+    trusted_keys : sequence of path or bytes, optional
+        Ed25519 public keys (PEM files, or PEM text as bytes). When given, the artifact
+        must carry a signature by one of them over its covered content, checked before
+        anything in it is compiled; when None or empty, signatures are not checked.
 
     Returns
     -------
@@ -457,18 +545,26 @@ def load_artifact(path: str | Path, plant_path: str | Path | None = None, allow_
     ------
     ArtifactError
         For a file that is damaged, tampered with, of a newer format, inconsistent
-        (names, shapes), or whose plant file changed.
+        (names, shapes), whose plant file changed, or, with trusted keys, unsigned or
+        signed by no trusted key or not matching its signature.
+    ConfigError
+        Trusted keys given but the ``cryptography`` package is missing.
     """
     source = str(path)
     document = read_document(path)
+    signature_check = "not checked"
+    if trusted_keys:
+        from linz_ros.artifact.signing import verify_signature    # it imports this module
+
+        signature_check = verify_signature(document, trusted_keys, source)
     programs = _checked_programs(document, source)
     plant_check = _check_plant_file(document, source, plant_path, allow_plant_change) if check_plant \
         else "not checked"
-    return Artifact(source, document, programs, plant_check)
+    return Artifact(source, document, programs, plant_check, signature_check)
 
 
-_IDENTIFIER = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
-_Z_NAMES = re.compile(r"^_z[0-9]+$")
+_IDENTIFIER = re.compile(r"^[A-Za-z][A-Za-z0-9_]*\Z")
+_Z_NAMES = re.compile(r"^_z[0-9]+\Z")
 _PROGRAMS = ("law", "dynamics", "transform", "inverse", "singular_set")
 
 
@@ -565,27 +661,20 @@ def _check_consistency(document: dict[str, Any], source: str) -> None:
         need(spec["arguments"] == [first, ["p", parameter_names]],
              f"programs.{name}.arguments: expected [{first[0]!r}, the plant's {'linearizing coordinates' if name == 'inverse' else 'states'}] "
              "and ['p', its parameters], in the plant's order")
-    for key in ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after"):
-        need(_is_number(watchdog.get(key)) and watchdog[key] >= 0, f"watchdog.{key}: expected a number >= 0")
-    need(watchdog["sigma_warn"] >= watchdog["sigma_act"] >= watchdog["sigma_stop"],
-         "watchdog: expected sigma_warn >= sigma_act >= sigma_stop")
-    need(watchdog["damping"] > 0 and watchdog["stale_after"] > 0, "watchdog: damping and stale_after must be positive")
-    need(watchdog.get("integral_limit") is None or (_is_number(watchdog["integral_limit"])
-                                                    and watchdog["integral_limit"] > 0),
-         "watchdog.integral_limit: expected null or a positive number")
-    need("hold_time" not in watchdog or (_is_number(watchdog["hold_time"]) and watchdog["hold_time"] >= 0),
-         "watchdog.hold_time: expected a number >= 0")
-    rate_limits = watchdog.get("rate_limits")
-    need(isinstance(rate_limits, list) and len(rate_limits) == m
-         and all(r is None or (_is_number(r) and r > 0) for r in rate_limits),
-         f"watchdog.rate_limits: expected {m} entries, each null or a positive number")
-    safe = watchdog.get("safe_command")
-    need(isinstance(safe, dict) and safe.get("kind") in ("zero", "hold", "fixed"),
-         "watchdog.safe_command: expected kind zero, hold or fixed")
-    if safe["kind"] == "fixed":
-        need(isinstance(safe.get("value"), list) and len(safe["value"]) == m
-             and all(_is_number(v) for v in safe["value"]),
-             f"watchdog.safe_command.value: expected {m} numbers")
+    _check_watchdog(watchdog, n_inputs=m, n_outputs=len(chains), need=need)
+
+
+def _check_watchdog(watchdog: dict[str, Any], n_inputs: int, n_outputs: int, need) -> None:
+    """Every stored watchdog setting against the one table (older artifacts lack the newer ones)."""
+    for key in ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "rate_limits", "safe_command"):
+        need(key in watchdog, f"watchdog.{key}: missing")
+    stored = {k: v for k, v in watchdog.items() if k in PLANT_FILE_SETTINGS}
+    for key, value in stored.items():
+        if key != "safe_command" and key not in ("envelope_action", "divergence_action"):
+            numbers = value if isinstance(value, list) else [value]
+            need(all(v is None or _is_number(v) for v in numbers), f"watchdog.{key}: expected numbers (or null)")
+    found = watchdog_problem(stored, n_inputs, n_outputs)
+    need(found is None, "" if found is None else f"watchdog.{found[0]}: {found[1]}")
 
 
 def _is_number(value: Any) -> bool:

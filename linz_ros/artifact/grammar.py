@@ -15,6 +15,7 @@ Tree nodes
 from __future__ import annotations
 
 import re
+import reprlib
 from typing import Callable, Iterator, TypeVar, Union
 
 from linz_ros.errors import ExpressionSyntaxError
@@ -187,7 +188,8 @@ def parse_expression(text: Union[str, int, float]) -> Node:
     ('neg', ('pow', ('name', 'x'), ('num', '2')))
     """
     if isinstance(text, bool) or not isinstance(text, (str, int, float)):
-        raise ExpressionSyntaxError(str(text), 0, "expected an expression as text or a number")
+        # reprlib: bounded in depth and length (str() of a YAML alias bomb would never finish)
+        raise ExpressionSyntaxError(reprlib.repr(text), 0, "expected an expression as text or a number")
     text = repr(text) if isinstance(text, float) else str(text)
     if len(text) > _MAX_LENGTH:
         raise ExpressionSyntaxError(text[:40] + "...", 0, f"longer than {_MAX_LENGTH} characters")

@@ -12,6 +12,7 @@ import sympy as sp
 
 from linz_ros import __version__
 from linz_ros.artifact.document import FORMAT, FORMAT_VERSION, seal
+from linz_ros.artifact.watchdog import artifact_settings, defaults_note
 from linz_ros.codegen._printer import to_grammar
 from linz_ros.codegen._verify import DEFAULT_TOLERANCE, Verification, verify_programs
 from linz_ros.errors import ArtifactError
@@ -204,19 +205,23 @@ def _plant_section(design: Design) -> dict[str, Any]:
 
 
 def _watchdog_section(design: Design) -> dict[str, Any]:
+    """Every setting the artifact stores, in canonical form, with the defaults named."""
     w = design.watchdog
-    return {
-        "sigma_warn": float(w["sigma_warn"]), "sigma_act": float(w["sigma_act"]),
-        "sigma_stop": float(w["sigma_stop"]), "damping": float(w["damping"]),
-        "stale_after": float(w["stale_after"]),
-        "integral_limit": None if w["integral_limit"] is None else float(w["integral_limit"]),
-        "hold_time": float(w["hold_time"]),
-        "rate_limits": [None if r is None else float(r) for r in w["rate_limits"]],
-        "safe_command": dict(w["safe_command"]),
-        "defaults": list(w["defaults"]),
-        "defaults_note": "default sigma levels are fractions 0.25, 0.1, 0.02 of sigma_reference; "
-                         "damping defaults to sigma_act; stale_after to 10 control periods",
-    }
+    section = {name: _plain(w[name]) for name in artifact_settings(w)}
+    section["defaults"] = list(w["defaults"])
+    section["defaults_note"] = defaults_note()
+    return section
+
+
+def _plain(value: Any) -> Any:
+    """Floats for numbers (JSON), None kept, lists and mappings entry by entry."""
+    if isinstance(value, dict):
+        return {k: _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, bool) or value is None or isinstance(value, str):
+        return value
+    return float(value)
 
 
 def build_document(design: Design, tolerance: float = DEFAULT_TOLERANCE, points: int = 64,

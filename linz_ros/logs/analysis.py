@@ -9,23 +9,73 @@ median period at the end of the log), so a one-record episode lasts one period.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import asdict, dataclass
-from typing import Any
+from typing import Any, Callable, TypeVar
 
 import numpy as np
 
 from linz_ros.artifact import Artifact
 from linz_ros.logs.reader import LogError, StepLog, metadata_json
-from linz_ros.runtime import MODES, REASONS, SimResult
+from linz_ros.errors import LinzError
+from linz_ros.runtime import ALARMS, MODES, REASONS, SimResult
+from linz_ros.runtime.closed_loop import run_verdict
 
 __all__ = ["Episode", "Thresholds", "as_sim_result", "control_gaps", "episodes", "gap_ends", "summarise",
            "thresholds_of"]
 
 _REFUSED = ("wrong_length", "non_finite_state", "bad_reference", "bad_time", "out_of_order", "stale",
             "future_stamp", "model_not_finite", "non_finite_command", "no_state", "bad_message")
+#: Every watchdog alarm of the runtime (envelope, divergence), acted on or only flagged.
+_ALARMS = ALARMS
 #: Episodes listed in full in a summary (the longest first); the counts cover all of them.
 LISTED = 20
+_F = TypeVar("_F", bound=Callable[..., Any])
+
+
+def _quiet_nonfinite(function: _F) -> _F:
+    """Run ``function`` without numpy's warnings on nan and inf arithmetic.
+
+    A log holds nan (refused states, damaged records) and inf (a singular step, a bad
+    stamp); every result derived from them is filtered where it is used, so the warnings
+    would only clutter the summary.
+    """
+    @functools.wraps(function)
+    def quiet(*args: Any, **kwargs: Any) -> Any:
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            return function(*args, **kwargs)
+    return quiet  # type: ignore[return-value]
+
+
+def codes(values: np.ndarray, count: int) -> np.ndarray:
+    """Mode or reason codes as whole numbers, -1 where a value is none of the ``count`` codes.
+
+    Parameters
+    ----------
+    values : numpy.ndarray
+        The recorded column (floats; nan or out of range in a damaged record).
+    count : int
+        How many codes there are (``len(MODES)``, ``len(REASONS)``).
+
+    Returns
+    -------
+    numpy.ndarray of int64
+
+    Examples
+    --------
+    >>> codes(np.array([0.0, 2.0, np.nan, 7.0, -1.0, 1.5]), 3).tolist()
+    [0, 2, -1, -1, -1, -1]
+    """
+    values = np.asarray(values, dtype=float)
+    valid = np.isfinite(values) & (values >= 0) & (values < count) & (values == np.floor(values))
+    out = np.full(values.shape, -1, dtype=np.int64)
+    out[valid] = values[valid].astype(np.int64)
+    return out
+
+
+def _mode_name(code: int) -> str:
+    return MODES[code] if 0 <= code < len(MODES) else "unknown"
 
 
 @dataclass(frozen=True)
@@ -86,10 +136,11 @@ def thresholds_of(log: StepLog, artifact: Artifact | None = None) -> Thresholds 
     """
     recorded = log.metadata.get("linz_watchdog", {})
     try:
-        return Thresholds(float(recorded["sigma_warn"]), float(recorded["sigma_act"]),
-                          float(recorded["sigma_stop"]), "recorded in the log")
+        levels = [float(recorded[key]) for key in ("sigma_warn", "sigma_act", "sigma_stop")]
     except (KeyError, ValueError):
-        pass
+        levels = []
+    if levels and all(math.isfinite(v) for v in levels):       # "nan" and "1e999" read as floats too
+        return Thresholds(*levels, "recorded in the log")
     if artifact is not None:
         w = artifact.watchdog
         return Thresholds(float(w["sigma_warn"]), float(w["sigma_act"]), float(w["sigma_stop"]),
@@ -113,14 +164,29 @@ def runs(mask: np.ndarray) -> list[tuple[int, int]]:
     return [(int(a), int(b) - 1) for a, b in zip(edges[::2], edges[1::2])]
 
 
+def _finite_times(t: np.ndarray) -> np.ndarray:
+    """Step times with each non-finite one (a refused bad stamp) replaced by the finite time before it."""
+    finite = np.isfinite(t)
+    if finite.all() or not finite.any():
+        return np.where(finite, t, 0.0)
+    last = np.maximum.accumulate(np.where(finite, np.arange(len(t)), -1))
+    first = int(np.argmax(finite))
+    return t[np.where(last >= 0, last, first)]
+
+
 def _period(t: np.ndarray) -> float:
-    steps = np.diff(t)
+    with np.errstate(invalid="ignore", over="ignore"):
+        steps = np.diff(t)
     steps = steps[np.isfinite(steps) & (steps > 0)]
     return float(np.median(steps)) if len(steps) else 0.0
 
 
+@_quiet_nonfinite
 def episodes(log: StepLog, mask: np.ndarray, kind: str, detail: str = "") -> list[Episode]:
     """The episodes where ``mask`` holds.
+
+    A record whose time is not finite (a refused bad stamp) counts at the time of the
+    record before it, so every start and duration is a number.
 
     Parameters
     ----------
@@ -133,9 +199,9 @@ def episodes(log: StepLog, mask: np.ndarray, kind: str, detail: str = "") -> lis
     -------
     list of Episode
     """
-    t = log.column("t")
+    t = _finite_times(log.column("t"))
     sigma = log.column("sigma_min")
-    mode = log.column("mode")
+    mode = codes(log.column("mode"), len(MODES))
     states = log.names("x")
     x = log.block("x")
     period = _period(t)
@@ -149,11 +215,11 @@ def episodes(log: StepLog, mask: np.ndarray, kind: str, detail: str = "") -> lis
             min_sigma = float(sigma[worst])
         else:
             worst, min_sigma = first, math.nan
-        codes, counts = np.unique(mode[first:last + 1].astype(int), return_counts=True)
+        found, counts = np.unique(mode[first:last + 1], return_counts=True)
         out.append(Episode(kind, detail, float(t[first]), float(max(end - t[first], 0.0)), last - first + 1,
                            min_sigma, float(t[worst]),
                            {s: float(v) for s, v in zip(states, x[worst])} if states else {},
-                           {MODES[c]: int(n) for c, n in zip(codes, counts) if 0 <= c < len(MODES)}))
+                           {MODES[c]: int(n) for c, n in zip(found, counts) if 0 <= c < len(MODES)}))
     return out
 
 
@@ -184,11 +250,11 @@ def _percentiles(values: np.ndarray) -> dict[str, float | None]:
 
 
 def mode_switches(log: StepLog) -> list[tuple[float, str, str]]:
-    """Every change of controller mode as ``(time, from, to)``."""
-    mode = log.column("mode").astype(int)
+    """Every change of controller mode as ``(time, from, to)`` (``unknown`` for a damaged code)."""
+    mode = codes(log.column("mode"), len(MODES))
     t = log.column("t")
     changed = np.flatnonzero(mode[1:] != mode[:-1]) + 1
-    return [(float(t[i]), MODES[mode[i - 1]], MODES[mode[i]]) for i in changed]
+    return [(float(t[i]), _mode_name(mode[i - 1]), _mode_name(mode[i])) for i in changed]
 
 
 def sequence_gaps(log: StepLog) -> int:
@@ -203,6 +269,7 @@ def sequence_gaps(log: StepLog) -> int:
 LATE_PERIODS = 5.0     # a step this many median periods after the one before it ends a control-loop gap
 
 
+@_quiet_nonfinite
 def control_gaps(log: StepLog, periods: float = LATE_PERIODS) -> dict[str, Any]:
     """Gaps in the control loop: consecutive steps more than ``periods`` median periods apart.
 
@@ -223,10 +290,12 @@ def control_gaps(log: StepLog, periods: float = LATE_PERIODS) -> dict[str, Any]:
     t = log.column("t")
     steps = np.diff(t)
     ends = gap_ends(t, periods)
-    return {"count": int(len(ends)), "longest_s": float(np.nanmax(steps)) if len(steps) else 0.0,
+    steps = steps[~np.isnan(steps)]
+    return {"count": int(len(ends)), "longest_s": float(steps.max()) if len(steps) else 0.0,
             "periods": periods, "ends": [float(e) for e in ends[:LISTED]]}
 
 
+@_quiet_nonfinite
 def gap_ends(t: np.ndarray, periods: float = LATE_PERIODS) -> np.ndarray:
     """Times of every step that ends a control-loop gap (see :func:`control_gaps`), unlisted.
 
@@ -248,13 +317,15 @@ def gap_ends(t: np.ndarray, periods: float = LATE_PERIODS) -> np.ndarray:
 
 
 def saturated_inputs(log: StepLog) -> np.ndarray:
-    """(records, inputs) bool array from the saturation bit mask."""
-    mask = np.nan_to_num(log.column("saturated_mask")).astype(np.int64)
+    """(records, inputs) bool array from the saturation bit mask (none where the mask is damaged)."""
+    raw = log.column("saturated_mask")
+    mask = np.where(np.isfinite(raw) & (raw >= 0) & (raw < 2.0**62), raw, 0.0).astype(np.int64)
     inputs = log.names("u")
     return np.stack([(mask >> i) & 1 == 1 for i in range(len(inputs))], axis=1) if inputs else \
         np.zeros((len(mask), 0), dtype=bool)
 
 
+@_quiet_nonfinite
 def as_sim_result(log: StepLog, artifact: Artifact, note: str = "from the controller's field log") -> SimResult:
     """A field log as a :class:`~linz_ros.runtime.SimResult`, for the run summary, CSV and plots.
 
@@ -290,11 +361,47 @@ def as_sim_result(log: StepLog, artifact: Artifact, note: str = "from the contro
     x = log.block("x")
     return SimResult(artifact=artifact, reference=None, t=t - t[0] if len(t) else t, x=x, x_measured=x, ref=ref,
                      y=log.block("y"), u=log.block("u"), sigma_min=log.column("sigma_min"),
-                     condition=log.column("condition"), mode=[MODES[int(v)] for v in log.column("mode")],
-                     reason=[REASONS[int(v)] for v in log.column("reason")], saturated=saturated_inputs(log),
-                     compute_time=log.column("compute_time_us") * 1e-6, notes=[note])
+                     condition=log.column("condition"),
+                     mode=[_mode_name(c) for c in codes(log.column("mode"), len(MODES))],
+                     reason=[REASONS[c] if c >= 0 else "unknown" for c in codes(log.column("reason"), len(REASONS))],
+                     saturated=saturated_inputs(log),
+                     compute_time=log.column("compute_time_us") * 1e-6, notes=[note],
+                     alarms=np.maximum(codes(log.column("alarms"), 4), 0) if "alarms" in log.labels else None)
 
 
+def _alarm_summary(log: StepLog, t: np.ndarray, reason: np.ndarray, mode: np.ndarray) -> dict[str, Any]:
+    """Per alarm of the runtime: records flagged, records acted on (safe command), first time, episodes.
+
+    Older logs without the ``alarms`` field know only the records acted on (their reason).
+    """
+    flagged_bits = codes(log.column("alarms"), 4) if "alarms" in log.labels else None
+    found = {}
+    for bit, name in enumerate(_ALARMS):
+        named = reason == REASONS.index(name)
+        acted = named & np.isin(mode, [MODES.index("safe"), MODES.index("held")])
+        flagged = named if flagged_bits is None else ((np.maximum(flagged_bits, 0) >> bit) & 1).astype(bool) | named
+        if flagged.any():
+            found[name] = {"records": int(flagged.sum()), "acted": int(acted.sum()),
+                           "first": float(t[np.flatnonzero(flagged)[0]]),
+                           **_episode_group(episodes(log, flagged, "alarm", name))}
+    return found
+
+
+def _log_verdict(log: StepLog, artifact: Artifact | None) -> dict[str, Any] | None:
+    """The run verdict of a field log (the words of ``linz sim``), when its states and artifact are known."""
+    if artifact is None or not log.names("x") or len(log) == 0:
+        return None
+    try:
+        result = as_sim_result(log, artifact)
+    except LinzError:
+        return None
+    verdict = run_verdict(result)
+    start = float(log.column("t")[0])
+    return {"word": verdict.word, "at": None if verdict.at is None else verdict.at + start,
+            "detail": verdict.detail}
+
+
+@_quiet_nonfinite
 def summarise(log: StepLog, artifact: Artifact | None = None) -> dict[str, Any]:
     """The summary of a log (JSON-ready: nan and inf become None).
 
@@ -311,8 +418,8 @@ def summarise(log: StepLog, artifact: Artifact | None = None) -> dict[str, Any]:
     t = log.column("t")
     sigma = log.column("sigma_min")
     condition = log.column("condition")
-    mode = log.column("mode").astype(int)
-    reason = log.column("reason").astype(int)
+    mode = codes(log.column("mode"), len(MODES))
+    reason = codes(log.column("reason"), len(REASONS))
     levels = thresholds_of(log, artifact)
     if levels is not None:
         under_warn, under_act = sigma < levels.sigma_warn, sigma < levels.sigma_act
@@ -333,6 +440,8 @@ def summarise(log: StepLog, artifact: Artifact | None = None) -> dict[str, Any]:
         if hits.any():
             refused[name] = {"records": int(hits.sum()), **_episode_group(episodes(log, hits, "refused", name))}
     recorded = log.metadata.get("linz_recording", {})
+    alarms = _alarm_summary(log, t, reason, mode)
+    verdict = _log_verdict(log, artifact)
     finite_sigma = sigma[np.isfinite(sigma)]
     finite_condition = condition[~np.isnan(condition)]
     summary = {
@@ -356,6 +465,8 @@ def summarise(log: StepLog, artifact: Artifact | None = None) -> dict[str, Any]:
                            **_episode_group(episodes(log, saturated[:, i], "saturated", u))}
                        for i, u in enumerate(inputs)},
         "refused": refused,
+        "watchdog_alarms": alarms,
+        "verdict": verdict,
         "compute_time_us": _percentiles(log.column("compute_time_us")),
         "missing_records": sequence_gaps(log),
         "control_gaps": control_gaps(log),

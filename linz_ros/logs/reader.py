@@ -4,23 +4,32 @@ Accepted: the controller's field-log files (MCAP), ROS 2 bags holding the contro
 conditioning topic (a bag folder, or its ``.mcap`` or ``.db3`` files), and several of
 either, which are joined in time order when they record the same layout. A damaged or
 truncated file is read up to the damage; what was lost is said in
-:attr:`StepLog.problems`, one line each.
+:attr:`StepLog.problems`, one line each. Every MCAP record's length is checked against
+the rest of the file before it is read, so zeros after a crash or a broken length end
+the reading at once, whatever the file's size; a chunk that fails its checksum, a
+message or schema that does not decode and a bag row without data are skipped and
+counted, and the reading goes on.
 """
 
 from __future__ import annotations
 
+import contextlib
+import io
 import json
 import math
+import os
 import sqlite3
 import struct
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Iterable, Iterator
+from typing import IO, Any, Callable, Iterable, Iterator
 
 import numpy as np
+from mcap.data_stream import ReadDataStream
 from mcap.exceptions import McapError
+from mcap.opcode import Opcode
 from mcap.records import Attachment, Channel, Chunk, Message, Metadata, Schema
-from mcap.stream_reader import StreamReader, breakup_chunk
+from mcap.stream_reader import breakup_chunk
 from mcap_ros2.decoder import DecoderFactory
 
 from linz_ros.errors import LinzError
@@ -34,6 +43,13 @@ _ARRAY_TYPES = ("std_msgs/msg/Float64MultiArray", "std_msgs/Float64MultiArray")
 _ARTIFACT_ATTACHMENT = "artifact.json"
 _READ_ERRORS = (McapError, struct.error, EOFError, ValueError, KeyError, IndexError, RuntimeError, OSError,
                 MemoryError)
+_MCAP_MAGIC = b"\x89MCAP0\r\n"
+#: Largest MCAP record read into memory (bytes). Our chunks are 512 kB and rosbag2's a few MB; a
+#: longer length is damage, and is refused before anything is read.
+RECORD_SIZE_LIMIT = 256 * 2**20
+#: The records the reader parses; every other opcode is stepped over unread.
+_PARSED = {Opcode.SCHEMA: Schema.read, Opcode.CHANNEL: Channel.read, Opcode.CHUNK: Chunk.read,
+           Opcode.METADATA: Metadata.read, Opcode.ATTACHMENT: Attachment.read}
 
 
 class LogError(LinzError):
@@ -132,6 +148,8 @@ def log_files(paths: Iterable[str | Path]) -> list[Path]:
             files.extend(found)
         elif path.is_file():
             files.append(path)
+        elif path.exists():
+            raise LogError(str(path), "not a regular file or folder")
         else:
             raise LogError(str(path), "no such file or folder")
     return files
@@ -148,6 +166,9 @@ class _FileRecords:
     problems: list[str] = field(default_factory=list)
     clean: bool = False
     foreign_layouts: int = 0
+    wrong_length: int = 0
+    bytes_read: int = 0           # from the file itself (the bounded-work tests read these two)
+    records_scanned: int = 0
 
     def add(self, label: str, data: Any, log_time_ns: int, sequence: int) -> None:
         labels = label.split(",")
@@ -159,69 +180,180 @@ class _FileRecords:
             self.foreign_layouts += 1
             return
         if len(data) != len(labels):
-            self.problems.append(f"a record of {len(data)} values for {len(labels)} labels skipped")
+            self.wrong_length += 1
             return
         self.rows.append(tuple(data))
         self.log_time.append(log_time_ns * 1e-9)
         self.sequence.append(sequence)
 
 
+#: What decoding one message may raise (the decoder is generated from the file's schema text).
+_DECODE_ERRORS = _READ_ERRORS + (TypeError, AttributeError)
+_TRUNCATED = "the file ends in the middle of a record or before its closing records (truncated, e.g. cut by a crash)"
+
+
+class _Damage(Exception):
+    """The file's records cannot be followed past this point; the message says why."""
+
+
+def _first_line(err: BaseException) -> str:
+    text = str(err).strip()
+    return text.splitlines()[0][:200] if text else type(err).__name__
+
+
+def _framed_records(stream: IO[bytes], size: int, out: _FileRecords) -> Iterator[tuple[int, Any]]:
+    """The data section's records in file order, as ``(opcode, record)``; record None when its body is damaged.
+
+    Every record's length is checked against what is left of the file (and
+    :data:`RECORD_SIZE_LIMIT`) before its body is read, so a damaged length or a run of
+    zeros (opcode 0 is no MCAP record) stops the scan at once, and records that are not
+    needed are stepped over unread. Data End or the Footer ends the scan.
+    """
+    position = len(_MCAP_MAGIC)
+    while True:
+        head = stream.read(9)
+        out.bytes_read += len(head)
+        if len(head) < 9:
+            raise _Damage(_TRUNCATED)
+        opcode, length = head[0], struct.unpack_from("<Q", head, 1)[0]
+        start, position = position, position + 9
+        if opcode == 0:
+            raise _Damage(f"no MCAP record at byte {start} (opcode 0): the rest of the file, {size - start} bytes, "
+                          "is not read (zeros or garbage: space preallocated, or damage)")
+        if length > size - position:
+            raise _Damage(f"the record at byte {start} claims {length} bytes, more than the {size - position} left "
+                          "(truncated, e.g. cut by a crash, or a damaged length)")
+        if length > RECORD_SIZE_LIMIT:
+            raise _Damage(f"the record at byte {start} claims {length} bytes, more than the "
+                          f"{RECORD_SIZE_LIMIT >> 20} MiB a record may hold (a damaged length)")
+        out.records_scanned += 1
+        if opcode in (Opcode.DATA_END, Opcode.FOOTER):
+            return
+        position += length
+        if opcode not in _PARSED and opcode != Opcode.MESSAGE:
+            stream.seek(position)
+            continue
+        body = stream.read(length)
+        out.bytes_read += len(body)
+        if len(body) < length:
+            raise _Damage(_TRUNCATED)
+        data = ReadDataStream(io.BytesIO(body))
+        try:
+            record = Message.read(data, length) if opcode == Opcode.MESSAGE else _PARSED[opcode](data)
+        except _READ_ERRORS:
+            record = None
+        yield opcode, record
+
+
+def _chunk_records(chunk: Chunk) -> list[Any] | None:
+    """The records inside a chunk, None when it is damaged (checksum, compression, size)."""
+    if chunk.uncompressed_size > RECORD_SIZE_LIMIT:
+        return None
+    try:
+        return breakup_chunk(chunk, validate_crc=True)
+    except _READ_ERRORS:
+        return None
+
+
+class _McapContent:
+    """Turns an MCAP file's records into step records, counting what cannot be used."""
+
+    def __init__(self, out: _FileRecords) -> None:
+        self.out = out
+        self.schemas: dict[int, Schema] = {}
+        self.channels: dict[int, tuple[Channel, Callable[[bytes], Any] | None]] = {}
+        self.unparsed: dict[int, list] = {}       # channel id -> [topic, schema, problem, messages skipped]
+        self.factory = DecoderFactory()
+        self.messages = 0
+        self.undecodable = 0
+        self.damaged: dict[str, int] = {}
+
+    def take(self, opcode: int, record: Any) -> None:
+        if record is None:
+            self._count_damage(f"damaged {Opcode(opcode).name.lower()} record")
+        elif isinstance(record, Chunk):
+            inner = _chunk_records(record)
+            if inner is None:
+                self._count_damage("damaged chunk")
+            for item in inner or ():
+                self._one(item)
+        else:
+            self._one(record)
+
+    def _count_damage(self, what: str) -> None:
+        self.damaged[what] = self.damaged.get(what, 0) + 1
+
+    def _one(self, record: Any) -> None:
+        if isinstance(record, Schema):
+            self.schemas[record.id] = record
+        elif isinstance(record, Channel):
+            self._channel(record)
+        elif isinstance(record, Message):
+            self._message(record)
+        elif isinstance(record, Metadata):
+            self.out.metadata[record.name] = dict(record.metadata)
+            if record.name == "linz_recording" and record.metadata.get("closed") == "clean":
+                self.out.clean = True
+        elif isinstance(record, Attachment) and record.name == _ARTIFACT_ATTACHMENT:
+            self.out.artifact_text = record.data.decode("utf-8", errors="replace")
+
+    def _channel(self, channel: Channel) -> None:
+        schema = self.schemas.get(channel.schema_id)
+        decoder = None
+        if schema is not None and schema.name in _ARRAY_TYPES:
+            try:
+                with contextlib.redirect_stderr(io.StringIO()):     # the parser prints what it refuses
+                    decoder = self.factory.decoder_for(channel.message_encoding, schema)
+            except Exception as err:       # noqa: BLE001 - the vendored ROS IDL parser raises classes of its own
+                self.unparsed[channel.id] = [channel.topic, schema.name, _first_line(err), 0]
+        self.channels[channel.id] = (channel, decoder)
+
+    def _message(self, record: Message) -> None:
+        if record.channel_id in self.unparsed:
+            self.unparsed[record.channel_id][3] += 1
+            return
+        channel, decoder = self.channels.get(record.channel_id, (None, None))
+        if decoder is None:
+            return
+        try:
+            message = decoder(record.data)
+            dims = message.layout.dim
+            label, values = (dims[0].label, message.data) if dims else (None, None)
+        except _DECODE_ERRORS:
+            self.undecodable += 1
+            return
+        if label is not None:
+            sequence = record.sequence if channel.topic == FIELD_LOG_TOPIC else -1
+            self.out.add(label, values, record.log_time, sequence)
+            self.messages += 1
+
+    def notes(self, path: Path) -> list[str]:
+        notes = [f"{path}: {n} damaged chunk(s) skipped (checksum mismatch); the records in them are missing"
+                 if what == "damaged chunk" else f"{path}: {n} {what}(s) skipped" for what, n in self.damaged.items()]
+        notes += [f"{path}: channel {topic}: its schema {name} does not parse ({problem}); its {n} message(s) "
+                  "skipped" for topic, name, problem, n in self.unparsed.values()]
+        if self.undecodable:
+            notes.append(f"{path}: {self.undecodable} message(s) that do not decode as their schema skipped")
+        return notes
+
+
 def _read_mcap(path: Path) -> _FileRecords:
     out = _FileRecords()
-    schemas: dict[int, Schema] = {}
-    channels: dict[int, tuple[Channel, Any]] = {}
-    factory = DecoderFactory()
-    count = 0
-    damaged_chunks = 0
-
-    def records(stream) -> Iterator[Any]:
-        nonlocal damaged_chunks
-        for record in StreamReader(stream, emit_chunks=True, record_size_limit=2**30).records:
-            if not isinstance(record, Chunk):
-                yield record
-                continue
-            try:
-                inner = breakup_chunk(record, validate_crc=True)
-            except _READ_ERRORS:       # a damaged chunk whose length is intact: skip it, read on
-                damaged_chunks += 1
-                continue
-            yield from inner
-
+    content = _McapContent(out)
+    damage = None
     try:
         with open(path, "rb") as stream:
-            for record in records(stream):
-                if isinstance(record, Schema):
-                    schemas[record.id] = record
-                elif isinstance(record, Channel):
-                    schema = schemas.get(record.schema_id)
-                    decoder = None
-                    if schema is not None and schema.name in _ARRAY_TYPES:
-                        decoder = factory.decoder_for(record.message_encoding, schema)
-                    channels[record.id] = (record, decoder)
-                elif isinstance(record, Message):
-                    channel, decoder = channels.get(record.channel_id, (None, None))
-                    if decoder is None:
-                        continue
-                    message = decoder(record.data)
-                    dims = message.layout.dim
-                    if dims:
-                        sequence = record.sequence if channel.topic == FIELD_LOG_TOPIC else -1
-                        out.add(dims[0].label, message.data, record.log_time, sequence)
-                        count += 1
-                elif isinstance(record, Metadata):
-                    out.metadata[record.name] = dict(record.metadata)
-                    if record.name == "linz_recording" and record.metadata.get("closed") == "clean":
-                        out.clean = True
-                elif isinstance(record, Attachment) and record.name == _ARTIFACT_ATTACHMENT:
-                    out.artifact_text = record.data.decode("utf-8", errors="replace")
-    except _READ_ERRORS as err:
-        what = str(err).splitlines()[0] if str(err) else type(err).__name__
-        if isinstance(err, (EOFError, struct.error)) or "EndOfFile" in type(err).__name__:
-            what = "the file ends in the middle of a record (truncated, e.g. cut by a crash)"
-        out.problems.append(f"{path}: read up to the damage, {count} messages before it: {what}")
-    if damaged_chunks:
-        out.problems.append(f"{path}: {damaged_chunks} damaged chunk(s) skipped (checksum mismatch); "
-                            "the records in them are missing")
+            size = os.fstat(stream.fileno()).st_size
+            stream.seek(len(_MCAP_MAGIC))
+            for opcode, record in _framed_records(stream, size, out):
+                content.take(opcode, record)
+    except _Damage as err:
+        damage = str(err)
+    except OSError as err:
+        damage = f"cannot read on ({err.strerror or err})"
+    out.problems.extend(content.notes(path))
+    if damage is not None:
+        out.problems.append(f"{path}: read up to the damage, {content.messages} messages before it: {damage}")
     return out
 
 
@@ -230,36 +362,59 @@ def _read_db3(path: Path) -> _FileRecords:
     schema = Schema(id=1, name=_ARRAY_TYPES[0], encoding="ros2msg", data=FLOAT64_MULTIARRAY_DEFINITION.encode())
     decoder = DecoderFactory().decoder_for("cdr", schema)
     count = 0
+    skipped: dict[str, int] = {}
     try:
         connection = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
         try:
             topics = {row[0]: row[1] for row in connection.execute("SELECT id, type FROM topics")}
-            wanted = [tid for tid, kind in topics.items() if kind in _ARRAY_TYPES]
+            wanted = {tid for tid, kind in topics.items() if kind in _ARRAY_TYPES}
             for topic_id, stamp, data in connection.execute(
                     "SELECT topic_id, timestamp, data FROM messages ORDER BY timestamp"):
                 if topic_id not in wanted:
                     continue
-                try:
-                    message = decoder(bytes(data))
-                except _READ_ERRORS:
-                    out.problems.append(f"{path}: a message that does not decode was skipped")
+                problem = _db3_row_problem(stamp, data)
+                if problem is None:
+                    try:
+                        message = decoder(bytes(data))
+                        dims = message.layout.dim
+                        label, values = (dims[0].label, message.data) if dims else (None, None)
+                    except _DECODE_ERRORS:
+                        problem = "do not decode"
+                if problem is not None:
+                    skipped[problem] = skipped.get(problem, 0) + 1
                     continue
-                if message.layout.dim:
-                    out.add(message.layout.dim[0].label, message.data, int(stamp), -1)
+                if label is not None:
+                    out.add(label, values, stamp, -1)
                     count += 1
         finally:
             connection.close()
     except sqlite3.Error as err:
         out.problems.append(f"{path}: not a readable ROS 2 bag database ({err}); {count} messages read")
+    out.problems.extend(f"{path}: {n} message(s) of the conditioning topic skipped: they {problem}"
+                        for problem, n in skipped.items())
     return out
+
+
+def _db3_row_problem(stamp: Any, data: Any) -> str | None:
+    """What makes a row of a bag's messages table unusable (SQLite columns hold any type), or None."""
+    if data is None:
+        return "have no data (NULL)"
+    if not isinstance(data, (bytes, bytearray, memoryview)):
+        return f"hold {type(data).__name__} instead of bytes"
+    if isinstance(stamp, bool) or not isinstance(stamp, int):
+        return "have no whole-number timestamp"
+    return None
 
 
 def _read_file(path: Path) -> _FileRecords:
     if path.suffix == ".db3":
         return _read_db3(path)
-    with open(path, "rb") as stream:
-        magic = stream.read(8)
-    if magic != b"\x89MCAP0\r\n":
+    try:
+        with open(path, "rb") as stream:
+            magic = stream.read(len(_MCAP_MAGIC))
+    except OSError as err:
+        raise LogError(str(path), f"cannot read: {err.strerror or err}") from None
+    if magic != _MCAP_MAGIC:
         raise LogError(str(path), "not an MCAP file (no MCAP magic at its start) nor a .db3 bag")
     return _read_mcap(path)
 
@@ -290,6 +445,8 @@ def read_logs(paths: Iterable[str | Path]) -> StepLog:
         problems.extend(records.problems)
         if records.foreign_layouts:
             problems.append(f"{path}: {records.foreign_layouts} records of another layout skipped")
+        if records.wrong_length:
+            problems.append(f"{path}: {records.wrong_length} record(s) with more or fewer values than labels skipped")
         if records.labels is None:
             problems.append(f"{path}: no step records in it")
             continue
@@ -322,7 +479,7 @@ def metadata_json(log: StepLog, record: str, key: str) -> Any:
         return None
     try:
         return json.loads(text)
-    except json.JSONDecodeError:
+    except (json.JSONDecodeError, RecursionError):      # nested deeper than the parser goes: kept as text
         return text
 
 

@@ -49,6 +49,10 @@ def summary_text(summary: dict[str, Any]) -> str:
     s = summary
     lines = [f"log of {s['plant'] or 'unknown plant'}: {s['records']} records, {_fmt(s['duration'], ' s')} "
              f"at {_fmt(s['rate_hz'], ' Hz')}, {len(s['files'])} file(s)"]
+    verdict = s.get("verdict")
+    if verdict:
+        at = "" if verdict["at"] is None else f" at t = {verdict['at']:.4g} s"
+        lines.append(f"  verdict: {verdict['word']}{at} ({verdict['detail']})")
     levels = s["thresholds"]
     if levels:
         lines.append(f"  watchdog levels ({levels['source']}): warn {levels['sigma_warn']:g}, "
@@ -80,6 +84,10 @@ def summary_text(summary: dict[str, Any]) -> str:
                                                       for k, v in s["refused"].items()))
     else:
         lines.append("  refused states: none")
+    for name, group in s.get("watchdog_alarms", {}).items():
+        acted = f"safe command on {group['acted']}" if group["acted"] else "warned only"
+        lines.append(f"  watchdog {name}: {group['records']} step(s) in {group['count']} episode(s) from "
+                     f"{group['first']:.3f} s, {acted}")
     c = s["compute_time_us"]
     lines.append(f"  step compute time: p50 {_fmt(c['p50'], ' us')}, p99 {_fmt(c['p99'], ' us')}, "
                  f"p99.9 {_fmt(c['p99.9'], ' us')}, max {_fmt(c['max'], ' us')}")
@@ -293,8 +301,10 @@ def plot_log(log: StepLog, out_dir: str | Path, artifact: Artifact | None = None
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     levels = thresholds_of(log, artifact)
-    files = [_plot_conditioning(log, levels, out / "conditioning.png", plt),
-             _plot_inputs(log, artifact.input_limits if artifact is not None else None, out / "inputs.png", plt)]
+    files = [_plot_conditioning(log, levels, out / "conditioning.png", plt)]
+    if log.names("u"):          # a log of another layout may record no inputs: no panel to draw
+        files.append(_plot_inputs(log, artifact.input_limits if artifact is not None else None, out / "inputs.png",
+                                  plt))
     sigma = log.column("sigma_min")
     near = (sigma < levels.sigma_warn) if levels is not None else log.column("warn") > 0.5
     scatter = _plot_state_scatter(log, artifact, near & np.isfinite(sigma), out / "singular_scatter.png", plt)

@@ -2,25 +2,29 @@
 
 from __future__ import annotations
 
+import difflib
 import hashlib
 import math
 import re
+import stat
 from pathlib import Path
 from typing import Any, Mapping
 
 import sympy as sp
 import yaml
 
-from linz_ros.artifact.document import MAX_WATCHDOG_SECONDS
+from linz_ros.artifact.watchdog import PLANT_FILE_SETTINGS, watchdog_problem
+from linz_ros.artifact.watchdog import setting as watchdog_setting
 from linz_ros.artifact.grammar import RESERVED_NAMES, FUNCTIONS, names_in, parse_expression
 from linz_ros.errors import ExpressionSyntaxError, PlantFileError
 from linz_ros.model._mechanics import MECHANICAL_FORMS, check_mass_matrix, read_mechanics, velocity_names
 from linz_ros.model._plant import Mechanics, Plant
+from linz_ros.model._plausibility import check_expression_size, check_nominal_values, check_physical_sign
 from linz_ros.model._symbolic import UnknownName, tree_to_sympy
 
 __all__ = ["load_plant", "plant_from_text", "expression_in"]
 
-_IDENTIFIER = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+_IDENTIFIER = re.compile(r"[A-Za-z][A-Za-z0-9_]*")  # used with fullmatch: no trailing newline
 _TOP_LEVEL = ("plant", "description", "states", "coordinates", "velocities", "inputs", "parameters",
               "definitions", "dynamics", "mass_matrix", "kinetic_energy", "potential_energy", "serial_arm",
               "forces", "input_map", "kinematics", "outputs", "input_limits", "envelope", "operating_point", "design")
@@ -29,9 +33,9 @@ _REQUIRED = ("plant", "inputs")
 _MECHANICAL_ONLY = ("coordinates", "velocities", "forces", "input_map", "kinematics")
 _MODEL_FORMS = ("dynamics",) + tuple(MECHANICAL_FORMS)
 _DESIGN_KEYS = ("rate", "poles", "lqr", "integral", "watchdog", "reference")
-_WATCHDOG_KEYS = ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "rate_limits",
-                  "safe_command", "integral_limit", "hold_time")
 _MAX_FILE_BYTES = 5_000_000
+#: Longest plant name: it becomes file names (``<plant>.artifact.json``, field logs), 255 bytes at most.
+_MAX_PLANT_NAME = 100
 
 
 class _StrictLoader(yaml.SafeLoader):
@@ -75,6 +79,7 @@ class _Reader:
         self.source = source
         self.names: dict[str, str] = {}  # name -> what it is (state, input, ...)
         self.table: dict[str, sp.Expr] = {}
+        self.values: dict[sp.Symbol, float] = {}  # nominal parameter values, once read
 
     def fail(self, field: str, problem: str) -> PlantFileError:
         return PlantFileError(self.source, _printable(field), _printable(problem))
@@ -119,7 +124,7 @@ class _Reader:
         return lower, upper
 
     def declare(self, field: str, name: Any, kind: str) -> str:
-        if not isinstance(name, str) or not _IDENTIFIER.match(name):
+        if not isinstance(name, str) or not _IDENTIFIER.fullmatch(name):
             raise self.fail(field, f"{_describe(name)} is not a valid name "
                                    "(letters, digits and _; starting with a letter)")
         if name in FUNCTIONS:
@@ -156,6 +161,8 @@ class _Reader:
             raise self.fail(field, f"cannot evaluate {_short(text)!r}: {err}") from None
         if expr.has(sp.zoo, sp.oo, -sp.oo, sp.nan):
             raise self.fail(field, f"{_short(text)!r} is infinite or undefined (division by zero?)")
+        check_expression_size(self, field, expr)
+        check_nominal_values(self, field, text, expr, self.values)
         return expr
 
     def text(self, doc: Mapping, key: str, field: str) -> str:
@@ -190,6 +197,19 @@ def _describe(value: Any) -> str:
     if isinstance(value, (str, int, float)) and not isinstance(value, bool):
         return repr(value)
     return _kind(value)
+
+
+def _stray_keys_problem(extra: list[str], missing: list[str], kind: str, lacking: str) -> str:
+    """``'x3' is not a state (did you mean 'x2'?); no equation for x2``: the stray keys first."""
+    parts = []
+    for key in extra[:3]:
+        close = difflib.get_close_matches(key, missing, n=1, cutoff=0.5)
+        hint = f" (did you mean {close[0]!r}?)" if close else ""
+        parts.append(f"{_short(key, 40)!r} is not a {kind}{hint}")
+    if len(extra) > 3:
+        parts.append(f"and {len(extra) - 3} more")
+    problem = ", ".join(parts)
+    return problem + (f"; {lacking} " + ", ".join(missing) if missing else "")
 
 
 def _split_affine(reader: _Reader, state: str, rhs: sp.Expr, inputs: list[sp.Symbol]
@@ -250,11 +270,11 @@ def _read_dynamics(reader: _Reader, doc: Mapping, states: list[str], inputs: lis
                    ) -> tuple[sp.Matrix, sp.Matrix]:
     dynamics = reader.mapping(doc, "dynamics", required=True)
     missing = [s for s in states if s not in dynamics]
-    if missing:
-        raise reader.fail("dynamics", "missing an entry for state(s) " + ", ".join(missing))
     extra = [str(k) for k in dynamics if k not in states]
     if extra:
-        raise reader.fail("dynamics", "entries for names that are not states: " + ", ".join(extra))
+        raise reader.fail("dynamics", _stray_keys_problem(extra, missing, "state", "no equation for"))
+    if missing:
+        raise reader.fail("dynamics", "missing an entry for state(s) " + ", ".join(missing))
     allowed = set(reader.names)
     drift, columns = [], []
     for state in states:
@@ -388,7 +408,7 @@ def _read_design(reader: _Reader, doc: Mapping, outputs: tuple[str, ...], states
             raise reader.fail("design.integral", "expected true or false")
         result["integral"] = design["integral"]
     if "watchdog" in design:
-        result["watchdog"] = _read_watchdog(reader, design["watchdog"], inputs)
+        result["watchdog"] = _read_watchdog(reader, design["watchdog"], inputs, outputs)
     if "reference" in design:
         if not isinstance(design["reference"], str) or not design["reference"].strip():
             raise reader.fail("design.reference", "expected text such as 'step:amplitude=0.1,at=0.5'")
@@ -417,44 +437,62 @@ def _read_poles(reader: _Reader, poles: Any, outputs: tuple[str, ...]) -> dict[s
     return result
 
 
-def _read_watchdog(reader: _Reader, section: Any, inputs: list[str]) -> dict[str, Any]:
-    """Watchdog thresholds: sigma levels (units of the decoupling matrix), damping, limits."""
+def _read_watchdog(reader: _Reader, section: Any, inputs: list[str], outputs: tuple[str, ...]) -> dict[str, Any]:
+    """Watchdog settings, checked against the one table (:mod:`linz_ros.artifact.watchdog`).
+
+    Per-input settings are mappings of input: value, stored as one entry per input (None
+    where not given); ``divergence_error`` is one number for every output or a mapping of
+    output: value.
+    """
     if not isinstance(section, dict):
         raise reader.fail("design.watchdog", f"expected a mapping, got {_kind(section)}")
-    unknown = [str(k) for k in section if k not in _WATCHDOG_KEYS]
+    unknown = [str(k) for k in section if k not in PLANT_FILE_SETTINGS]
     if unknown:
         raise reader.fail(f"design.watchdog.{unknown[0]}",
-                          "unknown key; expected one of " + ", ".join(_WATCHDOG_KEYS))
+                          "unknown key; expected one of " + ", ".join(PLANT_FILE_SETTINGS))
     result: dict[str, Any] = {}
-    for key in ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "integral_limit", "hold_time"):
-        if key in section:
-            value = reader.number(f"design.watchdog.{key}", section[key])
-            if value < 0 or (value == 0 and key not in ("sigma_stop",)):
-                raise reader.fail(f"design.watchdog.{key}", f"must be positive, got {value:g}")
-            if key in ("stale_after", "hold_time") and value > MAX_WATCHDOG_SECONDS:
-                raise reader.fail(f"design.watchdog.{key}", f"expected at most {MAX_WATCHDOG_SECONDS:g} s, got {value:g}")
+    for key, value in section.items():
+        row = watchdog_setting(key)
+        field = f"design.watchdog.{key}"
+        if key == "safe_command":
+            result[key] = _read_safe_command(reader, value, inputs)
+        elif row.shape == "choice":
             result[key] = value
-    levels = [(k, result[k]) for k in ("sigma_warn", "sigma_act", "sigma_stop") if k in result]
-    for (high_key, high), (low_key, low) in zip(levels, levels[1:]):
-        if low > high:
-            raise reader.fail(f"design.watchdog.{low_key}", f"{low:g} is above {high_key} {high:g}; "
-                                                            "expected sigma_warn >= sigma_act >= sigma_stop")
-    if "rate_limits" in section:
-        limits = section["rate_limits"]
-        if not isinstance(limits, dict):
-            raise reader.fail("design.watchdog.rate_limits", "expected a mapping of input: units per second")
-        result["rate_limits"] = {}
-        for name, value in limits.items():
-            field = f"design.watchdog.rate_limits.{name}"
-            if name not in inputs:
-                raise reader.fail(field, f"{name!r} is not an input")
-            number = reader.number(field, value)
-            if number <= 0:
-                raise reader.fail(field, f"must be positive, got {number:g}")
-            result["rate_limits"][name] = number
-    if "safe_command" in section:
-        result["safe_command"] = _read_safe_command(reader, section["safe_command"], inputs)
+        elif key == "rate_limits":
+            result[key] = _per_name(reader, field, value, inputs, "input")
+        elif key == "divergence_error" and not isinstance(value, dict):
+            result[key] = reader.number(field, value)
+        elif key == "divergence_error":
+            result[key] = {name: reader.number(f"{field}.{name}", v)
+                           for name, v in _checked_names(reader, field, value, outputs, "output").items()}
+        else:
+            result[key] = reader.number(field, value)
+    canonical = {k: (list(v.values()) if isinstance(v, dict) and k == "divergence_error" else v)
+                 for k, v in result.items()}
+    found = watchdog_problem(canonical, len(inputs))
+    if found is not None:
+        name, problem = found
+        names = inputs if name == "rate_limits" else list(result.get(name, {})) if name == "divergence_error" else []
+        entry = re.fullmatch(r"entry (\d+): (.*)", problem)
+        if entry and int(entry.group(1)) < len(names):
+            raise reader.fail(f"design.watchdog.{name}.{names[int(entry.group(1))]}", entry.group(2))
+        raise reader.fail(f"design.watchdog.{name}", problem)
     return result
+
+
+def _checked_names(reader: _Reader, field: str, value: Any, allowed: Any, what: str) -> dict:
+    if not isinstance(value, dict):
+        raise reader.fail(field, f"expected a mapping of {what}: value")
+    for name in value:
+        if name not in allowed:
+            raise reader.fail(f"{field}.{name}", f"{str(name)!r} is not an {what}")
+    return value
+
+
+def _per_name(reader: _Reader, field: str, value: Any, names: list[str], what: str) -> list[float | None]:
+    """A mapping of name: number as one entry per name (None where not given)."""
+    given = _checked_names(reader, field, value, names, what)
+    return [None if name not in given else reader.number(f"{field}.{name}", given[name]) for name in names]
 
 
 def _read_safe_command(reader: _Reader, value: Any, inputs: list[str]) -> dict[str, Any]:
@@ -499,8 +537,11 @@ def _read_document(doc: Any, source: str, digest: str) -> Plant:
         if doc.get(key) is None:
             raise reader.fail(key, "missing (required)")
     name = doc["plant"]
-    if not isinstance(name, str) or not _IDENTIFIER.match(name):
+    if not isinstance(name, str) or not _IDENTIFIER.fullmatch(name):
         raise reader.fail("plant", f"{_describe(name)} is not a valid identifier")
+    if len(name) > _MAX_PLANT_NAME:
+        raise reader.fail("plant", f"a name of {len(name)} characters; at most {_MAX_PLANT_NAME} (it names the "
+                                   "artifact and output files)")
     description = reader.text(doc, "description", "description")
     form = _model_form(reader, doc)
     if form == "dynamics":
@@ -514,6 +555,9 @@ def _read_document(doc: Any, source: str, digest: str) -> Plant:
     input_symbols = [sp.Symbol(u, real=True) for u in inputs]
     reader.table.update({s.name: s for s in state_symbols + input_symbols})
     parameters, units = _read_parameters(reader, doc)
+    if form == "dynamics":      # the mechanical forms check M positive definite instead
+        check_physical_sign(reader, parameters, units)
+    reader.values = parameters
     _read_definitions(reader, doc)
     mechanics = None
     if form == "dynamics":
@@ -605,22 +649,45 @@ def load_plant(path: str | Path) -> Plant:
         and the problem.
     """
     source = str(path)
-    try:
-        raw = Path(path).read_bytes()
-    except FileNotFoundError:
-        raise PlantFileError(source, "", "no such file") from None
-    except IsADirectoryError:
-        raise PlantFileError(source, "", "is a folder, not a plant file") from None
-    except OSError as err:
-        raise PlantFileError(source, "", f"cannot read: {err.strerror}") from None
-    if len(raw) > _MAX_FILE_BYTES:
-        raise PlantFileError(source, "", f"larger than {_MAX_FILE_BYTES // 1_000_000} MB")
+    if not source.strip():          # Path("") would read as the current folder
+        raise PlantFileError(repr(source), "", "expected a plant file name, got an empty one")
+    raw = _read_bounded(Path(path), source)
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as err:
         raise PlantFileError(source, "", f"not UTF-8 text (byte {err.start})") from None
     plant = plant_from_text(text, source)
     return plant
+
+
+def _read_bounded(path: Path, source: str) -> bytes:
+    """The bytes of a regular file of at most ``_MAX_FILE_BYTES``; anything else is one line.
+
+    A device (``/dev/zero``) would be read without end and a named pipe would block, so
+    only regular files are opened, and never more than the limit is read.
+    """
+    too_large = f"larger than {_MAX_FILE_BYTES // 1_000_000} MB"
+    try:
+        info = path.stat()
+        if stat.S_ISDIR(info.st_mode):
+            raise PlantFileError(source, "", "is a folder, not a plant file")
+        if not stat.S_ISREG(info.st_mode):
+            raise PlantFileError(source, "", "is not a regular file (a device, pipe or socket?)")
+        if info.st_size > _MAX_FILE_BYTES:
+            raise PlantFileError(source, "", too_large)
+        with path.open("rb") as handle:
+            raw = handle.read(_MAX_FILE_BYTES + 1)
+    except PlantFileError:
+        raise
+    except FileNotFoundError:
+        raise PlantFileError(source, "", "no such file") from None
+    except OSError as err:
+        raise PlantFileError(source, "", f"cannot read: {err.strerror or type(err).__name__}") from None
+    except ValueError as err:      # a path with a NUL byte
+        raise PlantFileError(source, "", f"cannot read: {err}") from None
+    if len(raw) > _MAX_FILE_BYTES:
+        raise PlantFileError(source, "", too_large)
+    return raw
 
 
 def expression_in(plant: Plant, text: Any, source: str, field: str) -> sp.Expr:
@@ -659,4 +726,5 @@ def expression_in(plant: Plant, text: Any, source: str, field: str) -> sp.Expr:
         reader.names[symbol.name] = "parameter"
         reader.table[symbol.name] = symbol
     allowed = {s.name for s in plant.states} | {s.name for s in plant.parameters}
+    reader.values = dict(plant.parameters)
     return reader.expression(field, text, allowed)

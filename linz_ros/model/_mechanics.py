@@ -19,7 +19,7 @@ from linz_ros.model._serial_arm import Link, arm_model
 from linz_ros.model._symbolic import numeric_function
 
 __all__ = ["MECHANICAL_FORMS", "read_mechanics", "check_mass_matrix", "velocity_names", "TOOL_NAMES",
-           "STANDARD_GRAVITY"]
+           "STANDARD_GRAVITY", "MAX_JOINTS"]
 
 #: Top-level key that selects each mechanical form.
 MECHANICAL_FORMS = {"mass_matrix": "mass_matrix", "kinetic_energy": "energy", "serial_arm": "serial_arm"}
@@ -27,6 +27,9 @@ MECHANICAL_FORMS = {"mass_matrix": "mass_matrix", "kinetic_energy": "energy", "s
 TOOL_NAMES = ("tip_x", "tip_y", "tip_z")
 #: Standard gravity, m/s^2 (CGPM 1901), the serial arm's default along -z.
 STANDARD_GRAVITY = 9.80665
+#: Joints of a serial arm at most: the symbolic mass matrix of 8 joints takes ~10 s, and the
+#: time grows about threefold with every further two joints.
+MAX_JOINTS = 8
 _JOINT_KEYS = ("type", "a", "alpha", "d", "theta", "mass", "com", "inertia", "damping")
 _SERIAL_KEYS = ("joints", "gravity", "tool")
 #: Points of the envelope at which M(q) is checked to be symmetric positive definite.
@@ -192,15 +195,21 @@ def _serial_arm_terms(reader: Any, doc: Mapping, q: list[sp.Symbol], qd: list[sp
     joints = arm.get("joints")
     if not isinstance(joints, list) or not joints:
         raise reader.fail("serial_arm.joints", "expected a non-empty list of joints")
+    if len(joints) > MAX_JOINTS:
+        raise reader.fail("serial_arm.joints", f"too large: {len(joints)} joints, at most {MAX_JOINTS} (the "
+                                               "symbolic mass matrix grows too fast beyond)")
     if len(joints) != len(q):
         raise reader.fail("serial_arm.joints", f"{len(joints)} joint(s) but {len(q)} coordinate(s)")
     links = [_joint(reader, f"serial_arm.joints[{i}]", spec, allowed, refused) for i, spec in enumerate(joints)]
     gravity = (sp.Matrix([0, 0, -sp.Float(STANDARD_GRAVITY)]) if arm.get("gravity") is None
                else _vector(reader, "serial_arm.gravity", arm["gravity"], allowed, refused))
     tool = None if arm.get("tool") is None else _vector(reader, "serial_arm.tool", arm["tool"], allowed, refused)
+    values = {p: sp.Rational(repr(float(v))) for p, v in getattr(reader, "values", {}).items()}
     for i, link in enumerate(links):
-        if link.mass.is_number and not link.mass > 0:
-            raise reader.fail(f"serial_arm.joints[{i}].mass", f"must be positive, got {link.mass}")
+        mass = link.mass.xreplace(values)
+        if mass.is_number and not mass > 0:
+            raise reader.fail(f"serial_arm.joints[{i}].mass", f"the mass of joint {i + 1}'s link must be positive, "
+                                                              f"got {float(mass):g}")
     model = arm_model(links, q, qd, gravity, tool)
     if model.tool is not None:
         for name, expr in zip(TOOL_NAMES, model.tool):

@@ -30,7 +30,9 @@ from rclpy.clock import Clock, ClockType
 from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackReturn
 from std_msgs.msg import Float64MultiArray
 
-from linz_ros.artifact import MAX_WATCHDOG_SECONDS, load_artifact
+from linz_ros.artifact import MAX_WATCHDOG_SECONDS, WATCHDOG_SETTINGS, load_artifact, watchdog_problem
+from linz_ros.artifact.watchdog import RUNTIME_SETTINGS, setting_problem
+from linz_ros.artifact.watchdog import setting as watchdog_setting
 from linz_ros.errors import LinzError
 from linz_ros.nodes._common import EXECUTORS, SAFETY_NOTICE, control_qos, declare, spin_node
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, labelled_array,
@@ -42,10 +44,11 @@ from linz_ros.runtime.fieldlog import (CONDITIONING_FIELDS, FieldLogSettings, Fi
 
 __all__ = ["ControllerNode", "main", "CONDITIONING_FIELDS", "DiagnosticWindow"]
 
-#: Watchdog settings that may change while the node is active.
-DYNAMIC = ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "hold_time", "integral_limit",
-           "rate_limits")
+#: Watchdog settings that may change while the node is active (the table says which).
+DYNAMIC = RUNTIME_SETTINGS
 _UNSET = -1.0
+#: Watchdog settings declared from the table; future_tolerance and safe_command have node rules of their own.
+_TABLE_PARAMETERS = tuple(row for row in WATCHDOG_SETTINGS if row.name not in ("future_tolerance", "safe_command"))
 #: In simulated time a state may be stamped ahead of the last /clock this node has handled.
 SIM_TIME_FUTURE_TOLERANCE = 0.5
 #: In simulated time, wall seconds without a state before the safe command, at the least: a slow
@@ -71,6 +74,8 @@ class DiagnosticWindow:
     reference_missing: int = 0
     publish_failures: int = 0
     unstamped: int = 0                 # states whose header stamp was zero (judged by arrival)
+    outside_envelope: int = 0          # steps outside the widened envelope (acted on or not)
+    diverging: int = 0                 # steps the divergence watchdog flagged
     compute: list[float] = field(default_factory=list)
 
     def add(self, record) -> None:
@@ -86,6 +91,9 @@ class DiagnosticWindow:
             self.max_condition = math.inf
         self.saturated += any(record.saturated)
         self.warned += record.warn
+        if record.alarms:
+            self.outside_envelope += record.alarms & 1
+            self.diverging += record.alarms >> 1 & 1
         self.compute.append(record.compute_time)
 
     def level(self) -> tuple[bytes, str]:
@@ -98,10 +106,14 @@ class DiagnosticWindow:
         if self.publish_failures:
             return DiagnosticStatus.ERROR, f"{self.publish_failures} message(s) refused by the middleware"
         if self.modes["safe"] or self.modes["held"]:
-            why = [f"{label} {count}x" for label, count in (("singular", self.singular), ("state stale", self.stale),
+            why = [f"{label} {count}x" for label, count in (("diverging", self.diverging),
+                                                            ("outside the envelope", self.outside_envelope),
+                                                            ("singular", self.singular), ("state stale", self.stale),
                                                             ("state rejected", self.rejected)) if count]
             return DiagnosticStatus.ERROR, "safe command sent: " + (", ".join(why) or "safe command")
-        why = []
+        why = [f"{label} {count}x (warn only)" for label, count in (("diverging", self.diverging),
+                                                                   ("outside the envelope", self.outside_envelope))
+               if count]
         if self.modes["damped"]:
             why.append("near singular: damped")
         elif self.warned:
@@ -129,9 +141,41 @@ class DiagnosticWindow:
                  ("reference_stale_count", self.reference_stale),
                  ("reference_missing_count", self.reference_missing),
                  ("publish_failures", self.publish_failures), ("unstamped_count", self.unstamped),
+                 ("outside_envelope_count", self.outside_envelope), ("diverging_count", self.diverging),
                  ("loop_rate_hz", self.steps / span), ("compute_time_p99_us", p99)]
         pairs += [(f"mode_{m}", c) for m, c in self.modes.items()]
         return [KeyValue(key=k, value=f"{v:.6g}" if isinstance(v, float) else str(v)) for k, v in pairs]
+
+
+def _table_override(shape: str, value: Any) -> Any:
+    """A node parameter's value as a WatchdogConfig override, or None for "the artifact's"."""
+    if shape == "scalar":
+        return None if value == _UNSET else float(value)
+    if shape == "choice":
+        return None if value == "artifact" else value
+    values = list(value)
+    return tuple(math.inf if v == 0 else float(v) for v in values) if values else None
+
+
+def _parameter_problem(changed: dict[str, Any], values: dict[str, Any]) -> str | None:
+    """Why a change of watchdog parameters is refused, by the table's check, or None."""
+    rows = {row.name: row for row in _TABLE_PARAMETERS}
+    for name, value in changed.items():
+        row = rows.get(name)
+        if row is None:
+            continue
+        if row.shape == "scalar" and value != _UNSET and not value >= 0:
+            return f"{name} must be -1 (the artifact's value) or >= 0, got {value:g}"
+        if row.shape in ("per_input", "per_output") and any(not v >= 0 for v in value):
+            return f"{name} must be >= 0 (0: {row.none_means})"
+        override = _table_override(row.shape, value)
+        canonical = list(override) if isinstance(override, tuple) else override
+        problem = None if override is None else setting_problem(name, canonical)
+        if problem:
+            return f"{name}: {problem}"
+    levels = {k: values[k] for k in ("sigma_warn", "sigma_act", "sigma_stop") if values[k] != _UNSET}
+    found = watchdog_problem(levels)
+    return None if found is None else f"{found[0]}: {found[1]}"
 
 
 class _ReferenceSource:
@@ -247,6 +291,9 @@ class ControllerNode(LifecycleNode):
                                   "(default: the one recorded at build time)", read_only=True)
         p["allow_plant_change"] = declare(self, "allow_plant_change", False, "accept a changed plant file",
                                           read_only=True)
+        p["trusted_keys"] = declare(self, "trusted_keys", [], "public keys (PEM files): accept only an artifact "
+                                    "signed with one of them (empty: signatures not required)", read_only=True,
+                                    array_of=str)
         p["state_topic"] = declare(self, "state_topic", "state", "state topic", read_only=True)
         p["state_type"] = declare(self, "state_type", "std_msgs/msg/Float64MultiArray",
                                   f"one of {', '.join(STATE_TYPES)}", read_only=True)
@@ -272,18 +319,19 @@ class ControllerNode(LifecycleNode):
         p["autostart"] = declare(self, "autostart", False, "configure and activate at start-up", read_only=True)
         p["executor"] = declare(self, "executor", "single_threaded", f"one of {', '.join(EXECUTORS)}",
                                 read_only=True)
-        for name, text in (("sigma_warn", "flag steps with sigma_min(A) below this"),
-                           ("sigma_act", "damped least squares below this"),
-                           ("sigma_stop", "safe command below this"),
-                           ("damping", "damping lambda at sigma_min = 0"),
-                           ("stale_after", "refuse states older than this (s)"),
-                           ("hold_time", "how long 'hold' repeats the last command (s)"),
-                           ("integral_limit", "bound on each integrator")):
-            p[name] = declare(self, name, _UNSET, f"{text}; -1: the artifact's value", minimum=-1.0,
-                              maximum=MAX_WATCHDOG_SECONDS if name in ("stale_after", "hold_time") else None)
-        p["rate_limits"] = declare(self, "rate_limits", [], "per input, units per second (0: none); "
-                                   "empty: the artifact's", array_of=float)
-        p["future_tolerance"] = declare(self, "future_tolerance", _UNSET, "accept stamps this far ahead of now "
+        for row in _TABLE_PARAMETERS:
+            text = f"{row.help} ({row.unit})"
+            if row.shape == "scalar":
+                p[row.name] = declare(self, row.name, _UNSET, f"{text}; -1: the artifact's value", minimum=-1.0,
+                                      maximum=row.upper if row.upper <= MAX_WATCHDOG_SECONDS else None,
+                                      read_only=not row.runtime)
+            elif row.shape == "choice":
+                p[row.name] = declare(self, row.name, "artifact", f"{text}: artifact or one of "
+                                      f"{', '.join(row.choices)}", read_only=not row.runtime)
+            else:
+                p[row.name] = declare(self, row.name, [], f"{text}; one per {row.shape[4:]} (0: {row.none_means}); "
+                                      "empty: the artifact's", array_of=float, read_only=not row.runtime)
+        p["future_tolerance"] = declare(self, "future_tolerance", _UNSET, f"{watchdog_setting('future_tolerance').help} "
                                         "(s); -1: stale_after, or 0.5 s in simulated time, where /clock and the "
                                         "states travel apart", read_only=True, minimum=-1.0,
                                         maximum=MAX_WATCHDOG_SECONDS)
@@ -303,22 +351,18 @@ class ControllerNode(LifecycleNode):
                                               read_only=True, minimum=0.01, maximum=1.0)
         p["field_log_queue"] = declare(self, "field_log_queue", 20000, "records that may wait for the disk; more "
                                        "are dropped and counted", read_only=True, minimum=1)
-        p["safe_command"] = declare(self, "safe_command", "artifact", "artifact, zero, hold or fixed",
-                                    read_only=True)
+        p["safe_command"] = declare(self, "safe_command", "artifact", f"{watchdog_setting('safe_command').help}: "
+                                    "artifact (the artifact's), zero, hold or fixed (with safe_value)", read_only=True)
         p["safe_value"] = declare(self, "safe_value", [], "the fixed safe command, per input", read_only=True,
                                   array_of=float)
         self.params = p
 
     def _watchdog_overrides(self, values: dict[str, Any]) -> dict[str, Any]:
         overrides: dict[str, Any] = {}
-        for name in ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "hold_time"):
-            if values[name] != _UNSET:
-                overrides[name] = float(values[name])
-        if values["integral_limit"] != _UNSET:
-            overrides["integral_limit"] = float(values["integral_limit"])
-        limits = list(values["rate_limits"])
-        if limits:
-            overrides["rate_limits"] = tuple(math.inf if v == 0 else float(v) for v in limits)
+        for row in _TABLE_PARAMETERS:
+            value = _table_override(row.shape, values[row.name])
+            if value is not None:
+                overrides[row.name] = value
         if values.get("future_tolerance", _UNSET) >= 0:
             overrides["future_tolerance"] = float(values["future_tolerance"])
         elif self.get_parameter("use_sim_time").value:
@@ -342,20 +386,10 @@ class ControllerNode(LifecycleNode):
         static = [n for n in changed if n not in DYNAMIC and n in self.params]
         if static:
             return SetParametersResult(successful=False, reason=f"{static[0]} cannot change while the node runs")
-        limits = changed.get("rate_limits")
-        if limits is not None and any(v < 0 for v in limits):
-            return SetParametersResult(successful=False, reason="rate_limits must be >= 0 (0: no limit)")
         values = dict(self.params, **changed)
-        negative = [k for k in DYNAMIC if k != "rate_limits" and k in changed and changed[k] != _UNSET
-                    and not changed[k] >= 0]
-        if negative:
-            return SetParametersResult(successful=False, reason=f"{negative[0]} must be -1 (the artifact's value) "
-                                                                f"or >= 0, got {changed[negative[0]]:g}")
-        levels = [(k, values[k]) for k in ("sigma_warn", "sigma_act", "sigma_stop") if values[k] != _UNSET]
-        for (high_key, high), (low_key, low) in zip(levels, levels[1:]):
-            if low > high:
-                return SetParametersResult(successful=False, reason=f"{low_key} {low:g} is above {high_key} {high:g}; "
-                                                                    "expected sigma_warn >= sigma_act >= sigma_stop")
+        refusal = _parameter_problem(changed, values)
+        if refusal is not None:
+            return SetParametersResult(successful=False, reason=refusal)
         if self.core is None:
             self.params.update(changed)
             return SetParametersResult(successful=True)
@@ -397,7 +431,7 @@ class ControllerNode(LifecycleNode):
         self.configure_error = ""
         a = self.core.artifact
         self.get_logger().info(f"configured: {a.name} ({a.kind}, relative degree {a.relative_degree}, "
-                               f"{a.rate:g} Hz design rate), plant file {a.plant_check}")
+                               f"{a.rate:g} Hz design rate), plant file {a.plant_check}, signature {a.signature_check}")
         return TransitionCallbackReturn.SUCCESS
 
     def _configure(self) -> None:
@@ -405,7 +439,8 @@ class ControllerNode(LifecycleNode):
         if not p["artifact"]:
             raise LinzError("parameter artifact is empty: pass -p artifact:=PATH (from linz build)")
         artifact = load_artifact(p["artifact"], plant_path=p["plant_file"] or None,
-                                 allow_plant_change=p["allow_plant_change"])
+                                 allow_plant_change=p["allow_plant_change"],
+                                 trusted_keys=[k for k in p["trusted_keys"] if k] or None)
         config = WatchdogConfig.from_artifact(artifact, **self._watchdog_overrides(p))
         core = ControllerCore(artifact, config)
         message_class(p["state_type"], STATE_TYPES, "state_type")

@@ -9,10 +9,13 @@ Reference         y_ref and its derivatives per chain; ``make_reference``, ``par
 NumericPlant      dx/dt = f(x) + G(x) u from the artifact, with RK4 and RK45 integrators
 Transform         z = T(x) and its inverse (closed form or warm-started Newton)
 simulate          the sampled closed loop offline; SimSettings, SimResult, fit_decay_rate
+run_verdict       one word for how a run went (VERDICTS), when it first happened and why
+ALARMS            the watchdogs that watch the machine (envelope, divergence): StepRecord.alarms bits
 """
 
-from linz_ros.runtime.closed_loop import INTEGRATORS, SimResult, SimSettings, fit_decay_rate, simulate
-from linz_ros.runtime.core import MODES, REASONS, ControllerCore, StepRecord, WatchdogConfig
+from linz_ros.runtime.closed_loop import (INTEGRATORS, VERDICTS, SimResult, SimSettings, Verdict, fit_decay_rate,
+                                         run_verdict, simulate)
+from linz_ros.runtime.core import ALARMS, MODES, REASONS, ControllerCore, StepRecord, WatchdogConfig
 from linz_ros.runtime.plant import NumericPlant, mismatched_parameters, parse_assignments
 from linz_ros.runtime.reference import KINDS, Reference, extrapolate_reference, make_reference, parse_reference
 from linz_ros.runtime.transform import InverseResult, Transform
@@ -20,4 +23,4 @@ from linz_ros.runtime.transform import InverseResult, Transform
 __all__ = ["ControllerCore", "WatchdogConfig", "StepRecord", "MODES", "REASONS", "Reference",
            "make_reference", "parse_reference", "extrapolate_reference", "KINDS", "NumericPlant", "mismatched_parameters",
            "parse_assignments", "Transform", "InverseResult", "simulate", "SimSettings", "SimResult",
-           "fit_decay_rate", "INTEGRATORS"]
+           "fit_decay_rate", "INTEGRATORS", "ALARMS", "VERDICTS", "Verdict", "run_verdict"]

@@ -19,15 +19,23 @@ import numpy as np
 
 from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
-from linz_ros.runtime.core import MODES, ControllerCore, WatchdogConfig
+from linz_ros.runtime.core import ALARMS, MODES, ControllerCore, WatchdogConfig
 from linz_ros.runtime.fieldlog import conditioning_values
-from linz_ros.runtime.plant import NumericPlant
+from linz_ros.runtime.plant import IntegrationBudgetError, NumericPlant
 from linz_ros.runtime.reference import Reference, make_reference
 from linz_ros.runtime.transform import Transform
 
-__all__ = ["SimSettings", "SimResult", "simulate", "fit_decay_rate", "INTEGRATORS"]
+__all__ = ["SimSettings", "SimResult", "simulate", "fit_decay_rate", "INTEGRATORS", "VERDICTS", "Verdict",
+           "run_verdict", "outside_envelope", "MAX_SIM_STEPS", "MAX_SUBSTEPS"]
 
 INTEGRATORS = ("rk4", "scipy")
+#: One word for how a run went, the worst first: the first that applies is the run's verdict.
+VERDICTS = ("diverged", "left_envelope", "held_safe", "saturated", "not_settled", "tracked")
+#: A run is saturated when an input sat on a limit for more than this fraction of its steps.
+SATURATED_FRACTION = 0.05
+#: Settled: the RMS error over the last tenth of the run is at most this fraction of the peak error
+#: (or of the divergence bound, when the artifact carries one).
+SETTLED_FRACTION = 0.05
 
 
 @dataclass
@@ -89,6 +97,7 @@ class SimResult:
     diverged_at: float | None = None
     ref_state: np.ndarray | None = None
     notes: list[str] = field(default_factory=list)
+    alarms: np.ndarray | None = None
 
     @property
     def period(self) -> float:
@@ -116,6 +125,7 @@ class SimResult:
         """
         errors = self.errors()
         T = self.period
+        verdict = run_verdict(self)
         outputs = {}
         for i, name in enumerate(self.artifact.outputs):
             e = errors[:, i]
@@ -124,7 +134,8 @@ class SimResult:
                 "rms_error": float(np.sqrt(np.mean(e[finite] ** 2))) if finite.any() else None,
                 "final_error": float(abs(e[finite][-1])) if finite.any() else None,
                 "max_error": float(np.max(np.abs(e[finite]))) if finite.any() else None,
-                "decay_rate": fit_decay_rate(self.t[finite], e[finite]),
+                # a decay rate means something only when the error did decay
+                "decay_rate": fit_decay_rate(self.t[finite], e[finite]) if verdict.word == "tracked" else None,
             }
         sigma = self.sigma_min[np.isfinite(self.sigma_min)]
         condition = self.condition[np.isfinite(self.condition)]
@@ -133,6 +144,9 @@ class SimResult:
             reasons[r] = reasons.get(r, 0) + 1
         return {
             "plant": self.artifact.name,
+            "verdict": verdict.word,
+            "verdict_at": verdict.at,
+            "verdict_detail": verdict.detail,
             "duration": float(self.t[-1] - self.t[0]) if len(self.t) else 0.0,
             "rate": self.artifact.rate,
             "steps": len(self.t),
@@ -147,8 +161,23 @@ class SimResult:
                                 "p99": float(np.percentile(self.compute_time, 99) * 1e6),
                                 "max": float(np.max(self.compute_time) * 1e6)} if len(self.t) else None,
             "diverged_at": self.diverged_at,
+            "alarm_steps": {name: int(np.count_nonzero(self.alarm_mask() >> bit & 1))
+                            for bit, name in enumerate(ALARMS)},
             "notes": list(self.notes),
         }
+
+    def alarm_mask(self) -> np.ndarray:
+        """Per step, the alarm bits of the record (see ``runtime.ALARMS``).
+
+        Returns
+        -------
+        numpy.ndarray
+            Integers; derived from the reasons for results read from older logs.
+        """
+        if self.alarms is not None:
+            return np.asarray(self.alarms, dtype=int)
+        return np.array([sum(1 << bit for bit, name in enumerate(ALARMS) if reason == name)
+                         for reason in self.reason], dtype=int)
 
     def write_csv(self, path: str | Path) -> Path:
         """Write every sampled signal as one CSV row per control step.
@@ -181,6 +210,134 @@ class SimResult:
                     row += list(self.ref_state[k])
                 writer.writerow([f"{v:.10g}" if isinstance(v, (float, np.floating)) else v for v in row])
         return path
+
+
+@dataclass(frozen=True)
+class Verdict:
+    """How a run went, in one word of :data:`VERDICTS`, when it first happened and why."""
+
+    word: str
+    at: float | None
+    detail: str
+
+
+def outside_envelope(artifact: Artifact, x: np.ndarray, margin: float = 0.0) -> np.ndarray:
+    """Per row of states, whether a bounded state lies outside the envelope widened by ``margin``.
+
+    Parameters
+    ----------
+    artifact : Artifact
+    x : numpy.ndarray
+        K x n states.
+    margin : float
+        Fraction of each state's range added on both sides.
+
+    Returns
+    -------
+    numpy.ndarray
+        K booleans.
+    """
+    envelope = artifact.document["plant"].get("envelope", {})
+    x = np.asarray(x, dtype=float).reshape(-1, len(artifact.states))
+    outside = np.zeros(x.shape[0], dtype=bool)
+    for i, name in enumerate(artifact.states):
+        if name in envelope:
+            lo, hi = envelope[name]
+            extra = margin * (hi - lo)
+            with np.errstate(invalid="ignore"):      # nan (a refused state) is not outside
+                outside |= (x[:, i] < lo - extra) | (x[:, i] > hi + extra)
+    return outside
+
+
+def _first_time(t: np.ndarray, flags: np.ndarray) -> float | None:
+    hits = np.flatnonzero(flags)
+    return float(t[hits[0]]) if hits.size else None
+
+
+def run_verdict(result: "SimResult") -> Verdict:
+    """The run's verdict: the first of :data:`VERDICTS` that applies, and when it first did.
+
+    - ``diverged``: the plant's state stopped being finite, or the divergence watchdog tripped;
+    - ``left_envelope``: the true state left the envelope widened by the watchdog's margin,
+      or the envelope watchdog tripped on the measured state;
+    - ``held_safe``: the controller sent the safe (or held) command at some step;
+    - ``saturated``: an input sat on a limit for more than 5 % of the steps;
+    - ``not_settled``: the RMS error over the last tenth of the run is above 5 % of the
+      peak error (or of the divergence bound);
+    - ``tracked``: none of these.
+
+    Parameters
+    ----------
+    result : SimResult
+
+    Returns
+    -------
+    Verdict
+    """
+    t = result.t
+    alarms = result.alarm_mask()
+    if result.diverged_at is not None:
+        return Verdict("diverged", result.diverged_at, "the plant's state stopped being finite")
+    diverging = (alarms >> 1 & 1).astype(bool)
+    margin = float(result.artifact.watchdog.get("envelope_margin", 0.1))
+    left = outside_envelope(result.artifact, result.x, margin) | (alarms & 1).astype(bool)
+    if diverging.any():
+        left_at = _first_time(t, left)
+        before = (f"; it left the envelope first, at t = {left_at:.4g} s"
+                  if left_at is not None and left_at < _first_time(t, diverging) else "")
+        return Verdict("diverged", _first_time(t, diverging), "the tracking error grew past its bound "
+                                                              "(divergence watchdog)" + before)
+    if left.any():
+        k = int(np.flatnonzero(left)[0])
+        return Verdict("left_envelope", float(t[k]), _envelope_detail(result, k, margin))
+    unsafe = np.array([m in ("safe", "held") for m in result.mode], dtype=bool)
+    if unsafe.any():
+        k = int(np.flatnonzero(unsafe)[0])
+        return Verdict("held_safe", float(t[k]), f"{int(unsafe.sum())} step(s) sent the safe or held command, "
+                                                 f"the first for {result.reason[k]}")
+    if len(t) and result.saturated.size:
+        fractions = result.saturated.mean(axis=0)
+        worst = int(np.argmax(fractions))
+        if fractions[worst] > SATURATED_FRACTION:
+            return Verdict("saturated", _first_time(t, result.saturated[:, worst]),
+                           f"{result.artifact.inputs[worst]} saturated {100 * fractions[worst]:.0f} % of the time")
+    unsettled = _unsettled_outputs(result)
+    if unsettled:
+        return Verdict("not_settled", None, "the error has not settled: " + ", ".join(unsettled))
+    return Verdict("tracked", None, "tracked the reference")
+
+
+def _envelope_detail(result: "SimResult", k: int, margin: float) -> str:
+    envelope = result.artifact.document["plant"].get("envelope", {})
+    for i, name in enumerate(result.artifact.states):
+        if name in envelope:
+            lo, hi = envelope[name]
+            value = result.x[k, i]
+            extra = margin * (hi - lo)
+            if not lo - extra <= value <= hi + extra:
+                return (f"{name} = {value:.4g} outside its envelope [{lo:g}, {hi:g}] widened by "
+                        f"{100 * margin:g} %")
+    return "the envelope watchdog tripped on the measured state"
+
+
+def _unsettled_outputs(result: "SimResult") -> list[str]:
+    errors = result.errors()
+    if len(result.t) < 10:
+        return []
+    tail = max(1, len(result.t) // 10)
+    bounds = result.artifact.watchdog.get("divergence_error") or [None] * errors.shape[1]
+    names = []
+    for i, name in enumerate(result.artifact.outputs):
+        e = errors[:, i]
+        finite = e[np.isfinite(e)]
+        if finite.size < 10:
+            continue
+        peak = float(np.max(np.abs(finite)))
+        rms_tail = float(np.sqrt(np.mean(finite[-tail:] ** 2)))
+        scale = max(peak, bounds[i] or 0.0)
+        if rms_tail > max(SETTLED_FRACTION * scale, 1e-9):
+            names.append(f"{name} (RMS {rms_tail:.3g} over the last tenth, peak {peak:.3g})")
+    return names
 
 
 def fit_decay_rate(t: np.ndarray, error: np.ndarray, upper: float = 1e-1, lower: float = 1e-4,
@@ -229,6 +386,9 @@ def fit_decay_rate(t: np.ndarray, error: np.ndarray, upper: float = 1e-1, lower:
 
 #: Most control steps one offline run may take (every step is kept in memory, about 1 kB).
 MAX_SIM_STEPS = 10_000_000
+#: Most RK4 sub-steps per control period, and in one run (four evaluations of f each).
+MAX_SUBSTEPS = 1000
+MAX_RUN_SUBSTEPS = 4 * MAX_SIM_STEPS
 
 
 def _check_settings(artifact: Artifact, settings: SimSettings) -> None:
@@ -240,8 +400,11 @@ def _check_settings(artifact: Artifact, settings: SimSettings) -> None:
                                         f"{MAX_SIM_STEPS:,} control steps; run it in parts")
     if settings.integrator not in INTEGRATORS:
         raise ConfigError("--integrator", f"expected one of {', '.join(INTEGRATORS)}, got {settings.integrator!r}")
-    if not (isinstance(settings.substeps, int) and settings.substeps >= 1):
-        raise ConfigError("--substeps", f"expected a whole number >= 1, got {settings.substeps}")
+    if not (isinstance(settings.substeps, int) and 1 <= settings.substeps <= MAX_SUBSTEPS):
+        raise ConfigError("--substeps", f"expected a whole number from 1 to {MAX_SUBSTEPS}, got {settings.substeps}")
+    if settings.integrator == "rk4" and settings.duration * artifact.rate * settings.substeps > MAX_RUN_SUBSTEPS:
+        raise ConfigError("--substeps", f"{settings.substeps} sub-steps for each of {settings.duration * artifact.rate:,.0f} "
+                                        f"control steps is more than {MAX_RUN_SUBSTEPS:,} RK4 steps; run it in parts")
     if not (math.isfinite(settings.delay) and settings.delay >= 0):
         raise ConfigError("--delay", f"expected a number of seconds >= 0, got {settings.delay}")
     if settings.delay > settings.duration:
@@ -298,10 +461,11 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     n, m = plant.n, plant.m
     zero = [0.0] * m
     records = {"t": [], "x": [], "xm": [], "ref": [], "y": [], "u": [], "s": [], "c": [], "mode": [],
-               "reason": [], "sat": [], "ct": []}
+               "reason": [], "sat": [], "ct": [], "alarms": []}
     commands: list[list[float]] = []
     diverged_at = None
     report_every = max(1, steps // 200)
+    budget_note = None
     log_start = time.time_ns()
     ref_offsets = [sum(r + 1 for r in core.orders[:i]) for i in range(len(core.orders))]
     for k in range(steps):
@@ -325,6 +489,7 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
         records["reason"].append(record.reason)
         records["sat"].append(record.saturated)
         records["ct"].append(record.compute_time)
+        records["alarms"].append(record.alarms)
         if progress is not None and k % report_every == 0:
             progress(k / steps)
         if k == steps - 1:
@@ -334,6 +499,9 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
         after = commands[k - delay_periods] if k - delay_periods >= 0 else zero
         try:
             x = _advance(plant, x, before, after, fraction, T, settings)
+        except IntegrationBudgetError as err:
+            budget_note = f"stopped at t = {(k + 1) * T:.4g} s: {err}"
+            x = [math.nan] * n
         except (ArithmeticError, ValueError):
             x = [math.nan] * n
         if not all(math.isfinite(v) for v in x):
@@ -346,10 +514,19 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
         x_measured=np.array(records["xm"]), ref=np.array(records["ref"]), y=np.array(records["y"]),
         u=np.array(records["u"]), sigma_min=np.array(records["s"]), condition=np.array(records["c"]),
         mode=records["mode"], reason=records["reason"], saturated=np.array(records["sat"], dtype=bool),
-        compute_time=np.array(records["ct"]), diverged_at=diverged_at)
+        compute_time=np.array(records["ct"]), diverged_at=diverged_at, alarms=np.array(records["alarms"], dtype=int))
     if artifact.kind == "input_state":
         result.ref_state = _reference_states(artifact, result.ref)
-    if diverged_at is not None:
+    alarms = result.alarm_mask()
+    for bit, name in enumerate(ALARMS):
+        first = _first_time(result.t, alarms >> bit & 1)
+        if first is not None:
+            acted = [r for r, m in zip(result.reason, result.mode) if r == name and m in ("safe", "held")]
+            result.notes.append(f"watchdog {name} first at t = {first:.4g} s, {int(np.count_nonzero(alarms >> bit & 1))} "
+                                f"step(s), {'the safe command sent' if acted else 'warned only'}")
+    if budget_note is not None:
+        result.notes.append(budget_note)
+    elif diverged_at is not None:
         result.notes.append(f"the plant's state stopped being finite at t = {diverged_at:.4g} s")
     return result
 

@@ -27,18 +27,22 @@ import time
 from dataclasses import dataclass, fields, replace
 from typing import Any, Callable, Sequence
 
-from linz_ros.artifact.document import MAX_WATCHDOG_SECONDS, Artifact
+from linz_ros.artifact.document import Artifact
+from linz_ros.artifact.watchdog import setting as watchdog_setting
+from linz_ros.artifact.watchdog import watchdog_problem
 from linz_ros.errors import ConfigError
 from linz_ros.runtime._linalg import (computed_torque, damped_solve, inverse_mass_singular_values, singular_values,
                                       solve, task_space_terms)
 
-__all__ = ["ControllerCore", "StepRecord", "WatchdogConfig", "MODES", "REASONS"]
+__all__ = ["ControllerCore", "StepRecord", "WatchdogConfig", "MODES", "REASONS", "ALARMS"]
 
 MODES = ("nominal", "damped", "held", "safe")
 #: Why a step ended as it did (``ok`` for a nominal step).
 REASONS = ("ok", "near_singular", "singular", "wrong_length", "non_finite_state", "bad_reference",
            "bad_time", "out_of_order", "stale", "future_stamp", "model_not_finite", "non_finite_command",
-           "no_state", "bad_message")
+           "no_state", "bad_message", "outside_envelope", "diverging")
+#: Watchdogs that watch the machine rather than the message: bit i of ``StepRecord.alarms``.
+ALARMS = ("outside_envelope", "diverging")
 _isfinite = math.isfinite
 
 
@@ -87,6 +91,10 @@ def _slot_slice(slots: dict, name: str) -> slice:
 class WatchdogConfig:
     """Watchdog settings; start from :meth:`from_artifact` and override what you need.
 
+    The settings, their units, bounds and defaults are those of the one table,
+    :data:`linz_ros.artifact.watchdog.WATCHDOG_SETTINGS`; :meth:`validate` applies its
+    check. Per-input and per-output settings are tuples here, ``inf`` for none.
+
     Attributes
     ----------
     sigma_warn, sigma_act, sigma_stop : float
@@ -113,8 +121,19 @@ class WatchdogConfig:
     future_tolerance : float or None
         A stamp up to this far ahead of ``now`` is accepted (clock skew between machines,
         ``/clock`` arriving after the state in simulated time); further ahead it is
-        refused, so one wrong stamp cannot block the states that follow for longer than
-        this. None: the same as ``stale_after``.
+        refused. None: the same as ``stale_after``.
+    envelope : tuple of (float, float)
+        Per state, the operating envelope (``(-inf, inf)`` where the plant gives none).
+    envelope_margin : float
+        The envelope is widened by this fraction of each bounded state's range.
+    envelope_action : {"warn", "safe"}
+        Outside the widened envelope: flag the step, or send the safe command.
+    divergence_error : tuple of float
+        Per output, the tracking-error bound of the divergence watchdog (``inf``: not watched).
+    divergence_time : float
+        Seconds the error must stay above its bound, not smaller than when it crossed it.
+    divergence_action : {"warn", "safe"}
+        When diverging: flag the step, or send the safe command until the next reset.
     """
 
     sigma_warn: float
@@ -126,15 +145,23 @@ class WatchdogConfig:
     rate_limits: tuple[float, ...]
     safe_kind: str = "zero"
     safe_value: tuple[float, ...] = ()
-    hold_time: float = 0.5
+    hold_time: float = watchdog_setting("hold_time").default
     integral_limit: float = math.inf
     anti_windup: bool = True
     max_dt: float = 0.1
     future_tolerance: float | None = None
+    envelope: tuple[tuple[float, float], ...] = ()
+    envelope_margin: float = watchdog_setting("envelope_margin").default
+    envelope_action: str = watchdog_setting("envelope_action").default
+    divergence_error: tuple[float, ...] = ()
+    divergence_time: float = watchdog_setting("divergence_time").default
+    divergence_action: str = watchdog_setting("divergence_action").default
 
     @classmethod
     def from_artifact(cls, artifact: Artifact, **overrides: Any) -> "WatchdogConfig":
-        """The artifact's watchdog levels and limits, with checked overrides.
+        """The artifact's watchdog settings and limits, with checked overrides.
+
+        Settings an older artifact does not store take the table's defaults.
 
         Parameters
         ----------
@@ -154,6 +181,12 @@ class WatchdogConfig:
         w = artifact.watchdog
         m = len(artifact.inputs)
         safe = w["safe_command"]
+        envelope = artifact.document["plant"].get("envelope", {})
+        divergence = w.get("divergence_error") or [None] * len(artifact.outputs)
+
+        def stored(name: str) -> Any:
+            return w.get(name, watchdog_setting(name).default)
+
         config = cls(
             sigma_warn=float(w["sigma_warn"]), sigma_act=float(w["sigma_act"]),
             sigma_stop=float(w["sigma_stop"]), damping=float(w["damping"]),
@@ -162,10 +195,25 @@ class WatchdogConfig:
             rate_limits=tuple(math.inf if r is None else float(r) for r in w["rate_limits"]),
             safe_kind=safe["kind"],
             safe_value=tuple(float(v) for v in safe.get("value", [0.0] * m)),
-            hold_time=float(w.get("hold_time", 0.5)),
+            hold_time=float(stored("hold_time")),
             integral_limit=math.inf if w.get("integral_limit") is None else float(w["integral_limit"]),
-            max_dt=max(0.1, 10.0 / artifact.rate))
-        return config.with_overrides(**overrides)
+            max_dt=max(0.1, 10.0 / artifact.rate),
+            envelope=tuple(tuple(float(v) for v in envelope.get(name, (-math.inf, math.inf)))
+                           for name in artifact.states),
+            envelope_margin=float(stored("envelope_margin")),
+            envelope_action=stored("envelope_action"),
+            divergence_error=tuple(math.inf if e is None else float(e) for e in divergence),
+            divergence_time=float(stored("divergence_time")),
+            divergence_action=stored("divergence_action"))
+        config = config.with_overrides(**overrides)
+        p = len(artifact.outputs)
+        if len(config.divergence_error) != p:
+            raise ConfigError("divergence_error", f"expected {p} bounds, one per output")
+        if len(config.input_limits) != m or len(config.envelope) != len(artifact.states):
+            raise ConfigError("input_limits" if len(config.input_limits) != m else "envelope",
+                              "expected one (lower, upper) pair per " + ("input" if len(config.input_limits) != m
+                                                                         else "state"))
+        return config
 
     def with_overrides(self, **overrides: Any) -> "WatchdogConfig":
         """A copy with some settings changed, checked as a whole.
@@ -191,8 +239,23 @@ class WatchdogConfig:
         config.validate()
         return config
 
+    def table_values(self) -> dict[str, Any]:
+        """The settings of the one table, in its canonical form (``inf`` where none).
+
+        Returns
+        -------
+        dict
+        """
+        values = {f.name: getattr(self, f.name) for f in fields(self)
+                  if f.name not in ("input_limits", "anti_windup", "max_dt", "envelope", "safe_kind", "safe_value")}
+        values["rate_limits"] = list(self.rate_limits)
+        values["divergence_error"] = list(self.divergence_error)
+        values["safe_command"] = ({"kind": self.safe_kind} if self.safe_kind != "fixed"
+                                  else {"kind": "fixed", "value": list(self.safe_value)})
+        return values
+
     def validate(self) -> None:
-        """Check ranges and consistency.
+        """Check ranges and consistency (the table's check, then what only the runtime has).
 
         Raises
         ------
@@ -200,48 +263,45 @@ class WatchdogConfig:
             Naming the first setting that is wrong.
         """
         m = len(self.input_limits)
-        if self.future_tolerance is not None and not (_is_real(self.future_tolerance)
-                                                      and 0 <= self.future_tolerance < math.inf):
-            raise ConfigError("future_tolerance", f"expected None or a finite number >= 0, got {self.future_tolerance!r}")
-        for key in ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after", "hold_time", "max_dt",
-                    "integral_limit"):
-            value = getattr(self, key)
-            if isinstance(value, bool) or not isinstance(value, (int, float)) or math.isnan(value) or value < 0:
-                raise ConfigError(key, f"expected a number >= 0, got {value!r}")
-        for key in ("sigma_warn", "sigma_act", "sigma_stop", "stale_after", "hold_time"):
-            if not _isfinite(getattr(self, key)):
-                raise ConfigError(key, f"expected a finite number, got {getattr(self, key)!r}")
-        if not (_isfinite(self.damping) and self.damping > 0):
-            raise ConfigError("damping", f"expected a positive number, got {self.damping!r}")
-        if not self.max_dt > 0:
+        for key in ("input_limits", "rate_limits", "safe_value", "envelope", "divergence_error"):
+            if not isinstance(getattr(self, key), tuple):
+                raise ConfigError(key, "expected a tuple")
+        if self.safe_kind not in ("zero", "hold", "fixed"):
+            raise ConfigError("safe_kind", f"expected zero, hold or fixed, got {self.safe_kind!r}")
+        found = watchdog_problem(self.table_values(), m, len(self.divergence_error) or None)
+        if found is not None:
+            name, problem = found
+            raise ConfigError("safe_value" if name == "safe_command" else name, problem)
+        if not (_is_real(self.max_dt) and self.max_dt > 0):
             raise ConfigError("max_dt", f"expected a positive number, got {self.max_dt!r}")
         if not isinstance(self.anti_windup, bool):
             raise ConfigError("anti_windup", f"expected true or false, got {self.anti_windup!r}")
-        for key in ("input_limits", "rate_limits", "safe_value"):
-            if not isinstance(getattr(self, key), tuple):
-                raise ConfigError(key, "expected a tuple")
-        if not self.sigma_warn >= self.sigma_act >= self.sigma_stop:
-            raise ConfigError("sigma_act", f"expected sigma_warn >= sigma_act >= sigma_stop, got "
-                                           f"{self.sigma_warn:g}, {self.sigma_act:g}, {self.sigma_stop:g}")
-        if self.stale_after <= 0:
-            raise ConfigError("stale_after", "must be positive")
-        for key in ("stale_after", "hold_time", "future_tolerance"):
-            value = getattr(self, key)
-            if value is not None and value > MAX_WATCHDOG_SECONDS:
-                raise ConfigError(key, f"expected at most {MAX_WATCHDOG_SECONDS:g} s, got {value:g}")
-        if len(self.rate_limits) != m or not all(_is_real(r) and r > 0 for r in self.rate_limits):
-            raise ConfigError("rate_limits", f"expected {m} positive numbers, one per input (inf for none)")
         for i, pair in enumerate(self.input_limits):
             if not (isinstance(pair, tuple) and len(pair) == 2 and all(_is_real(v) for v in pair)
                     and pair[0] < pair[1]):
                 raise ConfigError("input_limits", f"input {i}: expected (lower, upper) with lower below upper, "
                                                   f"got {pair!r}")
-        if self.safe_kind not in ("zero", "hold", "fixed"):
-            raise ConfigError("safe_kind", f"expected zero, hold or fixed, got {self.safe_kind!r}")
+        for i, pair in enumerate(self.envelope):
+            if not (isinstance(pair, tuple) and len(pair) == 2 and all(_is_real(v) for v in pair)
+                    and pair[0] < pair[1]):
+                raise ConfigError("envelope", f"state {i}: expected (lower, upper) with lower below upper, "
+                                              f"got {pair!r}")
         if len(self.safe_value) != m or not all(_is_real(v) and _isfinite(v) for v in self.safe_value):
             raise ConfigError("safe_value", f"expected {m} finite numbers")
-        if not self.integral_limit > 0:
-            raise ConfigError("integral_limit", "must be positive (inf for none)")
+
+    def widened_envelope(self) -> list[tuple[int, float, float]]:
+        """Per bounded state: its index and the envelope widened by ``envelope_margin``.
+
+        Returns
+        -------
+        list of (int, float, float)
+        """
+        bounds = []
+        for i, (lo, hi) in enumerate(self.envelope):
+            if _isfinite(lo) and _isfinite(hi):
+                extra = self.envelope_margin * (hi - lo)
+                bounds.append((i, lo - extra, hi + extra))
+        return bounds
 
 
 @dataclass(slots=True)
@@ -270,6 +330,9 @@ class StepRecord:
         Seconds spent in the step.
     outputs : tuple of float
         The outputs y_i at the state (empty when the state was refused).
+    alarms : int
+        Bit i set when watchdog :data:`ALARMS` [i] found the machine in trouble at this
+        step, whether it acted (the reason names it) or only warned.
     """
 
     t: float
@@ -283,6 +346,7 @@ class StepRecord:
     saturated: tuple[bool, ...]
     compute_time: float
     outputs: tuple[float, ...] = ()
+    alarms: int = 0
 
 
 class ControllerCore:
@@ -317,8 +381,6 @@ class ControllerCore:
     def __init__(self, artifact: Artifact, config: WatchdogConfig | None = None,
                  parameters: Sequence[float] | None = None) -> None:
         self.artifact = artifact
-        self.config = config or WatchdogConfig.from_artifact(artifact)
-        self.config.validate()
         self.n = len(artifact.states)
         self.m = len(artifact.inputs)
         self.orders = artifact.relative_degree
@@ -363,7 +425,29 @@ class ControllerCore:
         # w = v - b in one pass where the law carries b; v alone for mechanical plants
         self._outer = _straight_line_outer_loop(
             self._layout, self._b_slice.start if self._mechanical is None else None)
+        self.config = config or WatchdogConfig.from_artifact(artifact)
         self.reset()
+
+    @property
+    def config(self) -> WatchdogConfig:
+        """The watchdog settings in force; assigning new ones checks them against this artifact."""
+        return self._config
+
+    @config.setter
+    def config(self, config: WatchdogConfig) -> None:
+        config.validate()
+        if len(config.envelope) not in (0, self.n):
+            raise ConfigError("envelope", f"expected {self.n} (lower, upper) pairs, one per state")
+        bounds = config.divergence_error or (math.inf,) * len(self.orders)
+        if len(bounds) != len(self.orders):
+            raise ConfigError("divergence_error", f"expected {len(self.orders)} bounds, one per output")
+        if len(config.input_limits) != self.m:
+            raise ConfigError("input_limits", f"expected {self.m} (lower, upper) pairs, one per input")
+        self._config = config
+        self._envelope = config.widened_envelope()
+        # the divergence watchdog works on |e_i| / bound_i; an infinite bound is not watched
+        self._error_scale = [0.0 if not _isfinite(b) else 1.0 / b for b in bounds]
+        self._watch_divergence = any(self._error_scale)
 
     # -- state ------------------------------------------------------------------------
     def reset(self) -> None:
@@ -375,6 +459,9 @@ class ControllerCore:
         self.last_good_t: float | None = None     # stamp of the last nominal or damped command
         self._last_errors: list[float] | None = None
         self._integrate_next = False
+        self._above_since: float | None = None     # when the scaled error last rose above 1
+        self._above_from = 0.0                     # and its value then
+        self._diverged = False                     # latched by a divergence with action "safe"
 
     def hold_reference(self, x: Sequence[float]) -> list[float]:
         """The reference that holds the outputs where they are at state ``x``.
@@ -496,15 +583,24 @@ class ControllerCore:
         except (ArithmeticError, ValueError):
             return self._refuse("model_not_finite", t, start, now)
         condition = sigma_max / sigma_min if sigma_min > 0.0 else math.inf
+        accepted_t = t if t <= now else now     # a stamp from the future must not lock out the next states
         dt = 0.0 if last_t is None else min(t - last_t, config.max_dt)
         if self.integral and self._integrate_next and self._last_errors is not None:
             self._advance_integrators(dt)
         w, errors = self._outer_loop(values, ref)
         warn = not sigma_min >= config.sigma_warn
         damping = 0.0
-        if not sigma_min >= config.sigma_stop:      # also catches a nan sigma
-            self.last_t = t
-            return self._safe("singular", t, start, sigma_min, condition, warn, now)
+        alarms = 0
+        if self._envelope and self._outside_envelope(x):
+            alarms = 1
+        if self._watch_divergence and self._diverging(errors, t):
+            alarms |= 2
+        acted = "singular" if not sigma_min >= config.sigma_stop else self._acted_alarm(alarms)   # nan: singular
+        if acted is not None:
+            if acted != "diverging":
+                self._above_since = None     # the law is not in command: its error says nothing of the model
+            self.last_t = accepted_t
+            return self._safe(acted, t, start, sigma_min, condition, warn, now, alarms)
         try:
             if sigma_min < config.sigma_act:
                 ratio = sigma_min / config.sigma_act
@@ -520,21 +616,23 @@ class ControllerCore:
                 u = solve(A, self._rhs(w, b), m)
                 mode, reason = "nominal", "ok"
         except (ArithmeticError, ValueError):
-            self.last_t = t
-            return self._safe("singular", t, start, sigma_min, condition, warn, now)
+            self.last_t = accepted_t
+            return self._safe("singular", t, start, sigma_min, condition, warn, now, alarms)
         # the first step after a reset is rate-limited from the resting (zero) command
         u, saturated = self._limit(u, dt if last_t is not None else self._period)
         if not all(map(_isfinite, u)):
-            self.last_t = t
-            return self._safe("non_finite_command", t, start, sigma_min, condition, warn, now)
-        self.last_t = t
+            self.last_t = accepted_t
+            return self._safe("non_finite_command", t, start, sigma_min, condition, warn, now, alarms)
+        if alarms and reason == "ok":
+            reason = ALARMS[0] if alarms & 1 else ALARMS[1]
+        self.last_t = accepted_t
         self.last_good_t = t
         self.last_command = u
         self.last_good_command = u
         self._last_errors = errors
         self._integrate_next = not (config.anti_windup and (mode != "nominal" or any(saturated)))
         record = StepRecord(t, tuple(u), mode, reason, sigma_min, condition, warn, damping,
-                            tuple(saturated), time.perf_counter() - start, self._outputs_of(values))
+                            tuple(saturated), time.perf_counter() - start, self._outputs_of(values), alarms)
         return u, record
 
     def safe_step(self, now: float, reason: str = "no_state", final: bool = False) -> tuple[list[float], StepRecord]:
@@ -573,6 +671,36 @@ class ControllerCore:
         return self.last_t is None or now - self.last_t > self.config.stale_after
 
     # -- pieces -------------------------------------------------------------------------
+    def _outside_envelope(self, x: list[float]) -> bool:
+        """Whether any bounded state lies outside the widened envelope."""
+        for i, lo, hi in self._envelope:
+            if not lo <= x[i] <= hi:
+                return True
+        return False
+
+    def _diverging(self, errors: list[float], t: float) -> bool:
+        """The divergence watchdog: max |e_i| / bound_i above 1 for ``divergence_time`` and
+        not smaller than when it crossed 1 (a large error that is decaying is a transient)."""
+        scaled = max(abs(e) * k for e, k in zip(errors, self._error_scale))
+        if not scaled > 1.0:
+            self._above_since = None
+            return False
+        if self._above_since is None:
+            self._above_since, self._above_from = t, scaled
+            return False
+        return t - self._above_since >= self.config.divergence_time and scaled >= self._above_from
+
+    def _acted_alarm(self, alarms: int) -> str | None:
+        """The alarm whose action is the safe command, if one is raised (divergence latches)."""
+        config = self.config
+        if alarms & 2 and config.divergence_action == "safe":
+            self._diverged = True
+        if self._diverged:
+            return "diverging"
+        if alarms & 1 and config.envelope_action == "safe":
+            return "outside_envelope"
+        return None
+
     def _outer_loop(self, values: Sequence[float], ref: list[float]) -> tuple[list[float], list[float]]:
         """w_i = v_i - b_i (or v_i, mechanical plants) and the errors e_i, where
         v_i = y_ref_i^(r_i) - K_i . (eta_i, e_i, ..., e_i^(r_i - 1))."""
@@ -623,7 +751,7 @@ class ControllerCore:
         return [0.0] * self.m, "safe"
 
     def _safe(self, reason: str, t: float, start: float, sigma_min: float = math.nan,
-              condition: float = math.nan, warn: bool = False, now: float | None = None
+              condition: float = math.nan, warn: bool = False, now: float | None = None, alarms: int = 0
               ) -> tuple[list[float], StepRecord]:
         """The safe command (or the held one), clipped to the box limits, and its record.
 
@@ -638,7 +766,7 @@ class ControllerCore:
         self.last_command = u
         self._integrate_next = False
         record = StepRecord(t, tuple(u), mode, reason, sigma_min, condition, warn, 0.0,
-                            (False,) * self.m, time.perf_counter() - start)
+                            (False,) * self.m, time.perf_counter() - start, (), alarms)
         return u, record
 
     def _refuse(self, reason: str, t: Any, start: float, now: Any = None) -> tuple[list[float], StepRecord]:

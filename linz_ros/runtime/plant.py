@@ -15,7 +15,8 @@ from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime._linalg import spd_solve
 
-__all__ = ["NumericPlant", "mismatched_parameters", "parse_assignments"]
+__all__ = ["NumericPlant", "mismatched_parameters", "parse_assignments", "IntegrationBudgetError",
+           "MAX_ADAPTIVE_EVALUATIONS"]
 
 
 def parse_assignments(items: Sequence[str], option: str) -> dict[str, float]:
@@ -53,6 +54,8 @@ def parse_assignments(items: Sequence[str], option: str) -> dict[str, float]:
                 raise ConfigError(option, f"{name.strip()}: expected a number, got {value.strip()!r}") from None
             if not math.isfinite(number):
                 raise ConfigError(option, f"{name.strip()}: expected a finite number, got {value.strip()!r}")
+            if name.strip() in result:          # the last one silently winning hides a typo
+                raise ConfigError(option, f"{name.strip()} given twice")
             result[name.strip()] = number
     return result
 
@@ -91,6 +94,14 @@ def mismatched_parameters(artifact: Artifact, percent: Mapping[str, float]) -> l
     common = percent.get("all", 0.0)
     return [value * (1.0 + percent.get(name, common) / 100.0)
             for name, value in zip(names, artifact.nominal_parameters.tolist())]
+
+
+#: Most evaluations of f the adaptive integrator may spend on one control period.
+MAX_ADAPTIVE_EVALUATIONS = 20_000
+
+
+class IntegrationBudgetError(ArithmeticError):
+    """The adaptive integrator spent its budget of evaluations on one period."""
 
 
 class NumericPlant:
@@ -194,8 +205,18 @@ class NumericPlant:
         from scipy.integrate import solve_ivp  # the runtime core never needs scipy
 
         u = list(u)
-        solution = solve_ivp(lambda _t, y: self.derivative(y.tolist(), u), (0.0, duration),
-                             np.asarray(x, dtype=float), method="RK45", rtol=rtol, atol=atol)
+        calls = 0
+
+        def derivative(_t: float, y: np.ndarray) -> list[float]:
+            nonlocal calls
+            calls += 1
+            if calls > MAX_ADAPTIVE_EVALUATIONS:
+                raise IntegrationBudgetError(f"the adaptive integrator needed more than {MAX_ADAPTIVE_EVALUATIONS:,} "
+                                             f"evaluations of f in {duration:g} s (a stiff or diverging plant)")
+            return self.derivative(y.tolist(), u)
+
+        solution = solve_ivp(derivative, (0.0, duration), np.asarray(x, dtype=float), method="RK45",
+                             rtol=rtol, atol=atol)
         if not solution.success:
             raise ArithmeticError(solution.message)
         return solution.y[:, -1].tolist()

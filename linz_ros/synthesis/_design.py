@@ -21,22 +21,20 @@ from typing import Any
 import numpy as np
 import sympy as sp
 
-from linz_ros.analysis import Report, analyse, lie_chain, mechanical_terms, plant_context, sample_envelope
+from linz_ros.analysis import (Report, analyse, lie_chain, mechanical_terms, output_ranges, plant_context,
+                               sample_envelope)
+from linz_ros.artifact.watchdog import default_settings, watchdog_problem
 from linz_ros.errors import DesignError, PlantFileError
 from linz_ros.geometry import evaluate, lie_derivative
 from linz_ros.model import Plant, expression_in
-from linz_ros.synthesis._gains import (SampledLoop, closed_loop_poles, gains_from_lqr, gains_from_poles,
-                                       sampled_loop)
+from linz_ros.synthesis._gains import (LQR_WEIGHT_RANGE, SampledLoop, closed_loop_poles, gains_from_lqr,
+                                       gains_from_poles, sampled_loop)
 from linz_ros.synthesis._transform import closed_form_inverse
 
-__all__ = ["DesignOptions", "Chain", "Design", "synthesise", "DEFAULT_RATE", "WATCHDOG_FRACTIONS"]
+__all__ = ["DesignOptions", "Chain", "Design", "synthesise", "DEFAULT_RATE"]
 
 #: Control rate assumed when neither the plant file nor the command line gives one (Hz).
 DEFAULT_RATE = 100.0
-#: Default watchdog levels as fractions of the reference smallest singular value of A.
-WATCHDOG_FRACTIONS = {"sigma_warn": 0.25, "sigma_act": 0.1, "sigma_stop": 0.02}
-#: Default staleness limit, in control periods.
-STALE_PERIODS = 10
 #: |p| T above this: the pole is too fast for the control rate (sample >= ~30x faster than
 #: the fastest closed-loop pole; common practice, e.g. Franklin, Powell and Workman,
 #: Digital Control of Dynamic Systems, ch. 11, from memory).
@@ -188,7 +186,7 @@ def synthesise(plant: Plant, options: DesignOptions | None = None, report: Repor
     warnings.extend(_sampling_warnings(chains, rate))
     warnings.extend(_zero_dynamics_warnings(report, kind))
     sigma_ref, sigma_note = _sigma_reference(plant, report, A, ctx, kind)
-    watchdog = _watchdog_levels(plant, sigma_ref, rate)
+    watchdog = _watchdog_levels(plant, sigma_ref, rate, names, expressions)
     return Design(plant, report, kind, chains, A, b, integral, rate, method, inverse, sigma_ref, sigma_note,
                   watchdog, lqr_weights, plant.design.get("reference"), warnings, notes)
 
@@ -213,7 +211,31 @@ def _checked_chain(name: str, expr: sp.Expr, derivs: list[sp.Expr], degree: int,
         raise DesignError(options.source if options.rate is not None else plant.source, "design.rate",
                           f"the sampled loop of chain {name} cannot be evaluated at {rate:g} Hz "
                           "(rate far too low for the poles)")
+    if method == "poles":
+        poles = _in_given_order(poles, _given_poles(name, options, plant))
     return Chain(name, expr, derivs, degree, gains, poles, loop)
+
+
+def _given_poles(name: str, options: DesignOptions, plant: Plant) -> list[complex]:
+    """The poles asked for chain ``name`` (command line over plant file), in the order given."""
+    for poles in (options.poles, plant.design.get("poles")):
+        if isinstance(poles, dict) and name in poles:
+            return [complex(p) for p in poles[name]]
+        if isinstance(poles, list):
+            return [complex(p) for p in poles]
+    return []
+
+
+def _in_given_order(achieved: np.ndarray, given: list[complex]) -> np.ndarray:
+    """The achieved poles, each matched to the nearest given one, in the order they were given."""
+    remaining = list(achieved)
+    ordered = []
+    for pole in given:
+        if not remaining:
+            break
+        nearest = min(range(len(remaining)), key=lambda i: abs(remaining[i] - pole))
+        ordered.append(remaining.pop(nearest))
+    return np.array(ordered + remaining)
 
 
 def _kind_of_design(plant: Plant, options: DesignOptions) -> str:
@@ -358,6 +380,13 @@ def _outer_loop_gains(plant: Plant, options: DesignOptions, names: list[str], de
                                                   f"({', '.join(names)}); got {len(r)}")
     if any(w <= 0 for w in r) or any(w < 0 for w in q):
         raise DesignError(source, "design.lqr", "weights must be positive (q may be zero)")
+    low, high = LQR_WEIGHT_RANGE
+    for key, weights in (("q", q), ("r", r)):
+        outside = [w for w in weights if not (low <= w <= high or (key == "q" and w == 0))]
+        if outside:
+            field = ("--lqr-" + key) if options.lqr is not None else f"design.lqr.{key}"
+            raise DesignError(source, field, f"weight {outside[0]:g} is outside [{low:g}, {high:g}]"
+                                             + (" (or 0)" if key == "q" else ""))
     try:
         gains, _ = gains_from_lqr(orders, list(q), list(r))
     except (np.linalg.LinAlgError, ValueError) as err:
@@ -447,28 +476,47 @@ def _sigma_reference(plant: Plant, report: Report, A: sp.Matrix, ctx, kind: str)
                                                        "envelope; set sigma_warn, sigma_act and sigma_stop")
 
 
-def _watchdog_levels(plant: Plant, sigma_ref: float, rate: float) -> dict[str, Any]:
+def _watchdog_levels(plant: Plant, sigma_ref: float, rate: float, chain_names: list[str],
+                     outputs: list[sp.Expr]) -> dict[str, Any]:
+    """Every watchdog setting: the plant file's where given, else the table's defaults.
+
+    ``divergence_error`` defaults to half the range of each output over the envelope
+    (not watched without an envelope).
+    """
     given = dict(plant.design.get("watchdog", {}))
-    levels = {key: given.get(key, fraction * sigma_ref) for key, fraction in WATCHDOG_FRACTIONS.items()}
-    if not levels["sigma_warn"] >= levels["sigma_act"] >= levels["sigma_stop"] >= 0:
-        raise DesignError(plant.source, "design.watchdog", "expected sigma_warn >= sigma_act >= sigma_stop "
-                                                           f"(with the defaults for the others: {levels})")
-    safe = given.get("safe_command", {"kind": "zero"})
+    values = default_settings(sigma_ref, rate, plant.m, len(chain_names))
+    explicit = sorted(k for k in given if k in values)
+    if "sigma_act" in given and "damping" not in given:
+        given["damping"] = given["sigma_act"]
+    values.update({k: v for k, v in given.items() if k != "divergence_error"})
+    values["divergence_error"] = _divergence_bounds(plant, given.get("divergence_error"), chain_names, outputs)
+    found = watchdog_problem(values, plant.m, len(chain_names))
+    if found is not None:
+        raise DesignError(plant.source, f"design.watchdog.{found[0]}",
+                          f"{found[1]} (with the defaults for the settings not given)")
+    safe = values["safe_command"]
     if safe["kind"] == "fixed":
         for name, value in zip(plant.input_names, safe["value"]):
             lo, hi = plant.input_limits.get(name, (-math.inf, math.inf))
             if not lo <= value <= hi:
                 raise DesignError(plant.source, f"design.watchdog.safe_command.{name}",
                                   f"{value:g} lies outside the input limits [{lo:g}, {hi:g}]")
-    rate_limits = given.get("rate_limits", {})
-    return {
-        **levels,
-        "damping": given.get("damping", levels["sigma_act"]),
-        "stale_after": given.get("stale_after", STALE_PERIODS / rate),
-        "integral_limit": given.get("integral_limit"),
-        "hold_time": given.get("hold_time", 0.5),
-        "rate_limits": [rate_limits.get(name) for name in plant.input_names],
-        "safe_command": safe,
-        "defaults": sorted(k for k in ("sigma_warn", "sigma_act", "sigma_stop", "damping", "stale_after")
-                           if k not in given),
-    }
+    values["defaults"] = sorted(k for k in values if k not in explicit and k != "safe_command")
+    return values
+
+
+def _divergence_bounds(plant: Plant, given: Any, chain_names: list[str], outputs: list[sp.Expr]) -> list | None:
+    """Per chain: the bound given in the plant file, or half the output's range over the envelope."""
+    if isinstance(given, (int, float)):
+        return [float(given)] * len(chain_names)
+    given = dict(given or {})
+    ranges = output_ranges(plant, outputs)
+    bounds = []
+    for i, name in enumerate(chain_names):
+        if name in given:
+            bounds.append(float(given[name]))
+        elif ranges is not None and ranges[i] > 0:
+            bounds.append(0.5 * ranges[i])
+        else:
+            bounds.append(None)
+    return None if all(b is None for b in bounds) else bounds

@@ -9,12 +9,18 @@ has r_i + 1 states ordered ``(eta_i, e_i, e_i', ..., e_i^(r_i - 1))``; without, 
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg
 
-__all__ = ["chain_matrices", "gains_from_poles", "gains_from_lqr", "SampledLoop", "sampled_loop"]
+__all__ = ["chain_matrices", "gains_from_poles", "gains_from_lqr", "SampledLoop", "sampled_loop",
+           "LQR_WEIGHT_RANGE"]
+
+#: LQR weights lie within this range (q may also be 0): beyond it the Riccati solver works
+#: on numbers that have lost all precision, and no outer loop needs them.
+LQR_WEIGHT_RANGE = (1e-12, 1e12)
 
 #: Imaginary parts below this (relative) count as zero when pairing conjugate poles.
 _CONJUGATE_RTOL = 1e-9
@@ -121,8 +127,11 @@ def gains_from_lqr(orders: list[int], q: list[float], r: list[float]) -> tuple[l
     B = scipy.linalg.block_diag(*(b for _, b in blocks))
     Q = np.diag(np.asarray(q, dtype=float))
     R = np.diag(np.asarray(r, dtype=float))
-    P = scipy.linalg.solve_continuous_are(A, B, Q, R)
-    K = np.linalg.solve(R, B.T @ P)
+    # scipy warns (casts of non-finite intermediates) before it raises; the caller reports the failure
+    with warnings.catch_warnings(), np.errstate(all="ignore"):
+        warnings.simplefilter("ignore", RuntimeWarning)
+        P = scipy.linalg.solve_continuous_are(A, B, Q, R)
+        K = np.linalg.solve(R, B.T @ P)
     gains, start = [], 0
     for i, k in enumerate(orders):
         gains.append(K[i, start:start + k].copy())

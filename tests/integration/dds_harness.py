@@ -166,3 +166,32 @@ def tracking_outside_gaps(log, settle: float = 0.05, after_gap: float = 0.25) ->
     assert keep.sum() >= min(100, settled.sum()), ("gap recoveries cover nearly the whole run", gaps)
     return float(np.nanmax(error[keep])), gaps
 
+
+
+def settled_errors(steps: list[dict], after: float = 0.25, gap_periods: float = 5.0) -> np.ndarray:
+    """max |y - ref| of each accepted step in ``steps`` (:meth:`Probe.steps`), leaving out the
+    recovery from each refused step or gap in the stamps.
+
+    A step refused (the safe command: a state late on the shared cores) or a gap of more than
+    ``gap_periods`` median periods between stamps costs the arm a dip; the ``after`` seconds of
+    stamps that follow are its recovery, judged on their own by the caller. This keeps a
+    wall-clock run's tracking verdict about the controller, not about the machine's load.
+
+    Returns
+    -------
+    numpy.ndarray
+        One error per accepted step kept, in order.
+    """
+    t = np.array([s["t"] for s in steps])
+    ok = np.array([s["reason"] == "ok" for s in steps])
+    error = np.array([np.max(np.abs(np.subtract(s["y"], s["ref"]))) if s["reason"] == "ok" else np.nan
+                      for s in steps])
+    period = np.median(np.diff(t[ok])) if ok.sum() > 1 else 0.0
+    upsets = t[~ok].tolist()
+    if ok.sum() > 1:
+        accepted_t = t[ok]
+        upsets += accepted_t[1:][np.diff(accepted_t) > gap_periods * period].tolist()
+    keep = ok.copy()
+    for when in upsets:
+        keep &= ~((t >= when) & (t < when + after))
+    return error[keep]

@@ -16,8 +16,8 @@ def _run_until(bringup, path, artifact, overrides, steps):
         bringup.start("linz_plant_sim", PARAMS, {"artifact": str(path)})
         bringup.start("linz_controller", PARAMS, {"artifact": str(path), "reference": "hold", "stale_after": 0.2,
                                                   **overrides})
-        assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
-        assert wait_until(lambda: len(probe.recording.conditioning) > steps, timeout=40, node=probe, step=0.05)
+        assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=60)
+        assert wait_until(lambda: len(probe.recording.conditioning) > steps, timeout=90, node=probe, step=0.05)
     finally:
         probe.destroy_node()
     return probe

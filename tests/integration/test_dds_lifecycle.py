@@ -1,9 +1,9 @@
 """Over real DDS: the managed controller's transitions, a refused configure, parameter changes."""
 
 import math
-import time
 from dataclasses import replace
 
+import numpy as np
 import pytest
 from lifecycle_msgs.msg import Transition
 
@@ -41,6 +41,8 @@ def test_lifecycle_transitions_gate_the_commands(bringup, arm_artifact):
         active = list(probe.recording.commands)
         assert len(active) > 20 and all(u != [0.0, 0.0] for _, _, u in active)   # holding against gravity
         assert probe.transition(Transition.TRANSITION_DEACTIVATE)
+        # the safe command goes out on deactivation: wait for it, then a moment for anything after it
+        assert wait_until(lambda: len(probe.recording.commands) > len(active), timeout=20, node=probe)
         wait_until(lambda: False, 0.3, node=probe)
         after = probe.recording.commands[len(active):]
         assert [u for _, _, u in after] == [[0.0, 0.0]]             # the safe command, once
@@ -67,7 +69,7 @@ def test_a_bad_artifact_is_refused_at_configure_with_a_reason(bringup, arm_artif
         assert not probe.transition(Transition.TRANSITION_CONFIGURE)
         assert probe.lifecycle_state() == "unconfigured"
         assert wait_until(lambda: any(m.startswith("not configured:") for _, _, m, _ in probe.recording.diagnostics),
-                          timeout=5, node=probe)
+                          timeout=20, node=probe)
         level, message = next((lv, m) for _, lv, m, _ in probe.recording.diagnostics if m.startswith("not configured"))
         assert level == 2 and "content does not match its sha256" in message
     finally:
@@ -79,7 +81,7 @@ def test_a_bad_artifact_is_refused_at_configure_with_a_reason(bringup, arm_artif
 def test_thresholds_change_while_active_and_topics_do_not(bringup, arm_artifact):
     path, artifact = arm_artifact
     bringup.start("linz_controller", PARAMS, {"artifact": str(path), "reference": "hold", **PROBE_FED})
-    assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
+    assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=60)
     probe = Probe(artifact, ARM_TOPICS)
     try:
         ok, reason = probe.set_parameter("sigma_warn", 0.5)
@@ -97,7 +99,8 @@ def test_thresholds_change_while_active_and_topics_do_not(bringup, arm_artifact)
         ok, reason = probe.set_parameter("sigma_act", 0.8)
         assert ok, reason
         _feed(probe, 0.3)
-        steps = probe.steps()
+        # (a state this process sent late may have gone stale: the safe command, not what is judged here)
+        steps = [s for s in probe.steps() if s["reason"] != "stale"]
         assert steps and all(s["mode"] == "damped" for s in steps[-10:])  # sigma_min ~0.69 < sigma_act now
         assert all(math.isfinite(v) for s in steps for v in s["u"])
     finally:
@@ -112,7 +115,7 @@ def test_bad_parameters_are_one_line_and_never_a_traceback(bringup, arm_artifact
     assert "Traceback" not in text and "rate" in text and text.strip().count("\n") <= 1
     controller = bringup.start("linz_controller", PARAMS, {"artifact": str(path),
                                                            "state_fields": ["position.shoulder"]})
-    assert bringup.wait_for_log("linz_controller", "configure refused:", timeout=30)
+    assert bringup.wait_for_log("linz_controller", "configure refused:", timeout=60)
     assert "state_fields: expected 4 field paths, one per entry, got 1" in controller.log_text()
     assert controller.alive()                    # still up, unconfigured, saying why on /diagnostics
 
@@ -121,12 +124,12 @@ def test_a_bad_topic_name_or_parameter_file_is_refused_with_one_line(bringup, ar
     path, artifact = arm_artifact
     controller = bringup.start("linz_controller", PARAMS, {"artifact": str(path), "state_topic": "bad topic",
                                                            "diagnostics_period": 0.2})
-    assert bringup.wait_for_log("linz_controller", "configure refused:", timeout=30)
+    assert bringup.wait_for_log("linz_controller", "configure refused:", timeout=60)
     assert "InvalidTopicNameException" in controller.log_text() and controller.alive()
     probe = Probe(artifact, ARM_TOPICS)
     try:
         assert wait_until(lambda: any("not configured: InvalidTopicNameException" in m
-                                      for _, _, m, _ in probe.recording.diagnostics), timeout=5, node=probe)
+                                      for _, _, m, _ in probe.recording.diagnostics), timeout=20, node=probe)
         assert probe.recording.commands == []
     finally:
         probe.destroy_node()
@@ -142,7 +145,7 @@ def test_a_bad_topic_name_or_parameter_file_is_refused_with_one_line(bringup, ar
 def test_a_new_stale_after_takes_effect_at_once_and_the_clock_cannot_change(bringup, arm_artifact):
     path, artifact = arm_artifact
     bringup.start("linz_controller", PARAMS, {"artifact": str(path), "reference": "hold", "stale_after": 5.0})
-    assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
+    assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=60)
     probe = Probe(artifact, ARM_TOPICS)
     try:
         ok, reason = probe.set_parameter("use_sim_time", True)
@@ -150,12 +153,25 @@ def test_a_new_stale_after_takes_effect_at_once_and_the_clock_cannot_change(brin
         _feed(probe, 0.3)
         ok, reason = probe.set_parameter("stale_after", 0.25)
         assert ok, reason
-        stopped = time.monotonic()
-        assert wait_until(lambda: probe.steps(last=1)[-1]["reason"] == "stale", timeout=5, node=probe)
-        stale_at = next(s["received"] for s in probe.steps() if s["reason"] == "stale")
-        assert stale_at - stopped < 0.25 * 1.5 + 0.3            # the timer was re-armed at the new period
+        # the stale timer's safe command, check after check: wait for a few of them
+        assert wait_until(lambda: [s["reason"] for s in probe.steps(last=5)] == ["stale"] * 5, timeout=30,
+                          node=probe)
     finally:
         probe.destroy_node()
+    # judged on the controller's own stamps, not on when this process heard of it. With the old limit
+    # (5 s, checked every 1.25 s) the first safe command could not come before 5 s without a state;
+    # with the new one it comes after 0.25 s, from a timer re-armed at 0.25 / 4 s: consecutive safe
+    # commands far closer than the old timer's 1.25 s (how close is the machine's load, not judged)
+    steps = probe.steps()
+    last_ok = max(i for i, s in enumerate(steps) if s["reason"] == "ok")
+    stale = steps[last_ok + 1:]
+    assert stale and all(s["reason"] == "stale" and s["u"] == [0.0, 0.0] for s in stale), {s["reason"] for s in stale}
+    waited = stale[0]["t"] - steps[last_ok]["t"]
+    assert 0.25 - 1e-3 <= waited < 5.0, waited
+    spacing = np.median(np.diff([s["t"] for s in stale]))
+    assert spacing < 1.25 / 2, spacing
+    print(f"new stale_after 0.25 s: safe {1000 * waited:.0f} ms after the last state, then every "
+          f"{1000 * spacing:.0f} ms (by the controller's clock)")
 
 
 def test_remapped_topics_carry_the_state_and_the_command(bringup, arm_artifact):
@@ -163,7 +179,7 @@ def test_remapped_topics_carry_the_state_and_the_command(bringup, arm_artifact):
     # -r FROM:=TO on the command line, as the hardware bringup's remappings do
     bringup.start("linz_controller", PARAMS, {"artifact": str(path), "reference": "hold", **PROBE_FED},
                   remaps={"/pick_arm/joint_states": "/robot/joints", "/pick_arm/joint_efforts": "/robot/efforts"})
-    assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=30)
+    assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=60)
     remapped = Probe(artifact, replace(ARM_TOPICS, state_topic="/robot/joints", command_topic="/robot/efforts"))
     original = Probe(artifact, ARM_TOPICS)
     try:
