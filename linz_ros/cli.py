@@ -25,7 +25,7 @@ from pathlib import Path
 from typing import Any, Sequence
 
 from linz_ros import __version__
-from linz_ros.errors import ConfigError, DesignError, LinzError
+from linz_ros.errors import ConfigError, DesignError, LinzError, quoted
 
 __all__ = ["main"]
 
@@ -43,7 +43,7 @@ def _positive_int(text: str) -> int:
     try:
         value = int(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {quoted(text, 40)!r}") from None
     if value < 1:
         raise argparse.ArgumentTypeError(f"expected a number of at least 1, got {value}")
     return value
@@ -72,7 +72,7 @@ def _nonnegative_int(text: str) -> int:
     try:
         value = int(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {quoted(text, 40)!r}") from None
     if value < 0:
         raise argparse.ArgumentTypeError(f"expected a whole number >= 0, got {value}")
     return value
@@ -86,9 +86,9 @@ def _number_at_least(minimum: float, strict: bool):
         try:
             value = float(text)
         except ValueError:
-            raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+            raise argparse.ArgumentTypeError(f"expected a number, got {quoted(text, 40)!r}") from None
         if not (math.isfinite(value) and (value > minimum if strict else value >= minimum)):
-            raise argparse.ArgumentTypeError(f"expected {words}, got {text!r}")
+            raise argparse.ArgumentTypeError(f"expected {words}, got {quoted(text, 40)!r}")
         return value
 
     return convert
@@ -913,6 +913,19 @@ def _terminal_safe(text: str) -> str:
     return text if text.isprintable() else "".join(c if c.isprintable() else repr(c)[1:-1] for c in text)
 
 
+#: Options naming a file or folder: an empty name would silently mean the current folder, or nothing.
+_PATH_OPTIONS = (("out", "--out"), ("field_log", "--field-log"), ("folder", "keygen"), ("sign_key", "--sign-key"),
+                 ("trusted_key", "--trusted-key"))
+
+
+def _refuse_empty_paths(args: argparse.Namespace) -> None:
+    for attribute, option in _PATH_OPTIONS:
+        values = getattr(args, attribute, None)
+        for value in values if isinstance(values, list) else [values]:
+            if value is not None and not value.strip():
+                raise ConfigError(option, "expected a file or folder name, got an empty one")
+
+
 def _parse_sub(argv: list[str]) -> argparse.Namespace:
     return _build_parser().parse_args(argv)
 
@@ -932,6 +945,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     """
     args = _build_parser().parse_args(argv)
     try:
+        _refuse_empty_paths(args)
         return args.run(args)
     except LinzError as err:
         print(f"linz: {_terminal_safe(str(err))}", file=sys.stderr)

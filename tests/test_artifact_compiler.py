@@ -134,3 +134,8 @@ def test_printed_expressions_compile_to_the_same_numbers_as_sympy(expr, a, b):
     except OverflowError:
         return
     assert got == pytest.approx(expected.real, rel=1e-9, abs=1e-9)
+
+
+def test_a_name_with_a_trailing_newline_is_refused():
+    with pytest.raises(ArtifactError, match="is not a valid name"):
+        compile_program("t", [("x", ["q\n"])], [], [("y", [1], ["1"])])

@@ -90,6 +90,10 @@ def test_the_artifact_check_uses_the_table():
     document = dict(arm.document, watchdog=dict(arm.document["watchdog"], divergence_time=-2.0))
     with pytest.raises(ArtifactError, match="watchdog.divergence_time: expected a number > 0, got -2"):
         artifact_from_text(seal(document))
+    for key in ("rate_limits", "envelope_margin", "safe_command"):      # found by the sealed-edit fuzzer
+        document = dict(arm.document, watchdog=dict(arm.document["watchdog"], **{key: None}))
+        with pytest.raises(ArtifactError, match=f"watchdog.{key}"):
+            artifact_from_text(seal(document))
     older = dict(arm.document, watchdog={k: v for k, v in arm.document["watchdog"].items()
                                          if k not in ("envelope_margin", "divergence_error", "hold_time")})
     config = WatchdogConfig.from_artifact(artifact_from_text(seal(older)))     # older artifacts: the defaults

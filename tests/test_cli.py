@@ -490,3 +490,15 @@ def test_sim_names_the_reference_option_and_refuses_a_list_for_one_watchdog_numb
     assert code == 2 and err.startswith("linz: --reference: reference amplitude: expected a finite number")
     code, out, err = _run(capsys, "sim", plant, "-o", str(tmp_path), "--watchdog", "stale_after=1,2")
     assert code == 2 and err == "linz: --watchdog: stale_after: expected one number, got 2\n"
+
+
+@pytest.mark.parametrize("argv, option", [(["build", "plant.yaml", "-o", ""], "--out"),
+                                          (["sim", "a.json", "--field-log", ""], "--field-log"),
+                                          (["keygen", " "], "keygen"),
+                                          (["sim", "a.json", "--trusted-key", ""], "--trusted-key")])
+def test_an_empty_file_or_folder_name_is_refused_before_any_work(capsys, tmp_path, monkeypatch, argv, option):
+    """``-o ""`` wrote into the current folder, ``--field-log ""`` silently recorded nothing."""
+    monkeypatch.chdir(tmp_path)
+    code, out, err = _run(capsys, *argv)
+    assert code == 2 and err == f"linz: {option}: expected a file or folder name, got an empty one\n"
+    assert list(tmp_path.iterdir()) == []

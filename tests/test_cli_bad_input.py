@@ -262,6 +262,10 @@ PLANT_TEXTS = {
     "pole text complex inf": PLANT.replace("[-4, -5]", "[-4+infj, -5]"),
     "huge integer": PLANT.replace("{k: 2.0}", "{k: " + "9" * 5000 + "}"),
     "huge integer rate": PLANT.replace("rate: 100", "rate: " + "9" * 400),
+    "zero parameter as a divisor": PLANT.replace("{k: 2.0}", "{k: 0}").replace("-k*sin(x1) + u", "-sin(x1)/k + u"),
+    "definitions doubling 30 times": PLANT.replace("dynamics:", "definitions:\n  d0: x1\n" + "".join(
+        f"  d{i}: d{i - 1}*d{i - 1} + sin(d{i - 1})\n" for i in range(1, 31)) + "dynamics:")
+                                     .replace("-k*sin(x1) + u", "-k*d30 + u"),
 }
 
 
@@ -803,7 +807,8 @@ def test_sim_into_a_file_keeps_the_file(capsys, tmp_path, built):
 
 
 # -- options of every verb -------------------------------------------------------------------------
-_BAD_COUNTS = NON_FINITE + ["0", "-1", "", " ", "1.5", "1e3", "0x10", "9" * 5000, "\x00", "1\u202e", "١٢"]
+_BAD_COUNTS = NON_FINITE + ["0", "-1", "", " ", "1.5", "1e3", "0x10", "9" * 5000, "\x00", "1\u202e", "١٢",
+                            "1000000000000"]
 _WHOLE_NUMBER_OPTIONS = [("check", "--samples"), ("sim", "--substeps"), ("sim", "--seed"),
                          ("bench", "--calls"), ("bench", "--rounds")]
 
@@ -812,7 +817,7 @@ _WHOLE_NUMBER_OPTIONS = [("check", "--samples"), ("sim", "--substeps"), ("sim", 
 @given(where=st.sampled_from(_WHOLE_NUMBER_OPTIONS), text=st.sampled_from(_BAD_COUNTS))
 def test_bad_whole_numbers_in_options_are_one_line(capsys, built, where, text):
     verb, option = where
-    if text in ("1e3", "١٢") or (option == "--seed" and text == "0"):   # fine as numbers
+    if text in ("1e3", "١٢") or (option == "--seed" and text in ("0", "1000000000000")):   # fine as numbers
         return
     source = built[0] if verb == "check" else built[1]
     code, _, err = _run(capsys, verb, source, f"{option}={text}")
@@ -910,3 +915,33 @@ def test_a_huge_command_line_value_is_bounded(capsys, tmp_path, built):
     code, _, err = _run(capsys, "build", built[0], "-o", tmp_path / "o", "--linearize=state",
                         f"--linearizing-output={big}")
     _assert_refused(code, err, "--linearizing-output")
+
+
+@pytest.mark.parametrize("argv, option", [
+    (["build", "{plant}", "-o", ""], "--out"),
+    (["build", "{plant}", "-o", "{tmp}", "--sign-key", ""], "--sign-key"),
+    (["sim", "{artifact}", "-o", ""], "--out"),
+    (["sim", "{artifact}", "-o", "{tmp}", "--field-log", " "], "--field-log"),
+    (["sim", "{artifact}", "-o", "{tmp}", "--trusted-key", ""], "--trusted-key"),
+    (["bench", "{artifact}", "--trusted-key", ""], "--trusted-key"),
+    (["keygen", ""], "keygen"),
+    (["demo", "--no-ros", "-o", ""], "--out"),
+    (["logs", "{log}", "--csv", ""], "--csv"),
+    (["logs", "{log}", "--plots", ""], "--plots"),
+    (["logs", "{log}", "--html", ""], "--html"),
+    (["logs", "{log}", "--artifact", ""], "--artifact"),
+])
+def test_empty_file_and_folder_names_are_one_line(capsys, tmp_path, built, field_log, monkeypatch, argv, option):
+    """An empty name must not quietly mean the current folder (or skip the output: --field-log "")."""
+    monkeypatch.chdir(tmp_path)
+    names = {"plant": built[0], "artifact": built[1], "tmp": tmp_path / "o", "log": field_log}
+    code, _, err = _run(capsys, *(a.format(**names) for a in argv))
+    _assert_refused(code, err, option)
+    assert sorted(p.name for p in tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("option", ["--samples", "--substeps", "--calls", "--seed"])
+def test_a_count_of_5000_digits_is_one_short_line(capsys, built, option):
+    verb = {"--samples": "check", "--substeps": "sim", "--calls": "bench", "--seed": "sim"}[option]
+    code, _, err = _run(capsys, verb, built[0] if verb == "check" else built[1], option, "9" * 5000)
+    _assert_refused(code, err, option)

@@ -300,3 +300,15 @@ def test_a_fast_run_is_cut_into_chunks_by_record_count_so_one_flipped_byte_loses
     kept = set(log.sequence.tolist())                # what is lost is one run of consecutive records
     lost = sorted(set(range(5000)) - kept)
     assert lost == list(range(lost[0], lost[0] + len(lost)))
+
+
+def test_the_watchdog_metadata_holds_every_setting_of_the_table():
+    from support import BUNDLED, built_artifact
+    from linz_ros.artifact.watchdog import WATCHDOG_SETTINGS
+    from linz_ros.runtime import WatchdogConfig
+    from linz_ros.runtime.fieldlog import watchdog_metadata
+
+    artifact = built_artifact(BUNDLED / "pick_arm.yaml")
+    metadata = watchdog_metadata(WatchdogConfig.from_artifact(artifact, integral_limit=2.5))
+    assert {row.name for row in WATCHDOG_SETTINGS} <= set(metadata)
+    assert metadata["integral_limit"] == "2.5" and metadata["envelope_action"] == "safe"

@@ -47,7 +47,7 @@ _CONSTANT_VALUES = {"pi": math.pi}
 # precedence of emitted Python: sums < products < unary minus < powers < atoms
 _PREC = {"add": 1, "sub": 1, "mul": 2, "div": 2, "neg": 3, "pow": 4}
 _ATOM = 5
-_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+_NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")      # used with fullmatch: no trailing newline
 #: Integer exponents up to this size are emitted as ``a**k`` (exact and fast).
 _INT_EXPONENT = 64
 #: Deeper subtrees go into a local variable of their own (CPython's compiler recurses).
@@ -317,7 +317,7 @@ def _parse(text: str, where: str) -> Node:
 
 
 def _declare(local: dict[str, str], name: str, slot: str, where: str) -> None:
-    if not isinstance(name, str) or not _NAME.match(name):
+    if not isinstance(name, str) or not _NAME.fullmatch(name):
         raise ArtifactError(where, f"{name!r} is not a valid name")
     if name in local:
         raise ArtifactError(where, f"name {name!r} is declared twice")

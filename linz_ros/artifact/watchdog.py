@@ -207,8 +207,8 @@ def setting_problem(name: str, value: Any, inputs: int | None = None, outputs: i
         return None if value in row.choices else f"expected one of {', '.join(row.choices)}, got {value!r}"
     if row.shape in ("per_input", "per_output"):
         count = inputs if row.shape == "per_input" else outputs
-        if value is None and row.none_means is not None:
-            return None
+        if value is None and row.shape == "per_output" and row.none_means is not None:
+            return None                   # no output watched at all
         if not isinstance(value, (list, tuple)):
             return f"expected a list, one entry per {row.shape[4:]}"
         if count is not None and len(value) != count:

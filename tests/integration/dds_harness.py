@@ -17,7 +17,7 @@ from sensor_msgs.msg import JointState
 from linz_ros.nodes._common import control_qos
 from linz_ros.nodes.adapters import split_seconds
 from linz_ros.nodes.recorder import BringupRecorder, TopicMap
-from linz_ros.runtime import MODES, REASONS
+from linz_ros.runtime import ALARMS, MODES, REASONS
 
 ROOT = Path(__file__).resolve().parents[2]
 CONFIG = ROOT / "config"
@@ -164,6 +164,7 @@ def tracking_outside_gaps(log, settle: float = 0.05, after_gap: float = 0.25) ->
     for end in gap_ends(t):
         keep &= ~((t >= end) & (t < end + after_gap))
     assert keep.sum() >= min(100, settled.sum()), ("gap recoveries cover nearly the whole run", gaps)
+    gaps["judged_steps"] = int(keep.sum())          # how much of the run the verdict covers
     return float(np.nanmax(error[keep])), gaps
 
 
@@ -195,3 +196,26 @@ def settled_errors(steps: list[dict], after: float = 0.25, gap_periods: float = 
     for when in upsets:
         keep &= ~((t >= when) & (t < when + after))
     return error[keep]
+
+
+def assert_no_alarms(log, what: str) -> None:
+    """No envelope or divergence alarm in ``log``; else say which run, state and when, and what came before.
+
+    Bundled plants must not trip these watchdogs in nominal runs; a test that sees one reports
+    the numbers rather than allowing it.
+    """
+    if "alarms" not in log.labels:                  # a log written before the alarms field
+        return
+    alarms = log.column("alarms")
+    raised = np.flatnonzero(np.isfinite(alarms) & (alarms != 0))
+    if not len(raised):
+        return
+    i, t = int(raised[0]), log.column("t")
+    names = [a for bit, a in enumerate(ALARMS) if int(alarms[i]) >> bit & 1]
+    state = dict(zip(log.names("x"), np.round(log.block("x")[i], 4).tolist()))
+    reasons = [REASONS[int(c)] for c in log.column("reason")]
+    before = [j for j in range(max(i - 2000, 0), i) if reasons[j] != "ok" and t[i] - t[j] < 2.0]
+    earlier = (f"; before it, {len(before)} refused steps in 2 s, the first {reasons[before[0]]} "
+               f"{t[i] - t[before[0]]:.3f} s earlier" if before else "; no refused step in the 2 s before")
+    raise AssertionError(f"{what}: {len(raised)} steps with alarms, the first {names} (reason {reasons[i]}) at "
+                         f"t = {t[i] - t[0]:.3f} s into the log (step {i} of {len(t)}), state {state}{earlier}")

@@ -19,7 +19,8 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from dds_harness import ARM_TOPICS, CONFIG, Probe, field_log, settled_errors, tracking_outside_gaps, wait_until
+from dds_harness import (ARM_TOPICS, CONFIG, Probe, assert_no_alarms, field_log, settled_errors,
+                         tracking_outside_gaps, wait_until)
 from linz_ros.runtime import MODES, REASONS, ControllerCore
 
 PARAMS = CONFIG / "pick_arm.yaml"
@@ -56,7 +57,7 @@ def _wait_for_steps(probe, count: int, timeout: float = 90.0) -> None:
 
 
 @pytest.mark.parametrize("sim_time", [False, True], ids=["wall_time", "sim_time"])
-def test_a_restarted_simulator_is_picked_up_by_the_running_controller(bringup, arm_artifact, sim_time):
+def test_a_restarted_simulator_is_picked_up_by_the_running_controller(bringup, arm_artifact, sim_time, tmp_path):
     path, artifact = arm_artifact
     clock = {"publish_clock": True} if sim_time else {}
     # in simulated time the first simulator's clock starts 100 s ahead (as if it had run that long),
@@ -65,7 +66,7 @@ def test_a_restarted_simulator_is_picked_up_by_the_running_controller(bringup, a
     probe = Probe(artifact, ARM_TOPICS, states=False)
     try:
         bringup.start("linz_plant_sim", PARAMS, {"artifact": str(path), **clock, **ahead})
-        _start_controller(bringup, path, use_sim_time=sim_time)
+        _start_controller(bringup, path, use_sim_time=sim_time, field_log_folder=str(tmp_path / "log"))
         controller = bringup.nodes["linz_controller"]
         pid = controller.process.pid
         assert wait_until(lambda: len(probe.recording.conditioning) > 0, timeout=60, node=probe)
@@ -89,6 +90,10 @@ def test_a_restarted_simulator_is_picked_up_by_the_running_controller(bringup, a
         _wait_for_steps(probe, 750)                             # 1.5 s of tracking after the restart
     finally:
         probe.destroy_node()
+    assert controller.alive() and controller.process.pid == pid
+    bringup.stop("linz_controller")
+    assert_no_alarms(field_log(tmp_path / "log"),
+                     f"pick_arm, simulator restarted ({'simulated' if sim_time else 'wall'} time)")
     steps = probe.steps()
     after_kill = [s for s in steps if s["received"] > killed]
     safe = [s for s in after_kill if s["reason"] == "stale"]
@@ -130,7 +135,6 @@ def test_a_restarted_simulator_is_picked_up_by_the_running_controller(bringup, a
     settled = settled_errors(resumed)
     assert errors.max() < 0.05 and settled[3 * len(settled) // 4:].max() < 1e-3, (errors.max(), settled[-1])
     assert _finite(steps)
-    assert controller.alive() and controller.process.pid == pid
     assert controller.log_text().count("active: commanding") == 1        # never restarted or re-activated
     if sim_time:                                  # by about 100 s: the old timeline is gone
         logged = [float(v) for v in re.findall(r"time jumped back by ([0-9.]+) s", controller.log_text())]
@@ -141,7 +145,8 @@ def test_a_restarted_simulator_is_picked_up_by_the_running_controller(bringup, a
           f"{sorted(set(between))}); dip {1000 * errors.max():.2f} mm")
 
 
-def test_simulated_time_jumping_back_gives_the_safe_command_then_nominal_in_the_new_timeline(bringup, arm_artifact):
+def test_simulated_time_jumping_back_gives_the_safe_command_then_nominal_in_the_new_timeline(bringup, arm_artifact,
+                                                                                            tmp_path):
     path, artifact = arm_artifact
     jump_at, jump_by = 4.0, -2.0
     probe = Probe(artifact, ARM_TOPICS, states=False)
@@ -159,12 +164,15 @@ def test_simulated_time_jumping_back_gives_the_safe_command_then_nominal_in_the_
     try:
         bringup.start("linz_plant_sim", PARAMS, {"artifact": str(path), "publish_clock": True,
                                                  "clock_jump_at": jump_at, "clock_jump_by": jump_by})
-        _start_controller(bringup, path, use_sim_time=True)
+        _start_controller(bringup, path, use_sim_time=True, field_log_folder=str(tmp_path / "log"))
         assert wait_until(jumped, timeout=90, node=probe, step=0.1), "no record in a new timeline"
         jump_index = seen["jump"]
         _wait_for_steps(probe, 750)                             # 1.5 s after the jump
     finally:
         probe.destroy_node()
+    assert bringup.nodes["linz_controller"].alive()
+    bringup.stop("linz_controller")
+    assert_no_alarms(field_log(tmp_path / "log"), "pick_arm, simulated time jumping back")
     steps = probe.steps()
     before, after = steps[:jump_index], steps[jump_index:]
     peak = max(s["t"] for s in before)
@@ -198,7 +206,6 @@ def test_simulated_time_jumping_back_gives_the_safe_command_then_nominal_in_the_
     logged = [float(v) for v in re.findall(r"time jumped back by ([0-9.]+) s", log)]
     assert len(logged) == 1 and abs(logged[0] + jump_by) < 0.01, logged    # once, by the jump (less a period)
     assert "clock jump of -2 s" in bringup.nodes["linz_plant_sim"].log_text()
-    assert bringup.nodes["linz_controller"].alive()
     print(f"clock jump {jump_by:+g} s: {len(at_jump)} safe step(s) ({sorted({s['reason'] for s in at_jump})}), "
           f"nominal {1000 * resume_delay:.1f} ms (simulated) after the first record of the new timeline; dip "
           f"{1000 * errors.max():.2f} mm")
@@ -234,6 +241,7 @@ def test_a_flood_of_state_messages_leaves_the_controller_alive_and_back_to_nomin
     bringup.stop("linz_controller")
     # every step the controller took, from its field log (the probe, not real-time, may miss some)
     log = field_log(tmp_path / "log")
+    assert_no_alarms(log, "pick_arm, flooded with state messages")
     t = log.column("t")
     reasons = [REASONS[int(code)] for code in log.column("reason")]
     during = (t >= start) & (t <= end)
@@ -277,7 +285,8 @@ def test_a_flood_of_state_messages_leaves_the_controller_alive_and_back_to_nomin
           f"DDS in the simulator: {refused_writes[-1] if refused_writes else 0}")
 
 
-def test_a_stalled_reference_holds_the_outputs_and_tracking_resumes_with_a_new_reference(bringup, arm_artifact):
+def test_a_stalled_reference_holds_the_outputs_and_tracking_resumes_with_a_new_reference(bringup, arm_artifact,
+                                                                                          tmp_path):
     path, artifact = arm_artifact
     base = _operating_outputs(artifact)
     move_x, move_y = -0.05, 0.03
@@ -285,8 +294,9 @@ def test_a_stalled_reference_holds_the_outputs_and_tracking_resumes_with_a_new_r
     try:
         bringup.start("linz_plant_sim", PARAMS, {"artifact": str(path)})
         bringup.start("linz_reference", PARAMS, {"artifact": str(path),
-                                                 "reference": f"smooth:tool_x={move_x},duration=2.0,at=3.0"})
-        _start_controller(bringup, path, reference="topic", diagnostics_period=0.2)
+                                                 "reference": f"smooth:tool_x={move_x},duration=4.0,at=3.0"})
+        _start_controller(bringup, path, reference="topic", diagnostics_period=0.2,
+                          field_log_folder=str(tmp_path / "log"))
         # kill the reference node part of the way into its move
         assert wait_until(lambda: len(probe.recording.conditioning) > 0
                           and probe.steps(last=1)[-1]["ref"][0] < base[0] + 0.4 * move_x,
@@ -316,6 +326,9 @@ def test_a_stalled_reference_holds_the_outputs_and_tracking_resumes_with_a_new_r
         _wait_for_steps(probe, 600)                             # 1.2 s to settle
     finally:
         probe.destroy_node()
+    assert bringup.nodes["linz_controller"].alive()
+    bringup.stop("linz_controller")
+    assert_no_alarms(field_log(tmp_path / "log"), "pick_arm, reference node killed and started again")
     steps = probe.steps()
     assert _finite(steps)
     # while the reference was stale: nominal steps toward the held outputs, constant, where the arm
@@ -325,7 +338,8 @@ def test_a_stalled_reference_holds_the_outputs_and_tracking_resumes_with_a_new_r
     assert {s["mode"] for s in stalled} == {"nominal"}
     refs = np.array([s["ref"] for s in stalled])
     assert np.all(refs == refs[0]), "the held reference moved"
-    assert base[0] + 0.8 * move_x < refs[0][0] < base[0] + 0.3 * move_x, (refs[0], base)
+    # (a 4 s move: this process, not real-time, may see the 40 % mark and kill the node late)
+    assert base[0] + 0.95 * move_x < refs[0][0] < base[0] + 0.3 * move_x, (refs[0], base)
     y = np.array([s["y"] for s in stalled])
     # the arm stopped there (a rare stale step on a loaded machine drops it a little: not 1 cm)
     assert np.max(np.abs(y[-100:] - refs[0])) < 3e-3
@@ -340,7 +354,6 @@ def test_a_stalled_reference_holds_the_outputs_and_tracking_resumes_with_a_new_r
     assert settled_errors(final).max() < 1e-3
     later = [(lv, msg) for received, lv, msg, _ in probe.recording.diagnostics if received > restarted_move_end]
     assert later and OK in {lv for lv, _ in later} and not any("reference stale" in m for _, m in later), later
-    assert bringup.nodes["linz_controller"].alive()
     taken_over = next(s for s in steps if s["received"] > new_started and s["reason"] == "ok"
                       and s["ref"] != held)
     print(f"reference stalled at {[round(v, 4) for v in held]} (move to {base[0] + move_x:.4f}); "

