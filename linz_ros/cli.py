@@ -805,9 +805,14 @@ def _run_demo(args: argparse.Namespace) -> int:
     print("\n== 3. sim: the plant file's reference")
     _run_sim(_parse_sub(["sim", str(artifact), "-o", str(out / "nominal"), "--duration", "4"]))
     if name == DEMO_PLANT and not args.plant:
-        print("\n== 4. sim: a reach past the workspace, through the singular set (watchdog at work)")
+        print("\n== 4. sim: a reach past the workspace; the envelope watchdog stops the arm under control")
+        _run_sim(_parse_sub(["sim", str(artifact), "-o", str(out / "reach_stopped"), "--duration", "4",
+                             "--reference", DEMO_REACH]))
+        print("\n== 4b. sim: the same reach with the envelope watchdog only warning, through the singular set "
+              "(the singularity watchdog at work; never do this on a machine)")
         _run_sim(_parse_sub(["sim", str(artifact), "-o", str(out / "reach"), "--duration", "4",
-                             "--reference", DEMO_REACH, "--field-log", str(out / "reach" / "field_log")]))
+                             "--reference", DEMO_REACH, "--watchdog", "envelope_action=warn",
+                             "--field-log", str(out / "reach" / "field_log")]))
     params = bundled_params(name)
     if params is None:
         print(f"\n(no bringup parameter file config/{name}.yaml: the ROS 2 step is skipped)")

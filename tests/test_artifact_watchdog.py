@@ -34,7 +34,8 @@ def test_every_row_is_complete_and_names_are_unique():
     ("rate_limits", [1.0, None], None),
     ("rate_limits", [1.0, 0.0], "entry 1: expected a number > 0, got 0"),
     ("envelope_margin", 11.0, "expected at most 10, got 11"),
-    ("envelope_action", "stop", "expected one of warn, safe, got 'stop'"),
+    ("envelope_action", "halt", "expected one of warn, stop, safe, got 'halt'"),
+    ("divergence_action", "stop", "expected one of warn, safe, got 'stop'"),
     ("divergence_time", float("nan"), "expected a number, got nan"),
     ("safe_command", {"kind": "fixed", "value": [0.0]}, "a fixed safe command needs 2 value(s), one per input"),
     ("sigma_wran", 1.0, "unknown watchdog setting"),
@@ -62,7 +63,7 @@ def test_defaults_fill_every_artifact_setting():
 @pytest.mark.parametrize("text, field", [
     ("hold_time: 0", None),
     ("hold_time: -1", "design.watchdog.hold_time"),
-    ("envelope_action: stop", "design.watchdog.envelope_action"),
+    ("envelope_action: halt", "design.watchdog.envelope_action"),
     ("divergence_time: 0", "design.watchdog.divergence_time"),
 ])
 def test_the_plant_file_the_artifact_and_the_core_agree(text, field):

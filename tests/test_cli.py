@@ -407,7 +407,7 @@ def test_sim_flags_the_softer_shaft_in_text_and_json(capsys, tmp_path):
 
 def test_sim_watchdog_overrides_are_checked_against_the_table(capsys, tmp_path):
     plant = str(REFERENCE / "flexible_joint.yaml")
-    for item, words in (("envelope_action=stop", "--watchdog: envelope_action: expected one of warn, safe"),
+    for item, words in (("envelope_action=halt", "--watchdog: envelope_action: expected one of warn, stop, safe"),
                         ("sigma_wran=1", "--watchdog: 'sigma_wran' is not a watchdog setting"),
                         ("stale_after=0", "--watchdog: stale_after: expected a number > 0, got 0")):
         code, out, err = _run(capsys, "sim", plant, "--watchdog", item, "--no-plots", "-o", str(tmp_path))

@@ -299,8 +299,8 @@ def test_the_watchdog_parameters_come_from_the_table_and_are_checked_by_it(make)
     node.trigger_configure()
     node.trigger_activate()
     config = node.core.config
-    result = node.set_parameters([Parameter("envelope_action", value="stop")])[0]
-    assert not result.successful and result.reason == "envelope_action: expected one of warn, safe, got 'stop'"
+    result = node.set_parameters([Parameter("envelope_action", value="halt")])[0]
+    assert not result.successful and result.reason == "envelope_action: expected one of warn, stop, safe, got 'halt'"
     result = node.set_parameters([Parameter("divergence_error", value=[0.1])])[0]      # one per output: two
     assert not result.successful and "divergence_error" in result.reason and node.core.config is config
     result = node.set_parameters([Parameter("envelope_action", value="warn"),

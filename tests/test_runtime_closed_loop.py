@@ -186,7 +186,7 @@ def test_a_run_that_leaves_its_envelope_is_flagged_as_it_happens():
     assert np.max(np.abs(result.x[:, [0, 2]])) > 1.8                        # q1 or q2 beyond 1.5 widened by 10 %
     k = int(np.flatnonzero(result.alarm_mask() & 1)[0])
     assert result.t[k] == pytest.approx(first_out, abs=result.period)     # the watchdog saw it at once
-    assert result.reason[k] == "outside_envelope" and result.mode[k] == "safe"
+    assert result.reason[k] == "outside_envelope" and result.mode[k] == "stopping"    # a controlled stop
     assert summary["verdict"] in ("diverged", "left_envelope") and summary["verdict_at"] is not None
     assert summary["alarm_steps"]["outside_envelope"] > 0
     assert summary["outputs"]["y"]["decay_rate"] is None                    # never a decay rate for this

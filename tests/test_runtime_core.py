@@ -434,7 +434,7 @@ def test_an_accepted_future_stamp_does_not_lock_out_the_states_after_it(arm):
 
 
 def test_the_envelope_watchdog_acts_outside_the_widened_envelope_only(arm):
-    core = ControllerCore(arm)
+    core = ControllerCore(arm, WatchdogConfig.from_artifact(arm, envelope_action="safe"))
     config = core.config
     (i, lo, hi), = [b for b in config.widened_envelope() if b[0] == 1]
     assert (lo, hi) == pytest.approx((0.15 - 0.1 * 2.45, 2.6 + 0.1 * 2.45))     # q2: [0.15, 2.6] widened 10 %
@@ -488,7 +488,7 @@ def test_a_large_error_that_decays_is_a_transient_not_divergence(arm):
 
 
 def test_watchdog_changes_reach_the_envelope_and_divergence_checks(arm):
-    core = ControllerCore(arm)
+    core = ControllerCore(arm, WatchdogConfig.from_artifact(arm, envelope_action="safe"))
     x_out = [0.4, 3.2, 0.0, 0.0]
     ref = core.hold_reference([0.4, 1.2, 0.0, 0.0])
     assert core.step(x_out, ref, t=0.002)[1].reason == "outside_envelope"
@@ -496,5 +496,30 @@ def test_watchdog_changes_reach_the_envelope_and_divergence_checks(arm):
     assert core.step(x_out, ref, t=0.004)[1].reason == "ok"
     with pytest.raises(ConfigError, match="divergence_error: expected 2 bounds, one per output"):
         core.config = core.config.with_overrides(divergence_error=(1.0,))
-    with pytest.raises(ConfigError, match="envelope_action: expected one of warn, safe, got 'stop'"):
-        WatchdogConfig.from_artifact(arm, envelope_action="stop")
+    with pytest.raises(ConfigError, match="envelope_action: expected one of warn, stop, safe, got 'halt'"):
+        WatchdogConfig.from_artifact(arm, envelope_action="halt")
+
+
+def test_by_default_leaving_the_envelope_stops_the_machine_under_control_until_reset(arm):
+    # a controlled stop: the law keeps commanding (gravity compensated), the reference is frozen at the
+    # outputs where the envelope was left, with zero derivatives; the user's reference is ignored
+    core = ControllerCore(arm)
+    assert core.config.envelope_action == "stop"
+    x = [0.4, 1.2, 0.0, 2.5]                                   # w2 above 2 widened by 10 %: outside
+    moving = core.hold_reference([0.5, 1.0, 0.0, 0.0])        # the user's reference asks for a move
+    u, record = core.step(x, moving, t=0.002)
+    assert (record.mode, record.reason, record.alarms) == ("stopping", "outside_envelope", 1)
+    hold = ControllerCore(arm, core.config.with_overrides(envelope_action="warn"))
+    expected, _ = hold.step(x, hold.hold_reference(x), t=0.002)
+    assert u == pytest.approx(expected, rel=1e-12)             # the law holding the outputs where they were
+    y_stop = core.output_values(x)
+    x_in = [0.42, 1.19, 0.1, 0.3]                              # back inside: still stopping, same target
+    u, record = core.step(x_in, moving, t=0.004)
+    assert (record.mode, record.reason, record.alarms) == ("stopping", "outside_envelope", 0)
+    fresh = ControllerCore(arm, core.config.with_overrides(envelope_action="warn"))
+    target = []
+    for y, r in zip(y_stop, core.orders):
+        target += [y] + [0.0] * r
+    assert u == pytest.approx(fresh.step(x_in, target, t=0.002)[0], rel=1e-12)
+    core.reset()                                               # a deliberate restart resumes the reference
+    assert core.step(x_in, moving, t=0.006)[1].mode == "nominal"

@@ -20,7 +20,7 @@ from linz_ros.artifact import Artifact
 from linz_ros.logs.reader import LogError, StepLog, metadata_json
 from linz_ros.errors import LinzError
 from linz_ros.runtime import ALARMS, MODES, REASONS, SimResult
-from linz_ros.runtime.closed_loop import run_verdict
+from linz_ros.runtime.closed_loop import ACTED_MODES, run_verdict
 
 __all__ = ["Episode", "Thresholds", "as_sim_result", "control_gaps", "episodes", "gap_ends", "summarise",
            "thresholds_of"]
@@ -378,7 +378,7 @@ def _alarm_summary(log: StepLog, t: np.ndarray, reason: np.ndarray, mode: np.nda
     found = {}
     for bit, name in enumerate(_ALARMS):
         named = reason == REASONS.index(name)
-        acted = named & np.isin(mode, [MODES.index("safe"), MODES.index("held")])
+        acted = named & np.isin(mode, [MODES.index(m) for m in ACTED_MODES])
         flagged = named if flagged_bits is None else ((np.maximum(flagged_bits, 0) >> bit) & 1).astype(bool) | named
         if flagged.any():
             found[name] = {"records": int(flagged.sum()), "acted": int(acted.sum()),

@@ -85,7 +85,7 @@ def summary_text(summary: dict[str, Any]) -> str:
     else:
         lines.append("  refused states: none")
     for name, group in s.get("watchdog_alarms", {}).items():
-        acted = f"safe command on {group['acted']}" if group["acted"] else "warned only"
+        acted = f"acted on {group['acted']} (safe command or controlled stop)" if group["acted"] else "warned only"
         lines.append(f"  watchdog {name}: {group['records']} step(s) in {group['count']} episode(s) from "
                      f"{group['first']:.3f} s, {acted}")
     c = s["compute_time_us"]

@@ -31,6 +31,8 @@ __all__ = ["SimSettings", "SimResult", "simulate", "fit_decay_rate", "INTEGRATOR
 INTEGRATORS = ("rk4", "scipy")
 #: One word for how a run went, the worst first: the first that applies is the run's verdict.
 VERDICTS = ("diverged", "left_envelope", "held_safe", "saturated", "not_settled", "tracked")
+#: Modes in which a watchdog acted: the safe or held command, or a controlled stop.
+ACTED_MODES = ("safe", "held", "stopping")
 #: A run is saturated when an input sat on a limit for more than this fraction of its steps.
 SATURATED_FRACTION = 0.05
 #: Settled: the RMS error over the last tenth of the run is at most this fraction of the peak error
@@ -521,9 +523,11 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     for bit, name in enumerate(ALARMS):
         first = _first_time(result.t, alarms >> bit & 1)
         if first is not None:
-            acted = [r for r, m in zip(result.reason, result.mode) if r == name and m in ("safe", "held")]
+            acted = {m for r, m in zip(result.reason, result.mode) if r == name and m in ACTED_MODES}
+            done = ("stopped under control" if "stopping" in acted else "the safe command sent" if acted
+                    else "warned only")
             result.notes.append(f"watchdog {name} first at t = {first:.4g} s, {int(np.count_nonzero(alarms >> bit & 1))} "
-                                f"step(s), {'the safe command sent' if acted else 'warned only'}")
+                                f"step(s), {done}")
     if budget_note is not None:
         result.notes.append(budget_note)
     elif diverged_at is not None:

@@ -36,7 +36,9 @@ from linz_ros.runtime._linalg import (computed_torque, damped_solve, inverse_mas
 
 __all__ = ["ControllerCore", "StepRecord", "WatchdogConfig", "MODES", "REASONS", "ALARMS"]
 
-MODES = ("nominal", "damped", "held", "safe")
+#: ``stopping``: a controlled stop (the law holds the outputs where the envelope was left). Only
+#: ever appended to: logs store modes by index.
+MODES = ("nominal", "damped", "held", "safe", "stopping")
 #: Why a step ended as it did (``ok`` for a nominal step).
 REASONS = ("ok", "near_singular", "singular", "wrong_length", "non_finite_state", "bad_reference",
            "bad_time", "out_of_order", "stale", "future_stamp", "model_not_finite", "non_finite_command",
@@ -462,6 +464,7 @@ class ControllerCore:
         self._above_since: float | None = None     # when the scaled error last rose above 1
         self._above_from = 0.0                     # and its value then
         self._diverged = False                     # latched by a divergence with action "safe"
+        self._stop_reference: list[float] | None = None   # latched by the envelope with action "stop"
 
     def hold_reference(self, x: Sequence[float]) -> list[float]:
         """The reference that holds the outputs where they are at state ``x``.
@@ -587,12 +590,16 @@ class ControllerCore:
         dt = 0.0 if last_t is None else min(t - last_t, config.max_dt)
         if self.integral and self._integrate_next and self._last_errors is not None:
             self._advance_integrators(dt)
-        w, errors = self._outer_loop(values, ref)
-        warn = not sigma_min >= config.sigma_warn
-        damping = 0.0
         alarms = 0
         if self._envelope and self._outside_envelope(x):
             alarms = 1
+            if config.envelope_action == "stop" and self._stop_reference is None:
+                self._stop_reference = self._hold_reference_of(values)
+        if self._stop_reference is not None:
+            ref = self._stop_reference
+        w, errors = self._outer_loop(values, ref)
+        warn = not sigma_min >= config.sigma_warn
+        damping = 0.0
         if self._watch_divergence and self._diverging(errors, t):
             alarms |= 2
         acted = "singular" if not sigma_min >= config.sigma_stop else self._acted_alarm(alarms)   # nan: singular
@@ -623,14 +630,17 @@ class ControllerCore:
         if not all(map(_isfinite, u)):
             self.last_t = accepted_t
             return self._safe("non_finite_command", t, start, sigma_min, condition, warn, now, alarms)
-        if alarms and reason == "ok":
+        if self._stop_reference is not None:
+            mode, reason = "stopping", ALARMS[0]
+        elif alarms and reason == "ok":
             reason = ALARMS[0] if alarms & 1 else ALARMS[1]
         self.last_t = accepted_t
         self.last_good_t = t
         self.last_command = u
         self.last_good_command = u
         self._last_errors = errors
-        self._integrate_next = not (config.anti_windup and (mode != "nominal" or any(saturated)))
+        frozen = mode == "stopping" or (config.anti_windup and (mode != "nominal" or any(saturated)))
+        self._integrate_next = not frozen
         record = StepRecord(t, tuple(u), mode, reason, sigma_min, condition, warn, damping,
                             tuple(saturated), time.perf_counter() - start, self._outputs_of(values), alarms)
         return u, record
@@ -689,6 +699,13 @@ class ControllerCore:
             self._above_since, self._above_from = t, scaled
             return False
         return t - self._above_since >= self.config.divergence_time and scaled >= self._above_from
+
+    def _hold_reference_of(self, values: Sequence[float]) -> list[float]:
+        """Hold each output where it is: ``[y_i, 0, ..., 0]`` per chain, from the law's values."""
+        ref: list[float] = []
+        for y, r in zip(self._outputs_of(values), self.orders):
+            ref.extend([y] + [0.0] * r)
+        return ref
 
     def _acted_alarm(self, alarms: int) -> str | None:
         """The alarm whose action is the safe command, if one is raised (divergence latches)."""

@@ -141,7 +141,8 @@ def test_a_restarted_simulator_is_picked_up_by_the_running_controller(bringup, a
         assert len(logged) == 1 and logged[0] > 90.0, logged
     print(f"[{'sim' if sim_time else 'wall'} time] stale-safe {1000 * (stale_at - killed):.0f} ms after kill -9; "
           f"first nominal step {later[first_ok]['received'] - restarted:.2f} s after the new simulator was "
-          f"started, {1000 * resume_delay:.1f} ms of its states after its first record ({len(between)} refused in between: "
+          f"started, {1000 * resume_delay:.1f} ms of its states after its first record "
+          f"({len(between)} refused in between: "
           f"{sorted(set(between))}); dip {1000 * errors.max():.2f} mm")
 
 
