@@ -923,12 +923,20 @@ _PATH_OPTIONS = (("out", "--out"), ("field_log", "--field-log"), ("folder", "key
                  ("trusted_key", "--trusted-key"))
 
 
+#: Options whose value is text (not a path) and may not be empty: an empty one would silently
+#: fall back to a default.
+_TEXT_OPTIONS = (("reference", "--reference"), ("linearizing_output", "--linearizing-output"),
+                 ("lqr_q", "--lqr-q"), ("lqr_r", "--lqr-r"), ("poles", "--poles"), ("mismatch", "--mismatch"),
+                 ("noise", "--noise"), ("initial", "--initial"), ("watchdog", "--watchdog"))
+
+
 def _refuse_empty_paths(args: argparse.Namespace) -> None:
-    for attribute, option in _PATH_OPTIONS:
+    for attribute, option in _PATH_OPTIONS + _TEXT_OPTIONS:
         values = getattr(args, attribute, None)
         for value in values if isinstance(values, list) else [values]:
             if value is not None and not value.strip():
-                raise ConfigError(option, "expected a file or folder name, got an empty one")
+                what = "a file or folder name" if (attribute, option) in _PATH_OPTIONS else "a value"
+                raise ConfigError(option, f"expected {what}, got an empty one")
 
 
 def _parse_sub(argv: list[str]) -> argparse.Namespace:

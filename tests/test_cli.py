@@ -276,7 +276,7 @@ def reach_field_log(tmp_path_factory):
     folder = tmp_path_factory.mktemp("reach_log")
     code = main(["sim", str(BUNDLED / "pick_arm.yaml"), "-o", str(folder / "run"), "--duration", "3", "--no-plots",
                  "--reference", "smooth:tool_x=0.12,tool_y=0.16,duration=2,at=0.2", "--field-log",
-                 str(folder / "log")])
+                 str(folder / "log"), "--watchdog", "envelope_action=warn"])      # through the singular set
     assert code == 0
     return folder
 
@@ -502,3 +502,9 @@ def test_an_empty_file_or_folder_name_is_refused_before_any_work(capsys, tmp_pat
     code, out, err = _run(capsys, *argv)
     assert code == 2 and err == f"linz: {option}: expected a file or folder name, got an empty one\n"
     assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("option", ["--reference=", "--linearizing-output=", "--lqr-q=", "--mismatch=", "--watchdog="])
+def test_an_empty_option_value_is_refused_not_ignored(capsys, tmp_path, option):
+    code, out, err = _run(capsys, "sim", str(BUNDLED / "mast_camera.yaml"), option, "--no-plots", "-o", str(tmp_path))
+    assert code == 2 and err.strip() == f"linz: {option[:-1]}: expected a value, got an empty one"

@@ -152,8 +152,9 @@ def test_a_field_log_as_a_sim_result_gives_back_the_run_that_wrote_it(tmp_path):
     x0 = [float(artifact.document["plant"]["operating_point"][s]) for s in artifact.states]
     reach = parse_reference("smooth:tool_x=0.12,tool_y=0.16,duration=1", artifact.relative_degree,
                             ControllerCore(artifact).output_values(x0), artifact.outputs)
-    settings = SimSettings(duration=2.0, reference=reach, initial=x0)
-    writer = open_field_log(FieldLogSettings(tmp_path), artifact, WatchdogConfig.from_artifact(artifact))
+    config = WatchdogConfig.from_artifact(artifact, envelope_action="warn")     # to reach the singular set
+    settings = SimSettings(duration=2.0, reference=reach, initial=x0, config=config)
+    writer = open_field_log(FieldLogSettings(tmp_path), artifact, config)
     run = simulate(artifact, settings, field_log=writer)
     assert writer.close().state == "closed"
     back = as_sim_result(read_logs([tmp_path]), artifact)

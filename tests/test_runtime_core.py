@@ -500,9 +500,10 @@ def test_watchdog_changes_reach_the_envelope_and_divergence_checks(arm):
         WatchdogConfig.from_artifact(arm, envelope_action="halt")
 
 
-def test_by_default_leaving_the_envelope_stops_the_machine_under_control_until_reset(arm):
+def test_by_default_leaving_the_envelope_stops_the_machine_under_control(arm):
     # a controlled stop: the law keeps commanding (gravity compensated), the reference is frozen at the
-    # outputs where the envelope was left, with zero derivatives; the user's reference is ignored
+    # outputs where the envelope was left, with zero derivatives, until the state is back inside the
+    # envelope itself (the margin is the hysteresis); the user's reference is ignored meanwhile
     core = ControllerCore(arm)
     assert core.config.envelope_action == "stop"
     x = [0.4, 1.2, 0.0, 2.5]                                   # w2 above 2 widened by 10 %: outside
@@ -512,14 +513,14 @@ def test_by_default_leaving_the_envelope_stops_the_machine_under_control_until_r
     hold = ControllerCore(arm, core.config.with_overrides(envelope_action="warn"))
     expected, _ = hold.step(x, hold.hold_reference(x), t=0.002)
     assert u == pytest.approx(expected, rel=1e-12)             # the law holding the outputs where they were
-    y_stop = core.output_values(x)
-    x_in = [0.42, 1.19, 0.1, 0.3]                              # back inside: still stopping, same target
-    u, record = core.step(x_in, moving, t=0.004)
+    target = []
+    for y, r in zip(core.output_values(x), core.orders):
+        target += [y] + [0.0] * r
+    x_margin = [0.42, 1.19, 0.1, 2.2]                          # inside the widened envelope, not the plain one
+    u, record = core.step(x_margin, moving, t=0.004)
     assert (record.mode, record.reason, record.alarms) == ("stopping", "outside_envelope", 0)
     fresh = ControllerCore(arm, core.config.with_overrides(envelope_action="warn"))
-    target = []
-    for y, r in zip(y_stop, core.orders):
-        target += [y] + [0.0] * r
-    assert u == pytest.approx(fresh.step(x_in, target, t=0.002)[0], rel=1e-12)
-    core.reset()                                               # a deliberate restart resumes the reference
-    assert core.step(x_in, moving, t=0.006)[1].mode == "nominal"
+    assert u == pytest.approx(fresh.step(x_margin, target, t=0.002)[0], rel=1e-12)   # the same target
+    x_in = [0.42, 1.19, 0.1, 0.3]                              # back inside: the user's reference again
+    u, record = core.step(x_in, moving, t=0.006)
+    assert (record.mode, record.reason, record.alarms) == ("nominal", "ok", 0)

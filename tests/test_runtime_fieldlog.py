@@ -311,4 +311,4 @@ def test_the_watchdog_metadata_holds_every_setting_of_the_table():
     artifact = built_artifact(BUNDLED / "pick_arm.yaml")
     metadata = watchdog_metadata(WatchdogConfig.from_artifact(artifact, integral_limit=2.5))
     assert {row.name for row in WATCHDOG_SETTINGS} <= set(metadata)
-    assert metadata["integral_limit"] == "2.5" and metadata["envelope_action"] == "safe"
+    assert metadata["integral_limit"] == "2.5" and metadata["envelope_action"] == "stop"

@@ -36,8 +36,8 @@ LEVEL_FRACTIONS = {"sigma_warn": 0.25, "sigma_act": 0.1, "sigma_stop": 0.02}
 #: Default ``stale_after``, in control periods.
 STALE_PERIODS = 10
 #: What a watchdog does when it trips: record it and go on (``warn``), stop the machine under
-#: control (``stop``: the law holds the outputs where they were, until the controller is reset),
-#: or send the safe command (``safe``).
+#: control (``stop``: the law holds the outputs where they were, until the state is back inside
+#: the envelope itself, the margin serving as hysteresis), or send the safe command (``safe``).
 ACTIONS = ("warn", "stop", "safe")
 SAFE_KINDS = ("zero", "hold", "fixed")
 
@@ -118,8 +118,9 @@ WATCHDOG_SETTINGS: tuple[WatchdogSetting, ...] = (
     WatchdogSetting("envelope_margin", "1", "scalar", "the envelope is widened by this fraction of each "
                     "state's range before the envelope watchdog trips", upper=10.0, default=0.1),
     WatchdogSetting("envelope_action", "-", "choice", "outside the widened envelope: record it and go on "
-                    "(warn), stop under control, holding the outputs where they were until the controller is "
-                    "reset (stop), or send the safe command (safe)", default="stop", choices=ACTIONS),
+                    "(warn), stop under control, holding the outputs where they were until the state is back "
+                    "inside the envelope itself (stop), or send the safe command (safe)", default="stop",
+                    choices=ACTIONS),
     WatchdogSetting("divergence_error", "output", "per_output", "tracking error of each output above which "
                     "the divergence watchdog starts its clock", lower_open=True, none_means="not watched",
                     default_rule="half the range of the output over the envelope"),

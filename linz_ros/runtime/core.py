@@ -447,6 +447,8 @@ class ControllerCore:
             raise ConfigError("input_limits", f"expected {self.m} (lower, upper) pairs, one per input")
         self._config = config
         self._envelope = config.widened_envelope()
+        self._plain_envelope = [(i, lo, hi) for i, (lo, hi) in enumerate(config.envelope)
+                                if _isfinite(lo) and _isfinite(hi)]
         # the divergence watchdog works on |e_i| / bound_i; an infinite bound is not watched
         self._error_scale = [0.0 if not _isfinite(b) else 1.0 / b for b in bounds]
         self._watch_divergence = any(self._error_scale)
@@ -464,7 +466,7 @@ class ControllerCore:
         self._above_since: float | None = None     # when the scaled error last rose above 1
         self._above_from = 0.0                     # and its value then
         self._diverged = False                     # latched by a divergence with action "safe"
-        self._stop_reference: list[float] | None = None   # latched by the envelope with action "stop"
+        self._stop_reference: list[float] | None = None   # held while a controlled stop lasts
 
     def hold_reference(self, x: Sequence[float]) -> list[float]:
         """The reference that holds the outputs where they are at state ``x``.
@@ -591,12 +593,17 @@ class ControllerCore:
         if self.integral and self._integrate_next and self._last_errors is not None:
             self._advance_integrators(dt)
         alarms = 0
-        if self._envelope and self._outside_envelope(x):
+        if self._envelope and self._outside_envelope(x, self._envelope):
             alarms = 1
             if config.envelope_action == "stop" and self._stop_reference is None:
                 self._stop_reference = self._hold_reference_of(values)
+        elif self._stop_reference is not None and not self._outside_envelope(x, self._plain_envelope):
+            self._stop_reference = None        # back inside the envelope itself: the margin is the hysteresis
         if self._stop_reference is not None:
-            ref = self._stop_reference
+            if config.envelope_action != "stop":   # the action was changed while stopping
+                self._stop_reference = None
+            else:
+                ref = self._stop_reference
         w, errors = self._outer_loop(values, ref)
         warn = not sigma_min >= config.sigma_warn
         damping = 0.0
@@ -681,9 +688,10 @@ class ControllerCore:
         return self.last_t is None or now - self.last_t > self.config.stale_after
 
     # -- pieces -------------------------------------------------------------------------
-    def _outside_envelope(self, x: list[float]) -> bool:
-        """Whether any bounded state lies outside the widened envelope."""
-        for i, lo, hi in self._envelope:
+    @staticmethod
+    def _outside_envelope(x: list[float], bounds: list[tuple[int, float, float]]) -> bool:
+        """Whether any bounded state lies outside ``bounds`` (the widened or the plain envelope)."""
+        for i, lo, hi in bounds:
             if not lo <= x[i] <= hi:
                 return True
         return False

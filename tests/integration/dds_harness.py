@@ -198,17 +198,23 @@ def settled_errors(steps: list[dict], after: float = 0.25, gap_periods: float = 
     return error[keep]
 
 
-def assert_no_alarms(log, what: str) -> None:
+def assert_no_alarms(log, what: str, after_refusals: bool = False) -> None:
     """No envelope or divergence alarm in ``log``; else say which run, state and when, and what came before.
 
     Bundled plants must not trip these watchdogs in nominal runs; a test that sees one reports
-    the numbers rather than allowing it.
+    the numbers rather than allowing it. ``after_refusals`` (runs on the wall clock of a shared
+    machine): a state late past ``stale_after`` gets the safe command, zero torque, and the arm
+    falls for as long as it lasts (59 ms take the pick arm's elbow past its 2.4 rad/s); an
+    envelope alarm is then allowed if it follows a refused step by at most 0.5 s, is a controlled
+    stop, and ends in nominal control within 0.5 s. Divergence is never allowed.
     """
     if "alarms" not in log.labels:                  # a log written before the alarms field
         return
     alarms = log.column("alarms")
     raised = np.flatnonzero(np.isfinite(alarms) & (alarms != 0))
     if not len(raised):
+        return
+    if after_refusals and _alarms_follow_refusals(log, raised):
         return
     i, t = int(raised[0]), log.column("t")
     names = [a for bit, a in enumerate(ALARMS) if int(alarms[i]) >> bit & 1]
@@ -219,3 +225,28 @@ def assert_no_alarms(log, what: str) -> None:
                f"{t[i] - t[before[0]]:.3f} s earlier" if before else "; no refused step in the 2 s before")
     raise AssertionError(f"{what}: {len(raised)} steps with alarms, the first {names} (reason {reasons[i]}) at "
                          f"t = {t[i] - t[0]:.3f} s into the log (step {i} of {len(t)}), state {state}{earlier}")
+
+
+def _alarms_follow_refusals(log, raised: np.ndarray) -> bool:
+    """Whether every alarm episode is an envelope stop right after a refused step, and ends in nominal steps."""
+    t = log.column("t")
+    alarms = log.column("alarms").astype(int)
+    reasons = [REASONS[int(c)] for c in log.column("reason")]
+    modes = [MODES[int(c)] for c in log.column("mode")]
+    if np.any(alarms[raised] & 2):
+        return False
+    start = 0
+    while start < len(raised):
+        end = start
+        while end + 1 < len(raised) and t[raised[end + 1]] - t[raised[end]] < 0.1:
+            end += 1
+        first, last = int(raised[start]), int(raised[end])
+        refused = [j for j in range(max(first - 1000, 0), first) if reasons[j] not in ("ok",) and
+                   modes[j] in ("safe", "held") and t[first] - t[j] <= 0.5]
+        after = [j for j in range(last + 1, len(t)) if t[j] - t[last] <= 0.5]
+        if not refused or not any(reasons[j] == "ok" for j in after):
+            return False
+        if any(modes[j] not in ("stopping", "safe", "held") for j in range(first, last + 1) if alarms[j] & 1):
+            return False
+        start = end + 1
+    return True

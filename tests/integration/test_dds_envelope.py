@@ -76,7 +76,15 @@ def test_a_softer_shaft_is_flagged_in_diagnostics_and_the_field_log(bringup, tmp
     assert alarms[first_out] & 1 and reasons[first_out] == "outside_envelope"
     assert not (alarms[:first_out] & 1).any()
     modes = log.column("mode").astype(int)
-    assert np.all(modes[first_out:] == MODES.index("stopping")) and np.all(np.isfinite(log.block("u")[first_out:]))
+    assert modes[first_out] == MODES.index("stopping") and np.all(np.isfinite(log.block("u")[first_out:]))
+    # the stop lasts until the state is back inside the envelope itself (the margin is the hysteresis)
+    inside = ~outside_envelope(artifact, x, 0.0)
+    stopping = modes == MODES.index("stopping")
+    for k in np.flatnonzero(stopping[1:] & ~stopping[:-1]) + 1:    # each stop's first step
+        end = k + int(np.argmax(~stopping[k:])) if (~stopping[k:]).any() else len(modes)
+        assert not inside[k:end - 1].all() or end - k <= 1
+        if end < len(modes):
+            assert inside[end], (k, end)
     from linz_ros.cli import main
     assert main(["logs", str(tmp_path / "log"), "--json"]) == 0
     summary = json.loads(capsys.readouterr().out)
