@@ -13,10 +13,15 @@ watchdogs:
   steps that saturate or leave the nominal mode (conditional integration);
 - bad input: a state of the wrong length, non-finite, older than the last one used,
   or older than ``stale_after``, and a model that is not finite at the state, all give
-  the safe command and a record saying why; a step never raises.
+  the safe command and a record saying why; a step never raises;
+- the machine (``ALARMS``): a state outside the envelope widened by ``envelope_margin``
+  (by default a controlled stop: the outputs held where the envelope was left, until the
+  state is back inside the envelope itself), and a tracking error that stays above
+  ``divergence_error`` for ``divergence_time`` without shrinking (by default the safe
+  command, until ``reset``).
 
 Modes: ``nominal``, ``damped``, ``held`` (the safe command is "hold the last command",
-within ``hold_time``), ``safe``.
+within ``hold_time``), ``safe``, ``stopping`` (the controlled stop).
 """
 
 from __future__ import annotations
