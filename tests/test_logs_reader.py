@@ -44,22 +44,12 @@ def test_a_sqlite_bag_reads(tmp_path):
     # rosbag2's SQLite layout, messages serialized by rclpy (the ROS 2 client library)
     from rclpy.serialization import serialize_message
     from std_msgs.msg import Float64MultiArray, MultiArrayDimension
-    path = tmp_path / "bag_0.db3"
-    db = sqlite3.connect(path)
-    db.execute("CREATE TABLE topics(id INTEGER PRIMARY KEY, name TEXT, type TEXT, serialization_format TEXT, "
-               "offered_qos_profiles TEXT)")
-    db.execute("CREATE TABLE messages(id INTEGER PRIMARY KEY, topic_id INTEGER, timestamp INTEGER, data BLOB)")
-    db.execute("INSERT INTO topics VALUES (1, '/linz_controller/conditioning', 'std_msgs/msg/Float64MultiArray', "
-               "'cdr', '')")
-    db.execute("INSERT INTO topics VALUES (2, '/diagnostics', 'diagnostic_msgs/msg/DiagnosticArray', 'cdr', '')")
+    rows = []
     for k in range(30):
         message = Float64MultiArray(data=_row(k))
         message.layout.dim = [MultiArrayDimension(label=LABELS, size=12, stride=12)]
-        db.execute("INSERT INTO messages(topic_id, timestamp, data) VALUES (1, ?, ?)",
-                   (10**18 + k, serialize_message(message)))
-        db.execute("INSERT INTO messages(topic_id, timestamp, data) VALUES (2, ?, ?)", (10**18 + k, b"\x00\x01"))
-    db.commit()
-    db.close()
+        rows.append((10**18 + k, serialize_message(message)))
+    _sqlite_bag(tmp_path / "bag_0.db3", rows, other_topic=[(10**18 + k, b"\x00\x01") for k in range(30)])
     log = read_logs([tmp_path])                 # the bag folder
     assert len(log) == 30
     np.testing.assert_allclose(log.column("t"), 0.004 * np.arange(30))
@@ -98,14 +88,17 @@ def test_log_files_searches_folders(tmp_path):
     assert [p.name for p in log_files([tmp_path])] == ["a.mcap"]
 
 
-def _sqlite_bag(path, rows):
+def _sqlite_bag(path, rows, other_topic=()):
+    """rosbag2's SQLite layout: ``rows`` (timestamp, data) on the conditioning topic, ``other_topic`` on /diagnostics."""
     db = sqlite3.connect(path)
     db.execute("CREATE TABLE topics(id INTEGER PRIMARY KEY, name TEXT, type TEXT, serialization_format TEXT, "
                "offered_qos_profiles TEXT)")
     db.execute("CREATE TABLE messages(id INTEGER PRIMARY KEY, topic_id INTEGER, timestamp INTEGER, data BLOB)")
     db.execute("INSERT INTO topics VALUES (1, '/linz_controller/conditioning', 'std_msgs/msg/Float64MultiArray', "
                "'cdr', '')")
+    db.execute("INSERT INTO topics VALUES (2, '/diagnostics', 'diagnostic_msgs/msg/DiagnosticArray', 'cdr', '')")
     db.executemany("INSERT INTO messages(topic_id, timestamp, data) VALUES (1, ?, ?)", rows)
+    db.executemany("INSERT INTO messages(topic_id, timestamp, data) VALUES (2, ?, ?)", other_topic)
     db.commit()
     db.close()
     return path
