@@ -818,8 +818,8 @@ def _run_demo(args: argparse.Namespace) -> int:
         print(f"\n(no bringup parameter file config/{name}.yaml: the ROS 2 step is skipped)")
     elif not args.no_ros:
         clock = "wall clock" if args.wall_clock else "simulated time, lockstep"
-        print(f"\n== 5. simulation bringup over DDS: simulator, reference and controller nodes "
-              f"({args.seconds:g} s, {clock})")
+        nodes = "simulator, reference and controller nodes" if args.wall_clock else "simulator and controller nodes"
+        print(f"\n== 5. simulation bringup over DDS: {nodes} ({args.seconds:g} s, {clock})")
         _demo_bringup(artifact, params, out / "bringup", args.seconds, lockstep=not args.wall_clock)
     logs = [folder for folder in (out / "reach" / "field_log", out / "bringup" / "field_log") if folder.is_dir()]
     for step, folder in enumerate(logs, start=6):
@@ -831,7 +831,7 @@ def _run_demo(args: argparse.Namespace) -> int:
 
 
 def _demo_bringup(artifact_path: Path, params: Path, out: Path, seconds: float, lockstep: bool = True) -> None:
-    """Start the three nodes as processes, listen over DDS, summarise and plot the field log.
+    """Start the nodes as processes, listen over DDS, summarise and plot the field log.
 
     With ``lockstep`` the simulator owns time (``/clock``) and waits for each command before
     it advances, so the run covers ``seconds`` of simulated time however busy the machine is.
@@ -859,8 +859,15 @@ def _demo_bringup(artifact_path: Path, params: Path, out: Path, seconds: float, 
                                            "FASTDDS_BUILTIN_TRANSPORTS")})
     field_log = (out / "field_log").resolve()
     print(f"  isolated DDS domain {env['ROS_DOMAIN_ID']}, localhost only; node logs in {out}")
+    # in lockstep the reference is built into the controller, timed in simulated time: a reference
+    # node's messages carry no stamp, so on a busy machine they would reach the controller late in it
+    executables = ("linz_plant_sim", "linz_controller") if lockstep else \
+        ("linz_plant_sim", "linz_reference", "linz_controller")
+    if lockstep:
+        print(f"  the reference built into the controller ({node_parameters(params, 'linz_reference')['reference']}); "
+              "--wall-clock runs the reference node")
     with recording(artifact, topics) as recorder, Bringup(out, env) as bringup:
-        for executable in ("linz_plant_sim", "linz_reference", "linz_controller"):
+        for executable in executables:
             overrides: dict[str, object] = {"artifact": str(artifact_path.resolve())}
             if executable == "linz_plant_sim":
                 overrides.update({"publish_clock": lockstep, "lockstep": lockstep})
@@ -868,6 +875,8 @@ def _demo_bringup(artifact_path: Path, params: Path, out: Path, seconds: float, 
                 overrides["use_sim_time"] = lockstep
             if executable == "linz_controller":
                 overrides["field_log_folder"] = str(field_log)
+                if lockstep:
+                    overrides["reference"] = str(node_parameters(params, "linz_reference")["reference"])
             bringup.start(executable, params, overrides)
         if not bringup.wait_for_log("linz_controller", "active: commanding", timeout=30):
             raise ConfigError("bringup", "the controller did not become active; see "
