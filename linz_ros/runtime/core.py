@@ -85,6 +85,33 @@ def _straight_line_outer_loop(layout: list[tuple], b_offset: int | None = None) 
     return scope["outer"]
 
 
+def _straight_line_outside(bounds: list[tuple[int, float, float]]) -> Callable[[list[float]], bool]:
+    """``x -> whether some x[i] lies outside [lo, hi]``, as one expression (a nan is outside).
+
+    Built, like the outer loop, from the core's own numbers only (indices and ``repr`` of
+    floats), never from text in the file.
+    """
+    if not bounds:
+        return lambda x: False
+    inside = " and ".join(f"{float(lo)!r} <= x[{int(i)}] <= {float(hi)!r}" for i, lo, hi in bounds)
+    scope: dict = {}
+    exec(compile(f"def outside(x):\n    return not ({inside})\n", "<envelope>", "exec"),   # noqa: S102
+         {"__builtins__": {}}, scope)
+    return scope["outside"]
+
+
+def _straight_line_scaled_error(scale: list[float]) -> Callable[[list[float]], float]:
+    """``e -> max_i |e_i| k_i`` over the watched outputs (k_i = 1 / divergence_error_i), as one expression."""
+    terms = [f"abs(e[{i}]) * {float(k)!r}" for i, k in enumerate(scale) if k]
+    if not terms:
+        return lambda e: 0.0
+    body = terms[0] if len(terms) == 1 else f"max({', '.join(terms)})"
+    scope: dict = {}
+    exec(compile(f"def scaled(e):\n    return {body}\n", "<divergence>", "exec"),   # noqa: S102
+         {"__builtins__": {"abs": abs, "max": max}}, scope)
+    return scope["scaled"]
+
+
 def _is_real(value: Any) -> bool:
     return isinstance(value, (int, float)) and not isinstance(value, bool) and not math.isnan(value)
 
@@ -451,12 +478,13 @@ class ControllerCore:
         if len(config.input_limits) != self.m:
             raise ConfigError("input_limits", f"expected {self.m} (lower, upper) pairs, one per input")
         self._config = config
-        self._envelope = config.widened_envelope()
-        self._plain_envelope = [(i, lo, hi) for i, (lo, hi) in enumerate(config.envelope)
-                                if _isfinite(lo) and _isfinite(hi)]
+        self._outside_widened = _straight_line_outside(config.widened_envelope())
+        self._outside_plain = _straight_line_outside([(i, lo, hi) for i, (lo, hi) in enumerate(config.envelope)
+                                                      if _isfinite(lo) and _isfinite(hi)])
         # the divergence watchdog works on |e_i| / bound_i; an infinite bound is not watched
         self._error_scale = [0.0 if not _isfinite(b) else 1.0 / b for b in bounds]
         self._watch_divergence = any(self._error_scale)
+        self._scaled_error = _straight_line_scaled_error(self._error_scale)
 
     # -- state ------------------------------------------------------------------------
     def reset(self) -> None:
@@ -598,11 +626,11 @@ class ControllerCore:
         if self.integral and self._integrate_next and self._last_errors is not None:
             self._advance_integrators(dt)
         alarms = 0
-        if self._envelope and self._outside_envelope(x, self._envelope):
+        if self._outside_widened(x):
             alarms = 1
             if config.envelope_action == "stop" and self._stop_reference is None:
                 self._stop_reference = self._hold_reference_of(values)
-        elif self._stop_reference is not None and not self._outside_envelope(x, self._plain_envelope):
+        elif self._stop_reference is not None and not self._outside_plain(x):
             self._stop_reference = None        # back inside the envelope itself: the margin is the hysteresis
         if self._stop_reference is not None:
             if config.envelope_action != "stop":   # the action was changed while stopping
@@ -693,18 +721,10 @@ class ControllerCore:
         return self.last_t is None or now - self.last_t > self.config.stale_after
 
     # -- pieces -------------------------------------------------------------------------
-    @staticmethod
-    def _outside_envelope(x: list[float], bounds: list[tuple[int, float, float]]) -> bool:
-        """Whether any bounded state lies outside ``bounds`` (the widened or the plain envelope)."""
-        for i, lo, hi in bounds:
-            if not lo <= x[i] <= hi:
-                return True
-        return False
-
     def _diverging(self, errors: list[float], t: float) -> bool:
         """The divergence watchdog: max |e_i| / bound_i above 1 for ``divergence_time`` and
         not smaller than when it crossed 1 (a large error that is decaying is a transient)."""
-        scaled = max(abs(e) * k for e, k in zip(errors, self._error_scale))
+        scaled = self._scaled_error(errors)
         if not scaled > 1.0:
             self._above_since = None
             return False
