@@ -524,3 +524,22 @@ def test_by_default_leaving_the_envelope_stops_the_machine_under_control(arm):
     x_in = [0.42, 1.19, 0.1, 0.3]                              # back inside: the user's reference again
     u, record = core.step(x_in, moving, t=0.006)
     assert (record.mode, record.reason, record.alarms) == ("nominal", "ok", 0)
+
+
+@pytest.mark.parametrize("period", [0.25, 0.5, 1.0, 2.0])
+def test_a_growing_swing_is_divergence_and_a_decaying_one_is_not(arm, period):
+    # the error swings through zero: one episode as long as its dips under the bound are short
+    config = WatchdogConfig.from_artifact(arm, divergence_error=(0.01, 0.01), envelope_action="warn")
+    x = [0.4, 1.2, 0.0, 0.0]
+    # a decaying swing slower than the watchdog's window (2 s against 0.5 s) still rises past the bound
+    # for longer than the window: that is growth as far as the window can see
+    for growth, expected in ((+1.0, True), (-1.5, period > 1.0)):
+        core = ControllerCore(arm, config)
+        y = core.output_values(x)
+        tripped = False
+        for k in range(2000):
+            t = 0.002 * (k + 1)
+            amplitude = 0.05 * math.exp(growth * t)
+            ref = [y[0] + amplitude * math.sin(2 * math.pi * t / period), 0.0, 0.0, y[1], 0.0, 0.0]
+            tripped |= bool(core.step(x, ref, t=t)[1].alarms & 2)
+        assert tripped == expected, (period, growth)

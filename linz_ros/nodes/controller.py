@@ -107,7 +107,7 @@ class DiagnosticWindow:
             return DiagnosticStatus.ERROR, f"{self.publish_failures} message(s) refused by the middleware"
         if self.modes["stopping"]:
             return DiagnosticStatus.ERROR, (f"controlled stop: outside the envelope {self.outside_envelope}x; "
-                                            "holding the outputs until the controller is activated again")
+                                            "holding the outputs until the state is back inside the envelope")
         if self.modes["safe"] or self.modes["held"]:
             why = [f"{label} {count}x" for label, count in (("diverging", self.diverging),
                                                             ("outside the envelope", self.outside_envelope),

@@ -100,6 +100,7 @@ class SimResult:
     ref_state: np.ndarray | None = None
     notes: list[str] = field(default_factory=list)
     alarms: np.ndarray | None = None
+    config: WatchdogConfig | None = None
 
     @property
     def period(self) -> float:
@@ -162,7 +163,9 @@ class SimResult:
             "compute_time_us": {"p50": float(np.percentile(self.compute_time, 50) * 1e6),
                                 "p99": float(np.percentile(self.compute_time, 99) * 1e6),
                                 "max": float(np.max(self.compute_time) * 1e6)} if len(self.t) else None,
-            "diverged_at": self.diverged_at,
+            # the verdict's time when it is "diverged" (state not finite, or the divergence watchdog)
+            "diverged_at": verdict.at if verdict.word == "diverged" else None,
+            "non_finite_at": self.diverged_at,
             "alarm_steps": {name: int(np.count_nonzero(self.alarm_mask() >> bit & 1))
                             for bit, name in enumerate(ALARMS)},
             "notes": list(self.notes),
@@ -239,15 +242,12 @@ def outside_envelope(artifact: Artifact, x: np.ndarray, margin: float = 0.0) -> 
     numpy.ndarray
         K booleans.
     """
-    envelope = artifact.document["plant"].get("envelope", {})
     x = np.asarray(x, dtype=float).reshape(-1, len(artifact.states))
     outside = np.zeros(x.shape[0], dtype=bool)
-    for i, name in enumerate(artifact.states):
-        if name in envelope:
-            lo, hi = envelope[name]
-            extra = margin * (hi - lo)
-            with np.errstate(invalid="ignore"):      # nan (a refused state) is not outside
-                outside |= (x[:, i] < lo - extra) | (x[:, i] > hi + extra)
+    # the core's own rule for the widened envelope
+    for i, lo, hi in WatchdogConfig.from_artifact(artifact, envelope_margin=margin).widened_envelope():
+        with np.errstate(invalid="ignore"):      # nan (a refused state) is not outside
+            outside |= (x[:, i] < lo) | (x[:, i] > hi)
     return outside
 
 
@@ -281,7 +281,7 @@ def run_verdict(result: "SimResult") -> Verdict:
     if result.diverged_at is not None:
         return Verdict("diverged", result.diverged_at, "the plant's state stopped being finite")
     diverging = (alarms >> 1 & 1).astype(bool)
-    margin = float(result.artifact.watchdog.get("envelope_margin", 0.1))
+    margin = (result.config or WatchdogConfig.from_artifact(result.artifact)).envelope_margin
     left = outside_envelope(result.artifact, result.x, margin) | (alarms & 1).astype(bool)
     if diverging.any():
         left_at = _first_time(t, left)
@@ -516,7 +516,8 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
         x_measured=np.array(records["xm"]), ref=np.array(records["ref"]), y=np.array(records["y"]),
         u=np.array(records["u"]), sigma_min=np.array(records["s"]), condition=np.array(records["c"]),
         mode=records["mode"], reason=records["reason"], saturated=np.array(records["sat"], dtype=bool),
-        compute_time=np.array(records["ct"]), diverged_at=diverged_at, alarms=np.array(records["alarms"], dtype=int))
+        compute_time=np.array(records["ct"]), diverged_at=diverged_at, alarms=np.array(records["alarms"], dtype=int),
+        config=core.config)
     if artifact.kind == "input_state":
         result.ref_state = _reference_states(artifact, result.ref)
     alarms = result.alarm_mask()
@@ -526,6 +527,8 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
             acted = {m for r, m in zip(result.reason, result.mode) if r == name and m in ACTED_MODES}
             done = ("stopped under control" if "stopping" in acted else "the safe command sent" if acted
                     else "warned only")
+            if "stopping" in acted and "diverging" in result.reason:
+                done = "a controlled stop tried, then the safe command when the stop itself diverged"
             result.notes.append(f"watchdog {name} first at t = {first:.4g} s, {int(np.count_nonzero(alarms >> bit & 1))} "
                                 f"step(s), {done}")
     if budget_note is not None:

@@ -29,6 +29,7 @@ from __future__ import annotations
 import math
 import operator
 import time
+from collections import deque
 from dataclasses import dataclass, fields, replace
 from typing import Any, Callable, Sequence
 
@@ -160,8 +161,10 @@ class WatchdogConfig:
         Per state, the operating envelope (``(-inf, inf)`` where the plant gives none).
     envelope_margin : float
         The envelope is widened by this fraction of each bounded state's range.
-    envelope_action : {"warn", "safe"}
-        Outside the widened envelope: flag the step, or send the safe command.
+    envelope_action : {"stop", "warn", "safe"}
+        Outside the widened envelope: stop under control (hold the outputs where the envelope
+        was left until the state is back inside the envelope itself), flag the step only, or
+        send the safe command.
     divergence_error : tuple of float
         Per output, the tracking-error bound of the divergence watchdog (``inf``: not watched).
     divergence_time : float
@@ -496,8 +499,10 @@ class ControllerCore:
         self.last_good_t: float | None = None     # stamp of the last nominal or damped command
         self._last_errors: list[float] | None = None
         self._integrate_next = False
-        self._above_since: float | None = None     # when the scaled error last rose above 1
-        self._above_from = 0.0                     # and its value then
+        self._above_since: float | None = None     # start of the episode above the bound
+        self._below_since: float | None = None     # when the error last went back under it, in the episode
+        self._first_peak = 0.0                     # largest scaled error in the episode's first half-window
+        self._recent: deque[tuple[float, float]] = deque()   # (t, scaled), decreasing: the sliding maximum
         self._diverged = False                     # latched by a divergence with action "safe"
         self._stop_reference: list[float] | None = None   # held while a controlled stop lasts
 
@@ -722,16 +727,38 @@ class ControllerCore:
 
     # -- pieces -------------------------------------------------------------------------
     def _diverging(self, errors: list[float], t: float) -> bool:
-        """The divergence watchdog: max |e_i| / bound_i above 1 for ``divergence_time`` and
-        not smaller than when it crossed 1 (a large error that is decaying is a transient)."""
+        """The divergence watchdog on s = max_i |e_i| / bound_i.
+
+        An episode starts when s rises above 1 and ends only after s has stayed at or under 1
+        for ``divergence_time`` (so a swinging error that crosses zero stays one episode). It
+        is divergence once the episode has lasted ``divergence_time`` and the largest s over
+        the last half of that time is at least the largest over the episode's first half:
+        an error that grows, or stays large, rather than one that decays.
+        """
         scaled = self._scaled_error(errors)
-        if not scaled > 1.0:
+        span = self.config.divergence_time
+        if scaled > 1.0:
+            self._below_since = None
+            if self._above_since is None:
+                self._above_since, self._first_peak = t, scaled
+                self._recent.clear()
+        elif self._above_since is None:
+            return False
+        elif self._below_since is None:
+            self._below_since = t
+        elif t - self._below_since >= span:
             self._above_since = None
             return False
-        if self._above_since is None:
-            self._above_since, self._above_from = t, scaled
-            return False
-        return t - self._above_since >= self.config.divergence_time and scaled >= self._above_from
+        elapsed = t - self._above_since
+        if elapsed <= 0.5 * span:
+            self._first_peak = max(self._first_peak, scaled)
+        recent = self._recent                    # the sliding maximum over the last half-window
+        while recent and recent[-1][1] <= scaled:
+            recent.pop()
+        recent.append((t, scaled))
+        while recent[0][0] <= t - 0.5 * span:
+            recent.popleft()
+        return elapsed >= span and recent[0][1] >= self._first_peak
 
     def _hold_reference_of(self, values: Sequence[float]) -> list[float]:
         """Hold each output where it is: ``[y_i, 0, ..., 0]`` per chain, from the law's values."""
