@@ -98,6 +98,16 @@ def _limit_memory() -> None:
     resource.setrlimit(resource.RLIMIT_CPU, (CPU_BUDGET, CPU_BUDGET + 5))
 
 
+def _special_file(path: Path, kind: str) -> Path:
+    """A FIFO at ``path``, a link from ``path`` to /dev/zero, or the device ``kind`` itself."""
+    if kind == "fifo":
+        return _fifo(path)
+    if kind == "symlink to /dev/zero":
+        path.symlink_to("/dev/zero")
+        return path
+    return Path(kind)
+
+
 def _run_process(*argv, cwd: Path | None = None) -> tuple[int, str, str]:
     """``linz ARGV`` in a fresh process, with a timeout and a bound on its memory."""
     try:
@@ -381,13 +391,7 @@ def test_plant_paths_that_are_not_plant_files_are_one_line(capsys, tmp_path, ver
                                                                      "/proc/self/mem", "/dev/stdin")]
                          + [(verb, "fifo") for verb in ("build", "sim", "bench")])
 def test_plant_devices_and_fifos_do_not_block(tmp_path, verb, kind):
-    if kind == "fifo":
-        path = _fifo(tmp_path / "plant.yaml")
-    elif kind == "symlink to /dev/zero":
-        path = tmp_path / "plant.yaml"
-        path.symlink_to("/dev/zero")
-    else:
-        path = Path(kind)
+    path = _special_file(tmp_path / "plant.yaml", kind)
     code, _, err = _run_process(verb, path, *(["-o", tmp_path / "out"] if verb == "build" else []))
     _assert_refused(code, err, str(path))
 
@@ -663,13 +667,7 @@ def test_bad_logs_are_one_line(capsys, tmp_path, case):
 
 @pytest.mark.parametrize("kind", ["fifo", "/dev/zero", "symlink to /dev/zero"])
 def test_log_fifos_and_devices_do_not_block(tmp_path, kind):
-    if kind == "fifo":
-        path = _fifo(tmp_path / "x.mcap")
-    elif kind == "symlink to /dev/zero":
-        path = tmp_path / "x.mcap"
-        path.symlink_to("/dev/zero")
-    else:
-        path = Path(kind)
+    path = _special_file(tmp_path / "x.mcap", kind)
     code, _, err = _run_process("logs", path)
     _assert_refused(code, err, str(path))
 

@@ -234,12 +234,7 @@ def test_a_damaged_chunk_is_skipped_and_named_and_the_rest_reads(tmp_path):
         writer.put(_row(k))
         if k % 100 == 0:
             time.sleep(0.015)
-    path = writer.close().path
-    data = bytearray(path.read_bytes())
-    data[len(data) // 2] ^= 0xFF                     # one flipped byte in the middle of the data
-    damaged = tmp_path / "flipped.mcap"
-    damaged.write_bytes(bytes(data))
-    log = read_logs([damaged])
+    log = read_logs([_flipped_copy(writer.close().path, tmp_path, 0xFF)])    # one byte flipped mid-data
     assert 800 < len(log) < 2000                     # a chunk lost, or the rest after a broken length
     assert any("damaged chunk" in p or "read up to the damage" in p for p in log.problems), log.problems
     assert all("\n" not in p for p in log.problems)
@@ -289,12 +284,7 @@ def test_a_fast_run_is_cut_into_chunks_by_record_count_so_one_flipped_byte_loses
     writer = _writer(tmp_path)                       # the default flush period: 5000 records come far faster
     for k in range(5000):
         assert writer.put(_row(k), log_time_ns=10**18 + k * 2_000_000)
-    path = writer.close().path
-    data = bytearray(path.read_bytes())
-    data[len(data) // 2] ^= 0x10                     # one flipped bit in the middle of the file
-    damaged = tmp_path / "flipped.mcap"
-    damaged.write_bytes(bytes(data))
-    log = read_logs([damaged])
+    log = read_logs([_flipped_copy(writer.close().path, tmp_path, 0x10)])    # one bit flipped mid-file
     assert 5000 - CHUNK_RECORDS <= len(log) < 5000
     assert any("1 damaged chunk(s) skipped" in p for p in log.problems), log.problems
     kept = set(log.sequence.tolist())                # what is lost is one run of consecutive records
@@ -312,3 +302,12 @@ def test_the_watchdog_metadata_holds_every_setting_of_the_table():
     metadata = watchdog_metadata(WatchdogConfig.from_artifact(artifact, integral_limit=2.5))
     assert {row.name for row in WATCHDOG_SETTINGS} <= set(metadata)
     assert metadata["integral_limit"] == "2.5" and metadata["envelope_action"] == "stop"
+
+
+def _flipped_copy(path, folder, mask: int):
+    """A copy of ``path`` in ``folder`` with the byte in the middle XORed with ``mask``."""
+    data = bytearray(path.read_bytes())
+    data[len(data) // 2] ^= mask
+    damaged = folder / "flipped.mcap"
+    damaged.write_bytes(bytes(data))
+    return damaged
