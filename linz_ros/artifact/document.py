@@ -47,7 +47,7 @@ from typing import Any, Iterator, Sequence
 import numpy as np
 
 from linz_ros.artifact.compiler import Program, compile_program
-from linz_ros.artifact.watchdog import MAX_WATCHDOG_SECONDS, PLANT_FILE_SETTINGS, watchdog_problem
+from linz_ros.artifact.watchdog import MAX_WATCHDOG_SECONDS, PLANT_FILE_SETTINGS, setting, watchdog_problem
 from linz_ros.errors import ArtifactError
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "seal", "canonical_text", "signed_body", "content_hash", "read_document",
@@ -670,7 +670,7 @@ def _check_watchdog(watchdog: dict[str, Any], n_inputs: int, n_outputs: int, nee
         need(key in watchdog, f"watchdog.{key}: missing")
     stored = {k: v for k, v in watchdog.items() if k in PLANT_FILE_SETTINGS}
     for key, value in stored.items():
-        if key != "safe_command" and key not in ("envelope_action", "divergence_action"):
+        if setting(key).shape not in ("choice", "safe_command"):
             numbers = value if isinstance(value, list) else [value]
             need(all(v is None or _is_number(v) for v in numbers), f"watchdog.{key}: expected numbers (or null)")
     found = watchdog_problem(stored, n_inputs, n_outputs)

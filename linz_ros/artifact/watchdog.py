@@ -25,7 +25,7 @@ from typing import Any, Iterable, Mapping
 __all__ = ["WatchdogSetting", "WATCHDOG_SETTINGS", "SETTING_NAMES", "PLANT_FILE_SETTINGS", "RUNTIME_SETTINGS",
            "MAX_WATCHDOG_SECONDS", "LEVEL_FRACTIONS", "STALE_PERIODS", "ACTIONS", "SAFE_KINDS",
            "setting", "watchdog_problem", "setting_problem", "default_settings", "defaults_note",
-           "artifact_settings"]
+           "artifact_settings", "is_real_number"]
 
 #: Longest time a watchdog setting in seconds may take: an hour is past any control loop,
 #: and timers of longer periods overflow.
@@ -159,14 +159,24 @@ def setting(name: str) -> WatchdogSetting:
     return _BY_NAME[name]
 
 
-def _is_real(value: Any) -> bool:
+def is_real_number(value: Any) -> bool:
+    """Whether ``value`` is an int or float (not a bool) and not nan; inf counts.
+
+    Parameters
+    ----------
+    value : Any
+
+    Returns
+    -------
+    bool
+    """
     return isinstance(value, (int, float)) and not isinstance(value, bool) and not math.isnan(value)
 
 
 def _number_problem(row: WatchdogSetting, value: Any) -> str | None:
     if value is None or (row.none_means is not None and value == math.inf):
         return None if row.none_means is not None else "expected a number, got none"
-    if not _is_real(value):
+    if not is_real_number(value):
         return f"expected a number, got {value!r}"
     low = f"> {row.lower:g}" if row.lower_open else f">= {row.lower:g}"
     unit = "" if row.unit in ("-", "1", "A", "output") else f" {row.unit}"
@@ -234,7 +244,7 @@ def _safe_command_problem(value: Any, inputs: int | None) -> str | None:
     entries = value.get("value")
     if not isinstance(entries, (list, tuple)) or (inputs is not None and len(entries) != inputs):
         return f"a fixed safe command needs {inputs if inputs is not None else 'one'} value(s), one per input"
-    if not all(_is_real(v) and math.isfinite(v) for v in entries):
+    if not all(is_real_number(v) and math.isfinite(v) for v in entries):
         return "a fixed safe command needs finite numbers"
     return None
 

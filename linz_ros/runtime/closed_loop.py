@@ -245,7 +245,7 @@ def outside_envelope(artifact: Artifact, x: np.ndarray, margin: float = 0.0) -> 
     x = np.asarray(x, dtype=float).reshape(-1, len(artifact.states))
     outside = np.zeros(x.shape[0], dtype=bool)
     # the core's own rule for the widened envelope
-    for i, lo, hi in WatchdogConfig.from_artifact(artifact, envelope_margin=margin).widened_envelope():
+    for i, lo, hi in WatchdogConfig.from_artifact(artifact).widened_envelope(margin):
         with np.errstate(invalid="ignore"):      # nan (a refused state) is not outside
             outside |= (x[:, i] < lo) | (x[:, i] > hi)
     return outside

@@ -35,7 +35,8 @@ from typing import Any, Callable, Sequence
 
 from linz_ros.artifact.document import Artifact
 from linz_ros.artifact.watchdog import setting as watchdog_setting
-from linz_ros.artifact.watchdog import watchdog_problem
+from linz_ros.artifact.watchdog import SAFE_KINDS, watchdog_problem
+from linz_ros.artifact.watchdog import is_real_number as _is_real
 from linz_ros.errors import ConfigError
 from linz_ros.runtime._linalg import (computed_torque, damped_solve, inverse_mass_singular_values, singular_values,
                                       solve, task_space_terms)
@@ -111,10 +112,6 @@ def _straight_line_scaled_error(scale: list[float]) -> Callable[[list[float]], f
     exec(compile(f"def scaled(e):\n    return {body}\n", "<divergence>", "exec"),   # noqa: S102
          {"__builtins__": {"abs": abs, "max": max}}, scope)
     return scope["scaled"]
-
-
-def _is_real(value: Any) -> bool:
-    return isinstance(value, (int, float)) and not isinstance(value, bool) and not math.isnan(value)
 
 
 def _slot_slice(slots: dict, name: str) -> slice:
@@ -243,13 +240,7 @@ class WatchdogConfig:
             divergence_time=float(stored("divergence_time")),
             divergence_action=stored("divergence_action"))
         config = config.with_overrides(**overrides)
-        p = len(artifact.outputs)
-        if len(config.divergence_error) != p:
-            raise ConfigError("divergence_error", f"expected {p} bounds, one per output")
-        if len(config.input_limits) != m or len(config.envelope) != len(artifact.states):
-            raise ConfigError("input_limits" if len(config.input_limits) != m else "envelope",
-                              "expected one (lower, upper) pair per " + ("input" if len(config.input_limits) != m
-                                                                         else "state"))
+        config.check_counts(len(artifact.states), m, len(artifact.outputs), complete=True)
         return config
 
     def with_overrides(self, **overrides: Any) -> "WatchdogConfig":
@@ -303,8 +294,8 @@ class WatchdogConfig:
         for key in ("input_limits", "rate_limits", "safe_value", "envelope", "divergence_error"):
             if not isinstance(getattr(self, key), tuple):
                 raise ConfigError(key, "expected a tuple")
-        if self.safe_kind not in ("zero", "hold", "fixed"):
-            raise ConfigError("safe_kind", f"expected zero, hold or fixed, got {self.safe_kind!r}")
+        if self.safe_kind not in SAFE_KINDS:
+            raise ConfigError("safe_kind", f"expected {', '.join(SAFE_KINDS)}, got {self.safe_kind!r}")
         found = watchdog_problem(self.table_values(), m, len(self.divergence_error) or None)
         if found is not None:
             name, problem = found
@@ -313,30 +304,55 @@ class WatchdogConfig:
             raise ConfigError("max_dt", f"expected a positive number, got {self.max_dt!r}")
         if not isinstance(self.anti_windup, bool):
             raise ConfigError("anti_windup", f"expected true or false, got {self.anti_windup!r}")
-        for i, pair in enumerate(self.input_limits):
-            if not (isinstance(pair, tuple) and len(pair) == 2 and all(_is_real(v) for v in pair)
-                    and pair[0] < pair[1]):
-                raise ConfigError("input_limits", f"input {i}: expected (lower, upper) with lower below upper, "
-                                                  f"got {pair!r}")
-        for i, pair in enumerate(self.envelope):
-            if not (isinstance(pair, tuple) and len(pair) == 2 and all(_is_real(v) for v in pair)
-                    and pair[0] < pair[1]):
-                raise ConfigError("envelope", f"state {i}: expected (lower, upper) with lower below upper, "
-                                              f"got {pair!r}")
+        for key, what in (("input_limits", "input"), ("envelope", "state")):
+            for i, pair in enumerate(getattr(self, key)):
+                if not (isinstance(pair, tuple) and len(pair) == 2 and all(_is_real(v) for v in pair)
+                        and pair[0] < pair[1]):
+                    raise ConfigError(key, f"{what} {i}: expected (lower, upper) with lower below upper, "
+                                           f"got {pair!r}")
         if len(self.safe_value) != m or not all(_is_real(v) and _isfinite(v) for v in self.safe_value):
             raise ConfigError("safe_value", f"expected {m} finite numbers")
 
-    def widened_envelope(self) -> list[tuple[int, float, float]]:
-        """Per bounded state: its index and the envelope widened by ``envelope_margin``.
+    def check_counts(self, states: int, inputs: int, outputs: int, complete: bool = False) -> None:
+        """Check the per-state, per-input and per-output settings against a controller's sizes.
+
+        Parameters
+        ----------
+        states, inputs, outputs : int
+        complete : bool
+            Require every entry (settings read from an artifact); otherwise an empty
+            ``envelope`` or ``divergence_error`` means none.
+
+        Raises
+        ------
+        ConfigError
+        """
+        empty = () if complete else (0,)
+        if len(self.input_limits) != inputs:
+            raise ConfigError("input_limits", f"expected {inputs} (lower, upper) pairs, one per input")
+        if len(self.envelope) not in (states, *empty):
+            raise ConfigError("envelope", f"expected {states} (lower, upper) pairs, one per state")
+        if len(self.divergence_error) not in (outputs, *empty):
+            raise ConfigError("divergence_error", f"expected {outputs} bounds, one per output")
+
+    def widened_envelope(self, margin: float | None = None) -> list[tuple[int, float, float]]:
+        """Per bounded state: its index and the envelope widened by ``margin`` of its range.
+
+        Parameters
+        ----------
+        margin : float, optional
+            Fraction of each state's range added on both sides (``envelope_margin`` by default;
+            0 for the envelope itself).
 
         Returns
         -------
         list of (int, float, float)
         """
+        margin = self.envelope_margin if margin is None else margin
         bounds = []
         for i, (lo, hi) in enumerate(self.envelope):
             if _isfinite(lo) and _isfinite(hi):
-                extra = self.envelope_margin * (hi - lo)
+                extra = margin * (hi - lo)
                 bounds.append((i, lo - extra, hi + extra))
         return bounds
 
@@ -473,17 +489,11 @@ class ControllerCore:
     @config.setter
     def config(self, config: WatchdogConfig) -> None:
         config.validate()
-        if len(config.envelope) not in (0, self.n):
-            raise ConfigError("envelope", f"expected {self.n} (lower, upper) pairs, one per state")
+        config.check_counts(self.n, self.m, len(self.orders))
         bounds = config.divergence_error or (math.inf,) * len(self.orders)
-        if len(bounds) != len(self.orders):
-            raise ConfigError("divergence_error", f"expected {len(self.orders)} bounds, one per output")
-        if len(config.input_limits) != self.m:
-            raise ConfigError("input_limits", f"expected {self.m} (lower, upper) pairs, one per input")
         self._config = config
         self._outside_widened = _straight_line_outside(config.widened_envelope())
-        self._outside_plain = _straight_line_outside([(i, lo, hi) for i, (lo, hi) in enumerate(config.envelope)
-                                                      if _isfinite(lo) and _isfinite(hi)])
+        self._outside_plain = _straight_line_outside(config.widened_envelope(0.0))
         # the divergence watchdog works on |e_i| / bound_i; an infinite bound is not watched
         self._error_scale = [0.0 if not _isfinite(b) else 1.0 / b for b in bounds]
         self._watch_divergence = any(self._error_scale)
@@ -518,10 +528,7 @@ class ControllerCore:
         list of float
             ``[y_i, 0, ..., 0]`` per chain.
         """
-        ref = []
-        for y, r in zip(self.output_values(x), self.orders):
-            ref.extend([y] + [0.0] * r)
-        return ref
+        return self._hold_reference_of(self._law([float(v) for v in x], self.parameters))
 
     def output_values(self, x: Sequence[float]) -> list[float]:
         """The outputs ``y_i`` themselves at ``x`` (the first entry of each chain).
