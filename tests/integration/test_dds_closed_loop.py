@@ -111,10 +111,11 @@ def test_the_simulation_bringup_tracks_its_reference(bringup, built, domain_id, 
     assert_no_alarms(log, f"{plant} ({'simulated' if sim_time else 'wall'} time)", after_refusals=not sim_time)
     # at start-up the controller may still be handed a few states sent before it subscribed: too old,
     # refused as stale; from the first accepted one on, every step must be nominal. In wall time a
-    # state late on the shared cores goes stale too: the safe command (judged with the gaps, below)
+    # state late on the shared cores goes stale too: the safe command (judged with the gaps, below), and
+    # the arm falling meanwhile may be stopped under control at the envelope (bounded by assert_no_alarms)
     reasons = [REASONS[int(code)] for code in log.column("reason")]
     first_ok = reasons.index("ok")
-    allowed = {"ok"} if sim_time else {"ok", "stale"}
+    allowed = {"ok"} if sim_time else {"ok", "stale", "outside_envelope"}
     assert first_ok < 10 and set(reasons[first_ok:]) <= allowed, summary["reasons"]
     stale = np.flatnonzero([r == "stale" for r in reasons[first_ok:]]) + first_ok
     assert set(log.column("mode")[stale].astype(int)) <= {MODES.index("safe"), MODES.index("held")}, stale[:5]
