@@ -294,9 +294,8 @@ def run_bench(artifact: Artifact, design: Design | None, calls: int = 2000, roun
     BenchResult
     """
     rng = np.random.default_rng(seed)
-    operating = artifact.document["plant"]["operating_point"]
-    envelope = artifact.document["plant"]["envelope"]
-    bounds = [envelope.get(s, [operating[s] - 0.5, operating[s] + 0.5]) for s in artifact.states]
+    envelope = artifact.envelope
+    bounds = [envelope.get(s, (x - 0.5, x + 0.5)) for s, x in zip(artifact.states, artifact.operating_point)]
     states = [[float(rng.uniform(lo, hi)) for lo, hi in bounds] for _ in range(64)]
     core = ControllerCore(artifact)
     refs = [core.hold_reference(s) for s in states]

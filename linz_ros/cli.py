@@ -511,21 +511,20 @@ def _reference(artifact, args: argparse.Namespace, x0: list[float]):
     from linz_ros.runtime.closed_loop import initial_outputs
 
     base = initial_outputs(ControllerCore(artifact), x0)
-    text = args.reference or artifact.document["design"].get("reference") or "hold"
+    text = args.reference or artifact.design_reference or "hold"
     try:
         return parse_reference(text, artifact.relative_degree, base, artifact.outputs)
     except ConfigError as err:
         if args.reference:
             raise (err if err.field == "--reference" else ConfigError("--reference", str(err))) from None
-        raise ConfigError(f"{artifact.document['plant']['source']}: design.reference", err.problem) from None
+        raise ConfigError(f"{artifact.plant_source}: design.reference", err.problem) from None
 
 
 def _run_sim(args: argparse.Namespace) -> int:
     from linz_ros.runtime import SimSettings, mismatched_parameters, parse_assignments, simulate
 
     artifact, _, document = _artifact_and_design(args.source, args, need_design=False)
-    operating = artifact.document["plant"]["operating_point"]
-    x0 = _state_vector(artifact, args.initial, "--initial", [float(operating[s]) for s in artifact.states])
+    x0 = _state_vector(artifact, args.initial, "--initial", artifact.operating_point)
     if not args.force_initial:
         _check_initial_inside_envelope(artifact, x0)
     settings = SimSettings(
@@ -563,7 +562,7 @@ def _run_sim(args: argparse.Namespace) -> int:
 
             files.append(write_artifact(document, out / f"{artifact.name}.artifact.json"))
         summary = result.summary()
-        summary["design_warnings"] = list(artifact.document["design"].get("warnings", []))
+        summary["design_warnings"] = artifact.design_warnings
         summary["mismatch_percent"] = parse_assignments(args.mismatch, "--mismatch")
         summary["files"] = [str(f) for f in files] + ([str(f) for f in status.files] if status else [])
         (out / "summary.json").write_text(json.dumps(summary, indent=2) + "\n")
@@ -578,7 +577,7 @@ def _run_sim(args: argparse.Namespace) -> int:
 
 def _check_initial_inside_envelope(artifact, x0: list[float]) -> None:
     """Refuse an initial state outside the envelope (the design was checked only inside it)."""
-    envelope = artifact.document["plant"].get("envelope", {})
+    envelope = artifact.envelope
     for name, value in zip(artifact.states, x0):
         if name in envelope and not envelope[name][0] <= value <= envelope[name][1]:
             lo, hi = envelope[name]

@@ -55,6 +55,18 @@ def test_round_trip_keeps_names_numbers_and_programs(built):
     assert A[0, 0] == pytest.approx(1.5 * np.cos(0.3)) and b[0] == pytest.approx(-1.5 * np.cos(0.3) * 0.04)
 
 
+def test_the_typed_view_reads_what_the_file_stores(built):
+    path, plant_file, document = built
+    artifact = load_artifact(path)
+    assert artifact.operating_point == [0.0, 0.0]          # none given: the origin
+    assert artifact.envelope == {"x1": (-1.0, 1.0), "x2": (-1.2, 1.2)}
+    assert artifact.plant_source == document["plant"]["source"] and artifact.plant_source.endswith(".yaml")
+    assert artifact.design_reference is None and artifact.design_warnings == document["design"]["warnings"]
+    assert artifact.has_program("singular_set") and not artifact.has_program("no_such_program")
+    assert artifact.sha256 == json.loads(path.read_text())["sha256"] and len(artifact.sha256) == 64
+    assert artifact.created == document["created"] and artifact.built_by == document["linz_ros_version"]
+
+
 def test_a_tampered_file_is_refused(built, tmp_path):
     path, _, _ = built
     tampered = tmp_path / "t.artifact.json"

@@ -10,7 +10,8 @@ Layout (format version 1)::
 
     format, format_version, created, linz_ros_version
     plant:    name, description, source, source_sha256, states, inputs, parameters
-              [[name, value], ...], units, input_limits, envelope, operating_point
+              [[name, value], ...], units (of parameters), signal_units (of states, inputs
+              and outputs; optional), input_limits, envelope, operating_point
     design:   kind, outputs, output_expressions, relative_degree, integral, rate, method,
               chains [{name, degree, gains, poles, sampled}], lqr, warnings, notes
     analysis: singular_set, singular_set_note, zero_dynamics_order, zero_dynamics_stability,
@@ -382,6 +383,66 @@ class Artifact:
         """Box limits per input (``(-inf, inf)`` where none)."""
         limits = self.document["plant"].get("input_limits", {})
         return [tuple(limits.get(u, (-math.inf, math.inf))) for u in self.inputs]  # type: ignore[misc]
+
+    @property
+    def sha256(self) -> str:
+        """The content hash the file carries."""
+        return str(self.document.get("sha256", ""))
+
+    @property
+    def created(self) -> str:
+        """When the artifact was built (ISO 8601 text, as stored)."""
+        return str(self.document.get("created", ""))
+
+    @property
+    def built_by(self) -> str:
+        """The linz_ros version that built it."""
+        return str(self.document.get("linz_ros_version", ""))
+
+    @property
+    def plant_source(self) -> str:
+        """The plant file as written when the artifact was built (empty when built from memory)."""
+        return str(self.document["plant"].get("source", ""))
+
+    @property
+    def operating_point(self) -> list[float]:
+        """The plant's operating point, in :attr:`states` order."""
+        point = self.document["plant"]["operating_point"]
+        return [float(point[s]) for s in self.states]
+
+    @property
+    def envelope(self) -> dict[str, tuple[float, float]]:
+        """Bounds of the states the envelope limits (state name -> (low, high))."""
+        bounds = self.document["plant"].get("envelope", {})
+        return {s: (float(bounds[s][0]), float(bounds[s][1])) for s in self.states if s in bounds}
+
+    @property
+    def signal_units(self) -> dict[str, str]:
+        """Units of the states, inputs and outputs the plant file states (signal name -> unit text)."""
+        return dict(self.document["plant"].get("signal_units", {}))
+
+    @property
+    def design_reference(self) -> str | None:
+        """The reference the design names for runs without one of their own."""
+        return self.document["design"].get("reference")
+
+    @property
+    def design_warnings(self) -> list[str]:
+        """What synthesis warned about, as stored."""
+        return list(self.document["design"].get("warnings", []))
+
+    def has_program(self, name: str) -> bool:
+        """Whether the artifact carries the named program.
+
+        Parameters
+        ----------
+        name : str
+
+        Returns
+        -------
+        bool
+        """
+        return name in self.programs
 
     def numpy_program(self, name: str) -> Program:
         """The named program compiled for the numpy backend (vectorised), compiled once.

@@ -239,7 +239,7 @@ def _plot_state_scatter(log: StepLog, artifact: Artifact | None, near: np.ndarra
     x = log.block("x")
     sigma = log.column("sigma_min")
     fig, ax = plt.subplots(figsize=(7, 6))
-    has_set = artifact is not None and "singular_set" in artifact.document.get("programs", {})
+    has_set = artifact is not None and artifact.has_program("singular_set")
     if has_set:
         i, j, base = singular_plane(artifact, x[near])
     else:
@@ -276,7 +276,7 @@ def _plot_state_scatter(log: StepLog, artifact: Artifact | None, near: np.ndarra
 def _span(values: np.ndarray, artifact: Artifact, index: int) -> tuple[float, float]:
     finite = values[np.isfinite(values)]
     lo, hi = (float(finite.min()), float(finite.max())) if len(finite) else (-1.0, 1.0)
-    envelope = artifact.document["plant"].get("envelope", {}).get(artifact.states[index])
+    envelope = artifact.envelope.get(artifact.states[index])
     if envelope:
         lo, hi = min(lo, float(envelope[0])), max(hi, float(envelope[1]))
     pad = 0.05 * (hi - lo) if hi > lo else 1.0

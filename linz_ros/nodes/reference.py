@@ -69,8 +69,7 @@ class ReferenceNode(Node):
         core = ControllerCore(artifact)
         orders = artifact.relative_degree
         if not base:
-            operating = artifact.document["plant"]["operating_point"]
-            base = core.output_values([operating[s] for s in artifact.states])
+            base = core.output_values(artifact.operating_point)
         if len(base) != len(orders):
             raise ConfigError("base", f"expected {len(orders)} values, one per output ({', '.join(artifact.outputs)})")
         self.reference = parse_reference(spec, orders, list(base), artifact.outputs)

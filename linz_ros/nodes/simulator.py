@@ -62,11 +62,10 @@ class PlantSimulatorNode(Node):
         n, m = len(artifact.states), len(artifact.inputs)
         params = mismatched_parameters(artifact, parse_assignments([s for s in p["mismatch"] if s], "mismatch"))
         self.plant = NumericPlant(artifact, params)
-        operating = artifact.document["plant"]["operating_point"]
         initial = [v for v in p["initial_state"]]
         if initial and len(initial) != n:
             raise ConfigError("initial_state", f"expected {n} values ({', '.join(artifact.states)}) or none")
-        self.x = [float(v) for v in initial] if initial else [float(operating[s]) for s in artifact.states]
+        self.x = [float(v) for v in initial] if initial else artifact.operating_point
         noise = list(p["noise"])
         if len(noise) not in (0, 1, n) or any(not (v >= 0) for v in noise):
             raise ConfigError("noise", f"expected no value, one, or {n} standard deviations >= 0")

@@ -310,7 +310,7 @@ def run_verdict(result: "SimResult") -> Verdict:
 
 
 def _envelope_detail(result: "SimResult", k: int, margin: float) -> str:
-    envelope = result.artifact.document["plant"].get("envelope", {})
+    envelope = result.artifact.envelope
     for i, name in enumerate(result.artifact.states):
         if name in envelope:
             lo, hi = envelope[name]
@@ -446,9 +446,7 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     _check_settings(artifact, settings)
     core = ControllerCore(artifact, settings.config)
     plant = NumericPlant(artifact, settings.plant_parameters)
-    operating = artifact.document["plant"]["operating_point"]
-    x = [float(v) for v in (settings.initial if settings.initial is not None
-                            else [operating[s] for s in artifact.states])]
+    x = [float(v) for v in (settings.initial if settings.initial is not None else artifact.operating_point)]
     reference = settings.reference
     if reference is None:
         reference = make_reference("hold", artifact.relative_degree, initial_outputs(core, x))

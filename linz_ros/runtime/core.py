@@ -215,7 +215,7 @@ class WatchdogConfig:
         w = artifact.watchdog
         m = len(artifact.inputs)
         safe = w["safe_command"]
-        envelope = artifact.document["plant"].get("envelope", {})
+        envelope = artifact.envelope
         divergence = w.get("divergence_error") or [None] * len(artifact.outputs)
 
         def stored(name: str) -> Any:

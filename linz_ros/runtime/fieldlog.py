@@ -469,10 +469,9 @@ def artifact_metadata(artifact: Artifact) -> dict[str, str]:
     -------
     dict of str to str
     """
-    d = artifact.document
     return metadata_strings({
-        "plant": artifact.name, "artifact_file": artifact.source, "sha256": d.get("sha256", ""),
-        "created": d.get("created", ""), "linz_ros_version": d.get("linz_ros_version", ""),
+        "plant": artifact.name, "artifact_file": artifact.source, "sha256": artifact.sha256,
+        "created": artifact.created, "linz_ros_version": artifact.built_by,
         "kind": artifact.kind, "relative_degree": artifact.relative_degree, "rate_hz": artifact.rate,
         "states": artifact.states, "inputs": artifact.inputs, "outputs": artifact.outputs,
         "plant_check": artifact.plant_check,

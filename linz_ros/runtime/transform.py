@@ -55,8 +55,7 @@ class Transform:
         self._inverse = artifact.programs.get("inverse")
         self.tolerance = tolerance
         self.max_iterations = max_iterations
-        operating = artifact.document["plant"]["operating_point"]
-        self._guess = [float(operating[s]) for s in artifact.states]
+        self._guess = artifact.operating_point
 
     @property
     def closed_form(self) -> bool:
