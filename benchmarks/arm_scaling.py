@@ -88,7 +88,7 @@ def main() -> None:
         core = ControllerCore(artifact)
         refs = [core.hold_reference(s) for s in states]
         law, params = artifact.programs["law"], artifact.nominal_parameters.tolist()
-        pin_step = _pinocchio_step(design, artifact)
+        pin_step = _pinocchio_step(design.plant, artifact)
         np_states, np_refs = [np.asarray(s) for s in states], [np.asarray(r) for r in refs]
         clock = [0.0]
 

@@ -23,8 +23,9 @@ sys.path.insert(0, str(ROOT / "tests"))
 
 from support import BUNDLED, built_artifact  # noqa: E402
 from linz_ros.runtime import ControllerCore, WatchdogConfig  # noqa: E402
-from linz_ros.runtime.fieldlog import (FLOAT64_MULTIARRAY_DEFINITION, FieldLogSettings, conditioning_labels,  # noqa: E402
-                                       encode_labelled_array, field_log_labels, open_field_log)
+from linz_ros.runtime.fieldlog import (FLOAT64_MULTIARRAY_DEFINITION, FieldLogSettings,  # noqa: E402
+                                       encode_labelled_array, open_field_log)
+from linz_ros.runtime.steprecord import record_labels  # noqa: E402
 
 
 def per_call(function, n: int) -> float:
@@ -45,7 +46,7 @@ def main() -> None:
     from mcap_ros2._dynamic import serialize_dynamic      # the generic encoder behind mcap_ros2's Writer
 
     artifact = built_artifact(BUNDLED / "pick_arm.yaml")
-    labels = field_log_labels(conditioning_labels(artifact), artifact.states)
+    labels = record_labels(artifact, states=True)
     label, row = ",".join(labels), [0.125] * len(labels)
     generic = serialize_dynamic("std_msgs/msg/Float64MultiArray", FLOAT64_MULTIARRAY_DEFINITION)[
         "std_msgs/msg/Float64MultiArray"]

@@ -34,7 +34,7 @@ def main() -> None:
     for path in sorted((ROOT / "config" / "plants").glob("*.yaml")):
         design = synthesise(load_plant(path))
         artifact = artifact_from_text(seal(build_document(design, points=16)[0]))
-        result = run_bench(artifact, design, calls=args.calls, rounds=args.rounds)
+        result = run_bench(artifact, design.plant, calls=args.calls, rounds=args.rounds)
         us, ratios = result.microseconds, result.ratios()
         cells = "".join(f"{us[n]:>16.2f} us" if n in us else f"{'-':>19}" for n in names)
         print(f"{artifact.name:<14}{cells}{ratios.get('core_over_compiled_c', float('nan')):>9.2f}"

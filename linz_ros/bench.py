@@ -1,21 +1,27 @@
 """``linz bench``: the cost of one control step, against references measured in the same run.
 
-Candidates, all evaluating the same law (A(x), b(x) and the output chains) at the same
-states:
+Everything timed is the artifact's own law: each reference that evaluates A(x), b(x) and
+the output chains is made from the artifact's ``law`` program, read through the grammar
+into sympy (never ``eval``, never a new synthesis), so a bench can never time a law other
+than the one the controller runs. Candidates, all at the same states:
 
 - ``core``: :meth:`ControllerCore.step`, watchdogs and conditioning included;
-- ``naive``: what one would write by hand: ``sympy.lambdify`` to numpy without common
-  subexpression elimination, then the outer loop in numpy, ``numpy.linalg.solve`` for
-  the law and ``numpy.linalg.svd`` for the conditioning;
+- ``naive``: what one would write by hand: ``sympy.lambdify`` to numpy of the law's
+  expressions without common subexpression elimination (the program's temporaries
+  substituted back), then the outer loop in numpy, ``numpy.linalg.solve`` for the law
+  and ``numpy.linalg.svd`` for the conditioning;
 - ``lambdify_numpy``: plain ``sympy.lambdify`` to numpy, no CSE (expressions only);
 - ``lambdify_cse_math``: ``sympy.lambdify`` with CSE to the ``math`` module (expressions only);
-- ``compiled_c``: the expressions alone, printed by sympy's C code printer with CSE,
-  built with the system's C compiler and called through ctypes (the near-limit reference);
+- ``compiled_c``: the program with its own temporaries, printed by sympy's C code
+  printer, built with the system's C compiler and called through ctypes (the near-limit
+  reference);
 - ``law_only``: the artifact's compiled law program alone (expressions only);
-- ``pinocchio_computed_torque``: for a serial arm with the ``pin`` package installed,
-  the computed-torque step done with an independent rigid-body library: the outer loop
-  in numpy, then ``tau = rnea(q, q', v)`` (Pinocchio's recursive Newton-Euler, in C++)
-  plus the joint friction.
+- ``pinocchio_computed_torque``: for a serial arm with the ``pin`` package installed and
+  the plant at hand (the plant file just built from, or the recorded plant file when its
+  hash matches the artifact's; the notes say which), the computed-torque step done with
+  an independent rigid-body library: the outer loop in numpy, then
+  ``tau = rnea(q, q', v)`` (Pinocchio's recursive Newton-Euler, in C++) plus the joint
+  friction.
 
 The machine is noisy, so rounds of the candidates are interleaved and each candidate's
 median over rounds is reported; only the ratios mean anything.
@@ -37,11 +43,13 @@ import numpy as np
 import sympy as sp
 
 from linz_ros.artifact import Artifact
+from linz_ros.artifact.grammar import parse_expression
 from linz_ros.crosscheck import pinocchio_available, pinocchio_reference
+from linz_ros.model import Plant
+from linz_ros.model._symbolic import tree_to_sympy
 from linz_ros.runtime import ControllerCore
-from linz_ros.synthesis import Design
 
-__all__ = ["BenchResult", "run_bench", "GOALS"]
+__all__ = ["BenchResult", "run_bench", "GOALS", "LawExpressions", "law_expressions", "plant_behind"]
 
 #: The goals the ratios are judged against: ratio -> (comparison, bound, label).
 GOALS = {"core_over_compiled_c": ("<=", 10.0, "goal <= 10"),
@@ -120,54 +128,86 @@ class BenchResult:
         return "\n".join(lines)
 
 
-def _structure_terms(design: Design) -> list[sp.Matrix]:
-    """The terms the law is made of: A and b, or for a mechanical plant M, F, B, J and J' q'."""
-    if not design.mechanical:
-        return [design.A, design.b]
-    mech = design.plant.mechanics
-    h = sp.Matrix([c.expression for c in design.chains])
-    return [mech.M, mech.F, mech.B, mech.decoupling_jacobian(h), mech.output_bias(h)]
+#: The law program's outputs that make up A(x) and b(x): explicit, or mechanical (J M^-1 [B F] + [0 c]).
+_EXPLICIT_TERMS = ("A", "b")
+_MECHANICAL_TERMS = ("M", "F", "B", "J", "c")
 
 
-def _law_expressions(design: Design) -> tuple[list[sp.Symbol], list[sp.Symbol], list[sp.Expr]]:
-    plant = design.plant
-    chain = [e for c in design.chains for e in c.derivatives]
-    terms = [e for matrix in _structure_terms(design) for e in matrix]
-    return list(plant.states), list(plant.parameters), terms + chain
+@dataclass
+class LawExpressions:
+    """The artifact's ``law`` program rebuilt as sympy expressions through the grammar (never eval).
+
+    ``states`` and ``parameters`` are the argument symbols; ``outputs`` maps each output
+    of the program to its shape and entries with every temporary substituted (what a
+    hand-written, CSE-free version computes); ``temporaries`` and ``entries`` keep the
+    program's own common subexpressions (for the C reference).
+    """
+
+    states: list[sp.Symbol]
+    parameters: list[sp.Symbol]
+    outputs: dict[str, tuple[tuple[int, ...], list[sp.Expr]]]
+    temporaries: list[tuple[sp.Symbol, sp.Expr]]
+    entries: list[sp.Expr]
+
+    def flat(self) -> list[sp.Expr]:
+        """Every output entry in the program's order, temporaries substituted."""
+        return [e for _, exprs in self.outputs.values() for e in exprs]
 
 
-def _naive_decoupling(design: Design) -> Callable:
+def law_expressions(artifact: Artifact) -> LawExpressions:
+    """The artifact's law program as sympy expressions, for the references that need them.
+
+    Parameters
+    ----------
+    artifact : Artifact
+
+    Returns
+    -------
+    LawExpressions
+    """
+    arguments, temporaries, outputs = artifact.program_text("law")
+    (_, state_names), (_, parameter_names) = arguments
+    states = [sp.Symbol(f"x{i}", real=True) for i in range(len(state_names))]
+    parameters = [sp.Symbol(f"p{i}", real=True) for i in range(len(parameter_names))]
+    full: dict[str, sp.Expr] = {**dict(zip(state_names, states)), **dict(zip(parameter_names, parameters))}
+    kept = dict(full)
+    kept_temporaries = []
+    for i, (name, text) in enumerate(temporaries):
+        tree = parse_expression(text)
+        full[name] = tree_to_sympy(tree, full)
+        symbol = sp.Symbol(f"t_{i}", real=True)
+        kept_temporaries.append((symbol, tree_to_sympy(tree, kept)))
+        kept[name] = symbol
+    rebuilt = {name: (tuple(shape), [tree_to_sympy(parse_expression(e), full) for e in entries])
+               for name, shape, entries in outputs}
+    kept_entries = [tree_to_sympy(parse_expression(e), kept) for _, _, entries in outputs for e in entries]
+    return LawExpressions(states, parameters, rebuilt, kept_temporaries, kept_entries)
+
+
+def _naive_decoupling(law: LawExpressions, artifact: Artifact) -> Callable:
     """A(x), b(x) by plain lambdify to numpy (and numpy.linalg.solve with M for a mechanical plant)."""
-    x, p = list(design.plant.states), list(design.plant.parameters)
-    m = design.plant.m
-    functions = [sp.lambdify([x, p], matrix, modules="numpy") for matrix in _structure_terms(design)]
-    if not design.mechanical:
+    terms = _MECHANICAL_TERMS if artifact.mechanical_coordinates is not None else _EXPLICIT_TERMS
+    functions = []
+    for name in terms:
+        shape, exprs = law.outputs[name]
+        fn = sp.lambdify([law.states, law.parameters], exprs, modules="numpy")
+        functions.append(lambda s, p, fn=fn, shape=shape: np.asarray(fn(s, p), dtype=float).reshape(shape))
+    if artifact.mechanical_coordinates is None:
         fA, fb = functions
-
-        def explicit(state: np.ndarray, params: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-            return (np.asarray(fA(state, params), dtype=float).reshape(m, m),
-                    np.asarray(fb(state, params), dtype=float).ravel())
-
-        return explicit
-    nq = design.plant.mechanics.nq
+        return lambda state, params: (fA(state, params), fb(state, params))
     fM, fF, fB, fJ, fc = functions
 
     def mechanical(state: np.ndarray, params: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        M = np.asarray(fM(state, params), dtype=float).reshape(nq, nq)
-        J = np.asarray(fJ(state, params), dtype=float).reshape(m, nq)
-        F = np.asarray(fF(state, params), dtype=float).ravel()
-        B = np.asarray(fB(state, params), dtype=float).reshape(nq, m)
-        c = np.asarray(fc(state, params), dtype=float).ravel()
-        return J @ np.linalg.solve(M, B), J @ np.linalg.solve(M, F) + c
+        M, J = fM(state, params), fJ(state, params)
+        return J @ np.linalg.solve(M, fB(state, params)), J @ np.linalg.solve(M, fF(state, params)) + fc(state, params)
 
     return mechanical
 
 
-def _naive_step(design: Design, artifact: Artifact) -> Callable:
-    """The hand-written pipeline: plain lambdify to numpy, numpy solve and svd."""
-    decoupling = _naive_decoupling(design)
-    x, p = list(design.plant.states), list(design.plant.parameters)
-    fchain = sp.lambdify([x, p], sp.Matrix([e for c in design.chains for e in c.derivatives]), modules="numpy")
+def _naive_step(law: LawExpressions, artifact: Artifact) -> Callable:
+    """The hand-written pipeline on the artifact's law: plain lambdify to numpy, numpy solve and svd."""
+    decoupling = _naive_decoupling(law, artifact)
+    fchain = sp.lambdify([law.states, law.parameters], law.outputs["chain"][1], modules="numpy")
     K = [np.asarray(g) for g in artifact.gains]
     orders = artifact.relative_degree
 
@@ -192,21 +232,18 @@ class _NoCompiledReference(Exception):
     """The compiled-C reference could not be made (the message says why)."""
 
 
-def _c_library(design: Design, workdir: Path) -> Callable:
-    """The law's expressions as one C function, compiled and loaded with ctypes.
+def _c_library(law: LawExpressions, artifact: Artifact, workdir: Path) -> Callable:
+    """The artifact's law program (its own temporaries) as one C function, compiled and loaded with ctypes.
 
     Raises ``_NoCompiledReference`` with the reason when there is no compiler or it fails.
     """
     compiler = shutil.which("cc") or shutil.which("gcc")
     if compiler is None:
         raise _NoCompiledReference("no C compiler found (cc or gcc)")
-    x, p, exprs = _law_expressions(design)
-    slots = {s: sp.Symbol(f"x[{i}]") for i, s in enumerate(x)}
-    slots.update({s: sp.Symbol(f"p[{i}]") for i, s in enumerate(p)})
-    exprs = [e.xreplace(slots) for e in exprs]
-    temporaries, reduced = sp.cse(exprs, symbols=sp.numbered_symbols("t_"), order="none")
-    body = [f"    const double {t} = {sp.ccode(e)};" for t, e in temporaries]
-    body += [f"    out[{i}] = {sp.ccode(e)};" for i, e in enumerate(reduced)]
+    slots = {s: sp.Symbol(f"x[{i}]") for i, s in enumerate(law.states)}
+    slots.update({s: sp.Symbol(f"p[{i}]") for i, s in enumerate(law.parameters)})
+    body = [f"    const double {t} = {sp.ccode(e.xreplace(slots))};" for t, e in law.temporaries]
+    body += [f"    out[{i}] = {sp.ccode(e.xreplace(slots))};" for i, e in enumerate(law.entries)]
     source = ("#include <math.h>\nvoid law(const double *x, const double *p, double *out) {\n"
               + "\n".join(body) + "\n}\n")
     c_file, library = workdir / "law.c", workdir / "law.so"
@@ -222,27 +259,27 @@ def _c_library(design: Design, workdir: Path) -> Callable:
     handle = ctypes.CDLL(str(library))
     handle.law.restype = None
     handle.law.argtypes = [ctypes.POINTER(ctypes.c_double)] * 3
-    x_buffer = (ctypes.c_double * len(x))()
-    p_buffer = (ctypes.c_double * len(p))(*[float(v) for v in design.plant.parameters.values()])
-    out_buffer = (ctypes.c_double * len(exprs))()
-    law = handle.law
+    x_buffer = (ctypes.c_double * len(law.states))()
+    p_buffer = (ctypes.c_double * len(law.parameters))(*artifact.nominal_parameters.tolist())
+    out_buffer = (ctypes.c_double * len(law.entries))()
+    function = handle.law
 
     def call(state: list[float]) -> None:
         x_buffer[:] = state
-        law(x_buffer, p_buffer, out_buffer)
+        function(x_buffer, p_buffer, out_buffer)
 
     call._keep = (handle, x_buffer, p_buffer, out_buffer)  # type: ignore[attr-defined]
     return call
 
 
-def _pinocchio_step(design: Design, artifact: Artifact) -> Callable[[list[float], list[float]], np.ndarray] | None:
+def _pinocchio_step(plant: Plant | None, artifact: Artifact) -> Callable[[np.ndarray, np.ndarray], np.ndarray] | None:
     """Computed torque with Pinocchio for joint-space outputs of a serial arm (None otherwise)."""
-    mech = design.plant.mechanics
+    mech = plant.mechanics if plant is not None else None
     if mech is None or not mech.links or not artifact.computed_torque or not pinocchio_available():
         return None
     import pinocchio as pin
 
-    reference = pinocchio_reference(design.plant)
+    reference = pinocchio_reference(plant)
     model, data, damping = reference.model, reference.data, reference.damping
     nq = mech.nq
     k0 = np.array([float(g[-2]) for g in artifact.gains])
@@ -255,6 +292,29 @@ def _pinocchio_step(design: Design, artifact: Artifact) -> Callable[[list[float]
         return pin.rnea(model, data, q, qd, v) + damping * qd
 
     return step
+
+
+def plant_behind(artifact: Artifact) -> tuple[Plant | None, str]:
+    """The plant file an artifact was built from, when its hash still matches the artifact's.
+
+    Parameters
+    ----------
+    artifact : Artifact
+
+    Returns
+    -------
+    tuple
+        The loaded plant (None when there is none to trust) and a note on where it came
+        from, or why there is none.
+    """
+    from linz_ros.model import load_plant
+
+    if artifact.plant_check != "matches":      # a changed plant file is another machine
+        return None, f"pinocchio_computed_torque not measured: {artifact.plant_check}"
+    path = next((p for p in artifact.recorded_plant_files() if p.is_file()), None)
+    if path is None:
+        return None, "pinocchio_computed_torque not measured: the plant file was not found"
+    return load_plant(path), f"pinocchio_computed_torque: the robot of {path}, whose hash matches the artifact's"
 
 
 def _calls_for(function: Callable[[int], object], calls: int, budget: float = 0.25) -> int:
@@ -272,22 +332,26 @@ def _time_per_call(function: Callable[[int], object], calls: int) -> float:
     return (time.perf_counter_ns() - start) / calls / 1000.0
 
 
-def run_bench(artifact: Artifact, design: Design | None, calls: int = 2000, rounds: int = 7,
-              seed: int = 3) -> BenchResult:
-    """Time the core step and the references on the same states.
+def run_bench(artifact: Artifact, plant: Plant | None = None, calls: int = 2000, rounds: int = 7,
+              seed: int = 3, notes: list[str] | None = None) -> BenchResult:
+    """Time the core step and the references on the same states, all on the artifact's own law.
 
     Parameters
     ----------
     artifact : Artifact
-    design : Design, optional
-        The symbolic design behind the artifact; without it only the artifact's own
-        candidates (``core``, ``law_only``) run.
+        What is timed; every reference that evaluates the law is made from its ``law``
+        program (never from a new synthesis).
+    plant : Plant, optional
+        The plant the artifact was built from (the one just built, or a plant file whose
+        hash matches the artifact's), for the Pinocchio reference of a serial arm only.
     calls : int
         Calls per candidate per round.
     rounds : int
     seed : int
         Of the states (uniform in the envelope; +-0.5 around the operating point where
         the envelope is silent).
+    notes : list of str, optional
+        Notes to start the result's notes with (where the plant came from).
 
     Returns
     -------
@@ -300,52 +364,54 @@ def run_bench(artifact: Artifact, design: Design | None, calls: int = 2000, roun
     core = ControllerCore(artifact)
     refs = [core.hold_reference(s) for s in states]
     params = artifact.nominal_parameters.tolist()
-    law = artifact.programs["law"]
-    notes = []
+    law_program = artifact.programs["law"]
+    notes = list(notes or [])
     clock = [0.0]
 
     def core_call(k: int) -> None:
         clock[0] += 0.001
         core.step(states[k & 63], refs[k & 63], clock[0])
 
+    law = law_expressions(artifact)
+    naive = _naive_step(law, artifact)
+    np_states = [np.asarray(s) for s in states]
+    np_refs = [np.asarray(r) for r in refs]
+    np_params = np.asarray(params)
+    plain_numpy = sp.lambdify([law.states, law.parameters], law.flat(), modules="numpy")
+    cse_math = sp.lambdify([law.states, law.parameters], law.flat(), modules="math", cse=True)
     candidates: dict[str, Callable[[int], object]] = {
         "core": core_call,
-        "law_only": lambda k: law(states[k & 63], params),
+        "law_only": lambda k: law_program(states[k & 63], params),
+        "naive": lambda k: naive(np_states[k & 63], np_params, np_refs[k & 63]),
+        "lambdify_numpy": lambda k: plain_numpy(np_states[k & 63], np_params),
+        "lambdify_cse_math": lambda k: cse_math(states[k & 63], params),
     }
+    computed_torque = _pinocchio_step(plant, artifact)
+    if computed_torque is not None:
+        candidates["pinocchio_computed_torque"] = lambda k: computed_torque(np_states[k & 63], np_refs[k & 63])
     with tempfile.TemporaryDirectory() as folder:
-        if design is not None:
-            naive = _naive_step(design, artifact)
-            np_states = [np.asarray(s) for s in states]
-            np_refs = [np.asarray(r) for r in refs]
-            np_params = np.asarray(params)
-            candidates["naive"] = lambda k: naive(np_states[k & 63], np_params, np_refs[k & 63])
-            computed_torque = _pinocchio_step(design, artifact)
-            if computed_torque is not None:
-                candidates["pinocchio_computed_torque"] = lambda k: computed_torque(np_states[k & 63],
-                                                                                     np_refs[k & 63])
-            x, p, exprs = _law_expressions(design)
-            plain_numpy = sp.lambdify([x, p], exprs, modules="numpy")
-            candidates["lambdify_numpy"] = lambda k: plain_numpy(np_states[k & 63], np_params)
-            cse_math = sp.lambdify([x, p], exprs, modules="math", cse=True)
-            candidates["lambdify_cse_math"] = lambda k: cse_math(states[k & 63], params)
-            try:
-                c_law = _c_library(design, Path(folder))
-                candidates["compiled_c"] = lambda k: c_law(states[k & 63])
-            except _NoCompiledReference as why:
-                notes.append(f"{why}: compiled_c not measured")
-        else:
-            notes.append("plant file not available, or changed since the build: only the artifact's own "
-                         "candidates were timed")
-        for function in candidates.values():       # warm up
-            _time_per_call(function, min(calls, 200, _calls_for(function, calls, 0.5)))
-        per_round = {name: _calls_for(function, calls) for name, function in candidates.items()}
-        notes.extend(f"{name}: {count} calls per round (slow candidate)" for name, count in per_round.items()
-                     if count < calls)
-        samples: dict[str, list[float]] = {name: [] for name in candidates}
-        for _ in range(rounds):
-            for name, function in candidates.items():
-                core.reset()
-                clock[0] = 0.0
-                samples[name].append(_time_per_call(function, per_round[name]))
+        try:
+            c_law = _c_library(law, artifact, Path(folder))
+            candidates["compiled_c"] = lambda k: c_law(states[k & 63])
+        except _NoCompiledReference as why:
+            notes.append(f"{why}: compiled_c not measured")
+        samples = _interleaved_rounds(candidates, calls, rounds, core, clock, notes)
     microseconds = {name: statistics.median(values) for name, values in samples.items()}
     return BenchResult(artifact.name, calls, rounds, microseconds, notes)
+
+
+def _interleaved_rounds(candidates: dict[str, Callable[[int], object]], calls: int, rounds: int,
+                        core: ControllerCore, clock: list[float], notes: list[str]) -> dict[str, list[float]]:
+    """Microseconds per call of every candidate, one sample per round, rounds interleaved."""
+    for function in candidates.values():       # warm up
+        _time_per_call(function, min(calls, 200, _calls_for(function, calls, 0.5)))
+    per_round = {name: _calls_for(function, calls) for name, function in candidates.items()}
+    notes.extend(f"{name}: {count} calls per round (slow candidate)" for name, count in per_round.items()
+                 if count < calls)
+    samples: dict[str, list[float]] = {name: [] for name in candidates}
+    for _ in range(rounds):
+        for name, function in candidates.items():
+            core.reset()
+            clock[0] = 0.0
+            samples[name].append(_time_per_call(function, per_round[name]))
+    return samples

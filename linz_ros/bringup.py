@@ -158,9 +158,6 @@ class Bringup:
         -------
         NodeProcess
         """
-        label = node_name or name
-        if label in self.nodes and self.nodes[label].alive():
-            raise ConfigError("bringup", f"{label} is already running")
         argv = executable(name) + ["--ros-args"]
         if params_file is not None:
             argv += ["--params-file", str(params_file)]
@@ -171,6 +168,30 @@ class Bringup:
         if node_name:
             argv += ["-r", f"__node:={node_name}"]
         argv += list(extra)
+        return self._spawn(node_name or name, argv)
+
+    def start_module(self, label: str, module: str, arguments: Sequence[str] = ()) -> NodeProcess:
+        """Start ``python -m MODULE ARGUMENTS`` with this bringup's environment, log and cleanup.
+
+        For helpers that join the bringup's DDS domain (the demo's listener): they get the
+        environment given here, never the starting process's own.
+
+        Parameters
+        ----------
+        label : str
+            The process's name here and of its log file.
+        module : str
+        arguments : sequence of str
+
+        Returns
+        -------
+        NodeProcess
+        """
+        return self._spawn(label, [sys.executable, "-m", module, *arguments])
+
+    def _spawn(self, label: str, argv: list[str]) -> NodeProcess:
+        if label in self.nodes and self.nodes[label].alive():
+            raise ConfigError("bringup", f"{label} is already running")
         log = self.log_dir / f"{label}.log"
         handle = log.open("ab")
         start = handle.tell()

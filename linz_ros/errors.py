@@ -111,7 +111,22 @@ class DesignError(LocatedError):
     names the plant file or ``<command line>``, the field and the problem."""
 
 
-class ArtifactError(LinzError):
+class _NamedError(LinzError):
+    """A mistake in one named input as a whole: ``name: problem``.
+
+    Subclasses say in ``_NAME`` which attribute keeps the name (``source`` for a file,
+    ``field`` for a setting); ``problem`` keeps what is wrong.
+    """
+
+    _NAME = "name"
+
+    def __init__(self, name: str, problem: str) -> None:
+        setattr(self, self._NAME, name)
+        self.problem = problem
+        super().__init__(f"{quoted(name)}: {problem}")
+
+
+class ArtifactError(_NamedError):
     """A controller artifact that cannot be loaded or written; names the file and the problem.
 
     Parameters
@@ -122,13 +137,11 @@ class ArtifactError(LinzError):
         What is wrong, in one line.
     """
 
-    def __init__(self, source: str, problem: str) -> None:
-        self.source = source
-        self.problem = problem
-        super().__init__(f"{quoted(source)}: {problem}")
+    _NAME = "source"
+    source: str
 
 
-class ConfigError(LinzError):
+class ConfigError(_NamedError):
     """A runtime or simulation setting that is out of range or inconsistent.
 
     Parameters
@@ -139,7 +152,5 @@ class ConfigError(LinzError):
         What is wrong, in one line.
     """
 
-    def __init__(self, field: str, problem: str) -> None:
-        self.field = field
-        self.problem = problem
-        super().__init__(f"{quoted(field)}: {problem}")
+    _NAME = "field"
+    field: str

@@ -80,6 +80,9 @@ def test_ball_and_beam_has_no_well_defined_relative_degree_at_the_origin():
     # L_g L_f^2 r = 2 B r omega, which vanishes at the origin (Hauser et al. 1992, sec. II)
     assert _same(io.decoupling_matrix[0, 0], 2 * s["B"] * s["r"] * s["omega"])
     assert _zero_set_factors(io.singular_set) == {s["r"], s["omega"]}
+    assert io.reason == ("relative degree not defined at the operating point: L_g L_f^(r-1) h vanishes there "
+                         "(it lies on the singular set); generic relative degree [3]")
+    assert io.summary == "relative degree not defined at the operating point (on the singular set)"
     # not full-state linearizable: span{g, ad_f g} is not involutive (same paper)
     assert report.input_state.linearizable is False
     assert report.input_state.distributions[1].involutive is False
@@ -289,7 +292,8 @@ outputs: {y1: x1, y2: x2}
 def test_a_parameter_factor_zero_at_the_nominal_values_makes_the_singular_set_everywhere():
     report = analyse(plant_from_text(DECOUPLING_RANK_ONE))           # det A = 1 - a b = 0
     io = report.to_json()["input_output"]
-    assert "rank 1 < 2 everywhere" in io["reason"]
+    assert io["reason"] == ("the decoupling matrix has rank 1 < 2 everywhere: the outputs cannot be decoupled "
+                            "by static feedback (dynamic extension may help)")
     assert io["singular_set"] == "0" and io["singular_set_everywhere"] is True
     assert io["singular_set_empty"] is False and io["linearizable"] is False
     text = render_text(report)

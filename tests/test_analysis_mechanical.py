@@ -27,6 +27,8 @@ def test_each_form_of_the_pick_arm_is_analysed_like_the_explicit_file(name, expl
     assert report.envelope.min_sigma == pytest.approx(explicit_pick_arm.envelope.min_sigma, rel=1e-9)
     assert report.envelope.max_condition == pytest.approx(explicit_pick_arm.envelope.max_condition, rel=1e-9)
     assert io.decoupling_matrix is None and io.decoupling_structure["form"] == "J(q) M(q)^-1 B(q)"
+    assert io.reason == ("relative degree [2, 2] at the operating point (mechanical structure, A = J M^-1 B); "
+                         "zero dynamics of order 0")
 
 
 def test_decoupling_matrix_numbers_equal_the_symbolic_one_of_the_explicit_file():

@@ -67,6 +67,22 @@ def test_the_typed_view_reads_what_the_file_stores(built):
     assert artifact.created == document["created"] and artifact.built_by == document["linz_ros_version"]
 
 
+def test_signal_units_are_read_and_older_artifacts_without_them_read_as_none(built, tmp_path):
+    path, _, _ = built
+    units = {"x1": "rad", "u": "N m", "T1": "rad"}           # a state, an input and the design's output
+    stated = _rewrite(path, tmp_path / "units.artifact.json", lambda d: d["plant"].__setitem__("signal_units", units))
+    assert load_artifact(stated, check_plant=False).signal_units == units
+    older = _rewrite(path, tmp_path / "old.artifact.json", lambda d: d["plant"].pop("signal_units", None))
+    assert load_artifact(older, check_plant=False).signal_units == {}
+
+
+def test_the_writer_keeps_the_plant_files_signal_units(tmp_path):
+    plant = load_plant(REFERENCE / "cart_pole.yaml")
+    document, _ = build_document(synthesise(plant))
+    artifact = artifact_from_text(seal(document))
+    assert artifact.signal_units == {"x": "m", "theta": "rad", "v": "m/s", "omega": "rad/s", "F": "N", "y": "rad"}
+
+
 def test_a_tampered_file_is_refused(built, tmp_path):
     path, _, _ = built
     tampered = tmp_path / "t.artifact.json"
@@ -131,6 +147,11 @@ def test_an_artifact_deployed_without_its_plant_file_loads_and_says_so(tmp_path)
     (lambda d: d["plant"].__setitem__("name", "/tmp/escape"), "plant.name: expected an identifier"),
     (lambda d: d["plant"].__setitem__("states", ["x1", "1234"]), "plant.states"),
     (lambda d: d["design"].__setitem__("outputs", ["../T1"]), "design.outputs"),
+    (lambda d: d["plant"].__setitem__("signal_units", ["rad"]), "plant.signal_units: expected a mapping"),
+    (lambda d: d["plant"].__setitem__("signal_units", {"x3": "rad"}), "plant.signal_units: 'x3' is not a state"),
+    (lambda d: d["plant"].__setitem__("signal_units", {"x1": 3}), "plant.signal_units.x1: expected unit text"),
+    (lambda d: d["plant"].__setitem__("signal_units", {"u": ""}), "plant.signal_units.u: expected unit text"),
+    (lambda d: d["plant"].__setitem__("signal_units", {"T1": "m\nx"}), "plant.signal_units.T1: expected unit text"),
 ])
 def test_forbidden_or_inconsistent_content_is_refused_even_when_resealed(built, tmp_path, change, words):
     path, _, _ = built

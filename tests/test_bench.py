@@ -1,29 +1,31 @@
 """The benchmark's references compute what the core computes (so the ratios compare like with like)."""
 
+import json
 import shutil
 
 import numpy as np
 import pytest
+import sympy as sp
 
 from support import BUNDLED, built_artifact
-from linz_ros.bench import _c_library, _law_expressions, _naive_step, run_bench
+from linz_ros.bench import _c_library, _naive_step, law_expressions, run_bench
 from linz_ros.model import load_plant
 from linz_ros.runtime import ControllerCore
-from linz_ros.synthesis import synthesise
 
 
 @pytest.fixture(scope="module")
 def arm():
-    return built_artifact(BUNDLED / "pick_arm.yaml"), synthesise(load_plant(BUNDLED / "pick_arm.yaml"))
+    artifact = built_artifact(BUNDLED / "pick_arm.yaml")
+    return artifact, law_expressions(artifact)
 
 
 @pytest.mark.skipif(shutil.which("cc") is None and shutil.which("gcc") is None, reason="no C compiler on PATH")
 def test_the_compiled_c_reference_evaluates_the_same_law(arm, tmp_path):
-    artifact, design = arm
-    c_law = _c_library(design, tmp_path)
+    artifact, expressions = arm
+    c_law = _c_library(expressions, artifact, tmp_path)
     law = artifact.programs["law"]
     params = artifact.nominal_parameters.tolist()
-    _, _, exprs = _law_expressions(design)
+    exprs = expressions.entries
     rng = np.random.default_rng(4)
     for _ in range(20):
         x = [rng.uniform(-0.6, 1.8), rng.uniform(0.15, 2.6), rng.uniform(-2, 2), rng.uniform(-2, 2)]
@@ -33,8 +35,8 @@ def test_the_compiled_c_reference_evaluates_the_same_law(arm, tmp_path):
 
 
 def test_the_naive_pipeline_gives_the_core_command(arm):
-    artifact, design = arm
-    naive = _naive_step(design, artifact)
+    artifact, expressions = arm
+    naive = _naive_step(expressions, artifact)
     core = ControllerCore(artifact, None)
     # random states over [-1, 1] leave the envelope: the envelope watchdog only warns here
     core.config = core.config.with_overrides(input_limits=((-1e9, 1e9), (-1e9, 1e9)), envelope_action="warn")
@@ -47,11 +49,30 @@ def test_the_naive_pipeline_gives_the_core_command(arm):
         np.testing.assert_allclose(naive(np.array(x), artifact.nominal_parameters, np.array(ref)), u, rtol=1e-10)
 
 
-def test_run_bench_without_a_design_times_only_the_artifact(arm):
+def test_the_law_expressions_are_the_artifacts_own_program_not_a_new_design(arm):
+    """Every reference is made from the artifact's law program: a law edited in the artifact is what is timed."""
+    from linz_ros.artifact import artifact_from_text, seal
+
+    artifact, expressions = arm
+    document = json.loads(json.dumps(artifact.document))
+    law = document["programs"]["law"]
+    law["outputs"] = [[name, shape, [f"2*({e})" for e in entries]] for name, shape, entries in law["outputs"]]
+    doubled = artifact_from_text(seal(document), source="doubled")
+    rebuilt = law_expressions(doubled)
+    params = doubled.nominal_parameters.tolist()
+    x = [0.4, 1.2, 0.3, -0.2]
+    plain = sp.lambdify([rebuilt.states, rebuilt.parameters], rebuilt.flat(), modules="math")
+    np.testing.assert_allclose(plain(x, params), np.array(doubled.programs["law"](x, params)), rtol=1e-12)
+    np.testing.assert_allclose(plain(x, params), 2 * np.array(artifact.programs["law"](x, params)), rtol=1e-12)
+
+
+def test_run_bench_without_a_plant_times_every_reference_of_the_artifacts_law(arm):
     artifact, _ = arm
     result = run_bench(artifact, None, calls=20, rounds=1)
-    assert set(result.microseconds) == {"core", "law_only"}
-    assert "plant file not available" in result.notes[0]
+    expected = {"core", "law_only", "naive", "lambdify_numpy", "lambdify_cse_math"}
+    if shutil.which("cc") or shutil.which("gcc"):
+        expected.add("compiled_c")
+    assert set(result.microseconds) == expected
     assert "core_over_law_only" in result.ratios() and "linz bench pick_arm" in result.render_text()
 
 
@@ -61,20 +82,20 @@ def test_a_serial_arm_is_timed_against_pinocchio_computed_torque():
     from linz_ros.bench import _pinocchio_step
 
     path = REFERENCE / "pick_arm_serial.yaml"
-    artifact, design = built_artifact(path), synthesise(load_plant(path))
+    artifact, plant = built_artifact(path), load_plant(path)
     # tool-point outputs are not joint-space computed torque: no Pinocchio candidate
-    assert _pinocchio_step(design, artifact) is None
+    assert _pinocchio_step(plant, artifact) is None
     joint_space = path.read_text().replace("outputs:\n  tool_x: tip_x\n  tool_y: tip_y\n", "").replace(
         "poles: {tool_x: [-6, -7], tool_y: [-6, -7]}", "poles: {y_q1: [-6, -7], y_q2: [-6, -7]}")
     artifact = built_artifact(joint_space)
     from linz_ros.model import plant_from_text
 
-    design = synthesise(plant_from_text(joint_space))
-    step = _pinocchio_step(design, artifact)
+    plant = plant_from_text(joint_space)
+    step = _pinocchio_step(plant, artifact)
     core = ControllerCore(artifact)
     # random states over [-1, 1] leave the envelope: the envelope watchdog only warns here
     core.config = core.config.with_overrides(input_limits=((-1e9, 1e9), (-1e9, 1e9)), envelope_action="warn")
-    naive = _naive_step(design, artifact)
+    naive = _naive_step(law_expressions(artifact), artifact)
     rng = np.random.default_rng(2)
     for k in range(10):
         x = list(rng.uniform(-1, 1, 4))
@@ -82,15 +103,13 @@ def test_a_serial_arm_is_timed_against_pinocchio_computed_torque():
         u, record = core.step(x, ref, t=0.002 * (k + 1))
         np.testing.assert_allclose(step(np.array(x), np.array(ref)), u, rtol=1e-9)
         np.testing.assert_allclose(naive(np.array(x), artifact.nominal_parameters, np.array(ref)), u, rtol=1e-9)
-    result = run_bench(artifact, design, calls=50, rounds=1)
+    result = run_bench(artifact, plant, calls=50, rounds=1)
     assert "pinocchio_computed_torque" in result.microseconds and "core_over_pinocchio" in result.ratios()
 
 
 def test_the_plain_lambdify_references_evaluate_the_same_law(arm):
-    import sympy as sp
-
-    artifact, design = arm
-    x, p, exprs = _law_expressions(design)
+    artifact, expressions = arm
+    x, p, exprs = expressions.states, expressions.parameters, expressions.flat()
     params = artifact.nominal_parameters.tolist()
     plain = sp.lambdify([x, p], exprs, modules="numpy")
     cse_math = sp.lambdify([x, p], exprs, modules="math", cse=True)
@@ -104,13 +123,9 @@ def test_the_plain_lambdify_references_evaluate_the_same_law(arm):
         np.testing.assert_allclose(np.array(cse_math(state, params)), expected, rtol=1e-12, atol=1e-12)
 
 
-def test_run_bench_with_a_design_times_every_reference(arm):
-    artifact, design = arm
-    result = run_bench(artifact, design, calls=20, rounds=1)
-    expected = {"core", "law_only", "naive", "lambdify_numpy", "lambdify_cse_math"}
-    if shutil.which("cc") or shutil.which("gcc"):
-        expected.add("compiled_c")
-    assert set(result.microseconds) == expected
+def test_run_bench_ratios_are_of_one_run(arm):
+    artifact, _ = arm
+    result = run_bench(artifact, None, calls=20, rounds=1)
     assert all(v > 0 for v in result.microseconds.values())
     ratios = result.ratios()
     assert ratios["naive_over_core"] == pytest.approx(result.microseconds["naive"] / result.microseconds["core"])
@@ -123,9 +138,9 @@ def test_run_bench_with_a_design_times_every_reference(arm):
 def test_a_missing_or_failing_compiler_is_named_in_the_notes(arm, monkeypatch, compiler, words):
     import linz_ros.bench as bench
 
-    artifact, design = arm
+    artifact, _ = arm
     monkeypatch.setattr(bench.shutil, "which", lambda name: compiler)
-    result = run_bench(artifact, design, calls=20, rounds=1)
+    result = run_bench(artifact, None, calls=20, rounds=1)
     assert "compiled_c" not in result.microseconds
     assert any(note.startswith(words) and note.endswith("compiled_c not measured") for note in result.notes), \
         result.notes

@@ -182,6 +182,29 @@ def test_a_field_log_of_another_plant_is_refused_by_name(tmp_path):
         as_sim_result(_log(), built_artifact(BUNDLED / "pick_arm.yaml"))
 
 
+def test_the_tracking_error_per_output_by_hand():
+    """y - ref of output a: 0.3 at record 2, -0.4 at record 5, a refused step (nan) last; zero elsewhere."""
+    from linz_ros.logs import summary_text
+    y = np.zeros(10)
+    ref = np.zeros(10)
+    y[2], ref[5] = 0.5, 0.4
+    ref[2] = 0.2
+    y[9] = np.nan                                  # a refused state records no output
+    summary = summarise(_log(10, **{"y.a": y, "ref.a": ref}))
+    rms = math.sqrt((0.3 ** 2 + 0.4 ** 2) / 9)     # over the 9 steps with an error
+    assert summary["tracking"] == {"a": {"rms_error": pytest.approx(rms), "final_error": 0.0,
+                                         "max_error": pytest.approx(0.4), "unit": None}}
+    assert f"tracking error of a (y - ref): rms {rms:.4g}, final 0, max 0.4 (unit not stated)" in summary_text(summary)
+
+
+def test_a_log_without_references_reports_no_tracking():
+    labels = [label for label in LABELS if not label.startswith("ref.")]
+    values = np.zeros((5, len(labels)))
+    values[:, 0] = PERIOD * np.arange(5)
+    log = StepLog(labels, values, values[:, 0], np.arange(5), ["hand.mcap"], {}, clean_close={"hand.mcap": True})
+    assert summarise(log)["tracking"] == {}
+
+
 @pytest.mark.filterwarnings("error")             # numpy's RuntimeWarnings would print before the summary
 def test_nan_and_inf_anywhere_give_a_clean_summary_without_warnings():
     from linz_ros.logs import summary_text

@@ -56,6 +56,36 @@ def test_parameters_with_units_and_numeric_strings():
     assert plant.units == {"k": "N m/rad"}
 
 
+def test_signal_units_from_the_units_section_and_outputs_that_are_states():
+    plant = plant_from_text(MINIMAL + "outputs: {y: x1, z: 2*x1}\nunits: {x1: rad, x2: ' rad/s ', u: N m}\n")
+    assert plant.signal_units == {"x1": "rad", "x2": "rad/s", "u": "N m", "y": "rad"}     # z is not x1 as written
+    assert plant_from_text(MINIMAL).signal_units == {}
+
+
+def test_a_serial_arm_gives_its_joints_units_unless_the_file_says_otherwise():
+    text = (REFERENCE / "pick_arm_serial.yaml").read_text()
+    plant = plant_from_text(text)
+    assert plant.signal_units == {"q1": "rad", "q2": "rad", "w1": "rad/s", "w2": "rad/s", "tau1": "N m",
+                                  "tau2": "N m", "tool_x": "m", "tool_y": "m"}
+    prismatic = plant_from_text(text.replace("- {type: revolute, a: l2", "- {type: prismatic, a: l2")
+                                + "units: {tau1: kN m, tool_y: mm}\n")
+    assert prismatic.signal_units == {"q1": "rad", "q2": "m", "w1": "rad/s", "w2": "m/s", "tau1": "kN m",
+                                      "tau2": "N", "tool_x": "m", "tool_y": "mm"}
+
+
+def test_an_input_map_leaves_the_inputs_of_a_serial_arm_without_a_unit():
+    text = (REFERENCE / "pick_arm_serial.yaml").read_text().replace(
+        "input_limits:", "input_map: [[1, 0], [0, 1]]\ninput_limits:")
+    units = plant_from_text(text).signal_units
+    assert "tau1" not in units and units["q1"] == "rad"
+
+
+@pytest.mark.parametrize("path", sorted(BUNDLED.glob("*.yaml")), ids=lambda p: p.stem)
+def test_every_signal_of_a_bundled_plant_has_a_unit(path):
+    plant = load_plant(path)
+    assert set(plant.signal_units) == set(plant.state_names + plant.input_names + list(plant.output_names))
+
+
 def test_defaults_and_hash():
     plant = plant_from_text(MINIMAL)
     assert plant.operating_point == {"x1": 0.0, "x2": 0.0}
@@ -134,6 +164,15 @@ BAD = [
     ("safe command word", MINIMAL + "design: {watchdog: {safe_command: brake}}\n",
      "design.watchdog.safe_command", "expected zero, hold, or a mapping"),
     ("reference not text", MINIMAL + "design: {reference: 5}\n", "design.reference", "expected text"),
+    ("units not a mapping", MINIMAL + "units: [rad]\n", "units", "expected a mapping of state, input or output"),
+    ("unit of an unknown name", MINIMAL + "units: {x3: rad}\n", "units.x3", "'x3' is not a state, input or output"),
+    ("unit of a misspelled state", MINIMAL + "units: {x11: rad}\n", "units.x11", "(did you mean 'x1'?)"),
+    ("unit of a parameter", MINIMAL + "units: {k: N m/rad}\n", "units.k", "'k' is a parameter; its unit goes in"),
+    ("unit that is a number", MINIMAL + "units: {x1: 1}\n", "units.x1", "expected unit text (such as rad/s or N m), "
+                                                                     "got the number 1"),
+    ("unit that is a list", MINIMAL + "units: {u: [N, m]}\n", "units.u", "expected unit text"),
+    ("empty unit", MINIMAL + "units: {x2: ''}\n", "units.x2", "empty unit; leave x2 out"),
+    ("unit on two lines", MINIMAL + "units: {x2: \"rad\\ns\"}\n", "units.x2", "printable characters on one line"),
 ]
 
 

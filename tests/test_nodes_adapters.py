@@ -124,3 +124,35 @@ def test_stamps_are_always_written_and_clamped_to_the_message_range():
     assert stamp_seconds(message) is None
     set_stamp(message, 1e12)
     assert message.header.stamp.sec == 2_147_483_647
+
+
+def test_the_supported_types_are_the_rows_of_one_table():
+    from linz_ros.nodes.adapters import ADAPTERS, COMMAND_TYPES, STATE_TYPES
+    assert set(STATE_TYPES) == {"sensor_msgs/msg/JointState", "nav_msgs/msg/Odometry",
+                                "std_msgs/msg/Float64MultiArray"}
+    assert COMMAND_TYPES == ("std_msgs/msg/Float64MultiArray", "sensor_msgs/msg/JointState",
+                             "geometry_msgs/msg/Wrench", "geometry_msgs/msg/Twist")
+    for name, row in ADAPTERS.items():
+        assert row.name == name and row.stamped == hasattr(row.cls(), "header")
+        assert FieldMap(name, [f for t, f in CASES if t == name][0], len([f for t, f in CASES if t == name][0]),
+                        "f").stamped == row.stamped
+
+
+def test_a_new_message_type_is_one_new_row(monkeypatch):
+    from geometry_msgs.msg import Accel
+
+    from linz_ros.nodes import adapters
+    row = adapters._vector3_row("geometry_msgs/msg/Accel", Accel, ("linear", "angular"))
+    monkeypatch.setitem(adapters.ADAPTERS, row.name, row)
+    mapping = FieldMap("geometry_msgs/msg/Accel", ["angular.z", "-linear.x"], 2, "command_fields")
+    message = mapping.write([0.5, 2.0])
+    assert isinstance(message, Accel) and message.angular.z == 0.5 and message.linear.x == -2.0
+    assert mapping.read(message) == [0.5, 2.0]
+    with pytest.raises(ConfigError, match="'force.x' is not a field of geometry_msgs/msg/Accel"):
+        FieldMap("geometry_msgs/msg/Accel", ["force.x"], 1, "command_fields")
+
+
+def test_a_field_map_of_an_unknown_type_is_one_line():
+    with pytest.raises(ConfigError, match="state_fields: unsupported message type 'std_msgs/msg/String'; expected "
+                                          "one of std_msgs/msg/Float64MultiArray, "):
+        FieldMap("std_msgs/msg/String", ["data"], 1, "state_fields")

@@ -9,6 +9,7 @@ rclpy = pytest.importorskip("rclpy", reason="rclpy is not installed (pip install
 
 from rclpy.time import Time  # noqa: E402
 from sensor_msgs.msg import JointState  # noqa: E402
+from std_msgs.msg import Float64MultiArray  # noqa: E402
 
 from linz_ros.nodes.adapters import split_seconds  # noqa: E402
 from linz_ros.runtime import MODES, REASONS  # noqa: E402
@@ -89,7 +90,8 @@ def test_in_wall_time_a_stamp_going_back_is_refused_and_the_history_kept(make):
 
 
 def test_a_refused_publish_is_counted_and_never_fatal():
-    from linz_ros.nodes.controller import DiagnosticWindow, ControllerNode
+    from linz_ros.nodes.controller import ControllerNode
+    from linz_ros.runtime.diagnostics import ERROR, DiagnosticWindow
 
     class Refusing:
         def publish(self, message):
@@ -108,47 +110,20 @@ def test_a_refused_publish_is_counted_and_never_fatal():
     node.get_logger = lambda: logger
     node._send(Refusing(), object(), "command")
     assert node.window.publish_failures == 1 and "command not published" in logger.errors[0]
-    assert node.window.level()[0] == b"\x02" and "refused by the middleware" in node.window.level()[1]
+    assert node.window.level()[0] == ERROR and "refused by the middleware" in node.window.level()[1]
 
 
 @pytest.mark.parametrize("extrapolate", [True, False])
-def test_a_topic_reference_is_carried_forward_along_its_derivatives_until_the_next(make, extrapolate):
-    from linz_ros.nodes.controller import _ReferenceSource
-
-    node = make(reference_extrapolate=str(extrapolate).lower())
+def test_the_reference_source_takes_the_nodes_reference_parameters(make, extrapolate):
+    # how the source carries a topic reference forward: tests/test_runtime_reference_source.py
+    node = make(reference_extrapolate=str(extrapolate).lower(), reference_timeout=0.25)
     assert node.params["reference_extrapolate"] is extrapolate
     node.trigger_configure()
     assert node.core is not None
-    source = _ReferenceSource(node.core, "topic", 0.5, ["tool_x", "tool_y"], node.params["reference_extrapolate"])
-    # tool_x on a parabola x = 0.1 + 0.2 t + 0.5 t^2 sampled at t = 0; tool_y still
-    assert source.accept([0.1, 0.2, 1.0, 0.3, 0.0, 0.0], now=9.98)
-    assert source.sample([0.4, 1.2, 0.0, 0.0], now=9.99)[0] == 0.1     # one message: no interval to go by
-    assert source.accept([0.1, 0.2, 1.0, 0.3, 0.0, 0.0], now=10.0)    # messages 20 ms apart
-    ref = source.sample([0.4, 1.2, 0.0, 0.0], now=10.01)
-    expected = [0.1 + 0.2 * 0.01 + 0.5 * 0.01 ** 2, 0.2 + 0.01, 1.0, 0.3, 0.0, 0.0] if extrapolate else \
-        [0.1, 0.2, 1.0, 0.3, 0.0, 0.0]
-    assert ref == pytest.approx(expected, abs=1e-15)
-    assert source.sample([0.4, 1.2, 0.0, 0.0], now=10.0) == [0.1, 0.2, 1.0, 0.3, 0.0, 0.0]
-    # a stalled reference is carried one interval (20 ms) at most, then stays there until the timeout
-    at_interval = source.sample([0.4, 1.2, 0.0, 0.0], now=10.02)
-    assert source.sample([0.4, 1.2, 0.0, 0.0], now=10.3) == at_interval
-    assert at_interval[0] == pytest.approx(0.1 + 0.2 * 0.02 + 0.5 * 0.02 ** 2 if extrapolate else 0.1, abs=1e-15)
-    held = source.sample([0.4, 1.2, 0.0, 0.0], now=10.6)        # past the timeout: held, not extrapolated
-    assert source.stale and held == node.core.hold_reference([0.4, 1.2, 0.0, 0.0])
-
-
-def test_bunched_reference_messages_do_not_cut_the_extrapolation_short(make):
-    from linz_ros.nodes.controller import _ReferenceSource
-
-    node = make()
-    node.trigger_configure()
-    source = _ReferenceSource(node.core, "topic", 0.5, ["tool_x", "tool_y"], True)
-    ramp = [0.0, 1.0, 0.0, 0.0, 0.0, 0.0]                    # tool_x at 1 m/s
-    for k in range(6):                                      # 100 Hz
-        assert source.accept(ramp, now=1.0 + 0.01 * k)
-    assert source.accept(ramp, now=1.0601)                  # one came late and the next at once
-    # carried 10 ms (the typical interval), not the 0.1 ms since the one before
-    assert source.sample([0.4, 1.2, 0.0, 0.0], now=1.08)[0] == pytest.approx(0.01, abs=1e-12)
+    source = node.reference
+    assert source.spec == "topic" and source.extrapolate is extrapolate and source.timeout == 0.25
+    node._on_reference(Float64MultiArray(data=[0.1, 0.2, 1.0, 0.3, 0.0, 0.0]))
+    assert source.latest == [0.1, 0.2, 1.0, 0.3, 0.0, 0.0]
 
 
 def test_in_simulated_time_a_slow_simulator_is_not_stale_until_the_no_state_timeout(make):
@@ -202,7 +177,7 @@ def test_a_zero_header_stamp_is_taken_as_now_and_counted(make):
     message = JointState(name=["shoulder", "elbow"], position=[0.4, 1.2], velocity=[0.0, 0.0])   # stamp 0
     node._on_state(message)
     assert records == ["ok"] and node.core.last_t == pytest.approx(time.time(), abs=1.0)
-    values = {kv.key: kv.value for kv in node.window.values(node._now())}
+    values = dict(node.window.values(node._now()))
     assert values["unstamped_count"] == "1"
 
 
@@ -309,21 +284,23 @@ def test_the_watchdog_parameters_come_from_the_table_and_are_checked_by_it(make)
     assert node.core.config.envelope_action == "warn" and node.core.config.divergence_error == (0.1, math.inf)
 
 
-def test_diagnostics_name_an_envelope_alarm(make):
+def test_diagnostics_carry_the_windows_level_summary_and_key_values_as_ros_messages(make, tmp_path):
+    # the window's counting and wording: tests/test_runtime_diagnostics.py
     from diagnostic_msgs.msg import DiagnosticStatus
 
-    from linz_ros.nodes.controller import DiagnosticWindow
-    from linz_ros.runtime import StepRecord
-
-    window = DiagnosticWindow(started=0.0)
-    window.add(StepRecord(0.0, (0.0, 0.0), "safe", "outside_envelope", 0.5, 2.0, False, 0.0, (False, False), 1e-5,
-                          (), 1))
-    level, text = window.level()
-    assert level == DiagnosticStatus.ERROR and "outside the envelope 1x" in text
-    values = {kv.key: kv.value for kv in window.values(1.0)}
-    assert values["outside_envelope_count"] == "1" and values["diverging_count"] == "0"
-    warned = DiagnosticWindow(started=0.0)
-    warned.add(StepRecord(0.0, (0.0, 0.0), "nominal", "diverging", 0.5, 2.0, False, 0.0, (False, False), 1e-5,
-                          (0.1, 0.2), 2))
-    level, text = warned.level()
-    assert level == DiagnosticStatus.WARN and "diverging 1x (warn only)" in text
+    (tmp_path / "plain").write_text("a file, not a folder")
+    node = make(reference="hold", field_log_folder=str(tmp_path / "plain" / "logs"))
+    node.trigger_configure()
+    node.trigger_activate()
+    published = []
+    node._diagnostics_pub.publish = published.append
+    node._publish_diagnostics()                                  # active, no state yet
+    node._on_state(_state(node.get_clock().now().nanoseconds * 1e-9))
+    node._publish_diagnostics()
+    first, second = (array.status[0] for array in published)
+    assert first.level == DiagnosticStatus.ERROR                  # the field log could not be opened
+    assert first.message.startswith("active, but no state received; field log not recording: ")
+    assert second.message.startswith("nominal; field log not recording: ")
+    values = {kv.key: kv.value for kv in second.values}
+    assert values["mode_nominal"] == "1" and values["field_log"] == "not recording"
+    assert node.window.steps == 0                                 # a new window after each message

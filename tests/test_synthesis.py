@@ -142,6 +142,7 @@ def test_computed_torque_of_the_two_link_arm_matches_lagrange_mechanics(lagrange
         "tool_y: l1*sin(q1) + l2*sin(q1 + q2)", "joint2: q2").replace(
         "poles: {tool_x: [-6, -7], tool_y: [-6, -7]}", "poles: {joint1: [-6, -7], joint2: [-6, -7]}")
     text = text.replace('reference: "smooth:tool_x=-0.08,tool_y=0.06,duration=1.5,at=0.25"', "")
+    text = text.replace(", tool_x: m, tool_y: m}", "}")        # the joint outputs take rad from q1 and q2
     text = text.replace("input_limits: {tau1: [-25.0, 25.0], tau2: [-12.0, 12.0]}", "")
     core = _core(text)
     params = dict(zip(core.artifact.parameter_names, core.parameters))

@@ -24,10 +24,10 @@ from linz_ros.analysis._input_state import (DistributionInfo, InputStateResult, 
                                             controllability_indices, lie_chain,
                                             relative_degree_of)
 from linz_ros.analysis._mechanical import MechanicalTerms, mechanical_terms
-from linz_ros.analysis._report import Report, analyse, render_text
+from linz_ros.analysis._report import Report, analyse, render_text, render_verdict
 
 __all__ = [
-    "analyse", "render_text", "Report", "analyse_input_state", "analyse_input_output",
+    "analyse", "render_text", "render_verdict", "Report", "analyse_input_state", "analyse_input_output",
     "sample_envelope", "envelope_points", "output_ranges", "invariant_zeros", "controllability_indices", "relative_degree_of",
     "decoupling_terms", "lie_chain", "DistributionInfo", "InputStateResult", "InputOutputResult",
     "ZeroDynamics", "EnvelopeResult", "plant_context", "MechanicalTerms", "mechanical_terms",

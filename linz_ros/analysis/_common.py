@@ -69,6 +69,23 @@ def show_bounded(expr: sp.Expr, limit: int = SHOW_BUDGET) -> str:
     return show(expr)
 
 
+def show_matrix(matrix: sp.Matrix, bounded: bool = False) -> list[list[str]]:
+    """A matrix as rows of entry texts, for the JSON report.
+
+    Parameters
+    ----------
+    matrix : sympy.Matrix
+    bounded : bool
+        Summarise entries too large to print (:func:`show_bounded`) instead of printing all.
+
+    Returns
+    -------
+    list of list of str
+    """
+    text = show_bounded if bounded else show
+    return [[text(e) for e in row] for row in matrix.tolist()]
+
+
 def count(number: int, noun: str, plural: str = "") -> str:
     """``1 input``, ``2 inputs``: a number with its noun in the right form.
 

@@ -3,19 +3,19 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 import scipy.linalg
 import sympy as sp
 
-from linz_ros.analysis._common import count, names_are, show, tidy
+from linz_ros.analysis._common import count, names_are, show, show_matrix, tidy
 from linz_ros.analysis._input_state import EVERYWHERE, lie_chain, state_factors
 from linz_ros.geometry import NumericContext, evaluate, generic_rank, lie_derivative, rank_at
 from linz_ros.model import Plant
 
 __all__ = ["InputOutputResult", "ZeroDynamics", "analyse_input_output", "decoupling_terms",
-           "classified_zero_dynamics"]
+           "classified_zero_dynamics", "MatrixWording", "rank_verdict"]
 
 #: Finite invariant zeros are generalized eigenvalues below this magnitude.
 _FINITE_ZERO = 1e8
@@ -67,15 +67,13 @@ class InputOutputResult:
         return None if self.reason.startswith("could not decide") else False
 
     def to_json(self) -> dict[str, Any]:
-        A = self.decoupling_matrix
         return {
             "outputs": self.outputs,
             "linearizable": self.linearizable,
             "relative_degree": self.relative_degree,
             "relative_degree_generic": self.relative_degree_generic,
             "reason": self.reason,
-            "decoupling_matrix": None if A is None else [[show(A[i, j]) for j in range(A.shape[1])]
-                                                          for i in range(A.shape[0])],
+            "decoupling_matrix": None if self.decoupling_matrix is None else show_matrix(self.decoupling_matrix),
             "singular_set": None if self.singular_set is None else show(self.singular_set),
             "singular_set_empty": None if self.singular_set is None else self.singular_set == 1,
             "singular_set_everywhere": None if self.singular_set is None else self.singular_set == EVERYWHERE,
@@ -154,31 +152,68 @@ def analyse_input_output(plant: Plant, ctx: NumericContext) -> InputOutputResult
         result.reason, result.summary = more_outputs_than_inputs(p, m)
         return result
     result.singular_set, result.singular_set_note = _singular_set(A, plant, ctx)
-    generic = generic_rank(A, ctx)
-    at_point = rank_at(A, ctx, plant.operating_vector())
-    if generic.rank is None or at_point is None:
-        result.reason = "could not decide: the decoupling matrix is not finite at the operating point"
-        result.summary = "the decoupling matrix is not finite at the operating point"
+    ranks = generic_rank(A, ctx).rank, rank_at(A, ctx, plant.operating_vector())
+    return rank_verdict(result, plant, ranks, _DECOUPLING_MATRIX, lambda order: _zero_dynamics(plant, order, ctx))
+
+
+@dataclass(frozen=True)
+class MatrixWording:
+    """How the verdicts name a decoupling matrix and how its rank was found."""
+
+    name: str                    # "the decoupling matrix", "J M^-1 B"
+    everywhere: str              # where a generic rank was seen: "everywhere", "at every sample"
+    hint: str = ""               # after "cannot be decoupled by static feedback"
+    vanishes: str = ""           # for one output: what vanishes on the singular set, instead of a rank
+    structure: str = ""          # after "relative degree [..] at the operating point"
+
+
+_DECOUPLING_MATRIX = MatrixWording("the decoupling matrix", "everywhere", " (dynamic extension may help)",
+                                   "L_g L_f^(r-1) h vanishes")
+
+
+def rank_verdict(result: InputOutputResult, plant: Plant, ranks: tuple[int | None, int | None],
+                 wording: MatrixWording, zero_dynamics: Callable[[int], ZeroDynamics]) -> InputOutputResult:
+    """The verdict on a p x m decoupling matrix (p <= m) from its generic rank and its rank at the
+    operating point.
+
+    Parameters
+    ----------
+    result : InputOutputResult
+        Outputs, generic relative degrees and the decoupling terms filled in; completed in place.
+    plant : Plant
+    ranks : tuple of int or None
+        Generic rank and rank at the operating point (None: not finite).
+    wording : MatrixWording
+    zero_dynamics : callable
+        Order of the zero dynamics -> their linearization, called when the relative degree is defined.
+
+    Returns
+    -------
+    InputOutputResult
+        ``result``.
+    """
+    (generic, at_point), p, degrees = ranks, len(result.outputs), result.relative_degree_generic
+    if generic is None or at_point is None:
+        result.reason = f"could not decide: {wording.name} is not finite at the operating point"
+        result.summary = f"{wording.name} is not finite at the operating point"
         return result
-    if generic.rank < p:
-        result.reason = (f"the decoupling matrix has rank {generic.rank} < {p} everywhere: the outputs "
-                         "cannot be decoupled by static feedback (dynamic extension may help)")
+    if generic < p:
+        result.reason = (f"{wording.name} has rank {generic} < {p} {wording.everywhere}: the outputs "
+                         f"cannot be decoupled by static feedback{wording.hint}")
         result.summary = "the decoupling matrix is singular everywhere"
         result.singular_set = EVERYWHERE
         return result
-    total = sum(degrees)
-    result.zero_dynamics_order = plant.n - total
+    result.zero_dynamics_order = plant.n - sum(degrees)
     if at_point < p:
-        what = ("L_g L_f^(r-1) h vanishes" if p == 1 else
-                f"the decoupling matrix has rank {at_point} < {p}")
+        what = wording.vanishes if p == 1 and wording.vanishes else f"{wording.name} has rank {at_point} < {p}"
         result.reason = (f"relative degree not defined at the operating point: {what} there "
                          f"(it lies on the singular set); generic relative degree {degrees}")
         result.summary = "relative degree not defined at the operating point (on the singular set)"
         return result
     result.relative_degree = list(degrees)
-    result.reason = (f"relative degree {degrees} at the operating point; "
+    result.reason = (f"relative degree {degrees} at the operating point{wording.structure}; "
                      f"zero dynamics of order {result.zero_dynamics_order}")
-    result.zero_dynamics = _zero_dynamics(plant, result.zero_dynamics_order, ctx)
+    result.zero_dynamics = zero_dynamics(result.zero_dynamics_order)
     return result
 
 

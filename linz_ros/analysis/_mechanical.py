@@ -20,11 +20,11 @@ from typing import Callable
 import numpy as np
 import sympy as sp
 
-from linz_ros.analysis._common import show_bounded, small_enough
-from linz_ros.analysis._common import names_are
-from linz_ros.analysis._input_output import (InputOutputResult, ZeroDynamics, classified_zero_dynamics,
-                                             invariant_zeros, more_outputs_than_inputs)
-from linz_ros.analysis._input_state import EVERYWHERE, DistributionInfo, InputStateResult, state_factors
+from linz_ros.analysis._common import names_are, show_matrix, small_enough
+from linz_ros.analysis._input_output import (InputOutputResult, MatrixWording, ZeroDynamics,
+                                             classified_zero_dynamics, invariant_zeros, more_outputs_than_inputs,
+                                             rank_verdict)
+from linz_ros.analysis._input_state import DistributionInfo, InputStateResult, state_factors
 from linz_ros.geometry import NumericContext, numeric_rank
 from linz_ros.model import Plant, numeric_function
 
@@ -36,6 +36,8 @@ _ZERO_ROW = 1e-10
 #: Step of the central differences that linearize the zero dynamics.
 _FD_STEP = 1e-6
 _CRITICAL_RE = 1e-7
+#: The verdicts' words for A = J M^-1 B, ranked at the envelope samples.
+_STRUCTURE = MatrixWording("J M^-1 B", "at every sample", structure=" (mechanical structure, A = J M^-1 B)")
 
 
 @dataclass
@@ -181,8 +183,7 @@ def analyse_mechanical_input_output(plant: Plant, terms: MechanicalTerms, ctx: N
         row = A_samples[:, i, :]
         degrees.append(2 if np.nanmax(np.abs(row)) > _ZERO_ROW * scale else None)
     structure = {"form": "J(q) M(q)^-1 B(q)" if mech.kinematics is None else "J(q) K(q) M(q)^-1 B(q)",
-                 "J": [[show_bounded(terms.J[i, j]) for j in range(mech.nq)] for i in range(p)],
-                 "B": [[show_bounded(mech.B[i, j]) for j in range(m)] for i in range(mech.nq)]}
+                 "J": show_matrix(terms.J, bounded=True), "B": show_matrix(mech.B, bounded=True)}
     result = InputOutputResult(names, None, degrees, "", chains=chains, decoupling_structure=structure)
     if any(d is None for d in degrees):
         lost = [names[i] for i, d in enumerate(degrees) if d is None]
@@ -197,27 +198,8 @@ def analyse_mechanical_input_output(plant: Plant, terms: MechanicalTerms, ctx: N
     generic = max((numeric_rank(a) for a in A_samples if np.all(np.isfinite(a))), default=None)
     A_here, _ = terms.decoupling(np.array([plant.operating_vector()]))
     at_point = numeric_rank(A_here[0]) if np.all(np.isfinite(A_here[0])) else None
-    if generic is None or at_point is None:
-        result.reason = "could not decide: J M^-1 B is not finite at the operating point"
-        result.summary = "J M^-1 B is not finite at the operating point"
-        return result
-    if generic < p:
-        result.reason = (f"J M^-1 B has rank {generic} < {p} at every sample: the outputs cannot be "
-                         "decoupled by static feedback")
-        result.summary = "the decoupling matrix is singular everywhere"
-        result.singular_set = EVERYWHERE
-        return result
-    result.zero_dynamics_order = plant.n - 2 * p
-    if at_point < p:
-        result.reason = (f"relative degree not defined at the operating point: J M^-1 B has rank {at_point} "
-                         f"< {p} there (it lies on the singular set); generic relative degree {degrees}")
-        result.summary = "relative degree not defined at the operating point (on the singular set)"
-        return result
-    result.relative_degree = list(degrees)
-    result.reason = (f"relative degree {degrees} at the operating point (mechanical structure, A = J M^-1 B); "
-                     f"zero dynamics of order {result.zero_dynamics_order}")
-    result.zero_dynamics = _mechanical_zero_dynamics(plant, terms, result.zero_dynamics_order)
-    return result
+    return rank_verdict(result, plant, (generic, at_point), _STRUCTURE,
+                        lambda order: _mechanical_zero_dynamics(plant, terms, order))
 
 
 def _mechanical_singular_set(plant: Plant, terms: MechanicalTerms) -> tuple[sp.Expr | None, str]:

@@ -5,7 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
-from linz_ros.analysis._common import count, plant_context, show, show_bounded
+from linz_ros.analysis._common import count, plant_context, show, show_bounded, show_matrix
 from linz_ros.analysis._envelope import EnvelopeResult, sample_envelope
 from linz_ros.analysis._input_output import InputOutputResult, analyse_input_output
 from linz_ros.analysis._input_state import (EVERYWHERE, InputStateResult, analyse_input_state,
@@ -37,15 +37,12 @@ class Report:
         p = self.plant
         return {
             "plant": p.name,
-            "description": p.description,
-            "source": p.source,
+            **p.identity(),
             "sha256": p.sha256,
-            "states": p.state_names,
-            "inputs": p.input_names,
             "parameters": {s.name: v for s, v in p.parameters.items()},
             "control_affine": True,
             "drift": None if p.f is None else [show(e) for e in p.f],
-            "input_matrix": None if p.G is None else [[show(p.G[i, j]) for j in range(p.m)] for i in range(p.n)],
+            "input_matrix": None if p.G is None else show_matrix(p.G),
             "mechanics": _mechanics_json(p),
             "operating_point": dict(p.operating_point),
             "input_state": self.input_state.to_json(),
@@ -62,9 +59,9 @@ def _mechanics_json(plant: Plant) -> dict[str, Any] | None:
         "form": mech.form,
         "coordinates": [q.name for q in mech.coordinates],
         "velocities": [v.name for v in mech.velocities],
-        "mass_matrix": [[show_bounded(mech.M[i, j]) for j in range(mech.nq)] for i in range(mech.nq)],
+        "mass_matrix": show_matrix(mech.M, bounded=True),
         "forces": [show_bounded(e) for e in mech.F],
-        "input_map": [[show_bounded(mech.B[i, j]) for j in range(plant.m)] for i in range(mech.nq)],
+        "input_map": show_matrix(mech.B, bounded=True),
     }
 
 
@@ -154,6 +151,28 @@ def _fmt(value: float | None) -> str:
     return "n/a" if value is None else f"{value:.4g}"
 
 
+def render_verdict(report: Report) -> str:
+    """The report's ``VERDICT`` block alone (the head of :func:`render_text`'s verdicts).
+
+    Parameters
+    ----------
+    report : Report
+
+    Returns
+    -------
+    str
+        ``VERDICT`` and one line per verdict.
+    """
+    io, env = report.input_output, report.envelope
+    lines = ["VERDICT", f"  input-state linearizable:  {_yes_no(report.input_state.linearizable)}"]
+    if io is not None:
+        lines.append(f"  input-output linearizable: {_input_output_verdict(io)}")
+    if env is not None and env.min_sigma is not None:
+        lines.append(f"  envelope: min sigma {_fmt(env.min_sigma)}, "
+                     f"max condition {_fmt(env.max_condition)}")
+    return "\n".join(lines)
+
+
 def render_text(report: Report) -> str:
     """The human-readable report: verdicts first, then the reasons and the details.
 
@@ -171,13 +190,7 @@ def render_text(report: Report) -> str:
     at = ", ".join(f"{k}={v:g}" for k, v in p.operating_point.items())
     lines = [f"plant {p.name}: {count(p.n, 'state')}, {count(p.m, 'input')}, "
              f"{count(len(p.output_names), 'output')}  [{p.source}]",
-             f"operating point: {at}", "", "VERDICT"]
-    lines.append(f"  input-state linearizable:  {_yes_no(iss.linearizable)}")
-    if io is not None:
-        lines.append(f"  input-output linearizable: {_input_output_verdict(io)}")
-    if env is not None and env.min_sigma is not None:
-        lines.append(f"  envelope: min sigma {_fmt(env.min_sigma)}, "
-                     f"max condition {_fmt(env.max_condition)}")
+             f"operating point: {at}", "", *render_verdict(report).split("\n")]
     if p.mechanics is not None:
         form = {"mass_matrix": "mass-matrix form", "energy": "energy form (Lagrange's equations)",
                 "serial_arm": "serial arm (DH table)"}[p.mechanics.form]

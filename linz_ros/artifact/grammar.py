@@ -89,10 +89,14 @@ class _Parser:
             found = "the end" if kind == "end" else repr(text)
             raise ExpressionSyntaxError(self.text, col, f"expected {op!r}, found {found}")
 
-    def expression(self) -> Node:
+    def descend(self) -> None:
+        """One level deeper; refuses past ``_MAX_DEPTH`` (the parser recurses, as CPython's compiler does)."""
         self.depth += 1
         if self.depth > _MAX_DEPTH:
             raise self.fail("nested too deeply")
+
+    def expression(self) -> Node:
+        self.descend()
         node = self.term()
         while self.peek()[0] == "op" and self.peek()[1] in "+-":
             op = self.take()[1]
@@ -111,9 +115,7 @@ class _Parser:
         kind, text, _ = self.peek()
         if kind == "op" and text in "+-":
             self.take()
-            self.depth += 1
-            if self.depth > _MAX_DEPTH:
-                raise self.fail("nested too deeply")
+            self.descend()
             operand = self.unary()
             self.depth -= 1
             return ("neg", operand) if text == "-" else operand
@@ -123,9 +125,7 @@ class _Parser:
         base = self.atom()
         if self.peek()[0] == "op" and self.peek()[1] in ("**", "^"):
             self.take()
-            self.depth += 1
-            if self.depth > _MAX_DEPTH:
-                raise self.fail("nested too deeply")
+            self.descend()
             # right-associative; the exponent may carry its own sign: 2**-x
             exponent = self.unary()
             self.depth -= 1

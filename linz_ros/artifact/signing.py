@@ -38,7 +38,8 @@ from pathlib import Path
 from types import SimpleNamespace
 from typing import Any, Sequence
 
-from linz_ros.artifact.document import _read_bounded, canonical_text, read_document, seal, signed_body
+from linz_ros.artifact._files import read_bounded
+from linz_ros.artifact.document import canonical_text, read_document, seal, signed_body
 from linz_ros.errors import ArtifactError, ConfigError
 
 __all__ = ["SIGNATURE_ALGORITHM", "PRIVATE_KEY_FILE", "PUBLIC_KEY_FILE", "generate_keys", "load_private_key",
@@ -113,7 +114,7 @@ def _write_new(path: Path, data: bytes, mode: int) -> None:
 def _key_text(key: str | Path | bytes, source: str) -> bytes:
     if isinstance(key, bytes):
         return key
-    return _read_bounded(Path(key).expanduser(), source)
+    return read_bounded(Path(key).expanduser(), source)
 
 
 def load_private_key(path: str | Path) -> Any:

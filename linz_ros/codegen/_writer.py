@@ -191,17 +191,22 @@ def _plant_section(design: Design) -> dict[str, Any]:
     plant = design.plant
     return {
         "name": plant.name,
-        "description": plant.description,
-        "source": plant.source,
+        **plant.identity(),
         "source_sha256": plant.sha256,
-        "states": plant.state_names,
-        "inputs": plant.input_names,
         "parameters": [[s.name, float(v)] for s, v in plant.parameters.items()],
         "units": dict(plant.units),
+        "signal_units": _signal_units(design),
         "input_limits": {k: [float(a), float(b)] for k, (a, b) in plant.input_limits.items()},
         "envelope": {k: [float(a), float(b)] for k, (a, b) in plant.envelope.items()},
         "operating_point": {k: float(v) for k, v in plant.operating_point.items()},
     }
+
+
+def _signal_units(design: Design) -> dict[str, str]:
+    """The plant's signal units of the names the artifact carries: states, inputs, the design's outputs."""
+    plant = design.plant
+    known = set(plant.state_names) | set(plant.input_names) | {c.name for c in design.chains}
+    return {name: unit for name, unit in plant.signal_units.items() if name in known}
 
 
 def _watchdog_section(design: Design) -> dict[str, Any]:

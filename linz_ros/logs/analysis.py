@@ -20,10 +20,11 @@ from linz_ros.artifact import Artifact
 from linz_ros.logs.reader import LogError, StepLog, metadata_json
 from linz_ros.errors import LinzError
 from linz_ros.runtime import ALARMS, MODES, REASONS, SimResult
-from linz_ros.runtime.closed_loop import ACTED_MODES, run_verdict
+from linz_ros.runtime.steprecord import ACTED_MODES, codes, saturation_bits
+from linz_ros.runtime.verdict import Verdict, error_statistics, run_verdict
 
 __all__ = ["Episode", "Thresholds", "as_sim_result", "control_gaps", "episodes", "gap_ends", "summarise",
-           "thresholds_of"]
+           "thresholds_of", "log_verdict", "tracking"]
 
 _REFUSED = ("wrong_length", "non_finite_state", "bad_reference", "bad_time", "out_of_order", "stale",
             "future_stamp", "model_not_finite", "non_finite_command", "no_state", "bad_message")
@@ -46,32 +47,6 @@ def _quiet_nonfinite(function: _F) -> _F:
         with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
             return function(*args, **kwargs)
     return quiet  # type: ignore[return-value]
-
-
-def codes(values: np.ndarray, count: int) -> np.ndarray:
-    """Mode or reason codes as whole numbers, -1 where a value is none of the ``count`` codes.
-
-    Parameters
-    ----------
-    values : numpy.ndarray
-        The recorded column (floats; nan or out of range in a damaged record).
-    count : int
-        How many codes there are (``len(MODES)``, ``len(REASONS)``).
-
-    Returns
-    -------
-    numpy.ndarray of int64
-
-    Examples
-    --------
-    >>> codes(np.array([0.0, 2.0, np.nan, 7.0, -1.0, 1.5]), 3).tolist()
-    [0, 2, -1, -1, -1, -1]
-    """
-    values = np.asarray(values, dtype=float)
-    valid = np.isfinite(values) & (values >= 0) & (values < count) & (values == np.floor(values))
-    out = np.full(values.shape, -1, dtype=np.int64)
-    out[valid] = values[valid].astype(np.int64)
-    return out
 
 
 def _mode_name(code: int) -> str:
@@ -318,11 +293,7 @@ def gap_ends(t: np.ndarray, periods: float = LATE_PERIODS) -> np.ndarray:
 
 def saturated_inputs(log: StepLog) -> np.ndarray:
     """(records, inputs) bool array from the saturation bit mask (none where the mask is damaged)."""
-    raw = log.column("saturated_mask")
-    mask = np.where(np.isfinite(raw) & (raw >= 0) & (raw < 2.0**62), raw, 0.0).astype(np.int64)
-    inputs = log.names("u")
-    return np.stack([(mask >> i) & 1 == 1 for i in range(len(inputs))], axis=1) if inputs else \
-        np.zeros((len(mask), 0), dtype=bool)
+    return saturation_bits(log.column("saturated_mask"), len(log.names("u")))
 
 
 @_quiet_nonfinite
@@ -330,8 +301,8 @@ def as_sim_result(log: StepLog, artifact: Artifact, note: str = "from the contro
     """A field log as a :class:`~linz_ros.runtime.SimResult`, for the run summary, CSV and plots.
 
     One row per record, time from the first record. The reference carries y_ref only (the
-    log does not record its derivatives, which are left at zero); the state is the one
-    the step used (nan where the step refused it).
+    log does not record its derivatives, which are nan); the state is the one the step
+    used (nan where the step refused it).
 
     Parameters
     ----------
@@ -354,19 +325,8 @@ def as_sim_result(log: StepLog, artifact: Artifact, note: str = "from the contro
         if log.names(prefix) != list(names):
             raise LogError(", ".join(log.files) or "log", f"its {prefix} fields {log.names(prefix)} are not "
                                                          f"those of the artifact {artifact.name} ({list(names)})")
-    t = log.column("t")
-    ref = np.zeros((len(t), sum(r + 1 for r in artifact.relative_degree)))
-    offsets = np.cumsum([0] + [r + 1 for r in artifact.relative_degree[:-1]])
-    ref[:, offsets] = log.block("ref")
-    x = log.block("x")
-    return SimResult(artifact=artifact, reference=None, t=t - t[0] if len(t) else t, x=x, x_measured=x, ref=ref,
-                     y=log.block("y"), u=log.block("u"), sigma_min=log.column("sigma_min"),
-                     condition=log.column("condition"),
-                     mode=[_mode_name(c) for c in codes(log.column("mode"), len(MODES))],
-                     reason=[REASONS[c] if c >= 0 else "unknown" for c in codes(log.column("reason"), len(REASONS))],
-                     saturated=saturated_inputs(log),
-                     compute_time=log.column("compute_time_us") * 1e-6, notes=[note],
-                     alarms=np.maximum(codes(log.column("alarms"), 4), 0) if "alarms" in log.labels else None)
+    return SimResult(artifact=artifact, reference=None, notes=[note],
+                     **log.decoded().result_fields(artifact.relative_degree))
 
 
 def _alarm_summary(log: StepLog, t: np.ndarray, reason: np.ndarray, mode: np.ndarray) -> dict[str, Any]:
@@ -387,8 +347,19 @@ def _alarm_summary(log: StepLog, t: np.ndarray, reason: np.ndarray, mode: np.nda
     return found
 
 
-def _log_verdict(log: StepLog, artifact: Artifact | None) -> dict[str, Any] | None:
-    """The run verdict of a field log (the words of ``linz sim``), when its states and artifact are known."""
+def log_verdict(log: StepLog, artifact: Artifact | None) -> Verdict | None:
+    """The run verdict of a field log (the words of ``linz sim``), when its states and artifact are known.
+
+    Parameters
+    ----------
+    log : StepLog
+    artifact : Artifact or None
+
+    Returns
+    -------
+    Verdict or None
+        Its time in the log's own clock (the ``t`` field); None when the log cannot be judged.
+    """
     if artifact is None or not log.names("x") or len(log) == 0:
         return None
     try:
@@ -397,8 +368,31 @@ def _log_verdict(log: StepLog, artifact: Artifact | None) -> dict[str, Any] | No
         return None
     verdict = run_verdict(result)
     start = float(log.column("t")[0])
-    return {"word": verdict.word, "at": None if verdict.at is None else verdict.at + start,
-            "detail": verdict.detail}
+    return Verdict(verdict.word, None if verdict.at is None else verdict.at + start, verdict.detail)
+
+
+@_quiet_nonfinite
+def tracking(log: StepLog, artifact: Artifact | None = None) -> dict[str, dict[str, Any]]:
+    """Per output, the tracking error y - y_ref of the log (:func:`error_statistics`) and its unit.
+
+    Parameters
+    ----------
+    log : StepLog
+    artifact : Artifact, optional
+        For the outputs' units (``signal_units``).
+
+    Returns
+    -------
+    dict
+        Output name -> ``rms_error``, ``final_error``, ``max_error``, ``unit`` (None when not
+        stated); empty when the log does not record each output with its reference.
+    """
+    outputs = log.names("y")
+    if not outputs or log.names("ref") != outputs:
+        return {}
+    errors = log.block("y") - log.block("ref")
+    units = artifact.signal_units if artifact is not None else {}
+    return {name: {**error_statistics(errors[:, i]), "unit": units.get(name)} for i, name in enumerate(outputs)}
 
 
 @_quiet_nonfinite
@@ -441,7 +435,7 @@ def summarise(log: StepLog, artifact: Artifact | None = None) -> dict[str, Any]:
             refused[name] = {"records": int(hits.sum()), **_episode_group(episodes(log, hits, "refused", name))}
     recorded = log.metadata.get("linz_recording", {})
     alarms = _alarm_summary(log, t, reason, mode)
-    verdict = _log_verdict(log, artifact)
+    verdict = log_verdict(log, artifact)
     finite_sigma = sigma[np.isfinite(sigma)]
     finite_condition = condition[~np.isnan(condition)]
     summary = {
@@ -466,7 +460,8 @@ def summarise(log: StepLog, artifact: Artifact | None = None) -> dict[str, Any]:
                        for i, u in enumerate(inputs)},
         "refused": refused,
         "watchdog_alarms": alarms,
-        "verdict": verdict,
+        "verdict": None if verdict is None else asdict(verdict),
+        "tracking": tracking(log, artifact),
         "compute_time_us": _percentiles(log.column("compute_time_us")),
         "missing_records": sequence_gaps(log),
         "control_gaps": control_gaps(log),

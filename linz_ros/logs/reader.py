@@ -34,11 +34,12 @@ from mcap_ros2.decoder import DecoderFactory
 
 from linz_ros.errors import LinzError
 from linz_ros.runtime.fieldlog import FIELD_LOG_TOPIC, FLOAT64_MULTIARRAY_DEFINITION
+from linz_ros.runtime.steprecord import FIELDS, StepColumns, decode
 
 __all__ = ["LogError", "StepLog", "read_logs", "log_files"]
 
-#: A labelled array is a step record when its labels start with these.
-_RECORD_HEAD = ("t", "sigma_min", "condition", "mode", "reason")
+#: A labelled array is a step record when its labels start with these (every layout so far has).
+_RECORD_HEAD = FIELDS[:5]
 _ARRAY_TYPES = ("std_msgs/msg/Float64MultiArray", "std_msgs/Float64MultiArray")
 _ARTIFACT_ATTACHMENT = "artifact.json"
 _READ_ERRORS = (McapError, struct.error, EOFError, ValueError, KeyError, IndexError, RuntimeError, OSError,
@@ -120,6 +121,15 @@ class StepLog:
         """The columns of ``<prefix>.*`` as a (records, fields) array."""
         index = [i for i, label in enumerate(self.labels) if label.startswith(prefix + ".")]
         return self.values[:, index]
+
+    def decoded(self) -> StepColumns:
+        """The records as typed columns, each found by its label (``steprecord.decode``: older logs filled).
+
+        Returns
+        -------
+        StepColumns
+        """
+        return decode(self.values, self.labels)
 
 
 def log_files(paths: Iterable[str | Path]) -> list[Path]:

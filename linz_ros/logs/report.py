@@ -1,29 +1,36 @@
 """Field-log reports: terminal text, CSV, PNG plots and one self-contained HTML page.
 
-Plots: sigma_min with the watchdog levels and the mode over time; each input against its
-limits with saturated stretches shaded; and the near-singular records in the plane of the
-two states the singular set depends on most, over the singular set ``s(x) = 0``
-evaluated from the artifact's ``singular_set`` program on a grid (the other states held
-at the median of the near-singular records).
+Plots: those of every run, drawn by :mod:`linz_ros.plotting` from the log's
+:func:`log_view` (outputs, tracking error on a log scale, states in their envelope,
+inputs against their limits, sigma_min with the watchdog levels and the mode; units on
+every axis, the run verdict in every title); and the recorded trajectory with its
+near-singular steps over the singular set ``s(x) = 0``, evaluated from the artifact's
+``singular_set`` program on a grid in the slice where the run was: the other states held
+at their median over the near-singular steps, in the plane along which s changes most
+over the run's own range.
 """
 
 from __future__ import annotations
 
 import base64
-import csv
 import html
 import math
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
 from linz_ros.artifact import Artifact
-from linz_ros.logs.analysis import Thresholds, saturated_inputs, thresholds_of
-from linz_ros.logs.reader import StepLog
-from linz_ros.runtime import MODES
+from linz_ros.logs.analysis import log_verdict, thresholds_of
+from linz_ros.logs.reader import StepLog, metadata_json
+from linz_ros.plotting import (NO_UNIT, RunView, pyplot, save_figure, sigma_label, title_figure, unit_label,
+                               write_plots)
+from linz_ros.runtime import WatchdogConfig
+from linz_ros.runtime.steprecord import write_csv as write_run_csv
 
-__all__ = ["summary_text", "write_csv", "plot_log", "write_html"]
+__all__ = ["summary_text", "write_csv", "plot_log", "write_html", "log_view", "singular_plane", "singular_slice",
+           "singular_scatter_figure", "SingularSlice"]
 
 
 def _fmt(value: Any, unit: str = "") -> str:
@@ -32,6 +39,26 @@ def _fmt(value: Any, unit: str = "") -> str:
     if isinstance(value, float):
         return f"{value:.4g}{unit}"
     return f"{value}{unit}"
+
+
+def tracking_line(name: str, error: dict[str, Any]) -> str:
+    """One output's tracking error as every text summary (``linz sim``, ``linz logs``) words it.
+
+    Parameters
+    ----------
+    name : str
+        The output.
+    error : dict
+        ``rms_error``, ``final_error``, ``max_error`` and ``unit`` (None when not stated).
+
+    Returns
+    -------
+    str
+    """
+    unit = f" {error['unit']}" if error.get("unit") else ""
+    return (f"  tracking error of {name} (y - ref): rms {_fmt(error['rms_error'], unit)}, final "
+            f"{_fmt(error['final_error'], unit)}, max {_fmt(error['max_error'], unit)}"
+            + ("" if unit else f" ({NO_UNIT})"))
 
 
 def summary_text(summary: dict[str, Any]) -> str:
@@ -53,6 +80,7 @@ def summary_text(summary: dict[str, Any]) -> str:
     if verdict:
         at = "" if verdict["at"] is None else f" at t = {verdict['at']:.4g} s"
         lines.append(f"  verdict: {verdict['word']}{at} ({verdict['detail']})")
+    lines.extend(tracking_line(name, o) for name, o in s.get("tracking", {}).items())
     levels = s["thresholds"]
     if levels:
         lines.append(f"  watchdog levels ({levels['source']}): warn {levels['sigma_warn']:g}, "
@@ -68,10 +96,9 @@ def summary_text(summary: dict[str, Any]) -> str:
         if len(shown) < group["count"]:
             lines.append(f"    the {len(shown)} longest:")
         for e in shown:
-            state = ", ".join(f"{k}={v:.4g}" for k, v in e["state_at_worst"].items() if v is not None)
+            state, modes = _episode_words(e)
             lines.append(f"    at {e['start']:.3f} s for {e['duration']:.3f} s: min sigma {_fmt(e['min_sigma'])}"
-                         f" at {e['worst_time']:.3f} s" + (f" ({state})" if state else "")
-                         + "; " + ", ".join(f"{m} {n}" for m, n in e["modes"].items()))
+                         f" at {e['worst_time']:.3f} s" + (f" ({state})" if state else "") + "; " + modes)
     modes = ", ".join(f"{m} {v:.3g} s" for m, v in s["time_in_mode"].items() if v)
     lines.append(f"  modes: {modes or 'none'}; {s['mode_switches']['count']} switch(es)"
                  + (" (" + ", ".join(f"{k} {v}" for k, v in s["mode_switches"]["by_kind"].items()) + ")"
@@ -105,8 +132,9 @@ def summary_text(summary: dict[str, Any]) -> str:
 
 
 def write_csv(log: StepLog, path: str | Path) -> Path:
-    """Every record as a CSV row (``log_time`` and ``sequence`` first, then the labels; mode
-    and reason as words).
+    """Every record as a CSV row: ``log_time`` and ``sequence``, then the columns of every run's
+    CSV (``linz_ros.runtime.steprecord.write_csv``; the reference's derivatives, which a log
+    does not record, as nan).
 
     Parameters
     ----------
@@ -117,160 +145,227 @@ def write_csv(log: StepLog, path: str | Path) -> Path:
     -------
     pathlib.Path
     """
-    from linz_ros.runtime import REASONS
-
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    mode_i, reason_i = log.labels.index("mode"), log.labels.index("reason")
-    with open(path, "w", newline="") as stream:
-        writer = csv.writer(stream)
-        writer.writerow(["log_time", "sequence", *log.labels])
-        for when, seq, row in zip(log.log_time, log.sequence, log.values):
-            cells: list[Any] = [f"{when:.9f}", int(seq)] + [repr(float(v)) for v in row]
-            cells[2 + mode_i] = _word(MODES, row[mode_i])
-            cells[2 + reason_i] = _word(REASONS, row[reason_i])
-            writer.writerow(cells)
-    return path
+    steps = log.decoded()
+    degrees = metadata_json(log, "linz_artifact", "relative_degree")
+    if not (isinstance(degrees, list) and len(degrees) == len(steps.outputs)
+            and all(isinstance(r, int) and r >= 0 for r in degrees) and sum(degrees) <= len(steps.states)):
+        degrees = None                # a bag, or metadata that does not fit (sum r_i <= n): y_ref columns only
+    lead = {"log_time": [f"{when:.9f}" for when in log.log_time], "sequence": [int(v) for v in log.sequence]}
+    return write_run_csv(path, steps.result_fields(degrees, from_zero=False), steps.states, steps.outputs,
+                         steps.inputs, degrees, lead)
 
 
-def _word(words: tuple[str, ...], code: float) -> str:
-    return words[int(code)] if math.isfinite(code) and 0 <= int(code) < len(words) else str(code)
+def log_view(log: StepLog, artifact: Artifact | None = None) -> RunView:
+    """The plots' view of a log (see :mod:`linz_ros.plotting`): its records, with the artifact's
+    units, envelope, limits and the run verdict when an artifact is known.
+
+    Parameters
+    ----------
+    log : StepLog
+    artifact : Artifact, optional
+        The controller's: units, envelope, input limits, divergence bounds and the verdict.
+
+    Returns
+    -------
+    RunView
+    """
+    steps = log.decoded()
+    levels = thresholds_of(log, artifact)
+    config = WatchdogConfig.from_artifact(artifact) if artifact is not None else None
+    plant = artifact.name if artifact is not None else log.metadata.get("linz_artifact", {}).get("plant")
+    return RunView(
+        plant=str(plant or "field log"), t=steps.t, units=artifact.signal_units if artifact is not None else {},
+        outputs=steps.outputs, y=steps.y, ref=steps.ref if steps.outputs and log.names("ref") == steps.outputs
+        else None, inputs=steps.inputs, u=steps.u, saturated=steps.saturated,
+        input_limits=list(artifact.input_limits) if artifact is not None else None, states=steps.states, x=steps.x,
+        sigma_min=steps.sigma_min, mode=steps.mode, reason=steps.reason, alarms=steps.alarms,
+        envelope=artifact.envelope if artifact is not None else {},
+        envelope_margin=_recorded_margin(log, config),
+        levels=None if levels is None else (levels.sigma_warn, levels.sigma_act, levels.sigma_stop),
+        verdict=log_verdict(log, artifact), divergence_error=config.divergence_error if config is not None else (),
+        relative_degree=list(artifact.relative_degree) if artifact is not None else [])
 
 
-def _pyplot():
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    return plt
-
-
-def _save(fig, path: Path, plt) -> Path:
-    fig.tight_layout()
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
-    return path
+def _recorded_margin(log: StepLog, config: WatchdogConfig | None) -> float:
+    """The envelope watchdog's margin in force when the log was written, else the artifact's."""
+    try:
+        margin = float(log.metadata.get("linz_watchdog", {})["envelope_margin"])
+    except (KeyError, ValueError, TypeError):
+        margin = math.nan
+    if math.isfinite(margin) and margin >= 0:
+        return margin
+    return config.envelope_margin if config is not None else 0.0
 
 
-def _plot_conditioning(log: StepLog, levels: Thresholds | None, path: Path, plt) -> Path:
-    t = log.column("t")
-    fig, (ax, ax_mode) = plt.subplots(2, 1, figsize=(9, 5), sharex=True, gridspec_kw={"height_ratios": [3, 1]})
-    sigma = log.column("sigma_min")
-    ax.semilogy(t, np.where(sigma > 0, sigma, np.nan), lw=0.8, label="sigma_min(A)")
-    if levels is not None:
-        for value, name, style in ((levels.sigma_warn, "warn", ":"), (levels.sigma_act, "act", "--"),
-                                   (levels.sigma_stop, "stop", "-")):
-            if value > 0:
-                ax.axhline(value, color="tab:red", ls=style, lw=0.9, label=f"{name} {value:.4g}")
-    ax.set_ylabel("sigma_min")
-    ax.grid(True, which="both", alpha=0.3)
-    ax.legend(loc="best", fontsize=8)
-    ax_mode.step(t, log.column("mode"), where="post", lw=0.9)
-    ax_mode.set_yticks(range(len(MODES)), MODES)
-    ax_mode.set_xlabel("time [s]")
-    ax_mode.grid(True, alpha=0.3)
-    fig.suptitle("conditioning of the decoupling matrix, and the controller mode")
-    return _save(fig, path, plt)
+@dataclass(frozen=True)
+class SingularSlice:
+    """Where the singular-set plot cuts the state space: the plane and the other states' values.
+
+    Attributes
+    ----------
+    i, j : int
+        The states along the two axes.
+    base : numpy.ndarray
+        Every state's value; the others than i and j are held there.
+    basis : str
+        Where ``base`` comes from, for the title.
+    """
+
+    i: int
+    j: int
+    base: np.ndarray
+    basis: str
 
 
-def _plot_inputs(log: StepLog, limits: list[tuple[float, float]] | None, path: Path, plt) -> Path:
-    t = log.column("t")
-    inputs = log.names("u")
-    u = log.block("u")
-    saturated = saturated_inputs(log)
-    fig, axes = plt.subplots(len(inputs), 1, figsize=(9, 2.2 * len(inputs) + 0.6), sharex=True, squeeze=False)
-    for j, name in enumerate(inputs):
-        ax = axes[j, 0]
-        ax.plot(t, u[:, j], lw=0.8, label=name)
-        if limits is not None and j < len(limits):
-            for bound in limits[j]:
-                if math.isfinite(bound):
-                    ax.axhline(bound, color="tab:red", ls="--", lw=0.9)
-        if saturated[:, j].any():
-            low, high = np.nanmin(u[:, j]), np.nanmax(u[:, j])
-            ax.fill_between(t, low, high, where=saturated[:, j], color="tab:orange", alpha=0.25, step="post",
-                            label="saturated")
-        ax.set_ylabel(name)
-        ax.grid(True, alpha=0.3)
-        ax.legend(loc="best", fontsize=8)
-    axes[-1, 0].set_xlabel("time [s]")
-    fig.suptitle("inputs against their limits")
-    return _save(fig, path, plt)
+def singular_slice(artifact: Artifact, x: np.ndarray, near: np.ndarray) -> SingularSlice:
+    """The slice of the state space where the run actually was.
+
+    The other states are held at their median over the accepted near-singular steps (over
+    all accepted steps when none was near-singular; at the operating point when no step was
+    accepted); the plane is chosen by :func:`singular_plane` with the run's own range.
+
+    Parameters
+    ----------
+    artifact : Artifact
+    x : numpy.ndarray
+        (steps, states) as recorded (nan where a step refused its state).
+    near : numpy.ndarray of bool
+        The near-singular steps.
+
+    Returns
+    -------
+    SingularSlice
+    """
+    x = np.asarray(x, dtype=float).reshape(-1, len(artifact.states))
+    accepted = np.isfinite(x).all(axis=1)
+    chosen, basis = accepted & np.asarray(near, dtype=bool), "the near-singular steps"
+    if not chosen.any():
+        chosen, basis = accepted, "all accepted steps"
+    points = x[chosen]
+    if not len(points):
+        points, basis = np.array([artifact.operating_point], dtype=float), "the operating point (no step accepted)"
+    extent = np.ptp(x[accepted], axis=0) if accepted.any() else None
+    i, j, base = singular_plane(artifact, points, extent)
+    return SingularSlice(i, j, base, basis)
 
 
-def singular_plane(artifact: Artifact, points: np.ndarray) -> tuple[int, int, np.ndarray]:
-    """The two states the singular-set expression depends on most near ``points``.
+def singular_plane(artifact: Artifact, points: np.ndarray, extent: np.ndarray | None = None
+                   ) -> tuple[int, int, np.ndarray]:
+    """The two states along which the singular-set expression changes most near ``points``.
 
     Parameters
     ----------
     artifact : Artifact
     points : numpy.ndarray
-        (k, n) states (the near-singular records); the sensitivity is taken at their median.
+        (k, n) recorded states; rows with a nan are left out. The base point is their
+        median (the operating point when no row is left).
+    extent : numpy.ndarray, optional
+        How far the run moved along each state (default: the points' own range). A state
+        scores |ds/dx_i| times its extent (what the run's motion along it could change s
+        by); the sensitivity alone, then the extent, break ties.
 
     Returns
     -------
     (int, int, numpy.ndarray)
-        The two state indices and the base point (the median).
+        The two state indices (in order) and the base point.
     """
     n = len(artifact.states)
-    base = np.nanmedian(points, axis=0) if len(points) else np.zeros(n)
-    base = np.where(np.isfinite(base), base, 0.0)
+    points = np.asarray(points, dtype=float).reshape(-1, n)
+    points = points[np.isfinite(points).all(axis=1)]
+    base = np.median(points, axis=0) if len(points) else np.asarray(artifact.operating_point, dtype=float)
+    if extent is None:
+        extent = np.ptp(points, axis=0) if len(points) else np.zeros(n)
+    sensitivity = _sensitivity(artifact, base)
+    if n < 2:
+        return 0, 0, base
+    order = sorted(range(n), key=lambda k: (sensitivity[k] * extent[k], sensitivity[k], extent[k]), reverse=True)
+    i, j = sorted(order[:2])
+    return i, j, base
+
+
+def _sensitivity(artifact: Artifact, base: np.ndarray) -> list[float]:
+    """|ds/dx_i| at ``base`` by forward differences (0 where s is not finite)."""
     program = artifact.numpy_program("singular_set")
-    p = artifact.nominal_parameters
-    s0 = program.evaluate(list(base), list(p))["s"].ravel()[0]
-    sensitivity = []
-    for i in range(n):
-        step = 1e-4 * max(1.0, abs(base[i]))
-        moved = base.copy()
-        moved[i] += step
-        s1 = program.evaluate(list(moved), list(p))["s"].ravel()[0]
-        sensitivity.append(abs(s1 - s0) / step if np.isfinite(s1) and np.isfinite(s0) else 0.0)
-    order = np.argsort(sensitivity)[::-1]
-    i, j = (int(order[0]), int(order[1])) if n > 1 else (0, 0)
-    return min(i, j), max(i, j), base
+    p = list(artifact.nominal_parameters)
+    with np.errstate(all="ignore"):
+        s0 = program.evaluate(list(base), p)["s"].ravel()[0]
+        found = []
+        for i in range(len(base)):
+            step = 1e-4 * max(1.0, abs(base[i]))
+            moved = base.copy()
+            moved[i] += step
+            s1 = program.evaluate(list(moved), p)["s"].ravel()[0]
+            found.append(float(abs(s1 - s0) / step) if np.isfinite(s1) and np.isfinite(s0) else 0.0)
+    return found
 
 
-def _plot_state_scatter(log: StepLog, artifact: Artifact | None, near: np.ndarray, path: Path,
-                        plt) -> Path | None:
-    states = log.names("x")
-    if len(states) < 2:
+def singular_scatter_figure(view: RunView, artifact: Artifact | None, near: np.ndarray) -> Any | None:
+    """The recorded trajectory and its near-singular steps over the singular set ``s(x) = 0``, in
+    the slice where the run was (:func:`singular_slice`).
+
+    Parameters
+    ----------
+    view : RunView
+    artifact : Artifact or None
+        Without one (or without a singular-set program) the records are drawn alone.
+    near : numpy.ndarray of bool
+
+    Returns
+    -------
+    matplotlib.figure.Figure or None
+        None when the log records fewer than two states.
+    """
+    if view.x is None or len(view.states) < 2:
         return None
-    x = log.block("x")
-    sigma = log.column("sigma_min")
-    fig, ax = plt.subplots(figsize=(7, 6))
-    has_set = artifact is not None and artifact.has_program("singular_set")
-    if has_set:
-        i, j, base = singular_plane(artifact, x[near])
-    else:
-        i, j, base = 0, 1, np.zeros(len(states))
-    xi, xj = x[:, i], x[:, j]
-    ax.plot(xi, xj, color="0.8", lw=0.5, label="all records", zorder=1)
+    x, states = view.x, view.states
+    has_set = artifact is not None and artifact.has_program("singular_set") and list(artifact.states) == states
+    where = singular_slice(artifact, x, near) if has_set else None
+    i, j = (where.i, where.j) if where is not None else (0, 1)
+    fig, ax = pyplot().subplots(figsize=(8, 7), layout="constrained")
+    accepted = np.flatnonzero(np.isfinite(x[:, [i, j]]).all(axis=1))
+    ax.plot(x[:, i], x[:, j], color="0.55", lw=0.7, label="recorded trajectory", zorder=1)
+    if len(accepted):
+        first, last = accepted[0], accepted[-1]
+        ax.plot(x[first, i], x[first, j], "o", color="tab:green", label="start", zorder=4)
+        ax.plot(x[last, i], x[last, j], "s", color="black", label="end", zorder=4)
     if near.any():
-        points = ax.scatter(xi[near], xj[near], c=sigma[near], s=8, cmap="viridis_r", zorder=3,
-                            label="near-singular records")
-        fig.colorbar(points, ax=ax, label="sigma_min")
-    if has_set:
-        lo_i, hi_i = _span(xi, artifact, i)
-        lo_j, hi_j = _span(xj, artifact, j)
-        gi, gj = np.meshgrid(np.linspace(lo_i, hi_i, 241), np.linspace(lo_j, hi_j, 241))
-        grid = [np.full(gi.shape, v) for v in base]
-        grid[i], grid[j] = gi, gj
-        s = artifact.numpy_program("singular_set").evaluate(grid, list(artifact.nominal_parameters))["s"][0]
-        s = np.broadcast_to(s, gi.shape)
-        if np.nanmin(s) < 0 < np.nanmax(s) or np.any(s == 0):
-            ax.contour(gi, gj, s, levels=[0.0], colors="tab:red", linewidths=1.5, zorder=2)
-            ax.plot([], [], color="tab:red", label="singular set s(x) = 0")
-        others = ", ".join(f"{states[k]}={base[k]:.3g}" for k in range(len(states)) if k not in (i, j))
-        ax.set_title("near-singular records over the singular set" + (f"\n(other states at {others})"
-                                                                       if others else ""), fontsize=10)
+        points = ax.scatter(x[near, i], x[near, j], c=view.sigma_min[near], s=8, cmap="viridis_r", zorder=3,
+                            label="near-singular steps")
+        fig.colorbar(points, ax=ax, label=sigma_label(view))
+    for k, line in ((i, ax.axvline), (j, ax.axhline)):
+        for bound in view.envelope.get(states[k], ()):
+            line(bound, color="tab:red", ls="--", lw=0.8)
+    if where is not None:
+        _draw_singular_set(ax, artifact, x, where)
+        others = ", ".join(f"{states[k]}={where.base[k]:.4g}" for k in range(len(states)) if k not in (i, j))
+        what = "the singular set s(x) = 0 where the run was" + (f"\n(other states at their median over "
+                                                                 f"{where.basis}: {others})" if others else "")
+    elif artifact is None:
+        what = "the recorded states (no artifact: pass --artifact for the singular set)"
     else:
-        ax.set_title("near-singular records (no singular-set expression: pass --artifact)", fontsize=10)
-    ax.set_xlabel(states[i])
-    ax.set_ylabel(states[j])
+        what = "the recorded states (the artifact carries no singular-set expression)"
+    ax.set_xlabel(unit_label(states[i], view.units))
+    ax.set_ylabel(unit_label(states[j], view.units))
     ax.grid(True, alpha=0.3)
-    ax.legend(loc="best", fontsize=8)
-    return _save(fig, path, plt)
+    ax.legend(loc="best", fontsize=7)
+    title_figure(fig, view, what)
+    return fig
+
+
+def _draw_singular_set(ax: Any, artifact: Artifact, x: np.ndarray, where: SingularSlice) -> None:
+    i, j = where.i, where.j
+    lo_i, hi_i = _span(x[:, i], artifact, i)
+    lo_j, hi_j = _span(x[:, j], artifact, j)
+    gi, gj = np.meshgrid(np.linspace(lo_i, hi_i, 241), np.linspace(lo_j, hi_j, 241))
+    grid = [np.full(gi.shape, v) for v in where.base]
+    grid[i], grid[j] = gi, gj
+    with np.errstate(all="ignore"):
+        s = artifact.numpy_program("singular_set").evaluate(grid, list(artifact.nominal_parameters))["s"][0]
+    s = np.broadcast_to(np.asarray(s, dtype=float), gi.shape)
+    if np.nanmin(s) < 0 < np.nanmax(s) or np.any(s == 0):
+        ax.contour(gi, gj, s, levels=[0.0], colors="tab:red", linewidths=1.5, zorder=2)
+        ax.plot([], [], color="tab:red", label="singular set s(x) = 0")
+    ax.plot([], [], color="tab:red", ls="--", lw=0.8, label="envelope")
 
 
 def _span(values: np.ndarray, artifact: Artifact, index: int) -> tuple[float, float]:
@@ -284,7 +379,9 @@ def _span(values: np.ndarray, artifact: Artifact, index: int) -> tuple[float, fl
 
 
 def plot_log(log: StepLog, out_dir: str | Path, artifact: Artifact | None = None) -> list[Path]:
-    """Write ``conditioning.png``, ``inputs.png`` and (with states) ``singular_scatter.png``.
+    """Write the plots of a log: those of every run (:func:`linz_ros.plotting.write_plots`: outputs,
+    tracking error, states, inputs, conditioning, as the log records them) and, with states,
+    ``singular_scatter.png``.
 
     Parameters
     ----------
@@ -297,24 +394,28 @@ def plot_log(log: StepLog, out_dir: str | Path, artifact: Artifact | None = None
     -------
     list of pathlib.Path
     """
-    plt = _pyplot()
-    out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
+    view = log_view(log, artifact)
+    files = write_plots(view, out_dir)
     levels = thresholds_of(log, artifact)
-    files = [_plot_conditioning(log, levels, out / "conditioning.png", plt)]
-    if log.names("u"):          # a log of another layout may record no inputs: no panel to draw
-        files.append(_plot_inputs(log, artifact.input_limits if artifact is not None else None, out / "inputs.png",
-                                  plt))
-    sigma = log.column("sigma_min")
-    near = (sigma < levels.sigma_warn) if levels is not None else log.column("warn") > 0.5
-    scatter = _plot_state_scatter(log, artifact, near & np.isfinite(sigma), out / "singular_scatter.png", plt)
+    sigma = view.sigma_min
+    with np.errstate(invalid="ignore"):
+        near = (sigma < levels.sigma_warn) if levels is not None else log.decoded().warn
+    scatter = singular_scatter_figure(view, artifact, near & np.isfinite(sigma))
     if scatter is not None:
-        files.append(scatter)
+        files.append(save_figure(scatter, Path(out_dir) / "singular_scatter.png"))
     return files
 
 
+_PAGE_STYLE = ("body{font-family:sans-serif;max-width:1000px;margin:1em auto;padding:0 1em}"
+               "table{border-collapse:collapse;font-size:0.9em;display:block;max-width:100%;overflow-x:auto}"
+               "td,th{border:1px solid #ccc;padding:2px 6px;overflow-wrap:anywhere}"
+               "pre{background:#f6f6f6;padding:1em;white-space:pre-wrap;overflow-wrap:anywhere}"
+               "img{max-width:100%;height:auto}")
+
+
 def write_html(summary: dict[str, Any], text: str, images: list[Path], path: str | Path) -> Path:
-    """One self-contained HTML page: the summary text, episode tables and the plots inline.
+    """One self-contained HTML page that fits the width of any screen: the summary text, the
+    tracking and episode tables and the plots inline.
 
     Parameters
     ----------
@@ -332,12 +433,11 @@ def write_html(summary: dict[str, Any], text: str, images: list[Path], path: str
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     parts = ["<!DOCTYPE html>", "<html><head><meta charset='utf-8'>",
+             "<meta name='viewport' content='width=device-width, initial-scale=1'>",
              f"<title>field log: {html.escape(str(summary['plant']))}</title>",
-             "<style>body{font-family:sans-serif;max-width:1000px;margin:2em auto}"
-             "table{border-collapse:collapse;font-size:0.9em}td,th{border:1px solid #ccc;padding:2px 6px}"
-             "pre{background:#f6f6f6;padding:1em;overflow-x:auto}img{max-width:100%}</style></head><body>",
+             f"<style>{_PAGE_STYLE}</style></head><body>",
              f"<h1>Field log: {html.escape(str(summary['plant']))}</h1>",
-             f"<pre>{html.escape(text)}</pre>"]
+             f"<pre>{html.escape(text)}</pre>", _tracking_table(summary.get("tracking", {}))]
     for key, title in (("under_warn", "Episodes under the warn level"), ("under_act", "Episodes under the act level")):
         parts.append(_episode_table(title, summary["near_singular"][key]["episodes"]))
     for name, group in summary["saturation"].items():
@@ -352,15 +452,27 @@ def write_html(summary: dict[str, Any], text: str, images: list[Path], path: str
     return path
 
 
-def _episode_table(title: str, rows: list[dict[str, Any]]) -> str:
+def _table(title: str, head: list[str], rows: list[list[str]]) -> str:
     if not rows:
         return f"<h2>{html.escape(title)}</h2><p>none</p>"
-    head = "<tr><th>start [s]</th><th>duration [s]</th><th>records</th><th>min sigma</th><th>state at worst</th>" \
-           "<th>modes</th></tr>"
-    body = []
-    for e in rows:
-        state = ", ".join(f"{k}={v:.4g}" for k, v in e["state_at_worst"].items() if v is not None)
-        modes = ", ".join(f"{m} {n}" for m, n in e["modes"].items())
-        body.append(f"<tr><td>{e['start']:.3f}</td><td>{e['duration']:.3f}</td><td>{e['records']}</td>"
-                    f"<td>{_fmt(e['min_sigma'])}</td><td>{html.escape(state)}</td><td>{html.escape(modes)}</td></tr>")
-    return f"<h2>{html.escape(title)}</h2><table>{head}{''.join(body)}</table>"
+    cells = "".join(f"<th>{html.escape(h)}</th>" for h in head)
+    body = "".join("<tr>" + "".join(f"<td>{html.escape(c)}</td>" for c in row) + "</tr>" for row in rows)
+    return f"<h2>{html.escape(title)}</h2><table><tr>{cells}</tr>{body}</table>"
+
+
+def _tracking_table(tracking: dict[str, dict[str, Any]]) -> str:
+    rows = [[name, _fmt(o["rms_error"]), _fmt(o["final_error"]), _fmt(o["max_error"]), o["unit"] or NO_UNIT]
+            for name, o in tracking.items()]
+    return _table("Tracking error (y - ref)", ["output", "rms", "final", "max", "unit"], rows)
+
+
+def _episode_table(title: str, rows: list[dict[str, Any]]) -> str:
+    head = ["start [s]", "duration [s]", "records", "min sigma", "state at worst", "modes"]
+    return _table(title, head, [[f"{e['start']:.3f}", f"{e['duration']:.3f}", str(e["records"]),
+                                 _fmt(e["min_sigma"]), *_episode_words(e)] for e in rows])
+
+
+def _episode_words(e: dict[str, Any]) -> tuple[str, str]:
+    """An episode's state at its worst step and its modes, as text (``q1=0.5, q2=1.2``; ``damped 3``)."""
+    state = ", ".join(f"{k}={v:.4g}" for k, v in e["state_at_worst"].items() if v is not None)
+    return state, ", ".join(f"{m} {n}" for m, n in e["modes"].items())

@@ -1,7 +1,7 @@
 """The mechanical plant forms: mass-matrix, energy (Lagrange) and serial-arm (DH table).
 
 Each reduces to :class:`~linz_ros.model._plant.Mechanics`, ``M(q) q'' = F(q, q') + B(q) u``,
-with the states ``(q, q')``. The reader object is the plant-file reader of ``_loader``
+with the states ``(q, q')``. The reader object is the plant-file reader of ``_reader``
 (passed in, so this module stays below it): it declares names, parses expressions and
 turns every mistake into a one-line ``PlantFileError``.
 """

@@ -90,6 +90,9 @@ class Plant:
         Parameter symbol -> nominal value (float, SI units).
     units : dict
         Parameter name -> unit text, where the file gave one.
+    signal_units : dict
+        State, input and output name -> unit text: the ``units`` section over the
+        defaults of the form (a serial arm's joints); empty when nothing says.
     f : sympy.Matrix or None
         Drift vector field, n x 1; None for a mechanical plant (see ``mechanics``).
     G : sympy.Matrix or None
@@ -130,6 +133,19 @@ class Plant:
     source: str = "<string>"
     sha256: str = ""
     mechanics: Mechanics | None = None
+    signal_units: dict[str, str] = field(default_factory=dict)
+
+    def identity(self) -> dict[str, Any]:
+        """What names the plant and where it came from, as JSON values (the check report and the
+        artifact write these under keys of their own).
+
+        Returns
+        -------
+        dict
+            ``description``, ``source``, ``states``, ``inputs``.
+        """
+        return {"description": self.description, "source": self.source, "states": self.state_names,
+                "inputs": self.input_names}
 
     @property
     def n(self) -> int:

@@ -1,7 +1,7 @@
 """Checks of plant-file values that parse but cannot be meant: a division by a parameter that
 is zero, a constant beyond a float, a negative mass, an expression grown out of bounds.
 
-The reader object is the plant-file reader of ``_loader`` (passed in, so this module stays
+The reader object is the plant-file reader of ``_reader`` (passed in, so this module stays
 below it); every refusal is its one-line ``PlantFileError``.
 """
 

@@ -1,4 +1,4 @@
-"""Helpers shared by the nodes: parameter declaration, the safety notice, spinning."""
+"""Helpers shared by the nodes: parameter declaration, the safety notice, spinning, entry points."""
 
 from __future__ import annotations
 
@@ -20,7 +20,7 @@ from rclpy.qos import HistoryPolicy, QoSProfile, ReliabilityPolicy
 
 from linz_ros.errors import ConfigError, LinzError
 
-__all__ = ["SAFETY_NOTICE", "declare", "control_qos", "spin_node", "EXECUTORS"]
+__all__ = ["SAFETY_NOTICE", "declare", "control_qos", "spin_node", "entry_point", "EXECUTORS"]
 
 SAFETY_NOTICE = (
     "SAFETY: a feedback-linearizing law cancels the dynamics it was told about; model error, saturation "
@@ -174,3 +174,27 @@ def spin_node(make_node: Callable[[], Node], args: Sequence[str] | None, executo
         for sig, handler in previous.items():
             signal.signal(sig, handler)
     return 0
+
+
+def entry_point(make_node: Callable[[], Node], command: str) -> Callable[[Sequence[str] | None], int]:
+    """The console entry point ``main(args=None)`` of a node's executable: :func:`spin_node` on it.
+
+    Parameters
+    ----------
+    make_node : callable
+        Builds the node (its class).
+    command : str
+        The executable's name, for the entry point's docstring.
+
+    Returns
+    -------
+    callable
+        ``main(args: sequence of str or None) -> int``, the exit code (``--ros-args ...`` accepted).
+    """
+
+    def main(args: Sequence[str] | None = None) -> int:
+        return spin_node(make_node, args)
+
+    main.__doc__ = (f"Console entry point ``{command}`` (accepts ``--ros-args ...``); returns the exit code "
+                    "(see :func:`linz_ros.nodes._common.spin_node`).")
+    return main

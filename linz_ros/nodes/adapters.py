@@ -12,6 +12,11 @@ negated with a leading ``-`` (for frame conventions such as ENU against NED):
 - ``std_msgs/msg/Float64MultiArray``: ``data.<index>`` (an empty field list means
   ``data.0, data.1, ...`` in the artifact's order).
 
+Every supported type is one row of :data:`ADAPTERS` (a :class:`MessageType`): its class,
+the direction(s) it may carry, whether it has a header stamp, which field paths it has,
+and the codec that reads and writes a list of field paths; :class:`FieldMap` dispatches
+through the row and knows no type by name.
+
 A message that does not fit (missing joint, arrays of the wrong length, a value that is
 not a number) raises :class:`MessageError` with a short reason; the controller then sends
 the safe command and counts the message as rejected.
@@ -21,7 +26,8 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any, Callable, Sequence
+from operator import attrgetter
+from typing import Any, Callable, Protocol, Sequence
 
 from geometry_msgs.msg import Twist, Wrench
 from nav_msgs.msg import Odometry
@@ -30,22 +36,16 @@ from std_msgs.msg import Float64MultiArray, MultiArrayDimension
 
 from linz_ros.errors import ConfigError
 
-__all__ = ["MessageError", "FieldMap", "STATE_TYPES", "COMMAND_TYPES", "message_class", "stamp_seconds",
-           "set_stamp", "split_seconds", "labelled_array"]
+__all__ = ["MessageError", "FieldMap", "MessageType", "ADAPTERS", "STATE_TYPES", "COMMAND_TYPES", "message_class",
+           "stamp_seconds", "set_stamp", "split_seconds", "labelled_array"]
 
-STATE_TYPES = ("sensor_msgs/msg/JointState", "nav_msgs/msg/Odometry", "std_msgs/msg/Float64MultiArray")
-COMMAND_TYPES = ("std_msgs/msg/Float64MultiArray", "sensor_msgs/msg/JointState", "geometry_msgs/msg/Wrench",
-                 "geometry_msgs/msg/Twist")
-_CLASSES = {"sensor_msgs/msg/JointState": JointState, "nav_msgs/msg/Odometry": Odometry,
-            "std_msgs/msg/Float64MultiArray": Float64MultiArray, "geometry_msgs/msg/Wrench": Wrench,
-            "geometry_msgs/msg/Twist": Twist}
 _JOINT_ARRAYS = ("position", "velocity", "effort")
 _AXES = ("x", "y", "z")
-_ODOMETRY = {f"pose.position.{a}" for a in _AXES} | {f"pose.orientation.{a}" for a in ("roll", "pitch", "yaw")} \
+_ANGLES = ("roll", "pitch", "yaw")
+_ODOMETRY = {f"pose.position.{a}" for a in _AXES} | {f"pose.orientation.{a}" for a in _ANGLES} \
     | {f"twist.{k}.{a}" for k in ("linear", "angular") for a in _AXES}
 _LAST_STAMP = 2_147_483_647.0       # builtin_interfaces/Time.sec is an int32
 _MAX_ENTRIES = 100_000              # data.<index> of a Float64MultiArray: index below this
-_VECTOR3 = {"geometry_msgs/msg/Wrench": ("force", "torque"), "geometry_msgs/msg/Twist": ("linear", "angular")}
 
 
 class MessageError(ValueError):
@@ -55,6 +55,55 @@ class MessageError(ValueError):
         self.reason = reason
         self.detail = detail
         super().__init__(f"{reason}: {detail}")
+
+
+@dataclass(frozen=True)
+class _Field:
+    path: str
+    sign: float
+
+
+class _Codec(Protocol):
+    """Reads and writes one list of field paths of one message type (built by a row's ``bind``)."""
+
+    def read(self, message: Any) -> list[float]: ...
+
+    def write(self, values: Sequence[float], message: Any) -> None: ...
+
+
+@dataclass(frozen=True)
+class MessageType:
+    """One supported message type: a row of :data:`ADAPTERS`.
+
+    Attributes
+    ----------
+    name : str
+        The ROS type name, e.g. ``sensor_msgs/msg/JointState``.
+    cls : type
+        The message class.
+    directions : tuple of str
+        ``"state"``, ``"command"`` or both: what the nodes may carry in it.
+    stamped : bool
+        The message has a ``header`` whose stamp :func:`stamp_seconds` and :func:`set_stamp`
+        read and write.
+    path_problem : callable
+        ``path_problem(path)``: why ``path`` (without its sign) is not a field of the type,
+        as one line, or None when it is one.
+    bind : callable
+        ``bind(fields, exact)``: the codec (``read(message)``, ``write(values, message)``)
+        of a checked list of fields; ``exact`` when the fields are the default layout.
+    default_fields : callable or None
+        ``default_fields(size)``: the field paths an empty field list stands for; None when
+        the type needs one field per entry.
+    """
+
+    name: str
+    cls: type
+    directions: tuple[str, ...]
+    stamped: bool
+    path_problem: Callable[[str], str | None]
+    bind: Callable[[list[_Field], bool], _Codec]
+    default_fields: Callable[[int], list[str]] | None = None
 
 
 def message_class(type_name: str, allowed: Sequence[str], option: str) -> type:
@@ -78,7 +127,7 @@ def message_class(type_name: str, allowed: Sequence[str], option: str) -> type:
     """
     if type_name not in allowed:
         raise ConfigError(option, f"unsupported message type {type_name!r}; expected one of {', '.join(allowed)}")
-    return _CLASSES[type_name]
+    return ADAPTERS[type_name].cls
 
 
 def stamp_seconds(message: Any) -> float | None:
@@ -156,12 +205,6 @@ def labelled_array(values: Sequence[float], labels: Sequence[str]) -> Float64Mul
     return message
 
 
-@dataclass(frozen=True)
-class _Field:
-    path: str
-    sign: float
-
-
 def _quaternion_to_rpy(q) -> tuple[float, float, float]:
     # ZYX (yaw-pitch-roll) angles of a unit quaternion (common practice, e.g. REP 103 frames);
     # an unfilled (all-zero) or far from unit quaternion is refused, a nearly unit one normalised
@@ -187,6 +230,174 @@ def _rpy_to_quaternion(roll: float, pitch: float, yaw: float) -> tuple[float, fl
             cr * cp * cy + sr * sp * sy)
 
 
+def _listed(names: Sequence[str], most: int = 8) -> str:
+    """Names for a message: quoted (a name may hold a line break), at most ``most`` of them."""
+    shown = ", ".join(repr(n) for n in names[:most])
+    return shown + (f", ... ({len(names)} in all)" if len(names) > most else "")
+
+
+def _not_a_field(path: str, type_name: str) -> str:
+    return f"{path!r} is not a field of {type_name} (see the adapters' field paths)"
+
+
+# -- JointState: joints by name ------------------------------------------------------------
+def _joint_state_problem(path: str) -> str | None:
+    head, _, joint = path.partition(".")
+    return None if head in _JOINT_ARRAYS and joint else _not_a_field(path, "sensor_msgs/msg/JointState")
+
+
+class _JointStateCodec:
+    """``position|velocity|effort.<joint>``; the joints are located once per new name list."""
+
+    def __init__(self, fields: list[_Field], exact: bool) -> None:
+        self.signs = [f.sign for f in fields]
+        self.heads_joints = [tuple(f.path.split(".", 1)) for f in fields]
+        self.joints = list(dict.fromkeys(joint for _, joint in self.heads_joints))
+        self.write_slots = [(head, self.joints.index(joint)) for head, joint in self.heads_joints]
+        self.write_heads = sorted({head for head, _ in self.write_slots})
+        self.names_seen: tuple[str, ...] | None = None
+        self.slots: list[tuple[int, int]] = []
+
+    def read(self, message: JointState) -> list[float]:
+        key = tuple(message.name)
+        if key != self.names_seen:
+            self._locate_joints(key)          # once per new name list; then plain indexing
+        count = len(key)
+        arrays = (message.position, message.velocity, message.effort)
+        out = []
+        for (array, index), sign in zip(self.slots, self.signs):
+            values = arrays[array]
+            if len(values) != count:
+                raise MessageError("wrong_length", f"{_JOINT_ARRAYS[array]} has {len(values)} entries for "
+                                                   f"{count} joints")
+            out.append(sign * values[index])
+        return out
+
+    def _locate_joints(self, names: tuple[str, ...]) -> None:
+        index = {name: i for i, name in enumerate(names)}
+        if len(index) != len(names):
+            raise MessageError("bad_message", "a joint name appears twice")
+        missing = [j for j in self.joints if j not in index]
+        if missing:
+            raise MessageError("unknown_joint", f"joint(s) {_listed(missing)} not in the message "
+                                                f"(it has {_listed(names) or 'none'})")
+        self.slots = [(_JOINT_ARRAYS.index(head), index[joint]) for head, joint in self.heads_joints]
+        self.names_seen = names
+
+    def write(self, values: Sequence[float], message: JointState) -> None:
+        if list(message.name) != self.joints:
+            message.name = list(self.joints)
+        arrays = {head: [0.0] * len(self.joints) for head in self.write_heads}
+        for (head, slot), sign, v in zip(self.write_slots, self.signs, values):
+            arrays[head][slot] = sign * float(v)
+        for head in _JOINT_ARRAYS:
+            setattr(message, head, arrays.get(head, ()))
+
+
+# -- Float64MultiArray: entries by index ---------------------------------------------------
+def _array_problem(path: str) -> str | None:
+    head, _, index = path.partition(".")
+    if not (head == "data" and index.isascii() and index.isdigit()):
+        return _not_a_field(path, "std_msgs/msg/Float64MultiArray")
+    if len(index) > 6 or int(index) >= _MAX_ENTRIES:
+        return f"{path[:20]!r}: the index must be below {_MAX_ENTRIES}"
+    return None
+
+
+class _ArrayCodec:
+    """``data.<index>``; with the default layout (``exact``) the array must be the vector, no more."""
+
+    def __init__(self, fields: list[_Field], exact: bool) -> None:
+        self.indices = [int(f.path.split(".")[1]) for f in fields]
+        self.signs = [f.sign for f in fields]
+        self.need = max(self.indices) + 1
+        self.exact = exact
+
+    def read(self, message: Float64MultiArray) -> list[float]:
+        data = message.data
+        if len(data) < self.need or (self.exact and len(data) != self.need):
+            raise MessageError("wrong_length", f"data has {len(data)} entries, "
+                                               f"{'exactly ' if self.exact else ''}{self.need} needed")
+        return [s * data[i] for i, s in zip(self.indices, self.signs)]
+
+    def write(self, values: Sequence[float], message: Float64MultiArray) -> None:
+        data = [0.0] * self.need
+        for i, s, v in zip(self.indices, self.signs, values):
+            data[i] = s * float(v)
+        message.data = data
+
+
+# -- Odometry, Wrench, Twist: attributes (and Euler angles of a quaternion) ----------------
+class _AttributeCodec:
+    """Fields at dotted attribute chains (``attribute(path)``, never a bare name); with ``angles``
+    (path prefix, quaternion chain) the ``<prefix>roll|pitch|yaw`` fields go through that quaternion."""
+
+    def __init__(self, fields: list[_Field], attribute: Callable[[str], str],
+                 angles: tuple[str, str] | None = None) -> None:
+        prefix, quaternion = angles if angles is not None else (None, "")
+        self.slots = []                       # (read, parent, name, angle index or None, sign)
+        for f in fields:
+            if prefix is not None and f.path.startswith(prefix):
+                self.slots.append((None, None, "", _ANGLES.index(f.path[len(prefix):]), f.sign))
+                continue
+            chain = attribute(f.path)
+            parent, _, name = chain.rpartition(".")
+            self.slots.append((attrgetter(chain), attrgetter(parent), name, None, f.sign))
+        self.angles = any(slot[3] is not None for slot in self.slots)
+        self.quaternion = attrgetter(quaternion) if self.angles else None
+
+    def read(self, message: Any) -> list[float]:
+        rpy = _quaternion_to_rpy(self.quaternion(message)) if self.angles else ()
+        return [sign * (rpy[angle] if angle is not None else float(get(message)))
+                for get, _, _, angle, sign in self.slots]
+
+    def write(self, values: Sequence[float], message: Any) -> None:
+        rpy = [0.0, 0.0, 0.0]
+        for (_, parent, name, angle, sign), v in zip(self.slots, values):
+            if angle is not None:
+                rpy[angle] = sign * float(v)
+            else:
+                setattr(parent(message), name, sign * float(v))
+        if self.angles:
+            q = self.quaternion(message)
+            q.x, q.y, q.z, q.w = _rpy_to_quaternion(*rpy)
+
+
+def _odometry_problem(path: str) -> str | None:
+    return None if path in _ODOMETRY else _not_a_field(path, "nav_msgs/msg/Odometry")
+
+
+def _odometry_codec(fields: list[_Field], exact: bool) -> _AttributeCodec:
+    # pose.position.x is message.pose.pose.position.x (PoseWithCovariance), twist.* likewise
+    return _AttributeCodec(fields, lambda path: f"{path.split('.', 1)[0]}.{path}",
+                           ("pose.orientation.", "pose.pose.orientation"))
+
+
+def _vector3_row(name: str, cls: type, groups: tuple[str, str]) -> MessageType:
+    """A command type made of two Vector3 groups (``force``/``torque``, ``linear``/``angular``)."""
+
+    def problem(path: str) -> str | None:
+        head, _, axis = path.partition(".")
+        return None if head in groups and axis in _AXES else _not_a_field(path, name)
+
+    return MessageType(name, cls, ("command",), False, problem,
+                       lambda fields, exact: _AttributeCodec(fields, lambda path: path))
+
+
+#: The supported message types, one row each; a new type is a new row (DEVELOPERS.md).
+ADAPTERS: dict[str, MessageType] = {row.name: row for row in (
+    MessageType("std_msgs/msg/Float64MultiArray", Float64MultiArray, ("state", "command"), False, _array_problem,
+                _ArrayCodec, lambda size: [f"data.{i}" for i in range(size)]),
+    MessageType("sensor_msgs/msg/JointState", JointState, ("state", "command"), True, _joint_state_problem,
+                _JointStateCodec),
+    MessageType("nav_msgs/msg/Odometry", Odometry, ("state",), True, _odometry_problem, _odometry_codec),
+    _vector3_row("geometry_msgs/msg/Wrench", Wrench, ("force", "torque")),
+    _vector3_row("geometry_msgs/msg/Twist", Twist, ("linear", "angular")),
+)}
+STATE_TYPES = tuple(name for name, row in ADAPTERS.items() if "state" in row.directions)
+COMMAND_TYPES = tuple(name for name, row in ADAPTERS.items() if "command" in row.directions)
+
+
 class FieldMap:
     """How one vector (states or inputs) sits in one message type.
 
@@ -206,84 +417,37 @@ class FieldMap:
     Raises
     ------
     ConfigError
-        For an unknown field, a repeated one, or the wrong number of fields.
+        For an unknown type or field, a repeated field, or the wrong number of fields.
     """
 
     def __init__(self, type_name: str, fields: Sequence[str], size: int, option: str) -> None:
+        row = ADAPTERS.get(type_name)
+        if row is None:
+            message_class(type_name, tuple(ADAPTERS), option)
         self.type_name = type_name
-        self.cls = _CLASSES[type_name]
+        self.cls = row.cls
+        self.stamped = row.stamped
         if size < 1:
             raise ConfigError(option, f"expected at least one entry, got {size}")
         self.exact = not fields              # the default layout: the array is the vector, no more
         if not fields:
-            if type_name != "std_msgs/msg/Float64MultiArray":
+            if row.default_fields is None:
                 raise ConfigError(option, f"{type_name} needs one field per entry ({size} expected)")
-            fields = [f"data.{i}" for i in range(size)]
+            fields = row.default_fields(size)
         if len(fields) != size:
             raise ConfigError(option, f"expected {size} field paths, one per entry, got {len(fields)}")
-        parsed = []
-        for text in fields:
-            if not isinstance(text, str) or not text.strip():
-                raise ConfigError(option, f"expected field paths as text, got {text!r}")
-            text = text.strip()
-            sign = -1.0 if text.startswith("-") else 1.0
-            parsed.append(_Field(text.lstrip("-").strip(), sign))
+        parsed = [_parse_field(text, option) for text in fields]
         paths = [f.path for f in parsed]
         if len(set(paths)) != len(paths):
             raise ConfigError(option, "a field path appears twice")
-        for f in parsed:
-            self._check_path(f.path, option)
+        for path in paths:
+            problem = row.path_problem(path)
+            if problem is not None:
+                raise ConfigError(option, problem)
         self.fields = parsed
         self.size = size
-        self.joints = list(dict.fromkeys(f.path.split(".", 1)[1] for f in parsed)) \
-            if type_name == "sensor_msgs/msg/JointState" else []
-        self._signs = [f.sign for f in parsed]
-        if type_name == "sensor_msgs/msg/JointState":
-            self._write_slots = [(f.path.split(".", 1)[0], self.joints.index(f.path.split(".", 1)[1])) for f in parsed]
-            self._write_heads = sorted({head for head, _ in self._write_slots})
-        self._names_seen: tuple[str, ...] | None = None
-        self._slots: list[tuple[int, int]] = []
-        self._read = self._reader()
-
-    def _check_path(self, path: str, option: str) -> None:
-        t = self.type_name
-        ok = False
-        if t == "sensor_msgs/msg/JointState":
-            head, _, joint = path.partition(".")
-            ok = head in _JOINT_ARRAYS and bool(joint)
-        elif t == "nav_msgs/msg/Odometry":
-            ok = path in _ODOMETRY
-        elif t == "std_msgs/msg/Float64MultiArray":
-            head, _, index = path.partition(".")
-            ok = head == "data" and index.isascii() and index.isdigit()
-            if ok and (len(index) > 6 or int(index) >= _MAX_ENTRIES):
-                raise ConfigError(option, f"{path[:20]!r}: the index must be below {_MAX_ENTRIES}")
-        else:
-            head, _, axis = path.partition(".")
-            ok = head in _VECTOR3[t] and axis in _AXES
-        if not ok:
-            raise ConfigError(option, f"{path!r} is not a field of {t} (see the adapters' field paths)")
-
-    # -- reading -------------------------------------------------------------------------
-    def _reader(self) -> Callable[[Any], list[float]]:
-        t = self.type_name
-        if t == "sensor_msgs/msg/JointState":
-            return self._read_joint_state
-        if t == "std_msgs/msg/Float64MultiArray":
-            indices = [int(f.path.split(".")[1]) for f in self.fields]
-            signs = [f.sign for f in self.fields]
-            need = max(indices) + 1
-            exact = self.exact
-
-            def read_array(message) -> list[float]:
-                data = message.data
-                if len(data) < need or (exact and len(data) != need):
-                    raise MessageError("wrong_length", f"data has {len(data)} entries, "
-                                                       f"{'exactly ' if exact else ''}{need} needed")
-                return [s * data[i] for i, s in zip(indices, signs)]
-
-            return read_array
-        return self._read_attributes
+        codec = row.bind(parsed, self.exact)
+        self._read, self._write = codec.read, codec.write
 
     def read(self, message: Any) -> list[float]:
         """The vector carried by a message.
@@ -302,54 +466,6 @@ class FieldMap:
         """
         return self._read(message)
 
-    def _read_joint_state(self, message: JointState) -> list[float]:
-        names = message.name
-        key = tuple(names)
-        if key != self._names_seen:
-            self._locate_joints(key)          # once per new name list; then plain indexing
-        count = len(key)
-        arrays = (message.position, message.velocity, message.effort)
-        out = []
-        for (array, index), sign in zip(self._slots, self._signs):
-            values = arrays[array]
-            if len(values) != count:
-                raise MessageError("wrong_length", f"{_JOINT_ARRAYS[array]} has {len(values)} entries for "
-                                                   f"{count} joints")
-            out.append(sign * values[index])
-        return out
-
-    def _locate_joints(self, names: tuple[str, ...]) -> None:
-        index = {name: i for i, name in enumerate(names)}
-        if len(index) != len(names):
-            raise MessageError("bad_message", "a joint name appears twice")
-        missing = [j for j in self.joints if j not in index]
-        if missing:
-            raise MessageError("unknown_joint", f"joint(s) {_listed(missing)} not in the message "
-                                                f"(it has {_listed(names) or 'none'})")
-        slots = []
-        for f in self.fields:
-            head, joint = f.path.split(".", 1)
-            slots.append((_JOINT_ARRAYS.index(head), index[joint]))
-        self._slots = slots
-        self._names_seen = names
-
-    def _read_attributes(self, message: Any) -> list[float]:
-        out = []
-        rpy = None
-        for f in self.fields:
-            if f.path.startswith("pose.orientation."):
-                if rpy is None:
-                    rpy = _quaternion_to_rpy(message.pose.pose.orientation)
-                value = rpy[("roll", "pitch", "yaw").index(f.path.rsplit(".", 1)[1])]
-            elif f.path.startswith(("pose.", "twist.")) and self.type_name == "nav_msgs/msg/Odometry":
-                head, rest = f.path.split(".", 1)
-                value = _attribute(getattr(message, head), head + "." + rest)
-            else:
-                value = _attribute(message, f.path)
-            out.append(f.sign * value)
-        return out
-
-    # -- writing -------------------------------------------------------------------------
     def write(self, values: Sequence[float], message: Any | None = None) -> Any:
         """A message carrying the vector (fields not in the map are left at their defaults).
 
@@ -364,64 +480,13 @@ class FieldMap:
         ROS message
         """
         message = message if message is not None else self.cls()
-        t = self.type_name
-        if t == "sensor_msgs/msg/JointState":
-            if list(message.name) != self.joints:
-                message.name = list(self.joints)
-            arrays = {head: [0.0] * len(self.joints) for head in self._write_heads}
-            for (head, slot), sign, v in zip(self._write_slots, self._signs, values):
-                arrays[head][slot] = sign * float(v)
-            for head in _JOINT_ARRAYS:
-                setattr(message, head, arrays.get(head, ()))
-            return message
-        if t == "std_msgs/msg/Float64MultiArray":
-            size = max(int(f.path.split(".")[1]) for f in self.fields) + 1
-            data = [0.0] * size
-            for f, v in zip(self.fields, values):
-                data[int(f.path.split(".")[1])] = f.sign * float(v)
-            message.data = data
-            return message
-        rpy = [0.0, 0.0, 0.0]
-        orientation = False
-        for f, v in zip(self.fields, values):
-            if f.path.startswith("pose.orientation."):
-                rpy[("roll", "pitch", "yaw").index(f.path.rsplit(".", 1)[1])] = f.sign * float(v)
-                orientation = True
-            elif t == "nav_msgs/msg/Odometry":
-                head, rest = f.path.split(".", 1)
-                _set_attribute(getattr(message, head), head + "." + rest, f.sign * float(v))
-            else:
-                _set_attribute(message, f.path, f.sign * float(v))
-        if orientation:
-            q = message.pose.pose.orientation
-            q.x, q.y, q.z, q.w = _rpy_to_quaternion(*rpy)
+        self._write(values, message)
         return message
 
 
-def _listed(names: Sequence[str], most: int = 8) -> str:
-    """Names for a message: quoted (a name may hold a line break), at most ``most`` of them."""
-    shown = ", ".join(repr(n) for n in names[:most])
-    return shown + (f", ... ({len(names)} in all)" if len(names) > most else "")
-
-
-def _attribute(message: Any, path: str) -> float:
-    """``pose.position.x`` of an Odometry is ``message.pose.pose.position.x`` (PoseWithCovariance)."""
-    parts = path.split(".")
-    obj = message
-    if parts[0] in ("pose", "twist") and hasattr(obj, parts[0]):
-        obj = getattr(obj, parts[0])
-        parts = parts[1:]
-    for part in parts:
-        obj = getattr(obj, part)
-    return float(obj)
-
-
-def _set_attribute(message: Any, path: str, value: float) -> None:
-    parts = path.split(".")
-    obj = message
-    if parts[0] in ("pose", "twist") and hasattr(obj, parts[0]):
-        obj = getattr(obj, parts[0])
-        parts = parts[1:]
-    for part in parts[:-1]:
-        obj = getattr(obj, part)
-    setattr(obj, parts[-1], value)
+def _parse_field(text: Any, option: str) -> _Field:
+    """A field path with its sign (a leading ``-`` negates)."""
+    if not isinstance(text, str) or not text.strip():
+        raise ConfigError(option, f"expected field paths as text, got {text!r}")
+    text = text.strip()
+    return _Field(text.lstrip("-").strip(), -1.0 if text.startswith("-") else 1.0)

@@ -16,237 +16,32 @@ from __future__ import annotations
 
 import gc
 import math
-import statistics
 import time
-from collections import deque
-from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any, Sequence
 
-import numpy as np
 from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus, KeyValue
 from rcl_interfaces.msg import SetParametersResult
 from rclpy.clock import Clock, ClockType
 from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackReturn
 from std_msgs.msg import Float64MultiArray
 
-from linz_ros.artifact import MAX_WATCHDOG_SECONDS, WATCHDOG_SETTINGS, load_artifact, watchdog_problem
-from linz_ros.artifact.watchdog import RUNTIME_SETTINGS, setting_problem
-from linz_ros.artifact.watchdog import setting as watchdog_setting
+from linz_ros.artifact import load_artifact
 from linz_ros.errors import LinzError
-from linz_ros.nodes._common import EXECUTORS, SAFETY_NOTICE, control_qos, declare, spin_node
+from linz_ros.nodes._common import EXECUTORS, SAFETY_NOTICE, control_qos, declare, entry_point
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, labelled_array,
                                      message_class, set_stamp, stamp_seconds)
-from linz_ros.runtime import MODES, ControllerCore, WatchdogConfig, extrapolate_reference, parse_reference
-from linz_ros.runtime.closed_loop import initial_outputs
-from linz_ros.runtime.fieldlog import (CONDITIONING_FIELDS, FieldLogSettings, FieldLogWriter, conditioning_labels,
-                                       conditioning_values, open_field_log)
+from linz_ros.runtime import ControllerCore, WatchdogConfig
+from linz_ros.runtime.controller_settings import (DYNAMIC, controller_parameters, field_log_settings,
+                                                  no_state_timeout, parameter_problem, watchdog_overrides)
+from linz_ros.runtime.diagnostics import DiagnosticWindow, field_log_report
+from linz_ros.runtime.fieldlog import FieldLogWriter, open_field_log
+from linz_ros.runtime.reference_source import TOPIC, ReferenceSource
+from linz_ros.runtime.steprecord import encode as conditioning_values, record_labels as conditioning_labels
 
-__all__ = ["ControllerNode", "main", "CONDITIONING_FIELDS", "DiagnosticWindow"]
+__all__ = ["ControllerNode", "main"]
 
-#: Watchdog settings that may change while the node is active (the table says which).
-DYNAMIC = RUNTIME_SETTINGS
-_UNSET = -1.0
-#: Watchdog settings declared from the table; future_tolerance and safe_command have node rules of their own.
-_TABLE_PARAMETERS = tuple(row for row in WATCHDOG_SETTINGS if row.name not in ("future_tolerance", "safe_command"))
-#: In simulated time a state may be stamped ahead of the last /clock this node has handled.
-SIM_TIME_FUTURE_TOLERANCE = 0.5
-#: In simulated time, wall seconds without a state before the safe command, at the least: a slow
-#: simulator holds simulated time still, and its next state is not late in it.
-SIM_TIME_NO_STATE_TIMEOUT = 0.5
-
-
-@dataclass
-class DiagnosticWindow:
-    """What happened since the last diagnostics message."""
-
-    started: float
-    steps: int = 0
-    min_sigma: float = math.inf
-    max_condition: float = 0.0
-    saturated: int = 0
-    warned: int = 0
-    modes: dict[str, int] = field(default_factory=lambda: {m: 0 for m in MODES})
-    rejected: int = 0
-    stale: int = 0
-    singular: int = 0
-    reference_stale: int = 0
-    reference_missing: int = 0
-    publish_failures: int = 0
-    unstamped: int = 0                 # states whose header stamp was zero (judged by arrival)
-    outside_envelope: int = 0          # steps outside the widened envelope (acted on or not)
-    diverging: int = 0                 # steps the divergence watchdog flagged
-    compute: list[float] = field(default_factory=list)
-
-    def add(self, record) -> None:
-        """Count one step's record."""
-        self.steps += 1
-        self.modes[record.mode] += 1
-        self.singular += record.reason == "singular"
-        if math.isfinite(record.sigma_min):
-            self.min_sigma = min(self.min_sigma, record.sigma_min)
-        if math.isfinite(record.condition):
-            self.max_condition = max(self.max_condition, record.condition)
-        elif record.condition == math.inf:
-            self.max_condition = math.inf
-        self.saturated += any(record.saturated)
-        self.warned += record.warn
-        if record.alarms:
-            self.outside_envelope += record.alarms & 1
-            self.diverging += record.alarms >> 1 & 1
-        self.compute.append(record.compute_time)
-
-    def level(self) -> tuple[bytes, str]:
-        """OK, WARN or ERROR with a one-line summary.
-
-        ERROR when any step sent the safe (or held) command: singular, stale or rejected
-        state; WARN when near singular (damped or under the warn level), saturating, or
-        holding because the reference stalled; OK otherwise.
-        """
-        if self.publish_failures:
-            return DiagnosticStatus.ERROR, f"{self.publish_failures} message(s) refused by the middleware"
-        if self.modes["stopping"]:
-            return DiagnosticStatus.ERROR, (f"controlled stop: outside the envelope {self.outside_envelope}x; "
-                                            "holding the outputs until the state is back inside the envelope")
-        if self.modes["safe"] or self.modes["held"]:
-            why = [f"{label} {count}x" for label, count in (("diverging", self.diverging),
-                                                            ("outside the envelope", self.outside_envelope),
-                                                            ("singular", self.singular), ("state stale", self.stale),
-                                                            ("state rejected", self.rejected)) if count]
-            return DiagnosticStatus.ERROR, "safe command sent: " + (", ".join(why) or "safe command")
-        why = [f"{label} {count}x (warn only)" for label, count in (("diverging", self.diverging),
-                                                                   ("outside the envelope", self.outside_envelope))
-               if count]
-        if self.modes["damped"]:
-            why.append("near singular: damped")
-        elif self.warned:
-            why.append("sigma_min under the warn level")
-        if self.saturated:
-            why.append("saturating")
-        if self.reference_stale:
-            why.append("reference stale: holding")
-        if self.reference_missing:
-            why.append("no reference received: holding")
-        if why:
-            return DiagnosticStatus.WARN, ", ".join(why)
-        if self.steps == 0:
-            return DiagnosticStatus.WARN, "active, but no state received"
-        return DiagnosticStatus.OK, "nominal"
-
-    def values(self, now: float) -> list[KeyValue]:
-        """Key values of the window."""
-        span = max(now - self.started, 1e-9)
-        p99 = float(np.percentile(self.compute, 99)) * 1e6 if self.compute else math.nan
-        pairs = [("window_min_sigma", self.min_sigma if self.steps else math.nan),
-                 ("max_condition", self.max_condition if self.steps else math.nan),
-                 ("saturated_fraction", self.saturated / self.steps if self.steps else 0.0),
-                 ("stale_count", self.stale), ("rejected_count", self.rejected),
-                 ("reference_stale_count", self.reference_stale),
-                 ("reference_missing_count", self.reference_missing),
-                 ("publish_failures", self.publish_failures), ("unstamped_count", self.unstamped),
-                 ("outside_envelope_count", self.outside_envelope), ("diverging_count", self.diverging),
-                 ("loop_rate_hz", self.steps / span), ("compute_time_p99_us", p99)]
-        pairs += [(f"mode_{m}", c) for m, c in self.modes.items()]
-        return [KeyValue(key=k, value=f"{v:.6g}" if isinstance(v, float) else str(v)) for k, v in pairs]
-
-
-def _table_override(shape: str, value: Any) -> Any:
-    """A node parameter's value as a WatchdogConfig override, or None for "the artifact's"."""
-    if shape == "scalar":
-        return None if value == _UNSET else float(value)
-    if shape == "choice":
-        return None if value == "artifact" else value
-    values = list(value)
-    return tuple(math.inf if v == 0 else float(v) for v in values) if values else None
-
-
-def _parameter_problem(changed: dict[str, Any], values: dict[str, Any]) -> str | None:
-    """Why a change of watchdog parameters is refused, by the table's check, or None."""
-    rows = {row.name: row for row in _TABLE_PARAMETERS}
-    for name, value in changed.items():
-        row = rows.get(name)
-        if row is None:
-            continue
-        if row.shape == "scalar" and value != _UNSET and not value >= 0:
-            return f"{name} must be -1 (the artifact's value) or >= 0, got {value:g}"
-        if row.shape in ("per_input", "per_output") and any(not v >= 0 for v in value):
-            return f"{name} must be >= 0 (0: {row.none_means})"
-        override = _table_override(row.shape, value)
-        canonical = list(override) if isinstance(override, tuple) else override
-        problem = None if override is None else setting_problem(name, canonical)
-        if problem:
-            return f"{name}: {problem}"
-    levels = {k: values[k] for k in ("sigma_warn", "sigma_act", "sigma_stop") if values[k] != _UNSET}
-    found = watchdog_problem(levels)
-    return None if found is None else f"{found[0]}: {found[1]}"
-
-
-class _ReferenceSource:
-    """The reference vector at time t: from the reference topic, or from a built-in generator."""
-
-    def __init__(self, core: ControllerCore, spec: str, timeout: float, outputs: list[str],
-                 extrapolate: bool = True) -> None:
-        self.core = core
-        self.spec = spec
-        self.timeout = timeout
-        self.extrapolate = extrapolate
-        self.outputs = outputs
-        self.latest: list[float] | None = None
-        self.latest_at = -math.inf
-        self.interval = 0.0            # typical time between reference messages (median of the last few)
-        self._intervals: deque[float] = deque(maxlen=9)
-        self.generator = None
-        self.origin: float | None = 0.0
-        self.latched: list[float] | None = None
-        self.stale = False
-        if spec != "topic":
-            # checked now so that configure fails on a bad spec
-            parse_reference(spec, core.orders, [0.0] * len(core.orders), outputs)
-
-    def restart(self, now: float) -> None:
-        self.generator = None
-        # times of a built-in reference count from activation; in simulated time before the
-        # first /clock the clock reads zero, so the origin is taken at the first real reading
-        self.origin = now if now > 0.0 else None
-        self.latched = None
-
-    def accept(self, values: Sequence[float], now: float) -> bool:
-        values = list(values)
-        if len(values) != self.core.reference_size or not all(math.isfinite(v) for v in values):
-            return False
-        if math.isfinite(self.latest_at):
-            # the median, not the last gap: messages that arrive bunched (a late one, then the next
-            # at once) would otherwise stop the extrapolation after almost no time
-            self._intervals.append(now - self.latest_at)
-            self.interval = statistics.median(self._intervals)
-        self.latest, self.latest_at = values, now
-        return True
-
-    def sample(self, x: Sequence[float], now: float) -> list[float]:
-        if self.spec != "topic":
-            if self.generator is None:
-                try:
-                    base = initial_outputs(self.core, x)
-                except LinzError:       # the core refuses this state; the move starts from the next good one
-                    return [math.nan] * self.core.reference_size
-                self.generator = parse_reference(self.spec, self.core.orders, base, self.outputs)
-            if self.origin is None and now > 0.0:
-                self.origin = now
-            return self.generator.sample(now - (self.origin if self.origin is not None else now))
-        if self.latest is not None and now - self.latest_at <= self.timeout:
-            self.stale = False
-            self.latched = None
-            # carried forward at most one typical message interval: a reference that stalls mid-move
-            # stops moving after one interval (and is held at the outputs after the timeout)
-            ahead = min(now - self.latest_at, self.interval)
-            if self.extrapolate and ahead > 0.0:
-                return extrapolate_reference(self.latest, self.core.orders, ahead)
-            return self.latest
-        # no reference, or it stalled: hold the outputs where they were when it stopped
-        self.stale = True
-        if self.latched is None:
-            self.latched = self.core.hold_reference(x)
-        return self.latched
+#: diagnostic_msgs levels by the runtime's level numbers (OK, WARN, ERROR).
+_LEVELS = (DiagnosticStatus.OK, DiagnosticStatus.WARN, DiagnosticStatus.ERROR)
 
 
 class ControllerNode(LifecycleNode):
@@ -288,93 +83,14 @@ class ControllerNode(LifecycleNode):
 
     # -- parameters ----------------------------------------------------------------------
     def _declare_parameters(self) -> None:
-        p = {}
-        p["artifact"] = declare(self, "artifact", "", "controller artifact file (from linz build)", read_only=True)
-        p["plant_file"] = declare(self, "plant_file", "", "plant file to compare with the artifact's hash "
-                                  "(default: the one recorded at build time)", read_only=True)
-        p["allow_plant_change"] = declare(self, "allow_plant_change", False, "accept a changed plant file",
-                                          read_only=True)
-        p["trusted_keys"] = declare(self, "trusted_keys", [], "public keys (PEM files): accept only an artifact "
-                                    "signed with one of them (empty: signatures not required)", read_only=True,
-                                    array_of=str)
-        p["state_topic"] = declare(self, "state_topic", "state", "state topic", read_only=True)
-        p["state_type"] = declare(self, "state_type", "std_msgs/msg/Float64MultiArray",
-                                  f"one of {', '.join(STATE_TYPES)}", read_only=True)
-        p["state_fields"] = declare(self, "state_fields", [], "field path of each state, in the artifact's "
-                                    "order (empty: data.0, data.1, ...)", read_only=True, array_of=str)
-        p["command_topic"] = declare(self, "command_topic", "command", "command topic", read_only=True)
-        p["command_type"] = declare(self, "command_type", "std_msgs/msg/Float64MultiArray",
-                                    f"one of {', '.join(COMMAND_TYPES)}", read_only=True)
-        p["command_fields"] = declare(self, "command_fields", [], "field path of each input, in the "
-                                      "artifact's order (empty: data.0, ...)", read_only=True, array_of=str)
-        p["reference_topic"] = declare(self, "reference_topic", "reference", "reference topic", read_only=True)
-        p["reference"] = declare(self, "reference", "topic", "'topic', or a built-in reference such as "
-                                 "'smooth:tool_x=0.05,duration=2' (starts at activation)", read_only=True)
-        p["reference_timeout"] = declare(self, "reference_timeout", 0.5, "hold the outputs when the reference "
-                                         "topic is older than this (s)", read_only=True, minimum=0.0)
-        p["reference_extrapolate"] = declare(self, "reference_extrapolate", True, "carry the latest topic "
-                                             "reference forward along its derivatives until the next one",
-                                             read_only=True)
-        p["conditioning_topic"] = declare(self, "conditioning_topic", "~/conditioning", "per-step record topic",
-                                          read_only=True)
-        p["diagnostics_period"] = declare(self, "diagnostics_period", 1.0, "seconds between diagnostics",
-                                          read_only=True, minimum=0.01, maximum=60.0)
-        p["autostart"] = declare(self, "autostart", False, "configure and activate at start-up", read_only=True)
-        p["executor"] = declare(self, "executor", "single_threaded", f"one of {', '.join(EXECUTORS)}",
-                                read_only=True)
-        for row in _TABLE_PARAMETERS:
-            text = f"{row.help} ({row.unit})"
-            if row.shape == "scalar":
-                p[row.name] = declare(self, row.name, _UNSET, f"{text}; -1: the artifact's value", minimum=-1.0,
-                                      maximum=row.upper if row.upper <= MAX_WATCHDOG_SECONDS else None,
-                                      read_only=not row.runtime)
-            elif row.shape == "choice":
-                p[row.name] = declare(self, row.name, "artifact", f"{text}: artifact or one of "
-                                      f"{', '.join(row.choices)}", read_only=not row.runtime)
-            else:
-                p[row.name] = declare(self, row.name, [], f"{text}; one per {row.shape[4:]} (0: {row.none_means}); "
-                                      "empty: the artifact's", array_of=float, read_only=not row.runtime)
-        p["future_tolerance"] = declare(self, "future_tolerance", _UNSET, f"{watchdog_setting('future_tolerance').help} "
-                                        "(s); -1: stale_after, or 0.5 s in simulated time, where /clock and the "
-                                        "states travel apart", read_only=True, minimum=-1.0,
-                                        maximum=MAX_WATCHDOG_SECONDS)
-        p["no_state_timeout"] = declare(self, "no_state_timeout", _UNSET, "wall-clock seconds without an "
-                                        "accepted state before the safe command, whatever time says (a dead "
-                                        "simulator stops /clock too); -1: stale_after, or the larger of stale_after "
-                                        "and 0.5 s in simulated time, where a slow simulator holds time still",
-                                        read_only=True, minimum=-1.0, maximum=MAX_WATCHDOG_SECONDS)
-        p["field_log_folder"] = declare(self, "field_log_folder", "", "write every step's record to MCAP field "
-                                        "logs in this folder ('': no field log)", read_only=True)
-        p["field_log_max_mb"] = declare(self, "field_log_max_mb", 256.0, "start a new log file at this size (MB; "
-                                        "0: never)", read_only=True, minimum=0.0)
-        p["field_log_max_minutes"] = declare(self, "field_log_max_minutes", 60.0, "start a new log file after "
-                                             "this long (min; 0: never)", read_only=True, minimum=0.0)
-        p["field_log_flush_period"] = declare(self, "field_log_flush_period", 0.5, "close and flush a chunk at "
-                                              "least this often (s; a crash loses at most this much)",
-                                              read_only=True, minimum=0.01, maximum=1.0)
-        p["field_log_queue"] = declare(self, "field_log_queue", 20000, "records that may wait for the disk; more "
-                                       "are dropped and counted", read_only=True, minimum=1)
-        p["safe_command"] = declare(self, "safe_command", "artifact", f"{watchdog_setting('safe_command').help}: "
-                                    "artifact (the artifact's), zero, hold or fixed (with safe_value)", read_only=True)
-        p["safe_value"] = declare(self, "safe_value", [], "the fixed safe command, per input", read_only=True,
-                                  array_of=float)
-        self.params = p
+        self.params = {spec.name: declare(self, spec.name, spec.default, spec.description, spec.read_only,
+                                          spec.minimum, spec.maximum, spec.array_of)
+                       for spec in controller_parameters(STATE_TYPES, COMMAND_TYPES, EXECUTORS)}
 
-    def _watchdog_overrides(self, values: dict[str, Any]) -> dict[str, Any]:
-        overrides: dict[str, Any] = {}
-        for row in _TABLE_PARAMETERS:
-            value = _table_override(row.shape, values[row.name])
-            if value is not None:
-                overrides[row.name] = value
-        if values.get("future_tolerance", _UNSET) >= 0:
-            overrides["future_tolerance"] = float(values["future_tolerance"])
-        elif self.get_parameter("use_sim_time").value:
-            overrides["future_tolerance"] = SIM_TIME_FUTURE_TOLERANCE
-        if values.get("safe_command", "artifact") != "artifact":
-            overrides["safe_kind"] = values["safe_command"]
-            if values["safe_command"] == "fixed":
-                overrides["safe_value"] = tuple(float(v) for v in values["safe_value"])
-        return overrides
+    def _config(self, artifact: Any, values: dict[str, Any]) -> WatchdogConfig:
+        """The watchdog settings of the artifact with the parameters' overrides."""
+        sim_time = bool(self.get_parameter("use_sim_time").value)
+        return WatchdogConfig.from_artifact(artifact, **watchdog_overrides(values, sim_time))
 
     def _on_set_parameters(self, parameters) -> SetParametersResult:
         """Watchdog settings may change at any time; topics, the artifact and the clock may not.
@@ -390,14 +106,14 @@ class ControllerNode(LifecycleNode):
         if static:
             return SetParametersResult(successful=False, reason=f"{static[0]} cannot change while the node runs")
         values = dict(self.params, **changed)
-        refusal = _parameter_problem(changed, values)
+        refusal = parameter_problem(changed, values)
         if refusal is not None:
             return SetParametersResult(successful=False, reason=refusal)
         if self.core is None:
             self.params.update(changed)
             return SetParametersResult(successful=True)
         try:
-            config = WatchdogConfig.from_artifact(self.core.artifact, **self._watchdog_overrides(values))
+            config = self._config(self.core.artifact, values)
             # the staleness check at the new period, made before anything changes
             rearmed = [self._stale_timer(config.stale_after)] \
                 if config.stale_after != self.core.config.stale_after and self._owned_timers else None
@@ -444,16 +160,15 @@ class ControllerNode(LifecycleNode):
         artifact = load_artifact(p["artifact"], plant_path=p["plant_file"] or None,
                                  allow_plant_change=p["allow_plant_change"],
                                  trusted_keys=[k for k in p["trusted_keys"] if k] or None)
-        config = WatchdogConfig.from_artifact(artifact, **self._watchdog_overrides(p))
-        core = ControllerCore(artifact, config)
+        core = ControllerCore(artifact, self._config(artifact, p))
         message_class(p["state_type"], STATE_TYPES, "state_type")
         message_class(p["command_type"], COMMAND_TYPES, "command_type")
         self.state_map = FieldMap(p["state_type"], [f for f in p["state_fields"] if f], len(artifact.states),
                                   "state_fields")
         self.command_map = FieldMap(p["command_type"], [f for f in p["command_fields"] if f], len(artifact.inputs),
                                     "command_fields")
-        self.reference = _ReferenceSource(core, p["reference"].strip(), p["reference_timeout"], artifact.outputs,
-                                          p["reference_extrapolate"])
+        self.reference = ReferenceSource(core, p["reference"].strip(), p["reference_timeout"], artifact.outputs,
+                                         p["reference_extrapolate"])
         self.core = core
         # without simulated time the node's clock is the system clock: read it directly in the
         # loop (rclpy's Clock.now costs about ten microseconds); use_sim_time is fixed from here on
@@ -466,9 +181,9 @@ class ControllerNode(LifecycleNode):
         self._no_ref = [math.nan] * len(core.orders)
         self._conditioning_message = labelled_array([0.0] * len(self._conditioning_labels), self._conditioning_labels)
         self._command_message = self.command_map.cls()
-        self._stamped_type = hasattr(self.state_map.cls, "header")
+        self._stamped_type = self.state_map.stamped
         self._owned_subscriptions = [self.create_subscription(self.state_map.cls, p["state_topic"], self._on_state, qos)]
-        if self.reference.spec == "topic":
+        if self.reference.spec == TOPIC:
             self._owned_subscriptions.append(self.create_subscription(Float64MultiArray, p["reference_topic"],
                                                                 self._on_reference, qos))
         self._owned_timers = [self._stale_timer(core.config.stale_after)]
@@ -482,11 +197,8 @@ class ControllerNode(LifecycleNode):
         if not p["field_log_folder"]:
             return
         try:
-            settings = FieldLogSettings(Path(p["field_log_folder"]), prefix=self.get_name(),
-                                        max_bytes=int(p["field_log_max_mb"] * 2**20),
-                                        max_seconds=60.0 * p["field_log_max_minutes"],
-                                        flush_period=p["field_log_flush_period"], queue_size=p["field_log_queue"])
-            self.field_log = open_field_log(settings, self.core.artifact, self.core.config, p, self.get_name())
+            self.field_log = open_field_log(field_log_settings(p, self.get_name()), self.core.artifact,
+                                            self.core.config, p, self.get_name())
         except LinzError as err:
             self.field_log_error = str(err)
             self.get_logger().error(f"field log not recording (controlling goes on): {err}")
@@ -610,9 +322,7 @@ class ControllerNode(LifecycleNode):
                 return
             self.core.reset()
             self._stale_suspect = False
-            self.reference.latest_at += delta
-            if self.reference.origin is not None:
-                self.reference.origin += delta
+            self.reference.shift(delta)
             if self.active:
                 now = self._now()
                 u, record = self.core.safe_step(now, "stale")
@@ -682,14 +392,11 @@ class ControllerNode(LifecycleNode):
         Returns
         -------
         float
-            ``no_state_timeout`` when set; otherwise ``stale_after``, and in simulated time
-            (or before configure) at least :data:`SIM_TIME_NO_STATE_TIMEOUT` (staleness proper is judged on the
-            stamps against simulated time, which stands still while the simulator is slow).
+            By :func:`linz_ros.runtime.controller_settings.no_state_timeout` (before configure,
+            as in simulated time).
         """
-        if self.params["no_state_timeout"] != _UNSET:
-            return float(self.params["no_state_timeout"])
         stale_after = self.core.config.stale_after if self.core is not None else 0.0
-        return stale_after if self._system_time else max(stale_after, SIM_TIME_NO_STATE_TIMEOUT)
+        return no_state_timeout(self.params["no_state_timeout"], stale_after, self._system_time)
 
     def _check_stale(self) -> None:
         if not self.active or self.core is None:
@@ -704,11 +411,10 @@ class ControllerNode(LifecycleNode):
         if not self._stale_suspect:          # confirm on the next tick, after the queued states ran
             self._stale_suspect = True
             return
-        if stale:
-            self.window.stale += 1
-            u, record = self.core.safe_step(now, "stale")
-            self._publish(u, record, now)
-            self.get_logger().warning("no fresh state: safe command", throttle_duration_sec=2.0)
+        self.window.stale += 1
+        u, record = self.core.safe_step(now, "stale")
+        self._publish(u, record, now)
+        self.get_logger().warning("no fresh state: safe command", throttle_duration_sec=2.0)
 
     def _publish(self, u: list[float], record, stamp: float, ref: Sequence[float] | None = None,
                  x: Sequence[float] | None = None) -> None:
@@ -751,59 +457,39 @@ class ControllerNode(LifecycleNode):
         else:
             status.hardware_id = self.core.artifact.name
             if self.active:
-                status.level, status.message = self.window.level()
+                level, status.message = self.window.level()
+                status.level = _LEVELS[level]
             else:
                 status.level, status.message = DiagnosticStatus.OK, "inactive: not commanding"
-            status.values = self.window.values(now)
+            status.values = [KeyValue(key=k, value=v) for k, v in self.window.values(now)]
             self._field_log_diagnostics(status)
         array = DiagnosticArray(status=[status])
         array.header.stamp = self.get_clock().now().to_msg()
         self._diagnostics_pub.publish(array)
         self.window = DiagnosticWindow(now)
 
-
     def _field_log_diagnostics(self, status: DiagnosticStatus) -> None:
         """Field-log state in the diagnostics: ERROR when it stopped, WARN when records were dropped."""
-        folder = self.params["field_log_folder"]
-        if not folder:
+        if not self.params["field_log_folder"]:
             return
-        log = self.field_log
-        if log is None or log.status.state == "failed":
-            why = f"field log not recording: {self.field_log_error}" if log is None else \
-                f"field log stopped: {log.status.error}"
-            status.level = DiagnosticStatus.ERROR
-            status.message = f"{status.message}; {why}"
-        if log is None:
-            status.values.append(KeyValue(key="field_log", value="not recording"))
+        s = self.field_log.status if self.field_log is not None else None
+        level, notes, values = field_log_report(s, self.field_log_error, self._field_log_reported)
+        status.level = max(status.level, _LEVELS[level])
+        status.message = "; ".join([status.message, *notes])
+        status.values += [KeyValue(key=k, value=v) for k, v in values]
+        if s is None:
             return
-        s = log.status
         if s.dropped > self._field_log_reported[0]:
-            status.level = max(status.level, DiagnosticStatus.WARN)
-            status.message = f"{status.message}; field log dropped {s.dropped - self._field_log_reported[0]} records"
             self.get_logger().warning(f"field log behind the loop: {s.dropped} records dropped so far (the gaps "
                                       "show in the file's sequence numbers)")
         if s.state == "failed" and s.lost > self._field_log_reported[1]:
             self.get_logger().error(f"field log stopped ({s.error}): {s.lost} records not recorded",
                                     throttle_duration_sec=10.0)
         self._field_log_reported = (s.dropped, s.lost)
-        status.values += [KeyValue(key="field_log", value=str(s.path)), KeyValue(key="field_log_state", value=s.state),
-                          KeyValue(key="field_log_written", value=str(s.written)),
-                          KeyValue(key="field_log_dropped", value=str(s.dropped)),
-                          KeyValue(key="field_log_lost", value=str(s.lost))]
 
 
-def main(args: Sequence[str] | None = None) -> int:
-    """Console entry point ``linz_controller`` (accepts ``--ros-args ...``).
-
-    Parameters
-    ----------
-    args : sequence of str, optional
-
-    Returns
-    -------
-    int
-    """
-    return spin_node(ControllerNode, args)
+#: Console entry point ``linz_controller``.
+main = entry_point(ControllerNode, "linz_controller")
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -24,8 +24,8 @@ from std_msgs.msg import Float64MultiArray
 from linz_ros.artifact import Artifact
 from linz_ros.nodes._common import control_qos
 from linz_ros.nodes.adapters import FieldMap, MessageError, stamp_seconds
-from linz_ros.nodes.controller import CONDITIONING_FIELDS
-from linz_ros.runtime import MODES, REASONS, ControllerCore, Reference, SimResult
+from linz_ros.runtime import Reference, SimResult
+from linz_ros.runtime.steprecord import decode, record_labels
 
 __all__ = ["BringupRecorder", "Recording", "TopicMap", "recording"]
 
@@ -92,20 +92,20 @@ class BringupRecorder(Node):
         return time.monotonic()
 
     def _on_state(self, message: Any) -> None:
-        try:
-            x = self.state_map.read(message)
-        except MessageError:
-            x = [math.nan] * self.state_map.size
-        self.recording.states.append((self._now(), stamp_seconds(message), x))
-        self._notify("state", message)
+        self._keep_vector("state", message, self.state_map, self.recording.states)
 
     def _on_command(self, message: Any) -> None:
+        self._keep_vector("command", message, self.command_map, self.recording.commands)
+
+    def _keep_vector(self, kind: str, message: Any, field_map: FieldMap,
+                     kept: list[tuple[float, float | None, list[float]]]) -> None:
+        """Keep the vector a state or command message carries (nan where it does not read) with its stamp."""
         try:
-            u = self.command_map.read(message)
+            values = field_map.read(message)
         except MessageError:
-            u = [math.nan] * self.command_map.size
-        self.recording.commands.append((self._now(), stamp_seconds(message), u))
-        self._notify("command", message)
+            values = [math.nan] * field_map.size
+        kept.append((self._now(), stamp_seconds(message), values))
+        self._notify(kind, message)
 
     def _on_reference(self, message: Float64MultiArray) -> None:
         self.recording.references.append((self._now(), list(message.data)))
@@ -160,9 +160,10 @@ class BringupRecorder(Node):
     def to_result(self, reference: Reference | None = None) -> SimResult:
         """The recording as a SimResult: one row per conditioning record (one per control step).
 
-        Outputs, reference (``y_ref`` only: derivatives left at zero) and command come from
-        the controller's own per-step record; the state is the recorded state message with
-        that stamp (or the latest one received before it; nan when states are not recorded).
+        Outputs, reference (``y_ref`` only: its derivatives are nan) and command come from
+        the controller's own per-step record, decoded by the labels its layout carries; the
+        state is the recorded state message with that stamp (or the latest one received
+        before it; nan when states are not recorded).
 
         Parameters
         ----------
@@ -174,49 +175,22 @@ class BringupRecorder(Node):
         SimResult
         """
         a = self.artifact
-        core = ControllerCore(a)
-        n, m = len(a.states), len(a.inputs)
-        size = core.reference_size
-        labels = list(CONDITIONING_FIELDS)
+        labels = self.recording.conditioning_labels or record_labels(a)
+        kept = [(received, data) for received, data in self.recording.conditioning if len(data) == len(labels)]
+        steps = decode([data for _, data in kept], labels)
         states = self.recording.states
         stamps = {s[1]: s[2] for s in states if s[1] is not None}
-        p = len(core.orders)
-        rows = {k: [] for k in ("t", "x", "ref", "y", "u", "s", "c", "mode", "reason", "sat", "ct")}
         si = 0
-        latest_x = [math.nan] * n
-        offsets = [sum(r + 1 for r in core.orders[:i]) for i in range(p)]
-        for received, data in self.recording.conditioning:
+        latest_x = [math.nan] * len(a.states)
+        xs = []
+        for (received, _), t in zip(kept, steps.t):
             while si < len(states) and states[si][0] <= received:
                 latest_x = states[si][2]
                 si += 1
-            t = data[0]
-            x = stamps.get(t, latest_x)
-            rows["t"].append(t)
-            rows["x"].append(list(x))
-            base = len(labels)
-            rows["y"].append(data[base:base + p])                  # the controller's own outputs and
-            ref = [0.0] * size                                      # reference of the step (y_ref only;
-            for offset, value in zip(offsets, data[base + p:base + 2 * p]):   # derivatives left at zero)
-                ref[offset] = value
-            rows["ref"].append(ref)
-            rows["u"].append(data[base + 2 * p:base + 2 * p + m])
-            rows["s"].append(data[1])
-            rows["c"].append(data[2])
-            rows["mode"].append(MODES[int(data[3])])
-            rows["reason"].append(REASONS[int(data[4])])
-            mask = int(data[7])
-            rows["sat"].append([bool(mask >> j & 1) for j in range(m)])
-            rows["ct"].append(data[6] * 1e-6)
-        t = np.array(rows["t"])
-        if len(t):
-            t = t - t[0]
-        x = np.array(rows["x"]).reshape(-1, n)
-        return SimResult(
-            artifact=a, reference=reference, t=t, x=x, x_measured=x, ref=np.array(rows["ref"]).reshape(-1, size),
-            y=np.array(rows["y"]).reshape(-1, len(core.orders)), u=np.array(rows["u"]).reshape(-1, m),
-            sigma_min=np.array(rows["s"]), condition=np.array(rows["c"]), mode=rows["mode"],
-            reason=rows["reason"], saturated=np.array(rows["sat"], dtype=bool).reshape(-1, m),
-            compute_time=np.array(rows["ct"]), notes=["recorded over DDS from the running nodes"])
+            xs.append(list(stamps.get(t, latest_x)))
+        x = np.array(xs, dtype=float).reshape(-1, len(a.states))
+        return SimResult(artifact=a, reference=reference, notes=["recorded over DDS from the running nodes"],
+                         **steps.result_fields(a.relative_degree, x=x))
 
 
 @contextlib.contextmanager

@@ -19,7 +19,7 @@ from rclpy.node import Node
 
 from linz_ros.artifact import load_artifact
 from linz_ros.errors import ConfigError
-from linz_ros.nodes._common import control_qos, declare, spin_node
+from linz_ros.nodes._common import control_qos, declare, entry_point
 from linz_ros.nodes.adapters import labelled_array
 from linz_ros.runtime import ControllerCore, parse_reference
 
@@ -109,18 +109,8 @@ class ReferenceNode(Node):
         self.publisher.publish(labelled_array(self.reference.sample(now - self.start), self.labels))
 
 
-def main(args: Sequence[str] | None = None) -> int:
-    """Console entry point ``linz_reference`` (accepts ``--ros-args ...``).
-
-    Parameters
-    ----------
-    args : sequence of str, optional
-
-    Returns
-    -------
-    int
-    """
-    return spin_node(ReferenceNode, args)
+#: Console entry point ``linz_reference``.
+main = entry_point(ReferenceNode, "linz_reference")
 
 
 if __name__ == "__main__":  # pragma: no cover

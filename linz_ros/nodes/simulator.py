@@ -21,14 +21,14 @@ import gc
 import math
 import time
 from collections import deque
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 from rosgraph_msgs.msg import Clock
 
 from linz_ros.artifact import load_artifact
 from linz_ros.errors import ConfigError
-from linz_ros.nodes._common import RCLError, control_qos, declare, spin_node
+from linz_ros.nodes._common import RCLError, control_qos, declare, entry_point
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, message_class,
                                      set_stamp, split_seconds)
 from linz_ros.runtime import NumericPlant, mismatched_parameters, parse_assignments
@@ -358,18 +358,8 @@ class PlantSimulatorNode(Node):
                                       f"{str(err).splitlines()[0]}", throttle_duration_sec=2.0)
 
 
-def main(args: Sequence[str] | None = None) -> int:
-    """Console entry point ``linz_plant_sim`` (accepts ``--ros-args ...``).
-
-    Parameters
-    ----------
-    args : sequence of str, optional
-
-    Returns
-    -------
-    int
-    """
-    return spin_node(PlantSimulatorNode, args)
+#: Console entry point ``linz_plant_sim``.
+main = entry_point(PlantSimulatorNode, "linz_plant_sim")
 
 
 if __name__ == "__main__":  # pragma: no cover

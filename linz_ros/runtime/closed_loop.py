@@ -8,7 +8,6 @@ scipy's adaptive RK45. The plant may run with mismatched parameters.
 
 from __future__ import annotations
 
-import csv
 import math
 import time
 from dataclasses import dataclass, field
@@ -19,25 +18,19 @@ import numpy as np
 
 from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
-from linz_ros.runtime.core import ALARMS, MODES, ControllerCore, WatchdogConfig
-from linz_ros.runtime.fieldlog import conditioning_values
+from linz_ros.runtime.core import ControllerCore
 from linz_ros.runtime.plant import IntegrationBudgetError, NumericPlant
 from linz_ros.runtime.reference import Reference, make_reference
+from linz_ros.runtime.steprecord import (ACTED_MODES, ALARMS, MODES, alarms_from_reasons, decode, encode,
+                                         record_labels, write_csv)
 from linz_ros.runtime.transform import Transform
+from linz_ros.runtime.verdict import VERDICTS, Verdict, error_statistics, first_time, outside_envelope, run_verdict
+from linz_ros.runtime.watchdogs import WatchdogConfig
 
 __all__ = ["SimSettings", "SimResult", "simulate", "fit_decay_rate", "INTEGRATORS", "VERDICTS", "Verdict",
-           "run_verdict", "outside_envelope", "MAX_SIM_STEPS", "MAX_SUBSTEPS"]
+           "run_verdict", "outside_envelope", "MAX_SIM_STEPS", "MAX_SUBSTEPS", "ACTED_MODES"]
 
 INTEGRATORS = ("rk4", "scipy")
-#: One word for how a run went, the worst first: the first that applies is the run's verdict.
-VERDICTS = ("diverged", "left_envelope", "held_safe", "saturated", "not_settled", "tracked")
-#: Modes in which a watchdog acted: the safe or held command, or a controlled stop.
-ACTED_MODES = ("safe", "held", "stopping")
-#: A run is saturated when an input sat on a limit for more than this fraction of its steps.
-SATURATED_FRACTION = 0.05
-#: Settled: the RMS error over the last tenth of the run is at most this fraction of the peak error
-#: (or of the divergence bound, when the artifact carries one).
-SETTLED_FRACTION = 0.05
 
 
 @dataclass
@@ -80,7 +73,11 @@ class SimSettings:
 
 @dataclass
 class SimResult:
-    """Sampled signals of one closed-loop run (row k is the sampling instant t_k)."""
+    """Sampled signals of one closed-loop run (row k is the sampling instant t_k).
+
+    ``damping``, ``warn`` and ``alarms`` are those of the per-step record (None where the
+    run did not record them); ``x_measured`` is the state the controller used.
+    """
 
     artifact: Artifact
     reference: Reference
@@ -101,6 +98,8 @@ class SimResult:
     notes: list[str] = field(default_factory=list)
     alarms: np.ndarray | None = None
     config: WatchdogConfig | None = None
+    damping: np.ndarray | None = None
+    warn: np.ndarray | None = None
 
     @property
     def period(self) -> float:
@@ -134,9 +133,8 @@ class SimResult:
             e = errors[:, i]
             finite = np.isfinite(e)
             outputs[name] = {
-                "rms_error": float(np.sqrt(np.mean(e[finite] ** 2))) if finite.any() else None,
-                "final_error": float(abs(e[finite][-1])) if finite.any() else None,
-                "max_error": float(np.max(np.abs(e[finite]))) if finite.any() else None,
+                **error_statistics(e),
+                "unit": self.artifact.signal_units.get(name),
                 # a decay rate means something only when the error did decay
                 "decay_rate": fit_decay_rate(self.t[finite], e[finite]) if verdict.word == "tracked" else None,
             }
@@ -181,11 +179,10 @@ class SimResult:
         """
         if self.alarms is not None:
             return np.asarray(self.alarms, dtype=int)
-        return np.array([sum(1 << bit for bit, name in enumerate(ALARMS) if reason == name)
-                         for reason in self.reason], dtype=int)
+        return alarms_from_reasons(self.reason)
 
     def write_csv(self, path: str | Path) -> Path:
-        """Write every sampled signal as one CSV row per control step.
+        """Write every sampled signal as one CSV row per control step (``steprecord.write_csv``).
 
         Parameters
         ----------
@@ -196,150 +193,7 @@ class SimResult:
         pathlib.Path
         """
         a = self.artifact
-        ref_names = [f"ref_{name}" + ("_d" + str(k) if k else "") for name, r in zip(a.outputs, a.relative_degree)
-                     for k in range(r + 1)]
-        header = (["t"] + a.states + [f"measured_{s}" for s in a.states] + ref_names + list(a.outputs)
-                  + a.inputs + ["sigma_min", "condition", "mode", "reason"] + [f"saturated_{u}" for u in a.inputs]
-                  + ["compute_time_us"])
-        if self.ref_state is not None:
-            header += [f"ref_state_{s}" for s in a.states]
-        path = Path(path)
-        with path.open("w", newline="") as handle:
-            writer = csv.writer(handle)
-            writer.writerow(header)
-            for k in range(len(self.t)):
-                row = ([self.t[k]] + list(self.x[k]) + list(self.x_measured[k]) + list(self.ref[k]) + list(self.y[k])
-                       + list(self.u[k]) + [self.sigma_min[k], self.condition[k], self.mode[k], self.reason[k]]
-                       + [int(v) for v in self.saturated[k]] + [self.compute_time[k] * 1e6])
-                if self.ref_state is not None:
-                    row += list(self.ref_state[k])
-                writer.writerow([f"{v:.10g}" if isinstance(v, (float, np.floating)) else v for v in row])
-        return path
-
-
-@dataclass(frozen=True)
-class Verdict:
-    """How a run went, in one word of :data:`VERDICTS`, when it first happened and why."""
-
-    word: str
-    at: float | None
-    detail: str
-
-
-def outside_envelope(artifact: Artifact, x: np.ndarray, margin: float = 0.0) -> np.ndarray:
-    """Per row of states, whether a bounded state lies outside the envelope widened by ``margin``.
-
-    Parameters
-    ----------
-    artifact : Artifact
-    x : numpy.ndarray
-        K x n states.
-    margin : float
-        Fraction of each state's range added on both sides.
-
-    Returns
-    -------
-    numpy.ndarray
-        K booleans.
-    """
-    x = np.asarray(x, dtype=float).reshape(-1, len(artifact.states))
-    outside = np.zeros(x.shape[0], dtype=bool)
-    # the core's own rule for the widened envelope
-    for i, lo, hi in WatchdogConfig.from_artifact(artifact).widened_envelope(margin):
-        with np.errstate(invalid="ignore"):      # nan (a refused state) is not outside
-            outside |= (x[:, i] < lo) | (x[:, i] > hi)
-    return outside
-
-
-def _first_time(t: np.ndarray, flags: np.ndarray) -> float | None:
-    hits = np.flatnonzero(flags)
-    return float(t[hits[0]]) if hits.size else None
-
-
-def run_verdict(result: "SimResult") -> Verdict:
-    """The run's verdict: the first of :data:`VERDICTS` that applies, and when it first did.
-
-    - ``diverged``: the plant's state stopped being finite, or the divergence watchdog tripped;
-    - ``left_envelope``: the true state left the envelope widened by the watchdog's margin,
-      or the envelope watchdog tripped on the measured state;
-    - ``held_safe``: the controller sent the safe (or held) command at some step;
-    - ``saturated``: an input sat on a limit for more than 5 % of the steps;
-    - ``not_settled``: the RMS error over the last tenth of the run is above 5 % of the
-      peak error (or of the divergence bound);
-    - ``tracked``: none of these.
-
-    Parameters
-    ----------
-    result : SimResult
-
-    Returns
-    -------
-    Verdict
-    """
-    t = result.t
-    alarms = result.alarm_mask()
-    if result.diverged_at is not None:
-        return Verdict("diverged", result.diverged_at, "the plant's state stopped being finite")
-    diverging = (alarms >> 1 & 1).astype(bool)
-    margin = (result.config or WatchdogConfig.from_artifact(result.artifact)).envelope_margin
-    left = outside_envelope(result.artifact, result.x, margin) | (alarms & 1).astype(bool)
-    if diverging.any():
-        left_at = _first_time(t, left)
-        before = (f"; it left the envelope first, at t = {left_at:.4g} s"
-                  if left_at is not None and left_at < _first_time(t, diverging) else "")
-        return Verdict("diverged", _first_time(t, diverging), "the tracking error grew past its bound "
-                                                              "(divergence watchdog)" + before)
-    if left.any():
-        k = int(np.flatnonzero(left)[0])
-        return Verdict("left_envelope", float(t[k]), _envelope_detail(result, k, margin))
-    unsafe = np.array([m in ("safe", "held") for m in result.mode], dtype=bool)
-    if unsafe.any():
-        k = int(np.flatnonzero(unsafe)[0])
-        return Verdict("held_safe", float(t[k]), f"{int(unsafe.sum())} step(s) sent the safe or held command, "
-                                                 f"the first for {result.reason[k]}")
-    if len(t) and result.saturated.size:
-        fractions = result.saturated.mean(axis=0)
-        worst = int(np.argmax(fractions))
-        if fractions[worst] > SATURATED_FRACTION:
-            return Verdict("saturated", _first_time(t, result.saturated[:, worst]),
-                           f"{result.artifact.inputs[worst]} saturated {100 * fractions[worst]:.0f} % of the time")
-    unsettled = _unsettled_outputs(result)
-    if unsettled:
-        return Verdict("not_settled", None, "the error has not settled: " + ", ".join(unsettled))
-    return Verdict("tracked", None, "tracked the reference")
-
-
-def _envelope_detail(result: "SimResult", k: int, margin: float) -> str:
-    envelope = result.artifact.envelope
-    for i, name in enumerate(result.artifact.states):
-        if name in envelope:
-            lo, hi = envelope[name]
-            value = result.x[k, i]
-            extra = margin * (hi - lo)
-            if not lo - extra <= value <= hi + extra:
-                return (f"{name} = {value:.4g} outside its envelope [{lo:g}, {hi:g}] widened by "
-                        f"{100 * margin:g} %")
-    return "the envelope watchdog tripped on the measured state"
-
-
-def _unsettled_outputs(result: "SimResult") -> list[str]:
-    errors = result.errors()
-    if len(result.t) < 10:
-        return []
-    tail = max(1, len(result.t) // 10)
-    bounds = result.artifact.watchdog.get("divergence_error") or [None] * errors.shape[1]
-    names = []
-    for i, name in enumerate(result.artifact.outputs):
-        e = errors[:, i]
-        finite = e[np.isfinite(e)]
-        if finite.size < 10:
-            continue
-        peak = float(np.max(np.abs(finite)))
-        rms_tail = float(np.sqrt(np.mean(finite[-tail:] ** 2)))
-        scale = max(peak, bounds[i] or 0.0)
-        if rms_tail > max(SETTLED_FRACTION * scale, 1e-9):
-            names.append(f"{name} (RMS {rms_tail:.3g} over the last tenth, peak {peak:.3g})")
-    return names
+        return write_csv(path, vars(self), a.states, a.outputs, a.inputs, a.relative_degree)
 
 
 def fit_decay_rate(t: np.ndarray, error: np.ndarray, upper: float = 1e-1, lower: float = 1e-4,
@@ -460,8 +314,11 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     noise = np.asarray(settings.noise, dtype=float) if settings.noise is not None else None
     n, m = plant.n, plant.m
     zero = [0.0] * m
-    records = {"t": [], "x": [], "xm": [], "ref": [], "y": [], "u": [], "s": [], "c": [], "mode": [],
-               "reason": [], "sat": [], "ct": [], "alarms": []}
+    rows: list[list[float]] = []          # each step's record as the field log writes it (state included)
+    xs: list[list[float]] = []
+    refs: list[list[float]] = []
+    ys: list[list[float]] = []
+    no_outputs = [math.nan] * len(core.orders)
     commands: list[list[float]] = []
     diverged_at = None
     report_every = max(1, steps // 200)
@@ -473,23 +330,14 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
         measured = list(x) if noise is None else (np.asarray(x) + rng.normal(0.0, noise)).tolist()
         ref = reference.sample(t)
         u, record = core.step(measured, ref, t)
+        values = encode(record, [ref[i] for i in ref_offsets], u, no_outputs, measured)
         if field_log is not None:
-            values = conditioning_values(record, [ref[i] for i in ref_offsets], u, [math.nan] * len(ref_offsets))
-            field_log.put(values + list(measured), log_start + int(round(t * 1e9)))
+            field_log.put(values, log_start + int(round(t * 1e9)))
+        rows.append(values)
         commands.append(u)
-        records["t"].append(t)
-        records["x"].append(list(x))
-        records["xm"].append(measured)
-        records["ref"].append(ref)
-        records["y"].append(_outputs_of(core, x))
-        records["u"].append(u)
-        records["s"].append(record.sigma_min)
-        records["c"].append(record.condition)
-        records["mode"].append(record.mode)
-        records["reason"].append(record.reason)
-        records["sat"].append(record.saturated)
-        records["ct"].append(record.compute_time)
-        records["alarms"].append(record.alarms)
+        xs.append(list(x))
+        refs.append(ref)
+        ys.append(_outputs_of(core, x))
         if progress is not None and k % report_every == 0:
             progress(k / steps)
         if k == steps - 1:
@@ -509,18 +357,25 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
             break
     if progress is not None:
         progress(1.0)
-    result = SimResult(
-        artifact=artifact, reference=reference, t=np.array(records["t"]), x=np.array(records["x"]),
-        x_measured=np.array(records["xm"]), ref=np.array(records["ref"]), y=np.array(records["y"]),
-        u=np.array(records["u"]), sigma_min=np.array(records["s"]), condition=np.array(records["c"]),
-        mode=records["mode"], reason=records["reason"], saturated=np.array(records["sat"], dtype=bool),
-        compute_time=np.array(records["ct"]), diverged_at=diverged_at, alarms=np.array(records["alarms"], dtype=int),
-        config=core.config)
+    fields = decode(rows, record_labels(artifact, states=True)).result_fields(artifact.relative_degree,
+                                                                              from_zero=False)
+    fields.update(x=np.array(xs), ref=np.array(refs), y=np.array(ys))   # the true state, y at it, y_ref's derivatives
+    result = SimResult(artifact=artifact, reference=reference, diverged_at=diverged_at, config=core.config, **fields)
     if artifact.kind == "input_state":
         result.ref_state = _reference_states(artifact, result.ref)
+    _note_alarms(result)
+    if budget_note is not None:
+        result.notes.append(budget_note)
+    elif diverged_at is not None:
+        result.notes.append(f"the plant's state stopped being finite at t = {diverged_at:.4g} s")
+    return result
+
+
+def _note_alarms(result: SimResult) -> None:
+    """A note per watchdog alarm of the run: when first, how many steps, what was done."""
     alarms = result.alarm_mask()
     for bit, name in enumerate(ALARMS):
-        first = _first_time(result.t, alarms >> bit & 1)
+        first = first_time(result.t, alarms >> bit & 1)
         if first is not None:
             acted = {m for r, m in zip(result.reason, result.mode) if r == name and m in ACTED_MODES}
             done = ("stopped under control" if "stopping" in acted else "the safe command sent" if acted
@@ -529,11 +384,6 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
                 done = "a controlled stop tried, then the safe command when the stop itself diverged"
             result.notes.append(f"watchdog {name} first at t = {first:.4g} s, {int(np.count_nonzero(alarms >> bit & 1))} "
                                 f"step(s), {done}")
-    if budget_note is not None:
-        result.notes.append(budget_note)
-    elif diverged_at is not None:
-        result.notes.append(f"the plant's state stopped being finite at t = {diverged_at:.4g} s")
-    return result
 
 
 def _reference_states(artifact: Artifact, ref: np.ndarray) -> np.ndarray:

@@ -1,8 +1,9 @@
 """The field log: every control step's record, written to MCAP files in ROS 2 message encoding.
 
 One channel, ``/linz/field_log``, of ``std_msgs/msg/Float64MultiArray`` messages whose
-single layout dimension is labelled with the comma-separated field names (the same
-self-describing layout as the controller's conditioning topic, plus the state), so the
+single layout dimension is labelled with the comma-separated field names (the per-step
+record of :mod:`linz_ros.runtime.steprecord`, as on the controller's conditioning topic,
+plus the state), so the
 ROS 2 bag tools and common MCAP viewers open the file without our code. Each file also
 holds, as MCAP metadata, the artifact's metadata, the node's parameters and, when it is
 closed cleanly, the counts of records written and dropped; the artifact itself is
@@ -33,14 +34,14 @@ from typing import IO, TYPE_CHECKING, Any, Callable, Mapping, Sequence
 
 from linz_ros.artifact import Artifact
 from linz_ros.errors import ConfigError
-from linz_ros.runtime.core import MODES, REASONS, StepRecord
+from linz_ros.runtime.steprecord import record_labels
 
 if TYPE_CHECKING:
     from mcap.writer import Writer
 
-__all__ = ["CHUNK_RECORDS", "CONDITIONING_FIELDS", "conditioning_labels", "conditioning_values", "FIELD_LOG_TOPIC", "FIELD_LOG_SCHEMA", "FLOAT64_MULTIARRAY_DEFINITION", "FieldLogSettings",
-           "FieldLogStatus", "FieldLogWriter", "encode_labelled_array", "field_log_labels", "metadata_strings",
-           "artifact_metadata", "watchdog_metadata", "open_field_log"]
+__all__ = ["CHUNK_RECORDS", "FIELD_LOG_TOPIC", "FIELD_LOG_SCHEMA", "FLOAT64_MULTIARRAY_DEFINITION", "FieldLogSettings",
+           "FieldLogStatus", "FieldLogWriter", "encode_labelled_array", "metadata_strings", "artifact_metadata",
+           "watchdog_metadata", "open_field_log"]
 
 FIELD_LOG_TOPIC = "/linz/field_log"
 FIELD_LOG_SCHEMA = "std_msgs/msg/Float64MultiArray"
@@ -61,74 +62,10 @@ uint32 size
 uint32 stride
 """
 _CDR_LITTLE_ENDIAN = b"\x00\x01\x00\x00"
-#: Labels that open every per-step record, in order; then ``y.<output>`` and ``ref.<output>`` (the
-#: output and its reference, nan when the state was refused) and ``u.<input>`` (the command).
-CONDITIONING_FIELDS = ("t", "sigma_min", "condition", "mode", "reason", "damping", "compute_time_us",
-                       "saturated_mask", "warn", "alarms")
-_MODE_CODE = {m: float(i) for i, m in enumerate(MODES)}
-_REASON_CODE = {r: float(i) for i, r in enumerate(REASONS)}
-
-
-def conditioning_labels(artifact: Artifact) -> list[str]:
-    """Labels of the per-step conditioning record of an artifact's controller.
-
-    Parameters
-    ----------
-    artifact : Artifact
-
-    Returns
-    -------
-    list of str
-    """
-    return (list(CONDITIONING_FIELDS) + [f"y.{y}" for y in artifact.outputs] + [f"ref.{y}" for y in artifact.outputs]
-            + [f"u.{u}" for u in artifact.inputs])
-
-
-def conditioning_values(record: StepRecord, y_ref: Sequence[float], u: Sequence[float],
-                        no_outputs: Sequence[float]) -> list[float]:
-    """The per-step conditioning record as numbers, in :func:`conditioning_labels` order.
-
-    Parameters
-    ----------
-    record : StepRecord
-    y_ref : sequence of float
-        The reference of each output (nan when the state was refused).
-    u : sequence of float
-        The command sent.
-    no_outputs : sequence of float
-        What stands for the outputs when the step has none (nan per output).
-
-    Returns
-    -------
-    list of float
-    """
-    mask = 0
-    for i, cut in enumerate(record.saturated):
-        if cut:
-            mask |= 1 << i
-    return [record.t, record.sigma_min, record.condition, _MODE_CODE[record.mode], _REASON_CODE[record.reason],
-            record.damping, record.compute_time * 1e6, float(mask), float(record.warn), float(record.alarms),
-            *(record.outputs or no_outputs), *y_ref, *u]
 _SEQUENCE_LIMIT = 2**32 - 1
 #: A chunk is closed (and the file flushed) at least every this many records: what one damaged
 #: chunk may lose. About 35 kB of LZ4 on disk for a two-state plant; a second at 1 kHz.
 CHUNK_RECORDS = 1000
-
-
-def field_log_labels(conditioning_labels: Sequence[str], states: Sequence[str]) -> list[str]:
-    """Labels of a field-log record: the conditioning record's, then ``x.<state>``.
-
-    Parameters
-    ----------
-    conditioning_labels : sequence of str
-        ``t, sigma_min, ..., y.<output>..., ref.<output>..., u.<input>...``
-    states : sequence of str
-
-    Returns
-    -------
-    list of str
-    """
-    return list(conditioning_labels) + [f"x.{s}" for s in states]
 
 
 def encode_labelled_array(label: str, values: Sequence[float]) -> bytes:
@@ -519,7 +456,7 @@ def open_field_log(settings: FieldLogSettings, artifact: Artifact, config: Any,
     ConfigError
         When the log cannot be created.
     """
-    labels = field_log_labels(conditioning_labels(artifact), artifact.states)
+    labels = record_labels(artifact, states=True)
     metadata = {"linz_artifact": artifact_metadata(artifact), "linz_watchdog": watchdog_metadata(config),
                 "linz_parameters": {"source": source,
                                     "parameters": json.dumps(dict(parameters or {}), default=str, sort_keys=True)}}

@@ -206,6 +206,7 @@ def parse_reference(text: str, orders: Sequence[int], base: Sequence[float], out
     Returns
     -------
     Reference
+        Built by :func:`make_reference`, which checks every setting.
 
     Raises
     ------

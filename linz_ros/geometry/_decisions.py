@@ -1,38 +1,21 @@
-"""Differential geometry of control-affine systems: Lie derivatives, brackets, distributions.
+"""Numeric decisions on symbolic expressions: "is this identically zero?" and "what is the rank?".
 
-Vector fields are sympy column matrices, covector fields are row matrices, and ``x`` is
-the ordered tuple of coordinates. Decisions that need "is this expression zero?" or
-"what is the rank?" go through a :class:`NumericContext`, which holds the parameter
-values and the random sample points used when simplification alone cannot decide.
-
-Conventions (Isidori, Nonlinear Control Systems, 3rd ed., sec. 1.2):
-``L_f h = dh . f``, ``[f, g] = (dg/dx) f - (df/dx) g``, ``ad_f^0 g = g``,
-``ad_f^k g = [f, ad_f^(k-1) g]``.
-
-Public names
-------------
-lie_derivative, lie_derivative_covector, lie_bracket, ad, distribution, bracket_blocks
-NumericContext, Decision, is_identically_zero, evaluate, rank_at, generic_rank,
-Involutivity, involutivity
+A :class:`NumericContext` holds the parameter values and the random sample points used
+when simplification alone cannot decide; every answer records how it was reached.
 """
 
 from __future__ import annotations
 
 import functools
-import itertools
 import math
 from dataclasses import dataclass, field
-from typing import Iterator, Sequence
+from typing import Sequence
 
 import numpy as np
 import sympy as sp
 
-__all__ = [
-    "lie_derivative", "lie_derivative_covector", "lie_bracket", "ad", "distribution", "bracket_blocks",
-    "NumericContext", "Decision", "is_identically_zero", "evaluate", "rank_at",
-    "generic_rank", "Involutivity", "involutivity", "evaluate_many", "numeric_rank",
-    "sampled_rank", "fits_symbolic_budget", "RankResult",
-]
+__all__ = ["NumericContext", "Decision", "is_identically_zero", "evaluate", "evaluate_many", "rank_at",
+           "numeric_rank", "fits_symbolic_budget", "sampled_rank", "RankResult", "generic_rank"]
 
 #: Relative tolerance on singular values for ranks at a point: sigma_i > RANK_RTOL * sigma_1.
 RANK_RTOL = 1e-9
@@ -49,148 +32,6 @@ SYMBOLIC_RANK_BUDGET = 400
 SYMBOLIC_RANK_MAX_ENTRIES = 144
 
 
-# -- Lie algebra ---------------------------------------------------------------------
-def lie_derivative(h: sp.Expr, f: sp.Matrix, x: Sequence[sp.Symbol]) -> sp.Expr:
-    """Lie derivative of a function along a vector field, ``L_f h = (dh/dx) f``.
-
-    Parameters
-    ----------
-    h : sympy.Expr
-        Scalar function of ``x``.
-    f : sympy.Matrix
-        Vector field, n x 1.
-    x : sequence of sympy.Symbol
-        Coordinates, length n.
-
-    Returns
-    -------
-    sympy.Expr
-
-    Examples
-    --------
-    >>> x1, x2 = sp.symbols("x1 x2")
-    >>> lie_derivative(x1**2, sp.Matrix([x2, 0]), (x1, x2))
-    2*x1*x2
-    """
-    return sp.Add(*[sp.diff(h, xi) * fi for xi, fi in zip(x, f)])
-
-
-def lie_derivative_covector(w: sp.Matrix, f: sp.Matrix, x: Sequence[sp.Symbol]) -> sp.Matrix:
-    """Lie derivative of a covector field, ``L_f w = f^T (dw^T/dx)^T + w (df/dx)``.
-
-    Parameters
-    ----------
-    w : sympy.Matrix
-        Covector field, 1 x n.
-    f : sympy.Matrix
-        Vector field, n x 1.
-    x : sequence of sympy.Symbol
-
-    Returns
-    -------
-    sympy.Matrix
-        1 x n. For an exact covector ``w = dh`` this equals ``d(L_f h)``.
-
-    Examples
-    --------
-    >>> x1, x2 = sp.symbols("x1 x2")
-    >>> lie_derivative_covector(sp.Matrix([[x2, 0]]), sp.Matrix([0, x1]), (x1, x2))
-    Matrix([[x1, 0]])
-    """
-    X = sp.Matrix(x)
-    return (w.T.jacobian(X) * f).T + w * f.jacobian(X)
-
-
-def lie_bracket(f: sp.Matrix, g: sp.Matrix, x: Sequence[sp.Symbol]) -> sp.Matrix:
-    """Lie bracket of two vector fields, ``[f, g] = (dg/dx) f - (df/dx) g``.
-
-    Parameters
-    ----------
-    f, g : sympy.Matrix
-        Vector fields, n x 1.
-    x : sequence of sympy.Symbol
-
-    Returns
-    -------
-    sympy.Matrix
-        n x 1.
-
-    Examples
-    --------
-    >>> x1, x2 = sp.symbols("x1 x2")
-    >>> lie_bracket(sp.Matrix([x2, 0]), sp.Matrix([0, 1]), (x1, x2)).T
-    Matrix([[-1, 0]])
-    """
-    X = sp.Matrix(x)
-    return g.jacobian(X) * f - f.jacobian(X) * g
-
-
-def ad(f: sp.Matrix, g: sp.Matrix, x: Sequence[sp.Symbol], k: int) -> sp.Matrix:
-    """Iterated bracket ``ad_f^k g`` (``ad_f^0 g = g``).
-
-    Parameters
-    ----------
-    f, g : sympy.Matrix
-    x : sequence of sympy.Symbol
-    k : int
-        Order, k >= 0.
-
-    Returns
-    -------
-    sympy.Matrix
-    """
-    if k < 0:
-        raise ValueError(f"k must be >= 0, got {k}")
-    result = g
-    for _ in range(k):
-        result = lie_bracket(f, result, x)
-    return result
-
-
-def bracket_blocks(f: sp.Matrix, G: sp.Matrix, x: Sequence[sp.Symbol]) -> Iterator[list[sp.Matrix]]:
-    """Yield ``[ad_f^j g_1, ..., ad_f^j g_m]`` for j = 0, 1, 2, ... (computed on demand).
-
-    Parameters
-    ----------
-    f : sympy.Matrix
-        Drift, n x 1.
-    G : sympy.Matrix
-        Input matrix, n x m.
-    x : sequence of sympy.Symbol
-
-    Returns
-    -------
-    iterator of list of sympy.Matrix
-        Block j holds the m fields ``ad_f^j g_i``; the next block is only computed
-        when asked for.
-    """
-    block = [G[:, i] for i in range(G.shape[1])]
-    while True:
-        yield block
-        block = [lie_bracket(f, c, x) for c in block]
-
-
-def distribution(f: sp.Matrix, G: sp.Matrix, x: Sequence[sp.Symbol], k: int) -> list[sp.Matrix]:
-    """Generators of ``D_k = span{ad_f^j g_i : 0 <= j <= k, all inputs i}``.
-
-    Parameters
-    ----------
-    f : sympy.Matrix
-        Drift, n x 1.
-    G : sympy.Matrix
-        Input matrix, n x m.
-    x : sequence of sympy.Symbol
-    k : int
-
-    Returns
-    -------
-    list of sympy.Matrix
-        Ordered by j, then by input: g_1, ..., g_m, ad_f g_1, ..., ad_f^k g_m.
-    """
-    return [field for block in itertools.islice(bracket_blocks(f, G, x), k + 1) for field in block]
-
-
-# -- numeric decisions ---------------------------------------------------------------
 @dataclass(frozen=True)
 class NumericContext:
     """Parameter values and sample points for the numeric side of symbolic decisions.
@@ -486,95 +327,3 @@ def generic_rank(matrix: sp.Matrix, ctx: NumericContext) -> RankResult:
                 "symbolic elimination, numeric zero tests"
             return RankResult(rank, method)
     return sampled_rank(evaluate_many(matrix, ctx, ctx.samples))
-
-
-@dataclass(frozen=True)
-class Involutivity:
-    """Whether a distribution is involutive, how it was decided, and a witness pair.
-
-    ``witness`` is ``(i, j)`` such that ``[X_i, X_j]`` is not in the distribution.
-    """
-
-    involutive: bool | None
-    method: str
-    witness: tuple[int, int] | None = None
-
-
-def involutivity(columns: Sequence[sp.Matrix], x: Sequence[sp.Symbol], ctx: NumericContext) -> Involutivity:
-    """Decide whether ``span(columns)`` is involutive (closed under Lie brackets).
-
-    A distribution of generic rank r is involutive when, for every pair of generators,
-    ``rank [X_1 ... X_k  [X_i, X_j]] = r`` generically (Frobenius; Isidori, Thm. 1.4.1).
-
-    Parameters
-    ----------
-    columns : sequence of sympy.Matrix
-        Generators, each n x 1.
-    x : sequence of sympy.Symbol
-    ctx : NumericContext
-
-    Returns
-    -------
-    Involutivity
-    """
-    columns = list(columns)
-    if not columns:
-        return Involutivity(True, "empty distribution")
-    D = sp.Matrix.hstack(*columns)
-    pairs = [(i, j) for i in range(len(columns)) for j in range(i + 1, len(columns))]
-    if fits_symbolic_budget(D):
-        brackets = [lie_bracket(columns[i], columns[j], x) for i, j in pairs]
-        if fits_symbolic_budget(sp.Matrix.hstack(D, *brackets)):
-            return _involutivity_symbolic(D, pairs, brackets, len(x), ctx)
-    return _involutivity_sampled(columns, pairs, x, ctx)
-
-
-def _involutivity_symbolic(D, pairs, brackets, n, ctx) -> Involutivity:
-    base = generic_rank(D, ctx)
-    if base.rank is None:
-        return Involutivity(None, base.method)
-    if base.rank == n:
-        return Involutivity(True, "full rank")
-    methods = {base.method}
-    for pair, bracket in zip(pairs, brackets):
-        if all(is_identically_zero(e, ctx).value for e in bracket):
-            continue
-        augmented = generic_rank(sp.Matrix.hstack(D, bracket), ctx)
-        methods.add(augmented.method)
-        if augmented.rank is None:
-            return Involutivity(None, augmented.method)
-        if augmented.rank > base.rank:
-            return Involutivity(False, "; ".join(sorted(methods)), pair)
-    return Involutivity(True, "; ".join(sorted(methods)))
-
-
-def _involutivity_sampled(columns, pairs, x, ctx) -> Involutivity:
-    """Each bracket against D at the random points where D has its generic rank.
-
-    The brackets are formed numerically, ``[X_i, X_j] = (dX_j/dx) X_i - (dX_i/dx) X_j``,
-    from the compiled fields and their Jacobians: compiling k Jacobians costs far less
-    than compiling k(k-1)/2 symbolic brackets, each about 2n times larger.
-    """
-    n, k = len(x), len(columns)
-    X = sp.Matrix(x)
-    stacked = sp.Matrix.hstack(*columns, *(c.jacobian(X) for c in columns))
-    values = evaluate_many(stacked, ctx, ctx.samples)
-    finite = [v for v in values if np.all(np.isfinite(v))]
-    if not finite:
-        return Involutivity(None, "not finite at any sample point")
-    ranks = [numeric_rank(v[:, :k]) for v in finite]
-    generic = max(ranks)
-    if generic == n:
-        return Involutivity(True, "full rank")
-    regular = [v for v, r in zip(finite, ranks) if r == generic]
-    method = f"numeric at {len(regular)} random points (rtol {RANK_RTOL:g})"
-    for pair in pairs:
-        i, j = pair
-        for v in regular:
-            fields = v[:, :k]
-            jac_i = v[:, k + i * n: k + (i + 1) * n]
-            jac_j = v[:, k + j * n: k + (j + 1) * n]
-            bracket = jac_j @ fields[:, i] - jac_i @ fields[:, j]
-            if numeric_rank(np.column_stack([fields, bracket])) > generic:
-                return Involutivity(False, method, pair)
-    return Involutivity(True, method)

@@ -1,0 +1,144 @@
+"""``linz demo``: the whole job on the bundled example, by calling the verbs' functions.
+
+Check, build, a nominal simulation and (for the bundled pick arm) a reach past the
+workspace stopped by the envelope watchdog and the same reach with that watchdog only
+warning; then the nodes over DDS (when the plant has a bringup parameter file) and the
+field logs read back.
+"""
+
+from __future__ import annotations
+
+import sys
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable
+
+from linz_ros.commands._common import DEFAULT_OUT, bundled_params, bundled_plant
+from linz_ros.commands.build import build, render_build
+from linz_ros.commands.check import check
+from linz_ros.commands.logs import LogsRequest, read_and_report, render_logs
+from linz_ros.commands.sim import SimRequest, render_sim, simulate_run
+
+__all__ = ["DEMO_PLANT", "DEMO_REACH", "DemoRequest", "run_demo"]
+
+#: The bundled example and the reach that takes it through its singular set (sin q2 = 0).
+DEMO_PLANT = "pick_arm"
+DEMO_REACH = "smooth:tool_x=0.12,tool_y=0.16,duration=2,at=0.2"
+
+
+@dataclass
+class DemoRequest:
+    """What ``linz demo`` runs.
+
+    Attributes
+    ----------
+    plant : str, optional
+        A plant file (default: the bundled pick arm).
+    out : str
+        Folder for everything written.
+    seconds : float
+        Length of the bringup over DDS.
+    ros : bool
+        Run the bringup over DDS.
+    wall_clock : bool
+        Run the bringup on the wall clock instead of simulated time in lockstep.
+    progress : bool
+        Progress bars of the simulations on stderr.
+    """
+
+    plant: str | None = None
+    out: str = str(Path(DEFAULT_OUT) / "demo")
+    seconds: float = 6.0
+    ros: bool = True
+    wall_clock: bool = False
+    progress: bool = False
+
+
+def _warn(text: str) -> None:
+    print(f"linz: warning: {text}", file=sys.stderr)
+
+
+class _Steps:
+    """The demo's output: each step's text as it comes."""
+
+    def __init__(self, request: DemoRequest, say: Callable[[str], None], warn: Callable[[str], None]) -> None:
+        self.request, self.say, self.warn = request, say, warn
+
+    def sim(self, artifact: Path, out: Path, **options) -> None:
+        run = simulate_run(SimRequest(str(artifact), out=str(out), duration=4.0, progress=self.request.progress,
+                                      **options))
+        self.say(render_sim(run.summary))
+        for warning in run.warnings:
+            self.warn(warning)
+
+    def logs(self, folder: Path) -> None:
+        report = read_and_report(LogsRequest([str(folder)], plots=str(folder / "plots"),
+                                             html=str(folder / "report.html")))
+        self.say(render_logs(report))
+
+
+def _bringup(request: DemoRequest, artifact: Path, params: Path, out: Path, say: Callable[[str], None]) -> None:
+    from linz_ros.commands._bringup import render_heard, run_bringup
+
+    clock = "wall clock" if request.wall_clock else "simulated time, lockstep"
+    nodes = "simulator, reference and controller nodes" if request.wall_clock else "simulator and controller nodes"
+    say(f"\n== 5. simulation bringup over DDS: {nodes} ({request.seconds:g} s, {clock})")
+    run = run_bringup(artifact, params, out, request.seconds, lockstep=not request.wall_clock, say=say)
+    say(render_sim(run.summary, title="bringup"))
+    say(render_heard(run))
+
+
+def run_demo(request: DemoRequest, say: Callable[[str], None] = print,
+             warn: Callable[[str], None] = _warn) -> Path:
+    """Run the demo's steps, saying each step's text as it comes.
+
+    Parameters
+    ----------
+    request : DemoRequest
+    say : callable
+        Receives the text of each step (stdout in ``linz demo``).
+    warn : callable
+        Receives each design warning (stderr in ``linz demo``).
+
+    Returns
+    -------
+    pathlib.Path
+        The folder with every result.
+
+    Raises
+    ------
+    LinzError
+    """
+    from linz_ros.analysis import render_verdict
+
+    plant_file = Path(request.plant) if request.plant is not None else bundled_plant(DEMO_PLANT)
+    out = Path(request.out)
+    steps = _Steps(request, say, warn)
+    say(f"== 1. check {plant_file}")
+    say(render_verdict(check(plant_file, samples=512)))
+    say(f"\n== 2. build -> {out}")
+    built = build(plant_file, out)
+    say(render_build(built))
+    for warning in built.warnings:
+        warn(warning)
+    name, artifact = built.design.plant.name, built.path
+    say("\n== 3. sim: the plant file's reference")
+    steps.sim(artifact, out / "nominal")
+    if name == DEMO_PLANT and not request.plant:
+        say("\n== 4. sim: a reach past the workspace; the envelope watchdog stops the arm under control")
+        steps.sim(artifact, out / "reach_stopped", reference=DEMO_REACH)
+        say("\n== 4b. sim: the same reach with the envelope watchdog only warning, through the singular set "
+            "(the singularity watchdog at work; never do this on a machine)")
+        steps.sim(artifact, out / "reach", reference=DEMO_REACH, watchdog=["envelope_action=warn"],
+                  field_log=str(out / "reach" / "field_log"))
+    params = bundled_params(name)
+    if params is None:
+        say(f"\n(no bringup parameter file config/{name}.yaml: the ROS 2 step is skipped)")
+    elif request.ros:
+        _bringup(request, artifact, params, out / "bringup", say)
+    logs = [folder for folder in (out / "reach" / "field_log", out / "bringup" / "field_log") if folder.is_dir()]
+    for step, folder in enumerate(logs, start=6):
+        say(f"\n== {step}. logs: what the field log of {folder.parent.name} says")
+        steps.logs(folder)
+    say(f"\nall results in {out}")
+    return out

@@ -1,0 +1,97 @@
+"""The verbs as functions (linz_ros.commands): typed calls, no argv, no redesign in the bench."""
+
+import os
+import shutil
+
+import pytest
+
+from support import BUNDLED, REFERENCE
+from linz_ros.commands._bringup import render_heard, BringupRun, warn_causes
+from linz_ros.commands._options import DesignChoices
+from linz_ros.commands.build import build, render_build
+from linz_ros.commands.bench import bench
+from linz_ros.runtime import REASONS, VERDICTS
+
+
+def _summary(**changes):
+    summary = {"verdict": "tracked", "reasons": {"ok": 2990, "stale": 9}, "diagnostics": [
+        {"level": 0, "message": "nominal"}, {"level": 1, "message": "active, but no state received"},
+        {"level": 1, "message": "active, but no state received"}, {"level": 1, "message": "saturating"}]}
+    summary.update(changes)
+    return summary
+
+
+def test_a_warn_of_the_bringup_is_explained_in_the_runtimes_words():
+    simulator = "run: 6.004 s simulated, 47 late ticks; states sent 3002, dropped 0; lockstep timeouts 1"
+    why = warn_causes(_summary(), [0, 1, 1, 1], simulator)
+    assert "WARN 'active, but no state received' x2" in why and "WARN 'saturating' x1" in why
+    assert "steps refused or acted on: stale 9" in why and "stale" in REASONS
+    assert "verdict tracked" in why and "tracked" in VERDICTS
+    assert "simulator 47 late ticks" in why and "lockstep timeouts 1" in why
+    assert warn_causes(_summary(), [0, 0], simulator) is None
+
+
+def test_the_heard_line_keeps_its_words_and_adds_the_cause_only_when_not_ok():
+    heard = {"commands": 5, "states": 6, "records": 5}
+    ok = BringupRun(_summary(diagnostics=[{"level": 0, "message": "nominal"}]), heard, "run: 0 late ticks")
+    assert render_heard(ok) == "  heard over DDS: diagnostics OK; 5 commands, 6 states, 5 step records"
+    text = render_heard(BringupRun(_summary(reasons={"ok": 5}), heard, "run: 0 late ticks"))
+    assert text.splitlines()[0].startswith("  heard over DDS: diagnostics OK, WARN; 5 commands")
+    assert text.splitlines()[1] == ("  why not OK: WARN 'active, but no state received' x2; WARN 'saturating' x1; "
+                                    "field log: every step ok; verdict tracked")
+
+
+def test_design_choices_know_when_they_override_nothing():
+    assert DesignChoices().is_empty() and not DesignChoices(rate=100.0).is_empty()
+    assert DesignChoices(poles=["tool_x=-3,-4"]).options().poles == {"tool_x": [-3, -4]}
+
+
+@pytest.fixture(scope="module")
+def serial_artifact(tmp_path_factory):
+    """A joint-space serial arm (computed torque), built to a file beside a copy of its plant file."""
+    folder = tmp_path_factory.mktemp("serial")
+    text = (REFERENCE / "pick_arm_serial.yaml").read_text().replace(
+        "outputs:\n  tool_x: tip_x\n  tool_y: tip_y\n", "").replace(
+        "poles: {tool_x: [-6, -7], tool_y: [-6, -7]}", "poles: {y_q1: [-6, -7], y_q2: [-6, -7]}")
+    plant = folder / "arm.yaml"
+    plant.write_text(text)
+    built = build(plant, folder / "out")
+    assert "wrote" in render_build(built)
+    return plant, built.path
+
+
+def test_bench_of_an_artifact_never_synthesises(serial_artifact, monkeypatch):
+    import linz_ros.synthesis as synthesis
+
+    def refuse(*args, **kwargs):
+        raise AssertionError("bench ran a synthesis")
+
+    monkeypatch.setattr(synthesis, "synthesise", refuse)
+    _, artifact = serial_artifact
+    result = bench(str(artifact), calls=20, rounds=1)
+    expected = {"core", "law_only", "naive", "lambdify_numpy", "lambdify_cse_math"}
+    assert expected <= set(result.microseconds)
+    from linz_ros.crosscheck import pinocchio_available
+    if pinocchio_available():
+        assert "pinocchio_computed_torque" in result.microseconds
+        assert any("whose hash matches the artifact's" in note for note in result.notes), result.notes
+
+
+def test_bench_of_an_artifact_whose_plant_changed_leaves_the_plant_out_and_says_so(serial_artifact, tmp_path):
+    plant, artifact = serial_artifact
+    copy = tmp_path / "out" / artifact.name
+    copy.parent.mkdir()
+    shutil.copy(artifact, copy)
+    moved = tmp_path / plant.name        # the recorded plant file, beside the copy as at build time
+    moved.write_text(plant.read_text().replace("damping: 0.", "damping: 0.0") + "\n# changed\n")
+    result = bench(str(copy), calls=20, rounds=1, allow_plant_change=True)
+    assert "pinocchio_computed_torque" not in result.microseconds
+    assert any(note.startswith("pinocchio_computed_torque not measured:") for note in result.notes), result.notes
+
+
+def test_the_cli_leaves_the_environment_alone(capsys, tmp_path):
+    from linz_ros.cli import main
+
+    before = dict(os.environ)
+    assert main(["build", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path)]) == 0
+    assert dict(os.environ) == before
