@@ -1,4 +1,7 @@
-"""Truncated Taylor arithmetic ("jets"): exact derivatives along a curve without symbolic trees.
+"""Over 500 lines because each of the grammar's functions has its jet here, one short recurrence
+with its numpy-style docstring: one arithmetic, one home.
+
+Truncated Taylor arithmetic ("jets"): exact derivatives along a curve without symbolic trees.
 
 A jet is a numpy array ``c`` of shape ``(K + 1, *batch)`` (float or complex): ``c[k]`` is
 the k-th Taylor coefficient of a function of t, so the function is ``sum_k c[k] t^k`` to
