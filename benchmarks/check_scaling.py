@@ -3,10 +3,12 @@
 The family is a chain of n pendulums joined by torsion springs, driven by a torque on
 the first one only, with the last pendulum's angle as output (relative degree 2n, so
 every distribution up to D_(2n-1) is built). Times are printed as seconds and as
-ratios to the smallest chain measured in the same run; the machine is noisy, so only
-the ratios and the fitted growth exponent mean anything.
+ratios to the smallest chain measured in the same run, with the method that decided
+(symbolic, or Taylor-mode jets beyond the symbolic budget) and the growth exponent
+fitted by least squares of log t against log states over every chain; the machine is
+noisy, so only the ratios and the fitted growth exponent mean anything.
 
-Run:  python benchmarks/check_scaling.py [--max-pendulums 5] [--repeat 1]
+Run:  python benchmarks/check_scaling.py [--max-pendulums 8] [--repeat 1]
 """
 
 from __future__ import annotations
@@ -15,6 +17,8 @@ import argparse
 import math
 import time
 from pathlib import Path
+
+import numpy as np
 
 from linz_ros.analysis import analyse
 from linz_ros.model import load_plant, plant_from_text
@@ -52,8 +56,7 @@ def _time(fn, repeat: int) -> float:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--max-pendulums", type=int, default=5,
-                        help="largest chain (6 and more take minutes: see DEVELOPERS.md)")
+    parser.add_argument("--max-pendulums", type=int, default=8, help="largest chain (default 8: 16 states)")
     parser.add_argument("--repeat", type=int, default=1)
     parser.add_argument("--samples", type=int, default=256)
     args = parser.parse_args()
@@ -66,7 +69,7 @@ def main() -> None:
         print(f"  {plant.name:<18}{plant.n:>7}{seconds:>10.2f}")
 
     print("\npendulum chain, input on the first, output the last (relative degree 2n)")
-    print(f"  {'n':>3}{'states':>7}{'seconds':>10}{'ratio':>9}{'verdict':>9}{'rel.deg':>9}")
+    print(f"  {'n':>3}{'states':>7}{'seconds':>10}{'ratio':>9}{'verdict':>9}{'rel.deg':>9}  method")
     rows = []
     for n in range(1, args.max_pendulums + 1):
         plant = plant_from_text(pendulum_chain(n), f"chain{n}")
@@ -77,11 +80,14 @@ def main() -> None:
         ratio = seconds / rows[0][1]
         verdict = report.input_state.linearizable
         degree = report.input_output.relative_degree
-        print(f"  {n:>3}{plant.n:>7}{seconds:>10.2f}{ratio:>9.1f}{str(verdict):>9}{str(degree):>9}")
-    if len(rows) >= 3:
-        (n_a, t_a), (n_b, t_b) = rows[-3], rows[-1]
-        exponent = math.log(t_b / t_a) / math.log(n_b / n_a)
-        print(f"\ngrowth exponent over the last three sizes: time ~ states^{exponent:.1f}")
+        method = "jets" if report.input_state.method else "symbolic"
+        print(f"  {n:>3}{plant.n:>7}{seconds:>10.2f}{ratio:>9.1f}{str(verdict):>9}{str(degree):>9}  {method}")
+    if len(rows) >= 2:
+        states = np.log([r[0] for r in rows])
+        seconds = np.log([r[1] for r in rows])
+        exponent = np.polyfit(states, seconds, 1)[0]
+        print(f"\nfitted growth over {rows[0][0]}..{rows[-1][0]} states (least squares of log t on log states): "
+              f"time ~ states^{exponent:.1f}")
 
 
 if __name__ == "__main__":

@@ -136,6 +136,11 @@ def _build_parser() -> argparse.ArgumentParser:
     check.add_argument("--json", action="store_true", help="print one JSON object instead of text")
     check.add_argument("--samples", type=_count_at_most(MAX_SAMPLES), default=1024,
                        help=f"envelope samples for the conditioning sweep (default 1024, at most {MAX_SAMPLES:_})")
+    check.add_argument("--budget", type=_positive_float, default=None, metavar="SECONDS",
+                       help="CPU seconds for the analysis (default 600); past them the verdicts are "
+                            "'could not decide within the budget'")
+    check.add_argument("--progress", action="store_true", default=None,
+                       help="show each step's progress even when stderr is not a terminal")
 
     build = _verb(verbs, _run_build, "build", help="synthesise the controller and write its artifact",
                   description="Synthesise the linearizing law and outer loop, generate the "
@@ -246,7 +251,9 @@ def _warn(warnings: list[str]) -> None:
 def _run_check(args: argparse.Namespace) -> int:
     from linz_ros.commands.check import check, render_check
 
-    print(render_check(check(args.plant, samples=args.samples), as_json=args.json))
+    progress = bool(args.progress if args.progress is not None else sys.stderr.isatty())
+    print(render_check(check(args.plant, samples=args.samples, budget=args.budget, progress=progress),
+                       as_json=args.json))
     return 0
 
 

@@ -362,3 +362,120 @@ def test_plants_beyond_the_state_budget_are_undecided_at_once():
                                          f"analysis handles at most {MAX_ANALYSIS_STATES}")
     assert report.input_output.linearizable is None
     assert "input-output linearizable: could not decide (within the budget" in render_text(report)
+
+
+# ---- beyond the symbolic budget: decisions from Taylor-mode jets ---------------------------
+
+def _pendulum_chain(n):
+    """n pendulums joined by springs, torque on the first, output the last (relative degree 2n)."""
+    states = ", ".join(f"th{i}, om{i}" for i in range(1, n + 1))
+    lines = [f"plant: chain{n}", f"states: [{states}]", "inputs: [u]", "parameters: {a: 9.0, k: 4.0}",
+             "dynamics:"]
+    for i in range(1, n + 1):
+        springs = "".join(f" + k*(th{j} - th{i})" for j in (i - 1, i + 1) if 1 <= j <= n)
+        lines += [f"  th{i}: om{i}", f"  om{i}: -a*sin(th{i}){springs}{' + u' if i == 1 else ''}"]
+    lines += [f"outputs: {{y: th{n}}}", "envelope: {" + ", ".join(f"th{i}: [-1, 1]" for i in range(1, n + 1)) + "}"]
+    return plant_from_text("\n".join(lines) + "\n")
+
+
+_TWO_INPUTS = ("plant: two\nstates: [x1, x2, x3]\ninputs: [u1, u2]\nparameters: {c: 0.7}\n"
+               "dynamics: {x1: sin(x2) + u1, x2: c*x3**2 + exp(x1)*u2, x3: x1*x2 - u1}\n"
+               "outputs: {y1: x1, y2: x3 + x2**2}\noperating_point: {x1: 0.1, x2: 0.2, x3: 0.3}\n")
+
+
+def _jet_cases():
+    return [load_plant(REFERENCE / "khalil_two_state.yaml"), load_plant(REFERENCE / "cart_pole.yaml"),
+            load_plant(REFERENCE / "flexible_joint.yaml"), _pendulum_chain(2), _pendulum_chain(3),
+            plant_from_text(_TWO_INPUTS)]
+
+
+@pytest.mark.parametrize("index", range(6))
+def test_jet_decisions_agree_with_the_symbolic_ones(index):
+    from linz_ros.analysis._input_output import _numeric_input_output, analyse_input_output
+    from linz_ros.analysis._input_state import analyse_input_state
+    from linz_ros.analysis._input_state_numeric import numeric_input_state
+    from linz_ros.analysis._numeric import plant_jets
+    plant = _jet_cases()[index]
+    symbolic = analyse_input_state(plant, plant_context(plant))
+    ctx = plant_context(plant)
+    numeric = numeric_input_state(plant, ctx, plant_jets(plant, ctx))
+    assert not symbolic.method and numeric.method.startswith("numeric from Taylor-mode jets")
+    assert numeric.linearizable == symbolic.linearizable
+    assert [(d.order, d.rank, d.rank_generic, d.involutive, d.witness) for d in numeric.distributions] == \
+        [(d.order, d.rank, d.rank_generic, d.involutive, d.witness) for d in symbolic.distributions]
+    assert numeric.controllability_indices == symbolic.controllability_indices
+    coordinates = [T for T in symbolic.linearizing_outputs if T.is_Symbol]
+    assert coordinates == [T for T in numeric.linearizing_outputs if T.is_Symbol]
+    if plant.h.shape[0]:
+        exact = analyse_input_output(plant, plant_context(plant))
+        jets = _numeric_input_output(plant, ctx, plant_jets(plant, ctx))
+        assert (jets.relative_degree, jets.relative_degree_generic, jets.linearizable, jets.zero_dynamics_order) == \
+            (exact.relative_degree, exact.relative_degree_generic, exact.linearizable, exact.zero_dynamics_order)
+        if exact.decoupling_matrix is not None and exact.relative_degree:
+            points = ctx.samples
+            from linz_ros.geometry import evaluate_many
+            assert np.allclose(jets.decoupling_values(points), evaluate_many(exact.decoupling_matrix, ctx, points),
+                               rtol=1e-9, atol=1e-9)
+
+
+def test_fourteen_state_chain_is_decided_from_jets_with_relative_degree_fourteen():
+    import time
+    plant = _pendulum_chain(7)
+    start = time.process_time()
+    report = analyse(plant, samples=64)
+    assert time.process_time() - start < 60      # CPU seconds: symbolically this chain takes hours
+    assert report.input_state.linearizable is True
+    assert report.input_state.method.startswith("numeric from Taylor-mode jets")
+    assert [d.rank for d in report.input_state.distributions] == list(range(1, 15))
+    assert [str(T) for T in report.input_state.linearizing_outputs] == ["th7"]
+    io = report.input_output
+    assert io.relative_degree == [14] and io.method.startswith("numeric from Taylor-mode jets")
+    assert io.decoupling_matrix is None and io.singular_set is None
+    # L_g L_f^13 th7 = k^6 along the chain of springs (only the spring path reaches the output)
+    assert report.envelope.min_sigma == pytest.approx(4.0 ** 6, rel=1e-9)
+    assert io.singular_set_note.startswith("not formed symbolically (L_g L_f^(r-1) h exceeds the symbolic "
+                                           "budget); at the 5 random points: smallest singular value 4096 at th1=")
+    document = report.to_json()
+    assert document["input_output"]["method"] == io.method and document["input_state"]["method"]
+    assert "method: numeric from Taylor-mode jets" in render_text(report)
+
+
+def test_small_plants_keep_their_symbolic_report_without_new_fields():
+    document = analyse(load_plant(REFERENCE / "khalil_two_state.yaml")).to_json()
+    assert "method" not in document["input_state"] and "singular_set_note" not in document["input_state"]
+    assert all(not d["method"].startswith("numeric from Taylor") for d in document["input_state"]["distributions"])
+
+
+def test_an_analysis_past_its_cpu_budget_is_undecided_and_says_where_it_stopped():
+    import time
+
+    from linz_ros.geometry import Monitor
+    plant = _pendulum_chain(3)      # symbolic: about a second of sympy
+    start = time.process_time()
+    report = analyse(plant, monitor=Monitor(seconds=0.0))
+    assert time.process_time() - start < 5.0
+    assert report.input_state.linearizable is None and report.input_output.linearizable is None
+    assert report.input_state.reason == ("could not decide within the budget (0 s): stopped at input-state: "
+                                         "distributions D_k")
+    assert report.to_json()["input_output"]["relative_degree"] is None
+
+
+def test_progress_reports_each_step_with_its_fraction():
+    from linz_ros.geometry import Monitor
+    seen = []
+    analyse(_pendulum_chain(4), samples=16, monitor=Monitor(report=lambda step, fraction: seen.append((step, fraction))))
+    steps = list(dict.fromkeys(step for step, _ in seen))
+    assert steps[0] == "input-state: distributions D_k"
+    assert "input-state: ad_f^k g (Taylor-mode jets)" in steps and "envelope sweep" in steps
+    assert all(0.0 <= fraction <= 1.0 for _, fraction in seen)
+
+
+def test_check_command_budget_and_progress(capsys):
+    from linz_ros.cli import main
+    assert main(["check", "--json", "--budget", "0.000001", str(REFERENCE / "cart_pole.yaml")]) == 0
+    out = capsys.readouterr().out
+    assert '"reason": "could not decide within the budget (1e-06 s): stopped at' in out
+    assert main(["check", "--progress", "--samples", "16", str(REFERENCE / "khalil_two_state.yaml")]) == 0
+    captured = capsys.readouterr()
+    assert "check khalil_two_state: input-state: distributions D_k [" in captured.err
+    assert "VERDICT" in captured.out

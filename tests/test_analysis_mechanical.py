@@ -111,3 +111,29 @@ def test_vessel_terms_separate_the_output_jacobian_from_the_velocity_factor():
     np.testing.assert_allclose(v["H"][0], H, atol=1e-14)
     np.testing.assert_allclose(v["J"][0], H @ R, atol=1e-14)
     assert np.max(np.abs(H - H @ R)) > 0.1
+
+
+# -- elastic joints (analysis._elastic) -----------------------------------------------------
+def test_single_elastic_joint_has_relative_degree_4_and_the_published_decoupling():
+    plant = load_plant(REFERENCE / "elastic_joint.yaml")
+    report = analyse(plant, samples=32)
+    io = report.input_output
+    assert io.relative_degree == [4] and io.zero_dynamics_order == 0
+    assert io.to_json()["singular_set_empty"] is True
+    assert report.input_state.linearizable is True and report.input_state.controllability_indices == [4]
+    # Spong 1987 (one-link flexible joint): L_g L_f^3 h = k / (I J) for h = q
+    I, k, J = 0.031, 31.0, 0.004
+    A, _ = report.mechanical_terms.decoupling(np.array([[0.3, -1.0, 0.2, 2.0]]))
+    assert A[0, 0, 0] == pytest.approx(k / (I * J), rel=1e-12)
+
+
+def test_six_joint_elastic_arm_on_its_structure():
+    report = analyse(load_plant(BUNDLED / "flex_loader_arm.yaml"), samples=32)
+    io = report.input_output
+    assert io.relative_degree == [4] * 6 and io.zero_dynamics_order == 0
+    assert io.zero_dynamics.stability == "none" and io.singular_set == 1
+    assert io.decoupling_structure["form"] == "M(q)^-1 K J_m^-1"
+    assert [d.rank for d in report.input_state.distributions[:4]] == [6, 12, 18, 24]
+    data = report.to_json()
+    assert data["mechanics"]["elastic"]["stiffness"][0] == "k_base"
+    assert "elastic joints" in render_text(report)

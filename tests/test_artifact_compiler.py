@@ -139,3 +139,88 @@ def test_printed_expressions_compile_to_the_same_numbers_as_sympy(expr, a, b):
 def test_a_name_with_a_trailing_newline_is_refused():
     with pytest.raises(ArtifactError, match="is not a valid name"):
         compile_program("t", [("x", ["q\n"])], [], [("y", [1], ["1"])])
+
+
+# -- the jet2 backend: scalar second-order jets -------------------------------------------------
+# every grammar function, each power form, atan2 with jets and constants on either side, quotients
+_JET_TEXTS = ["sin(a)*cos(b)/(1 + a**2)", "k*exp(-b) - 2**a + atan2(a, k)", "sqrt(k)*a - 3", "k**2 + 1",
+              "tan(0.3*a) + asin(0.2*b) + acos(0.1*a) + atan(b)", "sinh(a)*cosh(b) + tanh(a*b)",
+              "log(2 + a**2)*abs(b + 5)*sign(b + 5)", "a**b + a**2.5 + (a + b)**(-2)", "atan2(k, b)",
+              "atan2(a, b) + atan2(a*b, k)", "a**7 - a**(-3) + (a*b)**k + k**a", "a/b - k/a + a/k - (-b)",
+              "abs(-a)*sign(-a) + sqrt(a*a + b*b)*pi", "a**0 + b**1 + (a - a)"]
+_A, _B = (1.3, 0.5, -0.2), (0.4, -0.3, 0.7)         # a(t) = 1.3 + 0.5 t - 0.2 t^2, b(t) likewise
+_K = 1.7
+
+
+def _series_coefficients(text):
+    """[t^0], [t^1], [t^2] of the expression along the curve, by sympy at 30 digits (not jets)."""
+    t = sp.Symbol("t", real=True)
+    curve = {name: sum(sp.Float(c, 30) * t ** i for i, c in enumerate(coefficients))
+             for name, coefficients in (("a", _A), ("b", _B))}
+    expr = sp.sympify(text, locals={**curve, "k": sp.Float(_K, 30)})
+    return [float(sp.diff(expr, t, order).subs(t, 0).evalf(30) / math.factorial(order)) for order in range(3)]
+
+
+@pytest.mark.parametrize("text", _JET_TEXTS)
+def test_jet2_backend_equals_sympy_series_for_every_function(text):
+    program = compile_program("j", [("x", ["a", "b"]), ("p", ["k"])], [], [("y", [1], [text])], backend="jet2")
+    got = program([_A, _B], [_K])[0]
+    assert got == pytest.approx(_series_coefficients(text), rel=1e-12, abs=1e-13)
+
+
+def test_jet2_temporaries_and_outputs_keep_their_layout():
+    args = [("x", ["a", "b"]), ("p", ["k"])]
+    temporaries = [("_t0", "sin(a)*k"), ("_t1", "_t0/b"), ("_t2", "k*2")]
+    outputs = [("A", [2, 2], ["_t1", "_t0**2", "_t2", "a"]), ("s", [1], ["_t1*_t2 + b"])]
+    program = compile_program("j", args, temporaries, outputs, backend="jet2")
+    got = program([_A, _B], [_K])
+    texts = ["sin(a)*k/b", "(sin(a)*k)**2", "k*2", "a", "sin(a)*k/b*k*2 + b"]
+    for value, text in zip(got, texts):
+        assert value == pytest.approx(_series_coefficients(text), rel=1e-12, abs=1e-13)
+    assert got[2] == (2 * _K, 0.0, 0.0)               # a constant output is a triple too
+    assert program.evaluate([_A, _B], [_K])["A"].shape == (2, 2, 3)
+
+
+def test_jet2_phases_take_each_order_after_the_previous_one():
+    """Order k of the outputs needs the inputs up to order k: the order-2 input may depend on order 1."""
+    program = compile_program("j", [("x", ["a", "b"]), ("p", ["k"])], [], [("y", [1], [_JET_TEXTS[0]])],
+                              backend="jet2")
+    run = program.phases([_A[0], _B[0]], [_K])
+    orders = [next(run)[0], run.send([_A[1], _B[1]])[0], run.send([_A[2], _B[2]])[0]]
+    assert tuple(orders) == program([_A, _B], [_K])[0]
+    assert compile_program("m", [("x", ["a", "b"])], [], [("y", [1], [_JET_TEXTS[0]])]).phases is None
+
+
+def test_jet2_skips_the_known_zeros_of_constants():
+    program = compile_program("j", [("x", ["a"]), ("p", ["k"])], [], [("y", [1], ["k*a + k*k"])], backend="jet2")
+    assert program([(2.0, 3.0, 5.0)], [7.0]) == ((63.0, 21.0, 35.0),)
+    # one product per order for k*a, the constant k*k once: no multiplication by a zero coefficient
+    assert program.source.count(" * ") == 4
+
+
+@pytest.mark.parametrize("text", ["sqrt(a - 5)", "log(a - a)", "a/(b - b)", "(a - 5)**0.5", "acos(a + 3)",
+                                  "(a - a)**(-2)"])
+def test_jet2_domain_errors_raise_like_the_math_backend(text):
+    program = _one(text, backend="jet2")
+    with pytest.raises((ArithmeticError, ValueError)):
+        program([(1.0, 1.0, 1.0), (2.0, 1.0, 0.0)])
+
+
+def test_jet2_backend_keeps_the_grammar_checks():
+    for text, words in [("__import__(a)", "is not a known function"), ("a + q", "unknown name 'q'"),
+                        ("a; b", "cannot read"), ("1e999*a", "out of range")]:
+        with pytest.raises(ArtifactError, match=words):
+            compile_program("j", [("x", ["a"])], [], [("y", [1], [text])], backend="jet2")
+    with pytest.raises(ArtifactError, match="declared twice"):
+        compile_program("j", [("x", ["a"])], [("a", "a*2")], [("y", [1], ["a"])], backend="jet2")
+    program = compile_program("j", [("x", ["lambda", "E"]), ("p", ["k"])], [], [("y", [1], ["k*sin(lambda)"])],
+                              backend="jet2")
+    body = program.source.split("def _phases")[1]
+    assert "_m.sin(a0_0)" in body and "lambda" not in body and "import" not in body
+
+
+def test_jet2_long_sums_compile_without_deep_nesting():
+    text = " + ".join(f"{k}*a*k" for k in range(3000))
+    program = compile_program("j", [("x", ["a"]), ("p", ["k"])], [], [("y", [1], [text])], backend="jet2")
+    total = sum(range(3000))
+    assert program([(1.0, 2.0, 3.0)], [2.0])[0] == pytest.approx((2 * total, 4 * total, 6 * total), rel=1e-14)

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import sympy as sp
 
-from support import BUNDLED, built_artifact
+from support import BUNDLED, REFERENCE, built_artifact
 from linz_ros.bench import _c_library, _naive_step, law_expressions, run_bench
 from linz_ros.model import load_plant
 from linz_ros.runtime import ControllerCore
@@ -155,3 +155,11 @@ def test_goals_are_judged_met_or_missed_in_text_and_json():
     goals = result.to_json()["goals"]
     assert goals["core_over_compiled_c"]["met"] is False and goals["naive_over_core"]["met"] is True
     assert "core_over_law_only" not in goals
+
+
+def test_an_elastic_arm_is_timed_on_its_core_and_law_and_says_why_no_more():
+    artifact = built_artifact(REFERENCE / "elastic_joint.yaml")
+    result = run_bench(artifact, None, calls=20, rounds=1)
+    assert set(result.microseconds) == {"core", "law_only"}
+    assert all(v > 0 for v in result.microseconds.values())
+    assert any("elastic joints" in note for note in result.notes)

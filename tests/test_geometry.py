@@ -175,3 +175,92 @@ def test_large_matrices_get_a_numeric_generic_rank_however_simple_their_entries(
     ctx = NumericContext.around(x, {}, [0.0] * side)
     result = generic_rank(shift, ctx)
     assert result.rank == side - 1 and result.method.startswith("numeric")
+
+
+# ---- jets: numeric Lie derivatives and brackets against the symbolic ones ----------------
+
+def _pendulum_chain_text(n):
+    """n pendulums joined by springs, torque on the first, output the last (relative degree 2n)."""
+    states = ", ".join(f"th{i}, om{i}" for i in range(1, n + 1))
+    lines = [f"plant: chain{n}", f"states: [{states}]", "inputs: [u]", "parameters: {a: 9.0, k: 4.0}",
+             "dynamics:"]
+    for i in range(1, n + 1):
+        springs = "".join(f" + k*(th{j} - th{i})" for j in (i - 1, i + 1) if 1 <= j <= n)
+        lines += [f"  th{i}: om{i}", f"  om{i}: -a*sin(th{i}){springs}{' + u' if i == 1 else ''}"]
+    return "\n".join(lines + [f"outputs: {{y: th{n}}}"]) + "\n"
+
+
+def _jet_plants():
+    from pathlib import Path
+
+    from linz_ros.model import load_plant, plant_from_text
+    root = Path(__file__).resolve().parent.parent
+    two_input = plant_from_text("plant: two\nstates: [x1, x2, x3]\ninputs: [u1, u2]\nparameters: {c: 0.7}\n"
+                                "dynamics: {x1: sin(x2) + u1, x2: c*x3**2 + exp(x1)*u2, x3: x1*x2 - u1}\n"
+                                "outputs: {y1: x1, y2: x3 + x2**2}\n")
+    return [load_plant(root / "tests" / "plants" / "khalil_two_state.yaml"),
+            plant_from_text(_pendulum_chain_text(2)), plant_from_text(_pendulum_chain_text(3)), two_input]
+
+
+@pytest.mark.parametrize("index", range(4))
+def test_jet_ad_fields_and_brackets_agree_with_the_symbolic_ones(index):
+    from linz_ros.geometry import PlantJets, evaluate_many
+    plant = _jet_plants()[index]
+    ctx = NumericContext.around(plant.states, plant.nominal, [0.2] * plant.n)
+    jets = PlantJets(plant.f, plant.G, plant.states, plant.nominal)
+    order = plant.n - 1
+    values = jets.ad_values(ctx.samples, order)                       # order+1, B, n, m
+    fields = [[ad(plant.f, plant.G[:, j], plant.states, k) for j in range(plant.m)] for k in range(order + 1)]
+    for k in range(order + 1):
+        for j in range(plant.m):
+            exact = evaluate_many(fields[k][j], ctx, ctx.samples)[:, :, 0]
+            assert np.allclose(values[k, :, :, j], exact, rtol=1e-9, atol=1e-9)
+    # D(ad_f^1 g_0) X along X = g_0: the bracket [g_0, ad_f g_0] from complex steps
+    direction = jets.input_fields(ctx.samples)[:, :, 0][:, None, :]
+    derivative = jets.ad_directional(ctx.samples, direction, 1)[1, :, 0, :, 0]
+    other = jets.ad_directional(ctx.samples, values[1, :, :, 0][:, None, :], 0)[0, :, 0, :, 0]
+    bracket = evaluate_many(lie_bracket(fields[0][0], fields[1][0], plant.states), ctx, ctx.samples)[:, :, 0]
+    assert np.allclose(derivative - other, bracket, rtol=1e-9, atol=1e-9)
+
+
+@pytest.mark.parametrize("index", range(4))
+def test_jet_lie_chains_agree_with_the_symbolic_ones(index):
+    from linz_ros.geometry import PlantJets, evaluate_many
+    plant = _jet_plants()[index]
+    outputs = list(plant.h) if plant.h.shape[0] else [plant.states[0]]
+    ctx = NumericContext.around(plant.states, plant.nominal, [0.2] * plant.n)
+    jets = PlantJets(plant.f, plant.G, plant.states, plant.nominal)
+    program = jets.program(outputs)
+    order = plant.n
+    values = jets.lie_values(program, ctx.samples, order)
+    along_g = jets.input_lie_values(program, ctx.samples, order)
+    gradients = jets.lie_gradients(program, ctx.samples, order)
+    for i, h in enumerate(outputs):
+        phi = sp.sympify(h)
+        for k in range(order + 1):
+            exact = evaluate_many(sp.Matrix([phi]), ctx, ctx.samples)[:, 0, 0]
+            assert np.allclose(values[k, i], exact, rtol=1e-9, atol=1e-9)
+            for j in range(plant.m):
+                lg = evaluate_many(sp.Matrix([lie_derivative(phi, plant.G[:, j], plant.states)]), ctx,
+                                   ctx.samples)[:, 0, 0]
+                assert np.allclose(along_g[k, i, :, j], lg, rtol=1e-9, atol=1e-9)
+            gradient = evaluate_many(sp.Matrix([phi]).jacobian(sp.Matrix(plant.states)), ctx, ctx.samples)[:, 0]
+            assert np.allclose(gradients[k, i], gradient, rtol=1e-9, atol=1e-9)
+            phi = lie_derivative(phi, plant.f, plant.states)
+
+
+def test_jet_program_refuses_a_function_without_a_jet_rule():
+    from linz_ros.geometry import JetProgram, UnsupportedExpression
+    with pytest.raises(UnsupportedExpression, match="no jet rule for gamma"):
+        JetProgram([sp.gamma(x1)], X, {})
+
+
+def test_tree_budget_predicts_growth_from_one_order_to_the_next():
+    from linz_ros.geometry import beyond_tree_budget, tree_size
+    big = sum(sp.sin(x1 + i) for i in range(40))
+    assert tree_size(big, 10) == 11
+    assert beyond_tree_budget([big], budget=50)[0]
+    assert not beyond_tree_budget([x1 * x2], budget=50)[0]
+    # 5 nodes now, 3 before: two more orders at that growth give 5 (5/3)^2 = 13.9 nodes
+    assert beyond_tree_budget([x1 * x2 + x3], previous=3, remaining=2, budget=12) == (True, 5)
+    assert not beyond_tree_budget([x1 * x2 + x3], previous=3, remaining=0, budget=12)[0]

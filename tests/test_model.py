@@ -100,7 +100,7 @@ def test_bundled_plants_load(path):
     if plant.mechanics is None:
         assert plant.n == len(plant.f) and plant.G.shape == (plant.n, plant.m)
     else:
-        assert plant.n == 2 * plant.mechanics.nq and plant.mechanics.B.shape == (plant.mechanics.nq, plant.m)
+        assert plant.n == (4 if plant.mechanics.elastic else 2) * plant.mechanics.nq and plant.mechanics.B.shape == (plant.mechanics.nq, plant.m)
     assert plant.h.shape[0] == len(plant.output_names) > 0
     assert plant.design["rate"] > 0
     assert plant.source == str(path)

@@ -213,3 +213,62 @@ def test_vessel_coriolis_terms_do_no_work():
     # and with damping, the damping dissipates: v^T F < 0
     nominal = np.array(F(*[0.0, 0.0, 0.3, 0.8, 0.2, -0.3], *plant.parameters.values()), dtype=float)
     assert np.array([0.8, 0.2, -0.3]) @ nominal < 0
+
+
+# -- elastic joints (model._elastic) ----------------------------------------------------------
+ELASTIC = (REFERENCE / "elastic_joint.yaml").read_text()
+
+
+def test_elastic_joint_has_four_states_per_joint_zero_link_input_and_the_spring():
+    plant = plant_from_text(ELASTIC)
+    assert plant.state_names == ["q", "w", "th", "thd"] and plant.output_names == ("y_q",)
+    mech = plant.mechanics
+    assert mech.B == sp.zeros(1, 1) and mech.elastic.stiffness == (sp.Symbol("k", real=True),)
+    assert mech.elastic.motor_damping == (0,)
+    assert sp.simplify(mech.elastic.spring(mech.coordinates)[0] - sp.sympify("k*(th - q)", locals={
+        "k": sp.Symbol("k", real=True), "th": sp.Symbol("th", real=True), "q": sp.Symbol("q", real=True)})) == 0
+
+
+def test_bundled_elastic_arm_defaults_units_of_its_motors_like_its_joints():
+    plant = load_plant(BUNDLED / "flex_loader_arm.yaml")
+    assert plant.n == 24 and plant.m == 6
+    assert plant.signal_units["th3"] == "rad" and plant.signal_units["thd6"] == "rad/s"
+    assert plant.signal_units["tau1"] == "N m"
+
+
+def test_elastic_default_motor_names():
+    text = ELASTIC.replace("motor_angles: [th], motor_rates: [thd], ", "").replace("th: [-1.6, 1.6], thd: [-3, 3]",
+                                                                                  "q_motor: [-1.6, 1.6]")
+    assert plant_from_text(text).state_names == ["q", "w", "q_motor", "q_motor_dot"]
+
+
+@pytest.mark.parametrize("old, new, words", [
+    ("stiffness: [k], ", "", "elastic_joints.stiffness: missing"),
+    ("stiffness: [k]", "stiffness: [k, k]", "elastic_joints.stiffness: expected a list of 1 expressions"),
+    ("stiffness: [k]", "stiffness: [-k]", r"elastic_joints.stiffness\[0\]: must be positive, got -31"),
+    ("motor_inertia: [J]", "motor_inertia: [0]", r"elastic_joints.motor_inertia\[0\]: must be positive"),
+    ("motor_inertia: [J]}", "motor_inertia: [J], motor_damping: [-1]}", r"motor_damping\[0\]: must be not negative"),
+    ("stiffness: [k]", "stiffness: [k*q]", r"elastic_joints.stiffness\[0\]: depends on q"),
+    ("stiffness: [k]", "stiffness: [k], gear: 3", "elastic_joints.gear: unknown key"),
+    ("motor_angles: [th]", "motor_angles: [th, th2]", "elastic_joints.motor_angles: expected a list of 1 names"),
+    ("motor_angles: [th]", "motor_angles: [w]", r"motor_angles\[0\]: duplicate name 'w'"),
+    ("design:", "outputs: {y: q}\ndesign:", "outputs: not taken with elastic_joints"),
+    ("design:", "input_map: [[1]]\ndesign:", "input_map: not taken with elastic_joints"),
+    ("inputs: [u]", "inputs: [u, u2]", "inputs: an elastic-joint arm takes one motor torque per joint"),
+    ("forces: {q: -MgL*sin(q)}", "forces: {q: -MgL*sin(q) + th}", "mass_matrix: depends on motor state th"),
+    ("elastic_joints: {", "elastic_joints: [", "elastic_joints"),
+])
+def test_elastic_section_refuses_bad_input_with_one_line(old, new, words):
+    text = ELASTIC.replace(old, new)
+    if old == "elastic_joints: {":
+        text = text.replace("motor_inertia: [J]}", "motor_inertia: [J]]")
+    assert text != ELASTIC
+    with pytest.raises(PlantFileError, match=words) as err:
+        plant_from_text(text, "arm.yaml")
+    assert "\n" not in str(err.value) and str(err.value).startswith("arm.yaml")
+
+
+def test_elastic_section_belongs_to_the_mechanical_forms():
+    text = "plant: p\nstates: [x]\ninputs: [u]\ndynamics: {x: u}\nelastic_joints: {stiffness: [1]}\n"
+    with pytest.raises(PlantFileError, match="elastic_joints: belongs to the mechanical forms"):
+        plant_from_text(text)

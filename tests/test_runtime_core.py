@@ -543,3 +543,73 @@ def test_a_growing_swing_is_divergence_and_a_decaying_one_is_not(arm, period):
             ref = [y[0] + amplitude * math.sin(2 * math.pi * t / period), 0.0, 0.0, y[1], 0.0, 0.0]
             tripped |= bool(core.step(x, ref, t=t)[1].alarms & 2)
         assert tripped == expected, (period, growth)
+
+
+# -- elastic joints: the law against closed forms ---------------------------------------------
+from support import REFERENCE  # noqa: E402
+
+
+def test_single_elastic_joint_law_equals_the_published_closed_form():
+    # Spong 1987, one-link flexible joint: I q'' + MgL sin q + k (q - th) = 0, J th'' - k (q - th) = u;
+    # y'''' = a(x) + k / (I J) u with a from differentiating the link equation twice (his eq. for L_f^4 h)
+    I, MgL, k, J = 0.031, 0.8, 31.0, 0.004
+    core = ControllerCore(built_artifact(REFERENCE / "elastic_joint.yaml"))
+    rng = np.random.default_rng(7)
+    for n in range(5):
+        q, w, th, thd = rng.uniform(-1, 1, 4)
+        qdd = (-MgL * math.sin(q) - k * (q - th)) / I
+        qddd = (-MgL * math.cos(q) * w - k * (w - thd)) / I
+        a = (MgL * math.sin(q) * w * w - MgL * math.cos(q) * qdd - k * qdd + k * k * (q - th) / J) / I
+        v = rng.uniform(-50, 50)
+        ref = [q, w, qdd, qddd, v]           # errors zero: the outer loop gives v itself
+        u, record = core.step([q, w, th, thd], ref, t=float(n))
+        assert record.mode == "nominal"
+        assert u[0] == pytest.approx((v - a) * I * J / k, rel=1e-9, abs=1e-12)
+        assert record.sigma_min == pytest.approx(k / (I * J), rel=1e-12)
+
+
+def _derivatives(function, curve, h=1e-3):
+    """First and second derivative at t = 0 by fourth-order central differences (not jets)."""
+    f = {s: np.asarray(function(*curve(s * h)), dtype=float) for s in (-2, -1, 0, 1, 2)}
+    first = (-f[2] + 8 * f[1] - 8 * f[-1] + f[-2]) / (12 * h)
+    second = (-f[2] + 16 * f[1] - 30 * f[0] + 16 * f[-1] - f[-2]) / (12 * h * h)
+    return first, second
+
+
+def test_six_joint_elastic_arm_commands_match_pinocchio_with_the_springs_added_by_hand():
+    pytest.importorskip("pinocchio")
+    from linz_ros.crosscheck import pinocchio_reference
+    from linz_ros.model import load_plant
+
+    plant = load_plant(BUNDLED / "flex_loader_arm.yaml")
+    artifact = built_artifact(BUNDLED / "flex_loader_arm.yaml")
+    law, p = artifact.elastic_law(), artifact.nominal_parameters.tolist()
+    pin_arm = pinocchio_reference(plant)             # rigid links from the same DH table, Pinocchio's RNEA/CRBA
+    values = dict(zip(artifact.parameter_names, p))
+    K = np.array([values[n] for n in ("k_base", "k_base", "k_elbow", "k_wrist", "k_wrist", "k_wrist")])
+    Jm = np.array([values[n] for n in ("j_base", "j_base", "j_elbow", "j_wrist", "j_wrist", "j_wrist")])
+    D = np.array([values[n] for n in ["motor_friction"] * 3 + ["wrist_motor_friction"] * 3])
+    rng = np.random.default_rng(3)
+    for _ in range(3):
+        q, qd, thd = rng.uniform(-1, 1, 6), rng.uniform(-1, 1, 6), rng.uniform(-1, 1, 6)
+        th = q + rng.uniform(-0.02, 0.02, 6)
+        v = rng.uniform(-100, 100, 6)
+
+        def forces(qq, vv):
+            return -pin_arm.inverse_dynamics(qq, vv, np.zeros(6))     # F = -(C q' + g + friction q')
+
+        qdd = np.linalg.solve(pin_arm.mass_matrix(q), forces(q, qd) + K * (th - q))
+        M1, _ = _derivatives(lambda qq: [pin_arm.mass_matrix(qq)], lambda t: [q + qd * t + qdd * t * t / 2])
+        F1, _ = _derivatives(forces, lambda t: [q + qd * t + qdd * t * t / 2, qd + qdd * t])
+        M = pin_arm.mass_matrix(q)
+        qddd = np.linalg.solve(M, K * (thd - qd) + F1 - M1[0] @ qdd)
+        curve = lambda t: [q + qd * t + qdd * t * t / 2 + qddd * t ** 3 / 6, qd + qdd * t + qddd * t * t / 2]  # noqa: E731
+        _, M2 = _derivatives(lambda qq, vv: [pin_arm.mass_matrix(qq)], curve)
+        _, F2 = _derivatives(forces, curve)
+        # Spong's law for the reduced model: u = J K^-1 (M v + 2 M' q''' + M'' q'' - F'') + J q'' + K (th - q) + D th'
+        expected = (Jm / K * (M @ v + 2 * M1[0] @ qddd + M2[0] @ qdd - F2) + Jm * qdd + K * (th - q) + D * thd)
+        x = np.concatenate([q, qd, th, thd]).tolist()
+        terms = law.terms(x, p)
+        got = np.linalg.solve(terms["A"], v - terms["b"])
+        # the differences' error (h = 1e-3: about 1e-9 relative on M'', F'') bounds the tolerance
+        assert got == pytest.approx(expected, rel=1e-6, abs=1e-6 * np.max(np.abs(expected)))

@@ -316,3 +316,24 @@ def test_absurd_lqr_weights_are_refused_in_one_line_without_a_solver_warning():
             synthesise(plant, DesignOptions(lqr={"q": [1e308, 1, 1, 1]}))
         with pytest.raises(DesignError, match=r"--lqr-r: weight 1e-20 is outside"):
             synthesise(plant, DesignOptions(lqr={"r": [1e-20, 1]}))
+
+
+def test_elastic_joint_design_has_chains_of_degree_4_and_an_elastic_artifact():
+    from support import REFERENCE, built_artifact
+    from linz_ros.artifact import artifact_from_text
+    from linz_ros.errors import ArtifactError
+    import json
+
+    design = synthesise(load_plant(REFERENCE / "elastic_joint.yaml"))
+    assert design.relative_degree == [4] and design.mechanical and design.A is None
+    assert np.allclose(design.chains[0].gains, [5 * 6 * 7 * 8, 5 * 6 * 7 + 5 * 6 * 8 + 5 * 7 * 8 + 6 * 7 * 8,
+                                                5 * 6 + 5 * 7 + 5 * 8 + 6 * 7 + 6 * 8 + 7 * 8, 26])
+    artifact = built_artifact(REFERENCE / "elastic_joint.yaml")
+    assert artifact.elastic and not artifact.computed_torque
+    document = dict(artifact.document)
+    document["design"] = dict(document["design"], mechanics=dict(document["design"]["mechanics"], elastic=False))
+    from linz_ros.artifact import seal
+    with pytest.raises(ArtifactError, match="design.mechanics"):
+        artifact_from_text(seal({k: v for k, v in document.items() if k != "sha256"}))
+    assert json.loads(seal({k: v for k, v in artifact.document.items() if k != "sha256"}))["design"]["mechanics"][
+        "elastic"] is True

@@ -2,7 +2,8 @@
 
 Public names
 ------------
-analyse               run every analysis and return a Report
+analyse               run every analysis and return a Report (within a CPU-time budget)
+DEFAULT_BUDGET_SECONDS  the default CPU-time budget of ``linz check``
 render_text           the Report as readable text (verdict first)
 Report                the result, with ``to_json()`` for the command-line contract
 analyse_input_state   input-state verdict, distributions D_k, indices, linearizing output
@@ -24,11 +25,12 @@ from linz_ros.analysis._input_state import (DistributionInfo, InputStateResult, 
                                             controllability_indices, lie_chain,
                                             relative_degree_of)
 from linz_ros.analysis._mechanical import MechanicalTerms, mechanical_terms
-from linz_ros.analysis._report import Report, analyse, render_text, render_verdict
+from linz_ros.analysis._report import DEFAULT_BUDGET_SECONDS, Report, analyse, render_text, render_verdict
 
 __all__ = [
     "analyse", "render_text", "render_verdict", "Report", "analyse_input_state", "analyse_input_output",
     "sample_envelope", "envelope_points", "output_ranges", "invariant_zeros", "controllability_indices", "relative_degree_of",
     "decoupling_terms", "lie_chain", "DistributionInfo", "InputStateResult", "InputOutputResult",
     "ZeroDynamics", "EnvelopeResult", "plant_context", "MechanicalTerms", "mechanical_terms",
+    "DEFAULT_BUDGET_SECONDS",
 ]

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sympy as sp
 
-from linz_ros.geometry import NumericContext
+from linz_ros.geometry import NumericContext, tree_size
 from linz_ros.model import Plant
 
 #: Expressions with more operations than this are shown as computed, not simplified.
@@ -51,10 +51,7 @@ SHOW_BUDGET = 2000
 
 def tree_size_above(expr: sp.Expr, limit: int) -> bool:
     """True when ``expr`` has more than ``limit`` nodes; stops counting there (cheap on big trees)."""
-    for count, _ in enumerate(sp.preorder_traversal(sp.sympify(expr)), start=1):
-        if count > limit:
-            return True
-    return False
+    return tree_size(expr, limit) > limit
 
 
 def small_enough(matrix: sp.Matrix, limit: int = SHOW_BUDGET) -> bool:

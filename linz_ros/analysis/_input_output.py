@@ -11,7 +11,9 @@ import sympy as sp
 
 from linz_ros.analysis._common import count, names_are, show, show_matrix, tidy
 from linz_ros.analysis._input_state import EVERYWHERE, lie_chain, state_factors
-from linz_ros.geometry import NumericContext, evaluate, generic_rank, lie_derivative, rank_at
+from linz_ros.analysis._numeric import NUMERIC_METHOD, numeric_chains, plant_jets, sampled_generic_rank, sampled_minimum
+from linz_ros.geometry import (SYMBOLIC_TREE_BUDGET, BeyondSymbolicBudget, NumericContext, PlantJets, evaluate,
+                               generic_rank, lie_derivative, numeric_rank, rank_at)
 from linz_ros.model import Plant
 
 __all__ = ["InputOutputResult", "ZeroDynamics", "analyse_input_output", "decoupling_terms",
@@ -58,6 +60,8 @@ class InputOutputResult:
     zero_dynamics: ZeroDynamics | None = None
     decoupling_structure: dict[str, Any] | None = None   # mechanical plants: A = J M^-1 B
     summary: str = ""            # the reason in a few words, for the verdict line
+    method: str = ""             # set when decided from jets (no symbolic chains or decoupling matrix)
+    decoupling_values: Callable[[np.ndarray], np.ndarray] | None = None   # K x n points -> K x p x m, from jets
 
     @property
     def linearizable(self) -> bool | None:
@@ -67,7 +71,9 @@ class InputOutputResult:
         return None if self.reason.startswith("could not decide") else False
 
     def to_json(self) -> dict[str, Any]:
+        extra = {"method": self.method} if self.method else {}
         return {
+            **extra,
             "outputs": self.outputs,
             "linearizable": self.linearizable,
             "relative_degree": self.relative_degree,
@@ -84,7 +90,7 @@ class InputOutputResult:
         }
 
 
-def decoupling_terms(plant: Plant, ctx: NumericContext
+def decoupling_terms(plant: Plant, ctx: NumericContext, tree_budget: int | None = None
                      ) -> tuple[list[int | None], sp.Matrix | None, sp.Matrix | None, list[list[sp.Expr]]]:
     """Generic relative degrees, decoupling matrix A(x), stacked b(x) = L_f^r_i h_i, chains.
 
@@ -92,6 +98,8 @@ def decoupling_terms(plant: Plant, ctx: NumericContext
     ----------
     plant : Plant
     ctx : NumericContext
+    tree_budget : int or None
+        Tree nodes at most in a Lie derivative (:func:`lie_chain`), None for no limit.
 
     Returns
     -------
@@ -106,7 +114,7 @@ def decoupling_terms(plant: Plant, ctx: NumericContext
     """
     degrees, rows, drift, chains = [], [], [], []
     for i in range(plant.h.shape[0]):
-        degree, row, chain = lie_chain(plant.h[i], plant, ctx)
+        degree, row, chain = lie_chain(plant.h[i], plant, ctx, tree_budget)
         degrees.append(degree)
         chains.append(chain)
         if degree is None:
@@ -119,7 +127,7 @@ def decoupling_terms(plant: Plant, ctx: NumericContext
     return degrees, A, sp.Matrix(drift), chains
 
 
-def analyse_input_output(plant: Plant, ctx: NumericContext) -> InputOutputResult | None:
+def analyse_input_output(plant: Plant, ctx: NumericContext, numeric: bool = False) -> InputOutputResult | None:
     """Relative degree, decoupling matrix, singular set and zero dynamics of the outputs.
 
     Definitions follow Isidori, Nonlinear Control Systems, sec. 5.1: the vector
@@ -130,6 +138,9 @@ def analyse_input_output(plant: Plant, ctx: NumericContext) -> InputOutputResult
     ----------
     plant : Plant
     ctx : NumericContext
+    numeric : bool
+        Decide from jets at once (the plant's expressions are known to exceed the symbolic
+        budget); otherwise symbolically, switching to jets when a Lie derivative exceeds it.
 
     Returns
     -------
@@ -140,13 +151,15 @@ def analyse_input_output(plant: Plant, ctx: NumericContext) -> InputOutputResult
     if p == 0:
         return None
     names = list(plant.output_names)
-    degrees, A, b, chains = decoupling_terms(plant, ctx)
+    jets = plant_jets(plant, ctx)
+    try:
+        if numeric and jets is not None:
+            raise BeyondSymbolicBudget("the brackets exceed the symbolic budget")
+        degrees, A, b, chains = decoupling_terms(plant, ctx, None if jets is None else SYMBOLIC_TREE_BUDGET)
+    except BeyondSymbolicBudget:
+        return _numeric_input_output(plant, ctx, jets)
     if A is None:
-        lost = [names[i] for i, d in enumerate(degrees) if d is None]
-        return InputOutputResult(names, None, degrees,
-                                 f"{names_are(lost, 'output')} not affected by any input "
-                                 f"within {count(plant.n, 'derivative')} (infinite relative degree)",
-                                 summary=f"{names_are(lost, 'output')} not reached by any input")
+        return _unreached(names, degrees, plant)
     result = InputOutputResult(names, None, degrees, "", decoupling_matrix=A, drift_terms=b, chains=chains)
     if p > m:
         result.reason, result.summary = more_outputs_than_inputs(p, m)
@@ -154,6 +167,40 @@ def analyse_input_output(plant: Plant, ctx: NumericContext) -> InputOutputResult
     result.singular_set, result.singular_set_note = _singular_set(A, plant, ctx)
     ranks = generic_rank(A, ctx).rank, rank_at(A, ctx, plant.operating_vector())
     return rank_verdict(result, plant, ranks, _DECOUPLING_MATRIX, lambda order: _zero_dynamics(plant, order, ctx))
+
+
+#: What the report says of input-output results decided from jets.
+INPUT_OUTPUT_METHOD = (f"{NUMERIC_METHOD}: L_f^k h along the flow and L_g L_f^k h by complex steps at the "
+                       "operating point and the random points (the expressions exceed the symbolic budget)")
+
+
+def _numeric_input_output(plant: Plant, ctx: NumericContext, jets: PlantJets) -> InputOutputResult:
+    """:func:`analyse_input_output` from jets: no chains and no decoupling matrix are formed."""
+    p, m, names = plant.h.shape[0], plant.m, list(plant.output_names)
+    chains = numeric_chains(list(plant.h), plant, ctx, jets)
+    if None in chains.degrees:
+        return _unreached(names, chains.degrees, plant, INPUT_OUTPUT_METHOD)
+    result = InputOutputResult(names, None, chains.degrees, "", method=INPUT_OUTPUT_METHOD,
+                               decoupling_values=chains.decoupling(jets))
+    if p > m:
+        result.reason, result.summary = more_outputs_than_inputs(p, m)
+        return result
+    what = "det A" if p > 1 else "L_g L_f^(r-1) h"
+    result.singular_set_note = (f"not formed symbolically ({what} exceeds the symbolic budget); at the "
+                                f"{ctx.samples.shape[0]} random points: "
+                                + sampled_minimum(chains.rows_samples, ctx.samples, plant))
+    here = chains.rows_here if chains.finite_here else np.full_like(chains.rows_here, np.nan)
+    ranks = sampled_generic_rank(chains.rows_samples).rank, numeric_rank(here)
+    return rank_verdict(result, plant, ranks, _DECOUPLING_MATRIX, lambda order: _zero_dynamics(plant, order, ctx))
+
+
+def _unreached(names: list[str], degrees: list[int | None], plant: Plant, method: str = "") -> InputOutputResult:
+    """The result when some output is not reached by any input within n derivatives."""
+    lost = [names[i] for i, d in enumerate(degrees) if d is None]
+    return InputOutputResult(names, None, degrees,
+                             f"{names_are(lost, 'output')} not affected by any input "
+                             f"within {count(plant.n, 'derivative')} (infinite relative degree)",
+                             summary=f"{names_are(lost, 'output')} not reached by any input", method=method)
 
 
 @dataclass(frozen=True)

@@ -3,15 +3,16 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 import sympy as sp
 
 from linz_ros.analysis._common import depends_on_states, show, tidy
-from linz_ros.geometry import (NumericContext, bracket_blocks, evaluate, evaluate_many,
-                               fits_symbolic_budget, generic_rank, involutivity, is_identically_zero,
-                               lie_derivative, numeric_rank, sampled_rank)
+from linz_ros.analysis._numeric import plant_jets
+from linz_ros.geometry import (SYMBOLIC_TREE_BUDGET, BeyondSymbolicBudget, NumericContext, beyond_tree_budget, bracket_blocks,
+                               checkpoint, evaluate, evaluate_many, fits_symbolic_budget, generic_rank,
+                               involutivity, is_identically_zero, lie_derivative, numeric_rank, sampled_rank)
 from linz_ros.model import Plant
 
 __all__ = ["DistributionInfo", "InputStateResult", "analyse_input_state", "relative_degree_of", "lie_chain",
@@ -52,9 +53,12 @@ class InputStateResult:
     linearizing_outputs: list[sp.Expr] = field(default_factory=list)
     linearizing_output_note: str = ""
     singular_set: sp.Expr | None = None      # single input: det[g, ..., ad_f^(n-1) g]
+    singular_set_note: str = ""              # why no expression, when it was not formed
+    method: str = ""                         # set when the decisions came from jets, not expressions
 
     def to_json(self) -> dict[str, Any]:
-        return {
+        extra = {"method": self.method, "singular_set_note": self.singular_set_note} if self.method else {}
+        return {**extra,
             "linearizable": self.linearizable,
             "reason": self.reason,
             "distributions": [d.to_json() for d in self.distributions],
@@ -121,7 +125,13 @@ def analyse_input_state(plant: Plant, ctx: NumericContext) -> InputStateResult:
     sample_blocks: list[np.ndarray] = []
     infos: list[DistributionInfo] = []
     full_from: int | None = None      # first k with D_k of full generic rank
+    largest: int | None = None
     for k, block in zip(range(n), bracket_blocks(plant.f, plant.G, x)):
+        checkpoint(ctx, "input-state: distributions D_k", k / n)
+        beyond, largest = beyond_tree_budget([e for c in block for e in c], largest, n - 1 - k)
+        if beyond and plant_jets(plant, ctx) is not None:
+            from linz_ros.analysis._input_state_numeric import numeric_input_state
+            return numeric_input_state(plant, ctx, plant_jets(plant, ctx))
         generators.extend(block)
         # D_k are nested: evaluate only the new generators, once, and keep the numbers
         new = sp.Matrix.hstack(*block)
@@ -140,7 +150,7 @@ def analyse_input_state(plant: Plant, ctx: NumericContext) -> InputStateResult:
             infos.extend(DistributionInfo(later, n, n, True, f"contains D_{k}")
                          for later in range(k + 1, n))
             break
-    _decide_involutivity(infos, generators, plant, ctx)
+    _decide_involutivity(infos, plant, lambda info: _check_involutive(info, generators, plant, ctx))
     at_point = np.hstack(point_blocks)
     at_samples = np.concatenate(sample_blocks, axis=2)
     result = InputStateResult(*_verdict(plant, infos), distributions=infos)
@@ -183,8 +193,8 @@ def _check_involutive(info: DistributionInfo, generators: list[sp.Matrix], plant
         info.witness = f"[{a}, {b}]"
 
 
-def _decide_involutivity(infos: list[DistributionInfo], generators: list[sp.Matrix], plant: Plant,
-                         ctx: NumericContext) -> None:
+def _decide_involutivity(infos: list[DistributionInfo], plant: Plant,
+                         check: Callable[[DistributionInfo], None]) -> None:
     """Involutivity of D_0 .. D_(n-2), cheapest route first.
 
     With one input only D_(n-2) matters (Isidori, Thm. 4.2.3); when it is involutive
@@ -199,7 +209,7 @@ def _decide_involutivity(infos: list[DistributionInfo], generators: list[sp.Matr
         return
     top = pending[-1]
     if plant.m == 1 and top.order == n - 2 and infos[-1].rank == n:
-        _check_involutive(top, generators, plant, ctx)
+        check(top)
         if top.involutive:
             for d in pending[:-1]:
                 d.involutive = True
@@ -211,7 +221,7 @@ def _decide_involutivity(infos: list[DistributionInfo], generators: list[sp.Matr
         if failed is not None:
             d.method = f"not checked: D_{failed} is already not involutive"
             continue
-        _check_involutive(d, generators, plant, ctx)
+        check(d)
         if d.involutive is False:
             failed = d.order
 
@@ -336,7 +346,8 @@ def relative_degree_of(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[i
     return degree, row
 
 
-def lie_chain(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[int | None, sp.Expr, list[sp.Expr]]:
+def lie_chain(h: sp.Expr, plant: Plant, ctx: NumericContext,
+              tree_budget: int | None = None) -> tuple[int | None, sp.Expr, list[sp.Expr]]:
     """Relative degree r of ``h``, the row L_G L_f^(r-1) h, and the chain h, ..., L_f^(r-1) h.
 
     Parameters
@@ -344,6 +355,9 @@ def lie_chain(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[int | None
     h : sympy.Expr
     plant : Plant
     ctx : NumericContext
+    tree_budget : int or None
+        Raise :class:`linz_ros.geometry.BeyondSymbolicBudget` when a derivative has more tree
+        nodes than this (None: no limit).
 
     Returns
     -------
@@ -354,18 +368,29 @@ def lie_chain(h: sp.Expr, plant: Plant, ctx: NumericContext) -> tuple[int | None
         do not reach (so L_f^r h is one more Lie derivative of the last);
         ``[h, ..., L_f^(n-1) h]`` when ``degree`` is None.
     """
-    chain = [sp.sympify(h)]
+    key = ("lie_chain", sp.sympify(h))
+    if key not in ctx.memo:
+        ctx.memo[key] = _lie_chain(sp.sympify(h), plant, ctx, tree_budget)
+    degree, row, chain = ctx.memo[key]
+    return degree, row, list(chain)
+
+
+def _lie_chain(h: sp.Expr, plant: Plant, ctx: NumericContext, tree_budget: int | None):
+    chain = [h]
     for k in range(plant.n):
+        checkpoint(ctx, "output chains L_f^k h", k / plant.n)
         phi = chain[-1]
         row = [lie_derivative(phi, plant.G[:, j], plant.states) for j in range(plant.m)]
         if not all(is_identically_zero(e, ctx).value for e in row):
             return k + 1, sp.Matrix([row]), chain
         if k < plant.n - 1:
             chain.append(lie_derivative(phi, plant.f, plant.states))
+            if tree_budget is not None and beyond_tree_budget(chain[-1:], budget=tree_budget)[0]:
+                raise BeyondSymbolicBudget(f"L_f^{k + 1} h has more than {tree_budget} tree nodes")
     return None, sp.Integer(0), chain
 
 
-def find_linearizing_output(plant: Plant, generators: list[sp.Matrix], ctx: NumericContext,
+def find_linearizing_output(plant: Plant, generators: list[sp.Matrix] | None, ctx: NumericContext,
                             coordinates: list[int] | None = None) -> tuple[list[sp.Expr], str]:
     """Find T1 with dT1 annihilating D_(n-2) and relative degree n (single input).
 
@@ -374,17 +399,22 @@ def find_linearizing_output(plant: Plant, generators: list[sp.Matrix], ctx: Nume
     the annihilating covector of D_(n-2) normalised on each nonzero component (tried as
     an exact one-form, Poincare's lemma). Every candidate is kept only after its
     relative degree has been verified to be n, with L_g L_f^(n-1) T1 nonzero at x0.
+    Without symbolic ``generators`` (beyond the symbolic budget) the candidates are checked
+    from jets and the annihilators are not searched.
     """
+    from linz_ros.analysis._input_state_numeric import is_linearizing_output_numeric
+
     n = plant.n
     indices = range(n) if coordinates is None else coordinates
     candidates: list[sp.Expr] = [plant.states[i] for i in indices]
     if plant.h.shape[0] == 1:
         candidates.append(plant.h[0])
-    D = sp.Matrix.hstack(*generators[: n - 1]) if n > 1 else sp.zeros(n, 0)
     unique = list(dict.fromkeys(candidates))
     undefined: list[sp.Expr] = []
-    found = [c for c in unique if _is_linearizing_output(c, plant, ctx, undefined)]
-    if not found and n > 1:
+    verify = _is_linearizing_output if generators is not None else is_linearizing_output_numeric
+    found = [c for c in unique if verify(c, plant, ctx, undefined)]
+    if not found and n > 1 and generators is not None:
+        D = sp.Matrix.hstack(*generators[: n - 1])
         for potential in _annihilator_potentials(D, plant, ctx):
             if _is_linearizing_output(potential, plant, ctx, undefined):
                 found.append(potential)
@@ -405,7 +435,12 @@ def _is_linearizing_output(candidate: sp.Expr, plant: Plant, ctx: NumericContext
     A candidate of relative degree n that is not finite at x0 (``log(th)`` at th = 0) is
     appended to ``undefined``.
     """
-    degree, coefficient, chain = lie_chain(candidate, plant, ctx)
+    budget = SYMBOLIC_TREE_BUDGET if plant_jets(plant, ctx) is not None else None
+    try:
+        degree, coefficient, chain = lie_chain(candidate, plant, ctx, budget)
+    except BeyondSymbolicBudget:
+        from linz_ros.analysis._input_state_numeric import is_linearizing_output_numeric
+        return is_linearizing_output_numeric(candidate, plant, ctx, undefined)
     if degree != plant.n:
         return False
     x0 = plant.operating_vector()

@@ -21,6 +21,8 @@ import numpy as np
 import sympy as sp
 
 from linz_ros.analysis._common import names_are, show_matrix, small_enough
+from linz_ros.analysis._elastic import (ElasticTerms, analyse_elastic_input_output, analyse_elastic_input_state,
+                                        elastic_terms)
 from linz_ros.analysis._input_output import (InputOutputResult, MatrixWording, ZeroDynamics,
                                              classified_zero_dynamics, invariant_zeros, more_outputs_than_inputs,
                                              rank_verdict)
@@ -93,7 +95,7 @@ class MechanicalTerms:
         return np.concatenate([v["k"][0], np.linalg.solve(v["M"][0], v["F"][0] + v["B"][0] @ u)])
 
 
-def mechanical_terms(plant: Plant) -> MechanicalTerms:
+def mechanical_terms(plant: Plant) -> MechanicalTerms | ElasticTerms:
     """Build the numeric evaluator of a mechanical plant's structure.
 
     Parameters
@@ -103,9 +105,12 @@ def mechanical_terms(plant: Plant) -> MechanicalTerms:
 
     Returns
     -------
-    MechanicalTerms
+    MechanicalTerms or ElasticTerms
+        The latter for an elastic-joint arm (``decoupling`` gives A = M^-1 K J^-1).
     """
     mech = plant.mechanics
+    if mech.elastic is not None:
+        return elastic_terms(plant)
     J = mech.decoupling_jacobian(plant.h) if plant.h.shape[0] else sp.zeros(0, mech.nq)
     c = mech.output_bias(plant.h) if plant.h.shape[0] else sp.zeros(0, 1)
     H = mech.output_jacobian(plant.h) if plant.h.shape[0] else sp.zeros(0, mech.nq)
@@ -127,6 +132,8 @@ def analyse_mechanical_input_state(plant: Plant, terms: MechanicalTerms, ctx: Nu
     -------
     InputStateResult
     """
+    if plant.mechanics.elastic is not None:
+        return analyse_elastic_input_state(plant)
     nq, n = plant.mechanics.nq, plant.n
     at_point = terms.evaluate(np.array([plant.operating_vector()]))["B"][0]
     samples = terms.evaluate(ctx.samples)["B"]
@@ -171,6 +178,8 @@ def analyse_mechanical_input_output(plant: Plant, terms: MechanicalTerms, ctx: N
         ``J M^-1 B``, given by ``decoupling_structure``.
     """
     p, m, mech = plant.h.shape[0], plant.m, plant.mechanics
+    if mech.elastic is not None:
+        return analyse_elastic_input_output(plant, terms, ctx)
     if p == 0:
         return None
     names = list(plant.output_names)

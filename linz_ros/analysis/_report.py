@@ -2,24 +2,29 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 from linz_ros.analysis._common import count, plant_context, show, show_bounded, show_matrix
+from linz_ros.analysis._elastic import ELASTIC_LAW_TEXT, elastic_json
 from linz_ros.analysis._envelope import EnvelopeResult, sample_envelope
 from linz_ros.analysis._input_output import InputOutputResult, analyse_input_output
 from linz_ros.analysis._input_state import (EVERYWHERE, InputStateResult, analyse_input_state,
                                             describe_singular_set, relative_degree_of)
 from linz_ros.analysis._mechanical import (MechanicalTerms, analyse_mechanical_input_output,
                                            analyse_mechanical_input_state, mechanical_terms)
+from linz_ros.analysis._numeric import NUMERIC_METHOD, numeric_chains, plant_jets
+from linz_ros.geometry import BudgetExceeded, Monitor, checkpoint
 from linz_ros.model import Plant
 
-__all__ = ["Report", "analyse", "render_text", "MAX_ANALYSIS_STATES"]
+__all__ = ["Report", "analyse", "render_text", "MAX_ANALYSIS_STATES", "DEFAULT_BUDGET_SECONDS"]
 
-#: States of an explicit plant at most for the geometric analysis: brackets and Lie
-#: derivatives grow with every order, and a linear chain of 60 integrators already takes
-#: seconds. Above it the verdicts are "could not decide", saying so.
-MAX_ANALYSIS_STATES = 30
+#: States of an explicit plant at most for the geometric analysis. Beyond the symbolic
+#: budget the decisions come from jets, whose cost grows about as states^4 (a 16-state
+#: chain takes seconds); above this the verdicts are "could not decide", saying so.
+MAX_ANALYSIS_STATES = 64
+#: CPU seconds an analysis may take by default (``linz check --budget``).
+DEFAULT_BUDGET_SECONDS = 600.0
 
 
 @dataclass
@@ -62,10 +67,11 @@ def _mechanics_json(plant: Plant) -> dict[str, Any] | None:
         "mass_matrix": show_matrix(mech.M, bounded=True),
         "forces": [show_bounded(e) for e in mech.F],
         "input_map": show_matrix(mech.B, bounded=True),
+        "elastic": None if mech.elastic is None else elastic_json(mech),
     }
 
 
-def analyse(plant: Plant, samples: int = 1024) -> Report:
+def analyse(plant: Plant, samples: int = 1024, monitor: Monitor | None = None) -> Report:
     """Run the linearizability analyses on a plant.
 
     Parameters
@@ -73,6 +79,9 @@ def analyse(plant: Plant, samples: int = 1024) -> Report:
     plant : Plant
     samples : int
         Number of envelope samples for the conditioning sweep.
+    monitor : Monitor or None
+        CPU-time budget and progress reports; past the budget the verdicts are "could not
+        decide within the budget", saying where the analysis stopped.
 
     Returns
     -------
@@ -86,25 +95,32 @@ def analyse(plant: Plant, samples: int = 1024) -> Report:
     >>> analyse(plant).input_state.linearizable
     True
     """
-    ctx = plant_context(plant)
+    ctx = replace(plant_context(plant), monitor=monitor)
     if plant.mechanics is not None:
         return _analyse_mechanical(plant, ctx, samples)
     if plant.n > MAX_ANALYSIS_STATES:
-        return _beyond_budget(plant)
+        return _beyond_budget(plant, f"could not decide within the budget: {plant.n} states, the geometric "
+                                     f"analysis handles at most {MAX_ANALYSIS_STATES}")
+    try:
+        return _analyse_explicit(plant, ctx, samples)
+    except BudgetExceeded as stop:
+        return _beyond_budget(plant, str(stop))
+
+
+def _analyse_explicit(plant: Plant, ctx, samples: int) -> Report:
     input_state = analyse_input_state(plant, ctx)
-    input_output = analyse_input_output(plant, ctx)
+    input_output = analyse_input_output(plant, ctx, numeric=bool(input_state.method))
     envelope = None
     if plant.envelope:
         subject_matrix, subject = _envelope_subject(plant, input_state, input_output, ctx)
         if subject_matrix is not None:
+            checkpoint(ctx, "envelope sweep", 0.0)
             envelope = sample_envelope(plant, subject_matrix, subject, samples)
     return Report(plant, input_state, input_output, envelope)
 
 
-def _beyond_budget(plant: Plant) -> Report:
-    """The report of a plant too large for the analysis: undecided, with the budget named."""
-    reason = (f"could not decide within the budget: {plant.n} states, the geometric analysis handles at most "
-              f"{MAX_ANALYSIS_STATES}")
+def _beyond_budget(plant: Plant, reason: str) -> Report:
+    """The report of a plant the analysis could not finish: undecided, with the budget named."""
     outputs = None
     if plant.h.shape[0]:
         outputs = InputOutputResult(list(plant.output_names), None, [None] * plant.h.shape[0], reason,
@@ -128,6 +144,14 @@ def _analyse_mechanical(plant: Plant, ctx, samples: int) -> Report:
 def _envelope_subject(plant, input_state, input_output, ctx):
     if input_output is not None and input_output.decoupling_matrix is not None:
         return input_output.decoupling_matrix, "decoupling matrix of the outputs"
+    if input_output is not None and input_output.decoupling_values is not None:
+        if input_output.relative_degree_generic and None not in input_output.relative_degree_generic:
+            return input_output.decoupling_values, f"decoupling matrix of the outputs ({NUMERIC_METHOD})"
+    if input_state.linearizing_outputs and input_state.method:
+        T1 = input_state.linearizing_outputs[0]
+        chains = numeric_chains([T1], plant, ctx, plant_jets(plant, ctx))
+        subject = f"L_g L_f^{plant.n - 1} T1 for T1 = {show(T1)} ({NUMERIC_METHOD})"
+        return chains.decoupling(plant_jets(plant, ctx)), subject
     if input_state.linearizing_outputs:
         T1 = input_state.linearizing_outputs[0]
         _, coefficient = relative_degree_of(T1, plant, ctx)
@@ -196,8 +220,12 @@ def render_text(report: Report) -> str:
                 "serial_arm": "serial arm (DH table)"}[p.mechanics.form]
         law = ("M(q) q'' = F(q, q') + B(q) u" if p.mechanics.kinematics is None
                else "M(q) v' = F(q, v) + B(q) u with q' = k(q, v)")
+        if p.mechanics.elastic is not None:
+            law = ELASTIC_LAW_TEXT
         lines += ["", "MODEL", f"  {form}: {law}, {p.mechanics.nq} coordinates; M^-1 is never formed"]
     lines += ["", "INPUT-STATE", f"  {iss.reason}"]
+    if iss.method:
+        lines.append(f"  method: {iss.method}")
     for d in iss.distributions:
         inv = {True: "involutive", False: "NOT involutive", None: "-"}[d.involutive]
         witness = f" ({d.witness} leaves it)" if d.witness else ""
@@ -207,6 +235,8 @@ def render_text(report: Report) -> str:
     if iss.singular_set is not None:
         where = describe_singular_set(iss.singular_set, f"det[g, ..., ad_f^{p.n - 1} g]")
         lines.append(f"  [g, ..., ad_f^{p.n - 1} g] loses rank {where}")
+    elif iss.singular_set_note:
+        lines.append(f"  singular set: {iss.singular_set_note}")
     for T1 in iss.linearizing_outputs:
         lines.append(f"  linearizing output T1 = {show(T1)}")
     if iss.linearizing_output_note:
@@ -214,6 +244,8 @@ def render_text(report: Report) -> str:
     if io is not None:
         lines += ["", "INPUT-OUTPUT", f"  {io.reason}",
                   f"  generic relative degree: {io.relative_degree_generic}"]
+        if io.method:
+            lines.append(f"  method: {io.method}")
         if io.decoupling_structure is not None:
             lines.append(f"  decoupling matrix A(x) = {io.decoupling_structure['form']}, with J = dh/dq:")
             for row in io.decoupling_structure["J"]:

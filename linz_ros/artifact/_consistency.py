@@ -7,6 +7,7 @@ import math
 import re
 from typing import Any
 
+from linz_ros.artifact.elastic import ELASTIC_CONSTANTS
 from linz_ros.artifact.watchdog import PLANT_FILE_SETTINGS, setting, watchdog_problem
 from linz_ros.errors import ArtifactError
 
@@ -86,10 +87,15 @@ def check_consistency(document: dict[str, Any], source: str) -> None:
     if design["kind"] == "input_state":
         need("transform" in programs, "programs.transform: missing (an input-state design carries T)")
     mechanics = design.get("mechanics")
+    elastic = isinstance(mechanics, dict) and mechanics.get("elastic", False)
+    need(elastic in (True, False), "design.mechanics.elastic: expected true or false")
     need(mechanics is None or (isinstance(mechanics, dict) and isinstance(mechanics.get("coordinates"), int)
                                and not isinstance(mechanics["coordinates"], bool)
-                               and 2 * mechanics["coordinates"] == n),
-         "design.mechanics: expected null or {coordinates: nq} with 2 nq states")
+                               and (4 if elastic else 2) * mechanics["coordinates"] == n),
+         "design.mechanics: expected null or {coordinates: nq} with 2 nq states (4 nq when elastic)")
+    need(not elastic or (mechanics["coordinates"] == m == len(chains) and not mechanics.get("computed_torque")
+                         and all(c["degree"] == 4 for c in chains)),
+         "design.mechanics.elastic: expected one input and one chain of degree 4 per coordinate")
     need(mechanics is None or mechanics.get("computed_torque", False) in (True, False)
          and (not mechanics.get("computed_torque") or mechanics["coordinates"] == m),
          "design.mechanics.computed_torque: expected true or false, true only with one input per coordinate")
@@ -100,6 +106,9 @@ def check_consistency(document: dict[str, Any], source: str) -> None:
         structure = {"M": [nq, nq], "F": [nq], "B": [nq, m]}
         dynamics_shapes = {**structure, "qdot": [nq]}
         law_shapes = {**structure, "J": [m, nq], "c": [m], "chain": [total]}
+        if elastic:     # the link side and the motors' constants; the chains' higher derivatives come at run time
+            structure = {"M": [nq, nq], "F": [nq], **{k: [nq] for k in ELASTIC_CONSTANTS}}
+            dynamics_shapes, law_shapes = structure, {**structure, "chain": [2 * m]}
     expected_shapes = {"law": law_shapes,
                        "dynamics": dynamics_shapes,
                        "transform": {"T": [n], "jacobian": [n, n]},

@@ -13,6 +13,7 @@ import numpy as np
 from linz_ros.artifact._consistency import program_parts
 from linz_ros.artifact._files import recorded_plant_paths
 from linz_ros.artifact.compiler import Program, compile_program
+from linz_ros.artifact.elastic import ElasticLaw, elastic_law
 
 __all__ = ["Artifact"]
 
@@ -101,6 +102,22 @@ class Artifact:
         """nq for a mechanical plant (programs carry M, F, B, J), None for an explicit one."""
         mechanics = self.document["design"].get("mechanics")
         return None if mechanics is None else int(mechanics["coordinates"])
+
+    @property
+    def elastic(self) -> bool:
+        """True for an elastic-joint arm: the law is assembled by :meth:`elastic_law` (relative degree 4)."""
+        mechanics = self.document["design"].get("mechanics")
+        return bool(mechanics and mechanics.get("elastic"))
+
+    def elastic_law(self) -> ElasticLaw:
+        """The elastic-joint law (the law program compiled once more, with the jet2 backend).
+
+        Returns
+        -------
+        ElasticLaw
+            ``law(x, p)`` gives the law program's values, then A, b and the chains.
+        """
+        return elastic_law(self.source, self.program_text, int(self.mechanical_coordinates))
 
     @property
     def computed_torque(self) -> bool:

@@ -8,8 +8,13 @@ own: local slot names, numbers re-printed from ``float``, operators, and calls o
 whitelisted functions. The artifact's text never reaches ``compile``; only code written
 by this module does, so loading an artifact cannot run anything but arithmetic.
 
-Two backends: ``"math"`` (scalars, the fastest for one control step in CPython) and
-``"numpy"`` (element-wise on arrays, for sweeps and plots).
+Three backends: ``"math"`` (scalars, the fastest for one control step in CPython),
+``"numpy"`` (element-wise on arrays, for sweeps and plots) and ``"jet2"``
+(:mod:`linz_ros.artifact._jet2`): the first argument vector's entries are second-order
+jets, triples of the Taylor coefficients of t^0, t^1, t^2 along a curve, and the program
+returns the triples of its outputs, so time derivatives of M(q(t)) come out of the same
+program without symbolic derivatives; it is emitted as scalar straight-line code from
+the same parse tree, in three phases (``Program.phases``), one per order.
 
 Public names
 ------------
@@ -22,42 +27,29 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
+from functools import partial
 from typing import Callable, Sequence
 
 import numpy as np
 
+from linz_ros.artifact._jet2 import Jet2Emitter, run_phases
+from linz_ros.artifact._tokens import MATH_FUNCTIONS, MAX_NESTING, integer_exponent, leaf_text, sign
 from linz_ros.artifact.grammar import CONSTANTS, Node, fold, parse_expression
 from linz_ros.errors import ArtifactError, ExpressionSyntaxError
 
 __all__ = ["Program", "compile_program", "OutputSlot"]
 
-_MATH_FUNCTIONS = {
-    "sin": "_m.sin", "cos": "_m.cos", "tan": "_m.tan", "asin": "_m.asin", "acos": "_m.acos",
-    "atan": "_m.atan", "atan2": "_m.atan2", "sinh": "_m.sinh", "cosh": "_m.cosh",
-    "tanh": "_m.tanh", "exp": "_m.exp", "log": "_m.log", "sqrt": "_m.sqrt", "abs": "_abs",
-    "sign": "_sign",
-}
 _NUMPY_FUNCTIONS = {
     "sin": "_n.sin", "cos": "_n.cos", "tan": "_n.tan", "asin": "_n.arcsin", "acos": "_n.arccos",
     "atan": "_n.arctan", "atan2": "_n.arctan2", "sinh": "_n.sinh", "cosh": "_n.cosh",
     "tanh": "_n.tanh", "exp": "_n.exp", "log": "_n.log", "sqrt": "_n.sqrt", "abs": "_n.abs",
     "sign": "_n.sign",
 }
-_CONSTANT_VALUES = {"pi": math.pi}
+_BACKENDS = ("math", "numpy", "jet2")
 # precedence of emitted Python: sums < products < unary minus < powers < atoms
 _PREC = {"add": 1, "sub": 1, "mul": 2, "div": 2, "neg": 3, "pow": 4}
 _ATOM = 5
 _NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")      # used with fullmatch: no trailing newline
-#: Integer exponents up to this size are emitted as ``a**k`` (exact and fast).
-_INT_EXPONENT = 64
-#: Deeper subtrees go into a local variable of their own (CPython's compiler recurses).
-_MAX_NESTING = 40
-
-
-def _sign(value: float) -> float:
-    if value != value:          # nan stays nan, as in numpy
-        return value
-    return 0.0 if value == 0 else math.copysign(1.0, value)
 
 
 @dataclass(frozen=True)
@@ -88,16 +80,22 @@ class Program:
     source : str
         The emitted Python, for inspection.
     backend : str
-        ``"math"`` or ``"numpy"``.
+        ``"math"``, ``"numpy"`` or ``"jet2"``.
+    phases : callable or None
+        jet2 only: the generator function ``phases(c0, *others)`` that yields the
+        outputs' coefficients of order 0, then of order 1 and 2 after each ``send`` of the
+        first argument vector's coefficients of that order (:mod:`linz_ros.artifact._jet2`).
     """
 
     def __init__(self, name: str, arguments: tuple[tuple[str, tuple[str, ...]], ...],
-                 slots: dict[str, OutputSlot], function: Callable, source: str, backend: str) -> None:
+                 slots: dict[str, OutputSlot], function: Callable, source: str, backend: str,
+                 phases: Callable | None = None) -> None:
         self.name = name
         self.arguments = arguments
         self.slots = slots
         self.source = source
         self.backend = backend
+        self.phases = phases
         self._function = function
         self.size = sum(s.size for s in slots.values())
 
@@ -137,18 +135,11 @@ class Program:
         return result
 
 
-def _number_text(text: str, where: str) -> str:
-    value = float(text)
-    if not math.isfinite(value):
-        raise ArtifactError(where, f"number {text!r} is out of range")
-    return repr(value)
-
-
 def _emit(node: Node, local: dict[str, str], functions: dict[str, str], backend: str, where: str,
           hoist: Callable[[str], str]) -> str:
     """Python source of one tree, with parentheses only where precedence needs them.
 
-    Subtrees nested deeper than :data:`_MAX_NESTING` are moved into their own local
+    Subtrees nested deeper than :data:`MAX_NESTING` are moved into their own local
     variable (``hoist``), because CPython's compiler recurses over nested operators.
     """
 
@@ -156,17 +147,10 @@ def _emit(node: Node, local: dict[str, str], functions: dict[str, str], backend:
         return f"({part[0]})" if needed else part[0]
 
     def leaf(n: Node) -> tuple[str, int, int]:
-        if n[0] == "num":
-            return _number_text(n[1], where), _ATOM, 1
-        name = n[1]
-        if name in local:
-            return local[name], _ATOM, 1
-        if name in CONSTANTS:
-            return repr(_CONSTANT_VALUES[name]), _ATOM, 1
-        raise ArtifactError(where, f"unknown name {name!r}")
+        return leaf_text(n, local, where), _ATOM, 1
 
     def shallow(part: tuple[str, int, int]) -> tuple[str, int, int]:
-        return (hoist(part[0]), _ATOM, 1) if part[2] > _MAX_NESTING else part
+        return (hoist(part[0]), _ATOM, 1) if part[2] > MAX_NESTING else part
 
     def combine(kind: str, n: Node, parts: list[tuple[str, int, int]]) -> tuple[str, int, int]:
         parts = [shallow(p) for p in parts]
@@ -178,7 +162,7 @@ def _emit(node: Node, local: dict[str, str], functions: dict[str, str], backend:
             return "-" + wrap(parts[0], parts[0][1] < prec), prec, depth
         left, right = parts
         if kind == "pow":
-            exponent = _integer_exponent(n[2])
+            exponent = integer_exponent(n[2])
             if exponent is not None:
                 power = str(exponent) if exponent >= 0 else f"({exponent})"
                 return f"{wrap(left, left[1] <= prec)}**{power}", prec, depth
@@ -192,16 +176,44 @@ def _emit(node: Node, local: dict[str, str], functions: dict[str, str], backend:
     return fold(node, leaf, combine)[0]
 
 
-def _integer_exponent(node: Node) -> int | None:
-    """The exponent as a small int when it is an integer literal (possibly negated)."""
-    negative = node[0] == "neg"
-    inner = node[1] if negative else node
-    if inner[0] != "num":
-        return None
-    value = float(inner[1])
-    if not value.is_integer() or abs(value) > _INT_EXPONENT:
-        return None
-    return -int(value) if negative else int(value)
+class _PlainEmitter:
+    """The ``math`` and ``numpy`` backends: one function returning every output entry."""
+
+    def __init__(self, local: dict[str, str], backend: str) -> None:
+        self._local, self._backend = local, backend
+        self._functions = MATH_FUNCTIONS if backend == "math" else _NUMPY_FUNCTIONS
+        self._lines: list[str] = []
+        self._hoisted = 0
+
+    def bind(self, index: int, argument: str, slots: Sequence[str]) -> None:
+        if self._backend == "numpy":
+            self._lines.extend(f"    {s} = {argument}[{k}]" for k, s in enumerate(slots))
+        elif len(slots) == 1:
+            self._lines.append(f"    {slots[0]} = {argument}[0]")
+        elif slots:
+            self._lines.append(f"    {', '.join(slots)} = {argument}")
+
+    def _hoist(self, text: str) -> str:
+        self._hoisted += 1
+        slot = f"h{self._hoisted}"
+        self._lines.append(f"    {slot} = {text}")
+        return slot
+
+    def _text(self, tree: Node, where: str) -> str:
+        return _emit(tree, self._local, self._functions, self._backend, where, self._hoist)
+
+    def temporary(self, slot: str, tree: Node, where: str) -> None:
+        self._lines.append(f"    {slot} = {self._text(tree, where)}")
+
+    def output(self, tree: Node, where: str) -> str:
+        source = self._text(tree, where)
+        return source if len(source) < 2000 else self._hoist(source)
+
+    def source(self, argument_names: Sequence[str], results: Sequence[str]) -> str:
+        body = "\n".join(self._lines) or "    pass"
+        trailing = "," if len(results) == 1 else ""
+        return (f"def _program({', '.join(argument_names)}):\n{body}\n"
+                f"    return ({', '.join(results)}{trailing})\n")
 
 
 def compile_program(name: str, arguments: Sequence[tuple[str, Sequence[str]]],
@@ -222,7 +234,10 @@ def compile_program(name: str, arguments: Sequence[tuple[str, Sequence[str]]],
         the earlier temporaries.
     outputs : sequence of (str, shape, sequence of str)
         Named outputs, each a shape and its entries in row-major order.
-    backend : {"math", "numpy"}
+    backend : {"math", "numpy", "jet2"}
+        With ``"jet2"``, the entries of the first argument vector are triples
+        ``(c0, c1, c2)`` (Taylor coefficients of t^0, t^1, t^2), the other vectors hold
+        numbers, and the program returns one triple per output entry.
 
     Returns
     -------
@@ -240,11 +255,10 @@ def compile_program(name: str, arguments: Sequence[tuple[str, Sequence[str]]],
     >>> [round(v, 6) for v in prog([1.0, 2.0])]
     [3.0, 0.826822]
     """
-    if backend not in ("math", "numpy"):
-        raise ValueError(f"backend must be 'math' or 'numpy', got {backend!r}")
-    functions = _MATH_FUNCTIONS if backend == "math" else _NUMPY_FUNCTIONS
+    if backend not in _BACKENDS:
+        raise ValueError(f"backend must be one of {', '.join(_BACKENDS)}, got {backend!r}")
     local: dict[str, str] = {}
-    lines: list[str] = []
+    emitter = Jet2Emitter(local) if backend == "jet2" else _PlainEmitter(local, backend)
     argument_names = []
     declared: list[tuple[str, tuple[str, ...]]] = []
     for index, (vector, names) in enumerate(arguments):
@@ -253,30 +267,14 @@ def compile_program(name: str, arguments: Sequence[tuple[str, Sequence[str]]],
         for k, entry in enumerate(names):
             _declare(local, entry, f"a{index}_{k}", name)
             slots.append(local[entry])
-        argument = f"v{index}"
-        argument_names.append(argument)
+        argument_names.append(f"v{index}")
         declared.append((vector, names))
-        if backend == "math":
-            if len(slots) == 1:
-                lines.append(f"    {slots[0]} = {argument}[0]")
-            elif slots:
-                lines.append(f"    {', '.join(slots)} = {argument}")
-        else:
-            lines.extend(f"    {s} = {argument}[{k}]" for k, s in enumerate(slots))
-    hoisted = [0]
-
-    def hoist(text: str) -> str:
-        hoisted[0] += 1
-        slot = f"h{hoisted[0]}"
-        lines.append(f"    {slot} = {text}")
-        return slot
-
+        emitter.bind(index, argument_names[-1], slots)
     for k, (temp, text) in enumerate(temporaries):
-        tree = _parse(text, f"{name}: temporary {temp}")
-        source = _emit(tree, local, functions, backend, f"{name}: temporary {temp}", hoist)
+        where = f"{name}: temporary {temp}"
+        emitter.temporary(f"t{k}", _parse(text, where), where)
         _declare(local, temp, f"t{k}", name)
-        lines.append(f"    {local[temp]} = {source}")
-    results: list[str] = []
+    results: list = []
     slots_out: dict[str, OutputSlot] = {}
     offset = 0
     for out_name, shape, entries in outputs:
@@ -289,21 +287,20 @@ def compile_program(name: str, arguments: Sequence[tuple[str, Sequence[str]]],
             raise ArtifactError(name, f"output {out_name!r} appears twice")
         for i, text in enumerate(entries):
             where = f"{name}: {out_name}[{i}]"
-            source = _emit(_parse(text, where), local, functions, backend, where, hoist)
-            results.append(source if len(source) < 2000 else hoist(source))
+            results.append(emitter.output(_parse(text, where), where))
         slots_out[out_name] = OutputSlot(out_name, shape, offset)
         offset += expected
-    body = "\n".join(lines) or "    pass"
-    trailing = "," if len(results) == 1 else ""
-    source = (f"def _program({', '.join(argument_names)}):\n{body}\n"
-              f"    return ({', '.join(results)}{trailing})\n")
-    namespace = {"_m": math, "_n": np, "_abs": abs, "_sign": _sign, "__builtins__": {}}
+    source = emitter.source(argument_names, results)
+    namespace = {"_m": math, "_n": np, "_abs": abs, "_sign": sign, "__builtins__": {}}
     try:
         code = compile(source, f"<{name}>", "exec")
     except (SyntaxError, RecursionError, MemoryError) as err:
         raise ArtifactError(name, f"expressions too large or too deeply nested to compile ({type(err).__name__})") \
             from None
     exec(code, namespace)  # noqa: S102 - source emitted above from whitelisted tree nodes only
+    if backend == "jet2":
+        phases = namespace["_phases"]
+        return Program(name, tuple(declared), slots_out, partial(run_phases, phases), source, backend, phases)
     return Program(name, tuple(declared), slots_out, namespace["_program"], source, backend)
 
 

@@ -67,6 +67,8 @@ def _mechanical_programs(design: Design, state_args, chain: list[sp.Expr]) -> li
     """
     plant = design.plant
     mech = plant.mechanics
+    if mech.elastic is not None:
+        return _elastic_programs(design, state_args, chain)
     h = sp.Matrix([c.expression for c in design.chains])
     J, c = mech.decoupling_jacobian(h), mech.output_bias(h)
     nq, m = mech.nq, plant.m
@@ -77,6 +79,21 @@ def _mechanical_programs(design: Design, state_args, chain: list[sp.Expr]) -> li
             ("chain", (len(chain),), chain)]),
         SymbolicProgram("dynamics", state_args, structure + [("qdot", (nq,), list(mech.coordinate_rates))]),
     ]
+
+
+def _elastic_programs(design: Design, state_args, chain: list[sp.Expr]) -> list[SymbolicProgram]:
+    """M, F and the motors' K, J, D of an elastic-joint arm; the chains carry y and y' only.
+
+    The runtime (``artifact.elastic``) forms the chains' upper half, A = M^-1 K J^-1 and b from these, with
+    the time derivatives of M and F from the jets of this same program.
+    """
+    mech = design.plant.mechanics
+    nq, e = mech.nq, mech.elastic
+    structure = [("M", (nq, nq), list(mech.M)), ("F", (nq,), list(mech.F)),
+                 ("stiffness", (nq,), list(e.stiffness)), ("motor_inertia", (nq,), list(e.motor_inertia)),
+                 ("motor_damping", (nq,), list(e.motor_damping))]
+    return [SymbolicProgram("law", state_args, structure + [("chain", (len(chain),), chain)]),
+            SymbolicProgram("dynamics", state_args, structure)]
 
 
 def _explicit_programs(design: Design, state_args, chain: list[sp.Expr]) -> list[SymbolicProgram]:
@@ -156,7 +173,8 @@ def _design_section(design: Design) -> dict[str, Any]:
         "notes": list(design.notes),
         "mechanics": (None if not design.mechanical else
                       {"form": design.plant.mechanics.form, "coordinates": design.plant.mechanics.nq,
-                       "computed_torque": _is_computed_torque(design)}),
+                       "computed_torque": _is_computed_torque(design),
+                       **({"elastic": True} if design.plant.mechanics.elastic is not None else {})}),
     }
 
 

@@ -5,10 +5,47 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-__all__ = ["check", "render_check"]
+__all__ = ["check", "render_check", "StepProgress"]
 
 
-def check(plant: str | Path, samples: int = 1024):
+class StepProgress:
+    """Progress of an analysis on stderr: one bar per step (``linz sim``'s :class:`ProgressBar`).
+
+    Parameters
+    ----------
+    enabled : bool
+    label : str
+        Printed before each step's name.
+    """
+
+    def __init__(self, enabled: bool, label: str) -> None:
+        self.enabled, self.label = enabled, label
+        self.step: str | None = None
+        self.bar = None
+        self.fraction = 0.0
+
+    def __call__(self, step: str, fraction: float) -> None:
+        from linz_ros.commands.sim import ProgressBar
+
+        if step != self.step:
+            self.close()
+            self.step, self.bar = step, ProgressBar(self.enabled, f"{self.label}: {step}")
+        self.fraction = fraction
+        self.bar(fraction)
+
+    def close(self) -> None:
+        """Finish the current step's bar (its line ends).
+
+        Returns
+        -------
+        None
+        """
+        if self.bar is not None and self.fraction < 1.0:
+            self.bar(1.0)
+        self.bar = None
+
+
+def check(plant: str | Path, samples: int = 1024, budget: float | None = None, progress: bool = False):
     """Analyse a plant file.
 
     Parameters
@@ -17,6 +54,11 @@ def check(plant: str | Path, samples: int = 1024):
         The plant file.
     samples : int
         Envelope samples for the conditioning sweep.
+    budget : float or None
+        CPU seconds for the analysis (default ``analysis.DEFAULT_BUDGET_SECONDS``); beyond
+        them the verdicts are "could not decide within the budget".
+    progress : bool
+        Report each step and how far it is on stderr.
 
     Returns
     -------
@@ -27,10 +69,17 @@ def check(plant: str | Path, samples: int = 1024):
     LinzError
         For a plant file that cannot be read or is not valid.
     """
-    from linz_ros.analysis import analyse
+    from linz_ros.analysis import DEFAULT_BUDGET_SECONDS, analyse
+    from linz_ros.geometry import Monitor
     from linz_ros.model import load_plant
 
-    return analyse(load_plant(plant), samples=samples)
+    loaded = load_plant(plant)
+    bars = StepProgress(progress, f"check {loaded.name}")
+    monitor = Monitor(DEFAULT_BUDGET_SECONDS if budget is None else budget, bars if progress else None)
+    try:
+        return analyse(loaded, samples=samples, monitor=monitor)
+    finally:
+        bars.close()
 
 
 def render_check(report, as_json: bool = False) -> str:

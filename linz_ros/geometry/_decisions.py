@@ -9,7 +9,7 @@ from __future__ import annotations
 import functools
 import math
 from dataclasses import dataclass, field
-from typing import Sequence
+from typing import Any, Sequence
 
 import numpy as np
 import sympy as sp
@@ -45,11 +45,17 @@ class NumericContext:
     samples : numpy.ndarray
         K x n random points (in the operating envelope) where "identically zero" and
         "generic rank" are checked numerically.
+    monitor : Monitor or None
+        The CPU-time budget and progress reports of the analysis using the context.
+    memo : dict
+        Results computed once per analysis (the plant's jet programs).
     """
 
     coordinates: tuple[sp.Symbol, ...]
     constants: dict[sp.Symbol, sp.Expr] = field(default_factory=dict)
     samples: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    monitor: Any = field(default=None, compare=False)      # a Monitor: CPU budget and progress
+    memo: dict = field(default_factory=dict, compare=False)  # results reused within one analysis
 
     @property
     def constant_symbols(self) -> tuple[sp.Symbol, ...]:
@@ -266,12 +272,14 @@ def fits_symbolic_budget(matrix: sp.Matrix) -> bool:
     return True
 
 
-def sampled_rank(values: np.ndarray) -> RankResult:
+def sampled_rank(values: np.ndarray, label: str = "numeric") -> RankResult:
     """Generic rank from a stack of numeric evaluations (K x rows x cols): the largest rank.
 
     Parameters
     ----------
     values : numpy.ndarray
+    label : str
+        How the values were found, the head of the method.
 
     Returns
     -------
@@ -280,7 +288,7 @@ def sampled_rank(values: np.ndarray) -> RankResult:
     ranks = [r for r in (numeric_rank(v) for v in values) if r is not None]
     if not ranks:
         return RankResult(None, "not finite at any sample point")
-    return RankResult(max(ranks), f"numeric, largest rank at {len(ranks)} random points")
+    return RankResult(max(ranks), f"{label}, largest rank at {len(ranks)} random points")
 
 
 @dataclass(frozen=True)

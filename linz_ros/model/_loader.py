@@ -17,6 +17,7 @@ import yaml
 
 from linz_ros.errors import PlantFileError
 from linz_ros.model._design_section import read_design
+from linz_ros.model._elastic import ELASTIC_KEY, motor_names
 from linz_ros.model._mechanics import MECHANICAL_FORMS, check_mass_matrix, read_mechanics, velocity_names
 from linz_ros.model._plant import Mechanics, Plant
 from linz_ros.model._plausibility import check_physical_sign
@@ -29,10 +30,10 @@ __all__ = ["load_plant", "plant_from_text", "expression_in"]
 _TOP_LEVEL = ("plant", "description", "states", "coordinates", "velocities", "inputs", "parameters",
               "definitions", "dynamics", "mass_matrix", "kinetic_energy", "potential_energy", "serial_arm",
               "forces", "input_map", "kinematics", "outputs", "input_limits", "envelope", "operating_point", "design",
-              "units")
+              "units", "elastic_joints")
 _REQUIRED = ("plant", "inputs")
 #: Keys that only a mechanical form may carry, and the one key of each model form.
-_MECHANICAL_ONLY = ("coordinates", "velocities", "forces", "input_map", "kinematics")
+_MECHANICAL_ONLY = ("coordinates", "velocities", "forces", "input_map", "kinematics", ELASTIC_KEY)
 _MODEL_FORMS = ("dynamics",) + tuple(MECHANICAL_FORMS)
 #: Longest plant name: it becomes file names (``<plant>.artifact.json``, field logs), 255 bytes at most.
 _MAX_PLANT_NAME = 100
@@ -222,6 +223,8 @@ def _read_document(doc: Any, source: str, digest: str) -> Plant:
     else:
         coordinates = reader.name_list(doc, "coordinates", "state")
         states = coordinates + velocity_names(reader, doc, coordinates)
+        if doc.get(ELASTIC_KEY) is not None:
+            states += motor_names(reader, doc, coordinates)
     inputs = reader.name_list(doc, "inputs", "input")
     state_symbols = [sp.Symbol(s, real=True) for s in states]
     input_symbols = [sp.Symbol(u, real=True) for u in inputs]
@@ -237,7 +240,8 @@ def _read_document(doc: Any, source: str, digest: str) -> Plant:
         output_names, h = _read_outputs(reader, doc)
     else:
         nq = len(coordinates)
-        mechanics = read_mechanics(reader, doc, form, state_symbols[:nq], state_symbols[nq:], input_symbols)
+        mechanics = read_mechanics(reader, doc, form, state_symbols[:nq], state_symbols[nq:2 * nq], input_symbols,
+                                   state_symbols[2 * nq:])
         f = G = None
         output_names, h = _read_mechanical_outputs(reader, doc, mechanics)
     input_limits = _read_bounds(reader, doc, "input_limits", inputs, "an input")

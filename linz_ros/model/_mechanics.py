@@ -14,6 +14,7 @@ from typing import Any, Mapping
 import numpy as np
 import sympy as sp
 
+from linz_ros.model._elastic import ELASTIC_KEY, read_elastic
 from linz_ros.model._plant import Mechanics
 from linz_ros.model._serial_arm import Link, arm_model
 from linz_ros.model._symbolic import numeric_function
@@ -219,7 +220,8 @@ def _serial_arm_terms(reader: Any, doc: Mapping, q: list[sp.Symbol], qd: list[sp
 
 
 def read_mechanics(reader: Any, doc: Mapping, form_key: str, coordinates: list[sp.Symbol],
-                   velocities: list[sp.Symbol], inputs: list[sp.Symbol]) -> Mechanics:
+                   velocities: list[sp.Symbol], inputs: list[sp.Symbol],
+                   motor: list[sp.Symbol] | None = None) -> Mechanics:
     """Read the model of a mechanical plant in the form named by ``form_key``.
 
     Parameters
@@ -229,6 +231,8 @@ def read_mechanics(reader: Any, doc: Mapping, form_key: str, coordinates: list[s
         The plant document.
     form_key : {"mass_matrix", "kinetic_energy", "serial_arm"}
     coordinates, velocities, inputs : list of sympy.Symbol
+    motor : list of sympy.Symbol, optional
+        The motor angles then rates of an elastic-joint arm (with its section in ``doc``).
 
     Returns
     -------
@@ -251,6 +255,15 @@ def read_mechanics(reader: Any, doc: Mapping, form_key: str, coordinates: list[s
                                  - {s.name for s in velocities} - {u.name for u in inputs},
                                  set(coordinates) | configuration_only)
         F = F + _forces(reader, doc, coordinates, set(reader.names), input_set)
+    if motor:
+        elastic = read_elastic(reader, doc, coordinates, motor, inputs,
+                               set(coordinates) | configuration_only | set(motor))
+        bad = sorted((M.free_symbols | F.free_symbols) & set(motor), key=str)
+        if bad:
+            raise reader.fail(form_key, f"depends on motor state {bad[0]}; the link side feels the motors "
+                                        f"through the springs of {ELASTIC_KEY} only")
+        return Mechanics(MECHANICAL_FORMS[form_key], tuple(coordinates), tuple(velocities), M, F,
+                         sp.zeros(nq, m), tuple(links), gravity, None, elastic)
     B = _input_map(reader, doc, nq, m, set(reader.names), configuration_only)
     kinematics = _kinematics(reader, doc, form_key, coordinates, set(reader.names), input_set)
     return Mechanics(MECHANICAL_FORMS[form_key], tuple(coordinates), tuple(velocities), M, F, B,

@@ -37,6 +37,9 @@ class Mechanics:
     kinematics : sympy.Matrix or None
         q' = k(q, v) when the velocities v are quasi-velocities (a vessel's body-frame
         surge, sway and yaw rate); None when v = q'.
+    elastic : Elastic or None
+        The motor side of an elastic-joint arm (``model._elastic``): the states are then
+        (q, q', theta, theta'), B is zero and the spring K (theta - q) drives the links.
     """
 
     form: str
@@ -48,6 +51,7 @@ class Mechanics:
     links: tuple[Any, ...] = ()
     gravity: sp.Matrix | None = None
     kinematics: sp.Matrix | None = None
+    elastic: Any = None
 
     @property
     def nq(self) -> int:

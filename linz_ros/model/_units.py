@@ -109,6 +109,9 @@ def _joint_units(mechanics: Mechanics | None, inputs: Sequence[str], one_input_p
         angle, rate, force = JOINT_UNITS[link.kind]
         units[mechanics.coordinates[i].name] = angle
         units[mechanics.velocities[i].name] = rate
+        if mechanics.elastic is not None:     # the motor behind an elastic joint turns like the joint
+            units[mechanics.elastic.motor_angles[i].name] = angle
+            units[mechanics.elastic.motor_rates[i].name] = rate
         if one_input_per_joint and i < len(inputs):
             units[inputs[i]] = force
     return units

@@ -130,6 +130,10 @@ class ControllerCore:
         self._law = law.function
         slots = law.slots
         self._mechanical = artifact.mechanical_coordinates
+        if artifact.elastic:
+            # elastic joints: the law's values extended by A = M^-1 K J^-1, b and the chains (artifact.elastic)
+            elastic = artifact.elastic_law()
+            self._law, slots, self._mechanical = elastic, elastic.slots, None
         if self._mechanical is None:
             self._a_slice = _slot_slice(slots, "A")
             self._b_slice = _slot_slice(slots, "b")

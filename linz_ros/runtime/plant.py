@@ -122,7 +122,11 @@ class NumericPlant:
         self._dynamics = artifact.programs["dynamics"]
         slots = self._dynamics.slots
         self._nq = artifact.mechanical_coordinates
-        if self._nq is None:
+        self._elastic = artifact.elastic
+        if self._elastic:
+            self._structure = [(slots[k].offset, slots[k].offset + slots[k].size)
+                               for k in ("M", "F", "stiffness", "motor_inertia", "motor_damping")]
+        elif self._nq is None:
             self._f = slots["f"].offset
             self._g = slots["G"].offset
         else:
@@ -145,6 +149,8 @@ class NumericPlant:
             Where the model is not defined (e.g. a square root of a negative number).
         """
         values = self._dynamics(x, self.parameters)
+        if self._elastic:
+            return self._elastic_derivative(x, u, values)
         if self._nq is not None:
             return self._mechanical_derivative(x, u, values)
         n, m, f0, g0 = self.n, self.m, self._f, self._g
@@ -164,6 +170,15 @@ class NumericPlant:
         rhs = [values[f0 + i] + sum(values[b0 + i * m + j] * u[j] for j in range(m)) for i in range(nq)]
         accelerations = spd_solve(values[m0:m1], [rhs], nq)[0]
         return list(values[k0:k1]) + accelerations
+
+    def _elastic_derivative(self, x: Sequence[float], u: Sequence[float], values: Sequence[float]) -> list[float]:
+        """Elastic joints: q'' = M^-1 (F + K (theta - q)), theta'' = (u - K (theta - q) - D theta') / J."""
+        nq = self._nq
+        (m0, m1), (f0, _), (k0, _), (j0, _), (d0, _) = self._structure
+        spring = [values[k0 + i] * (x[2 * nq + i] - x[i]) for i in range(nq)]
+        accelerations = spd_solve(values[m0:m1], [[values[f0 + i] + spring[i] for i in range(nq)]], nq)[0]
+        motor = [(u[i] - spring[i] - values[d0 + i] * x[3 * nq + i]) / values[j0 + i] for i in range(nq)]
+        return list(x[nq:2 * nq]) + accelerations + list(x[3 * nq:4 * nq]) + motor
 
     def rk4(self, x: Sequence[float], u: Sequence[float], h: float, steps: int = 1) -> list[float]:
         """Advance by ``steps`` classical Runge-Kutta steps of size h with u held constant.

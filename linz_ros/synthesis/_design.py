@@ -231,7 +231,9 @@ def _mechanical_law_terms(plant: Plant, report: Report, warnings: list[str]):
     if any(d is None for d in io.relative_degree_generic):
         raise DesignError(plant.source, "outputs", io.reason)
     _check_square(plant, io, warnings, "every sample" in io.reason or "could not decide" in io.reason)
-    return list(plant.output_names), list(plant.h), io.chains, [2] * plant.h.shape[0], None, None
+    # relative degree 2 (rigid) or 4 (elastic joints: the chains' upper half is formed at run time)
+    return (list(plant.output_names), list(plant.h), io.chains, [int(d) for d in io.relative_degree_generic],
+            None, None)
 
 
 def _check_square(plant: Plant, io: InputOutputResult, warnings: list[str], hopeless: bool) -> None:
