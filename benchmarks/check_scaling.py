@@ -2,7 +2,7 @@
 
 The family is a chain of n pendulums joined by torsion springs, driven by a torque on
 the first one only, with the last pendulum's angle as output (relative degree 2n, so
-every distribution up to D_(2n-1) is built). Times are printed as seconds and as
+every distribution up to D_(2n-1) is built). Times (analysis, and build: synthesis, printing and verification) are printed as seconds and as
 ratios to the smallest chain measured in the same run, with the method that decided
 (symbolic, or Taylor-mode jets beyond the symbolic budget) and the growth exponent
 fitted by least squares of log t against log states over every chain; the machine is
@@ -21,7 +21,9 @@ from pathlib import Path
 import numpy as np
 
 from linz_ros.analysis import analyse
+from linz_ros.codegen import build_document
 from linz_ros.model import load_plant, plant_from_text
+from linz_ros.synthesis import synthesise
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -54,11 +56,22 @@ def _time(fn, repeat: int) -> float:
     return best
 
 
+def _build_seconds(plant, report, repeat: int) -> tuple[float, str]:
+    """Seconds of synthesis, printing and verification (``linz build`` after the analysis), and the law's form."""
+    text = plant_from_text(pendulum_chain(plant.n // 2).replace(
+        "envelope:", "design: {poles: {y: [%s]}}\nenvelope:" % ", ".join(["-4"] * plant.n)), plant.name)
+    result = {}
+    seconds = _time(lambda: result.setdefault("d", build_document(synthesise(text, report=report), points=16)),
+                    repeat)
+    return seconds, result["d"][0]["design"].get("law_form", "expressions")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--max-pendulums", type=int, default=8, help="largest chain (default 8: 16 states)")
     parser.add_argument("--repeat", type=int, default=1)
     parser.add_argument("--samples", type=int, default=256)
+    parser.add_argument("--no-build", dest="build", action="store_false", help="time the analysis only")
     args = parser.parse_args()
 
     print("bundled plants")
@@ -69,7 +82,8 @@ def main() -> None:
         print(f"  {plant.name:<18}{plant.n:>7}{seconds:>10.2f}")
 
     print("\npendulum chain, input on the first, output the last (relative degree 2n)")
-    print(f"  {'n':>3}{'states':>7}{'seconds':>10}{'ratio':>9}{'verdict':>9}{'rel.deg':>9}  method")
+    print(f"  {'n':>3}{'states':>7}{'seconds':>10}{'ratio':>9}{'verdict':>9}{'rel.deg':>9}{'build s':>9}"
+          f"{'law':>13}  method")
     rows = []
     for n in range(1, args.max_pendulums + 1):
         plant = plant_from_text(pendulum_chain(n), f"chain{n}")
@@ -81,7 +95,9 @@ def main() -> None:
         verdict = report.input_state.linearizable
         degree = report.input_output.relative_degree
         method = "jets" if report.input_state.method else "symbolic"
-        print(f"  {n:>3}{plant.n:>7}{seconds:>10.2f}{ratio:>9.1f}{str(verdict):>9}{str(degree):>9}  {method}")
+        build, form = _build_seconds(plant, report, args.repeat) if args.build else (math.nan, "-")
+        print(f"  {n:>3}{plant.n:>7}{seconds:>10.2f}{ratio:>9.1f}{str(verdict):>9}{str(degree):>9}{build:>9.2f}"
+              f"{form:>13}  {method}")
     if len(rows) >= 2:
         states = np.log([r[0] for r in rows])
         seconds = np.log([r[1] for r in rows])

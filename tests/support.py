@@ -38,6 +38,14 @@ def built_artifact(source, options=None, points: int = 8):
     return artifact_from_text(_BUILT[key])
 
 
+def built_artifact_file(source: Path, folder: Path) -> Path:
+    """The artifact of :func:`built_artifact` (default options, cached per session) as a file in ``folder``."""
+    built_artifact(source)
+    path = folder / f"{source.stem}.artifact.json"
+    path.write_text(_BUILT[(str(source), repr(None))])
+    return path
+
+
 def sampled_chain_error(gains, period: float, e0: float, steps: int):
     """Designed error of one Brunovsky chain under the sampled law (zero-order hold):
     e[k+1] = (Phi - Gamma K) e[k] from e = (e0, 0, ...); the first component at every step."""

@@ -224,3 +224,27 @@ def test_jet2_long_sums_compile_without_deep_nesting():
     program = compile_program("j", [("x", ["a"]), ("p", ["k"])], [], [("y", [1], [text])], backend="jet2")
     total = sum(range(3000))
     assert program([(1.0, 2.0, 3.0)], [2.0])[0] == pytest.approx((2 * total, 4 * total, 6 * total), rel=1e-14)
+
+
+def test_the_taylor_backend_agrees_with_the_jet2_backend_and_carries_complex_steps():
+    from linz_ros.artifact import taylor
+    text = ["sin(x1)*exp(x2)/(2 + cos(x1*x2)) + atan2(x2, 3) - sqrt(4 + x1**2)*a**2",
+            "log(3 + x2)**(-2) + tanh(x1)**1.5 + abs(x1 - 5)*a", "a*x1 + 1"]
+    parts = ([("x", ["x1", "x2"]), ("p", ["a"])], [], [("y", [3], text)])
+    jets = compile_program("demo", *parts, backend="taylor")
+    second = compile_program("demo", *parts, backend="jet2")
+    x = [(0.3, 0.7, -0.2), (0.5, -1.1, 0.4)]
+    got = jets([np.array([c + 0.0 for c in xi] + [0.0] * 3) for xi in x], [1.7])
+    want = second(x, [1.7])
+    for g, w in zip(got, want):
+        assert np.asarray(g)[:3] == pytest.approx(w, rel=1e-13, abs=1e-13)
+    # a complex step along (1, 0): Im / eps is the derivative in x1, exact to rounding
+    step = [taylor.variable(0.3 + 1j * taylor.COMPLEX_STEP, 0.0, 2), taylor.variable(0.5 + 0j, 0.0, 2)]
+    real = [taylor.variable(0.3, 0.0, 2), taylor.variable(0.5, 0.0, 2)]
+    h = 1e-6
+    ahead = [taylor.variable(0.3 + h, 0.0, 2), taylor.variable(0.5, 0.0, 2)]
+    behind = [taylor.variable(0.3 - h, 0.0, 2), taylor.variable(0.5, 0.0, 2)]
+    for s, r, a, b in zip(jets(step, [1.7]), jets(real, [1.7]), jets(ahead, [1.7]), jets(behind, [1.7])):
+        assert np.real(np.asarray(s)[0]) == pytest.approx(np.asarray(r)[0], rel=1e-15)
+        assert np.imag(np.asarray(s)[0]) / taylor.COMPLEX_STEP == pytest.approx(
+            (np.asarray(a)[0] - np.asarray(b)[0]) / (2 * h), rel=1e-7)

@@ -89,3 +89,21 @@ def test_cse_shares_work_across_the_law():
     total_text = sum(len(t) for t in temps) + sum(len(e) for out in law["outputs"] for e in out[2])
     uncse = sum(len(str(e)) for e in list(design.A) + list(design.b))
     assert total_text < uncse / 3
+
+
+def test_a_twelve_state_chain_beyond_the_symbolic_budget_builds_in_chain_form_and_tracks():
+    from test_runtime_core import pendulum_chain_text
+
+    from linz_ros.artifact import artifact_from_text, seal
+    from linz_ros.runtime import SimSettings, make_reference, simulate
+    design = synthesise(plant_from_text(pendulum_chain_text(6), "<chain6>"))
+    assert design.law_form == "chain" and design.A is None and design.relative_degree == [12]
+    document, verification = build_document(design, points=8)
+    assert document["design"]["law_form"] == "chain"
+    checked = verification.per_program["chain_law"]
+    assert "symengine" in checked["reference"] and checked["max_relative_residual"] < 1e-12
+    artifact = artifact_from_text(seal(document))
+    # the smooth move is a degree-25 polynomial whose 12th derivative scales as duration^-12: 3 s keeps th1 inside
+    reference = make_reference("smooth", [12], [0.0], 0.001, at=0.1, duration=3.0)
+    result = simulate(artifact, SimSettings(duration=3.2, reference=reference))
+    assert result.summary()["verdict"] == "tracked"

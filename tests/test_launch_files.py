@@ -129,6 +129,16 @@ def test_every_bundled_plant_has_a_bringup_parameter_file_for_its_nodes():
         assert document["/linz_reference"]["ros__parameters"]["topic"] == controller["reference_topic"]
 
 
+@pytest.mark.parametrize("plant", sorted(p.stem for p in (ROOT / "config" / "plants").glob("*.yaml")))
+def test_every_bringup_simulates_at_its_plants_design_rate(plant):
+    # one state per control period: a simulator at another rate makes the controller step at the
+    # simulator's rate, and a run's summary count steps in the wrong periods (the elastic arm's
+    # simulator once ran at 500 Hz under a 2 kHz design)
+    design = yaml.safe_load((ROOT / "config" / "plants" / f"{plant}.yaml").read_text())["design"]
+    simulator = yaml.safe_load((ROOT / "config" / f"{plant}.yaml").read_text())["/linz_plant_sim"]["ros__parameters"]
+    assert float(simulator["rate"]) == float(design["rate"]), (plant, simulator["rate"], design["rate"])
+
+
 def _load_with_stand_in_launch(path: Path, monkeypatch):
     """The launch file as a module, with ``launch``/``launch_ros`` replaced by recording stand-ins."""
     import importlib.util

@@ -613,3 +613,91 @@ def test_six_joint_elastic_arm_commands_match_pinocchio_with_the_springs_added_b
         got = np.linalg.solve(terms["A"], v - terms["b"])
         # the differences' error (h = 1e-3: about 1e-9 relative on M'', F'') bounds the tolerance
         assert got == pytest.approx(expected, rel=1e-6, abs=1e-6 * np.max(np.abs(expected)))
+
+
+# -- the chain form: A, b and the chains from f, G and h by Taylor-mode jets -----------------------
+
+def pendulum_chain_text(n: int, rate: float = 100.0) -> str:
+    """n spring-coupled pendulums, torque on the first, output the last (relative degree 2n)."""
+    lines = [f"plant: chain{n}", f"states: [{', '.join(f'th{i}, om{i}' for i in range(1, n + 1))}]",
+             "inputs: [u]", "parameters: {a: 9.0, k: 4.0}", "dynamics:"]
+    for i in range(1, n + 1):
+        coupling = "".join(f" + k*(th{j} - th{i})" for j in (i - 1, i + 1) if 1 <= j <= n)
+        lines += [f"  th{i}: om{i}", f"  om{i}: -a*sin(th{i}){coupling}{' + u' if i == 1 else ''}"]
+    poles = ", ".join(["-4"] * (2 * n))
+    lines += [f"outputs: {{y: th{n}}}", f"design: {{rate: {rate}, poles: {{y: [{poles}]}}}}",
+              "envelope: {" + ", ".join(f"th{i}: [-1, 1]" for i in range(1, n + 1)) + "}"]
+    return "\n".join(lines) + "\n"
+
+
+def _chain_form_artifact(text: str, monkeypatch):
+    """The artifact of a plant built through the chain form (a symbolic budget of one tree node)."""
+    from linz_ros.analysis import _input_output, _input_state
+    from linz_ros.artifact import artifact_from_text, seal
+    from linz_ros.codegen import build_document
+    from linz_ros.model import plant_from_text
+    from linz_ros.synthesis import synthesise
+
+    with monkeypatch.context() as patch:
+        for module in (_input_output, _input_state):
+            patch.setattr(module, "SYMBOLIC_TREE_BUDGET", 1)
+        design = synthesise(plant_from_text(text, "<test>"))
+    assert design.law_form == "chain"
+    return artifact_from_text(seal(build_document(design, points=8)[0]))
+
+
+@pytest.mark.parametrize("pendulums", [2, 3])
+def test_the_chain_form_gives_the_commands_of_the_expression_form(pendulums, monkeypatch):
+    text = pendulum_chain_text(pendulums)
+    symbolic = built_artifact(text)
+    chained = _chain_form_artifact(text, monkeypatch)
+    assert symbolic.law_form == "expressions" and chained.law_form == "chain"
+    assert [o[0] for o in chained.document["programs"]["law"]["outputs"]] == ["h"]
+    cores = ControllerCore(symbolic), ControllerCore(chained)
+    rng = np.random.default_rng(3)
+    order = 2 * pendulums
+    for t in range(12):
+        x = rng.uniform(-0.8, 0.8, 2 * pendulums).tolist()
+        ref = rng.uniform(-0.1, 0.1, order + 1).tolist()
+        (u1, r1), (u2, r2) = (core.step(x, ref, t=0.01 * (t + 1)) for core in cores)
+        assert r1.mode == r2.mode == "nominal"
+        assert u2[0] == pytest.approx(u1[0], rel=1e-10, abs=1e-10 * max(1.0, abs(u1[0])))
+        assert cores[1].outputs(x) == pytest.approx(cores[0].outputs(x), rel=1e-10, abs=1e-12)
+
+
+def test_a_tampered_chain_form_artifact_is_refused(monkeypatch):
+    import json
+
+    from linz_ros.artifact import artifact_from_text, seal
+    from linz_ros.errors import ArtifactError
+    artifact = _chain_form_artifact(pendulum_chain_text(2), monkeypatch)
+    document = {k: v for k, v in artifact.document.items() if k != "sha256"}
+    edited = json.loads(json.dumps(document))
+    edited["programs"]["law"]["outputs"][0][2] = ["th1"]
+    with pytest.raises(ArtifactError, match="sha256|hash"):
+        artifact_from_text(json.dumps(dict(edited, sha256=artifact.sha256)))
+    resealed = json.loads(json.dumps(document))
+    del resealed["design"]["law_form"]           # the expression form's law needs A, b and the chains
+    with pytest.raises(ArtifactError, match="programs.law: A must have shape"):
+        artifact_from_text(seal(resealed))
+    resealed = json.loads(json.dumps(document))
+    resealed["design"]["law_form"] = "jets"
+    with pytest.raises(ArtifactError, match="design.law_form: expected expressions, or chain"):
+        artifact_from_text(seal(resealed))
+
+
+def test_without_symengine_the_chain_form_is_checked_by_sympy(monkeypatch):
+    import builtins
+
+    real_import = builtins.__import__
+
+    def no_symengine(name, *args, **kwargs):
+        if name == "symengine" or name.startswith("symengine."):
+            raise ImportError("symengine hidden by the test")
+        return real_import(name, *args, **kwargs)
+
+    monkeypatch.setattr(builtins, "__import__", no_symengine)
+    artifact = _chain_form_artifact(pendulum_chain_text(2), monkeypatch)
+    checked = artifact.document["verification"]["per_program"]["chain_law"]
+    assert "sympy" in checked["reference"] and "symengine" not in checked["reference"]
+    assert checked["max_relative_residual"] < 1e-12

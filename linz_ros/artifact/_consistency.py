@@ -7,6 +7,7 @@ import math
 import re
 from typing import Any
 
+from linz_ros.artifact.chainlaw import CHAIN_LAW_OUTPUTS, LAW_FORMS
 from linz_ros.artifact.elastic import ELASTIC_CONSTANTS
 from linz_ros.artifact.watchdog import PLANT_FILE_SETTINGS, setting, watchdog_problem
 from linz_ros.errors import ArtifactError
@@ -99,8 +100,14 @@ def check_consistency(document: dict[str, Any], source: str) -> None:
     need(mechanics is None or mechanics.get("computed_torque", False) in (True, False)
          and (not mechanics.get("computed_torque") or mechanics["coordinates"] == m),
          "design.mechanics.computed_torque: expected true or false, true only with one input per coordinate")
+    law_form = design.get("law_form", "expressions")
+    need(law_form in LAW_FORMS and (law_form == "expressions" or (mechanics is None
+                                                                   and design["kind"] == "input_output")),
+         "design.law_form: expected expressions, or chain (an explicit plant's input-output law)")
     if mechanics is None:
         law_shapes, dynamics_shapes = {"A": [m, m], "b": [m], "chain": [total]}, {"f": [n], "G": [n, m]}
+        if law_form == "chain":     # the outputs h only: A, b and the chains are evaluated from f, G, h at run time
+            law_shapes = {CHAIN_LAW_OUTPUTS[0]: [m]}
     else:
         nq = mechanics["coordinates"]
         structure = {"M": [nq, nq], "F": [nq], "B": [nq, m]}

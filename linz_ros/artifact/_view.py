@@ -13,6 +13,7 @@ import numpy as np
 from linz_ros.artifact._consistency import program_parts
 from linz_ros.artifact._files import recorded_plant_paths
 from linz_ros.artifact.compiler import Program, compile_program
+from linz_ros.artifact.chainlaw import ChainLaw, chain_law
 from linz_ros.artifact.elastic import ElasticLaw, elastic_law
 
 __all__ = ["Artifact"]
@@ -118,6 +119,22 @@ class Artifact:
             ``law(x, p)`` gives the law program's values, then A, b and the chains.
         """
         return elastic_law(self.source, self.program_text, int(self.mechanical_coordinates))
+
+    @property
+    def law_form(self) -> str:
+        """``chain`` when the law's terms are evaluated from f, G and h at run time (:meth:`chain_law`),
+        else ``expressions`` (the law program carries A, b and the chains)."""
+        return str(self.document["design"].get("law_form", "expressions"))
+
+    def chain_law(self) -> ChainLaw:
+        """The chain-form law: f and h compiled with the taylor backend (Lie derivatives by jets).
+
+        Returns
+        -------
+        ChainLaw
+            ``law(x, p)`` gives A, b and the chains, laid out as the law program of the expression form.
+        """
+        return chain_law(self.source, self.program_text, self.relative_degree)
 
     @property
     def computed_torque(self) -> bool:

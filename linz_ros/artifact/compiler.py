@@ -8,13 +8,15 @@ own: local slot names, numbers re-printed from ``float``, operators, and calls o
 whitelisted functions. The artifact's text never reaches ``compile``; only code written
 by this module does, so loading an artifact cannot run anything but arithmetic.
 
-Three backends: ``"math"`` (scalars, the fastest for one control step in CPython),
+Four backends: ``"math"`` (scalars, the fastest for one control step in CPython),
 ``"numpy"`` (element-wise on arrays, for sweeps and plots) and ``"jet2"``
 (:mod:`linz_ros.artifact._jet2`): the first argument vector's entries are second-order
 jets, triples of the Taylor coefficients of t^0, t^1, t^2 along a curve, and the program
 returns the triples of its outputs, so time derivatives of M(q(t)) come out of the same
 program without symbolic derivatives; it is emitted as scalar straight-line code from
-the same parse tree, in three phases (``Program.phases``), one per order.
+the same parse tree, in three phases (``Program.phases``), one per order; and ``"taylor"``
+(:mod:`linz_ros.artifact._taylor_backend`): jets of any order, as calls of
+:mod:`linz_ros.artifact.taylor`, for Lie-derivative chains evaluated at run time.
 
 Public names
 ------------
@@ -32,7 +34,9 @@ from typing import Callable, Sequence
 
 import numpy as np
 
+from linz_ros.artifact import taylor
 from linz_ros.artifact._jet2 import Jet2Emitter, run_phases
+from linz_ros.artifact._taylor_backend import TaylorEmitter
 from linz_ros.artifact._tokens import MATH_FUNCTIONS, MAX_NESTING, integer_exponent, leaf_text, sign
 from linz_ros.artifact.grammar import CONSTANTS, Node, fold, parse_expression
 from linz_ros.errors import ArtifactError, ExpressionSyntaxError
@@ -45,7 +49,7 @@ _NUMPY_FUNCTIONS = {
     "tanh": "_n.tanh", "exp": "_n.exp", "log": "_n.log", "sqrt": "_n.sqrt", "abs": "_n.abs",
     "sign": "_n.sign",
 }
-_BACKENDS = ("math", "numpy", "jet2")
+_BACKENDS = ("math", "numpy", "jet2", "taylor")
 # precedence of emitted Python: sums < products < unary minus < powers < atoms
 _PREC = {"add": 1, "sub": 1, "mul": 2, "div": 2, "neg": 3, "pow": 4}
 _ATOM = 5
@@ -234,10 +238,12 @@ def compile_program(name: str, arguments: Sequence[tuple[str, Sequence[str]]],
         the earlier temporaries.
     outputs : sequence of (str, shape, sequence of str)
         Named outputs, each a shape and its entries in row-major order.
-    backend : {"math", "numpy", "jet2"}
+    backend : {"math", "numpy", "jet2", "taylor"}
         With ``"jet2"``, the entries of the first argument vector are triples
         ``(c0, c1, c2)`` (Taylor coefficients of t^0, t^1, t^2), the other vectors hold
-        numbers, and the program returns one triple per output entry.
+        numbers, and the program returns one triple per output entry. With ``"taylor"``
+        they are jets of any order (:mod:`linz_ros.artifact.taylor`) and the program
+        returns one jet (or number) per output entry.
 
     Returns
     -------
@@ -258,7 +264,8 @@ def compile_program(name: str, arguments: Sequence[tuple[str, Sequence[str]]],
     if backend not in _BACKENDS:
         raise ValueError(f"backend must be one of {', '.join(_BACKENDS)}, got {backend!r}")
     local: dict[str, str] = {}
-    emitter = Jet2Emitter(local) if backend == "jet2" else _PlainEmitter(local, backend)
+    emitter = (Jet2Emitter(local) if backend == "jet2" else TaylorEmitter(local) if backend == "taylor"
+               else _PlainEmitter(local, backend))
     argument_names = []
     declared: list[tuple[str, tuple[str, ...]]] = []
     for index, (vector, names) in enumerate(arguments):
@@ -291,7 +298,7 @@ def compile_program(name: str, arguments: Sequence[tuple[str, Sequence[str]]],
         slots_out[out_name] = OutputSlot(out_name, shape, offset)
         offset += expected
     source = emitter.source(argument_names, results)
-    namespace = {"_m": math, "_n": np, "_abs": abs, "_sign": sign, "__builtins__": {}}
+    namespace = {"_m": math, "_n": np, "_t": taylor, "_abs": abs, "_sign": sign, "__builtins__": {}}
     try:
         code = compile(source, f"<{name}>", "exec")
     except (SyntaxError, RecursionError, MemoryError) as err:

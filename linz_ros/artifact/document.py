@@ -13,14 +13,17 @@ Layout (format version 1)::
               [[name, value], ...], units (of parameters), signal_units (of states, inputs
               and outputs; optional), input_limits, envelope, operating_point
     design:   kind, outputs, output_expressions, relative_degree, integral, rate, method,
-              chains [{name, degree, gains, poles, sampled}], lqr, warnings, notes
+              chains [{name, degree, gains, poles, sampled}], lqr, warnings, notes, law_form
+              (optional: "chain" when the chains are too large to print, else absent)
     analysis: singular_set, singular_set_note, zero_dynamics_order, zero_dynamics_stability,
               sigma_reference, sigma_reference_note, envelope
     watchdog: sigma_warn, sigma_act, sigma_stop, damping, stale_after, integral_limit,
               rate_limits, safe_command {kind[, value]}
     programs: {name: {arguments [[vector, [names]]], temporaries [[name, expr]],
                       outputs [[name, shape, [expr, ...]]]}}
-              law (A, b, chain), dynamics (f, G), and optionally transform (T, jacobian),
+              law (A, b, chain; with law_form "chain" the outputs h only, A, b and the
+              chains then evaluated from f, G and h by jets: artifact.chainlaw),
+              dynamics (f, G), and optionally transform (T, jacobian),
               inverse (x), singular_set (s)
     verification: points, skipped, tolerance, max_relative_residual, per_program, reference
     signature: optional {algorithm: "ed25519", public_key_sha256, value (base64)}, over the

@@ -20,7 +20,7 @@ from linz_ros.codegen._printer import CodegenError
 from linz_ros.model import numeric_function
 from linz_ros.synthesis import Design
 
-__all__ = ["Verification", "verify_programs", "DEFAULT_TOLERANCE"]
+__all__ = ["Verification", "verify_programs", "DEFAULT_TOLERANCE", "sample_points"]
 
 #: Largest normwise relative residual accepted in an artifact.
 DEFAULT_TOLERANCE = 1e-9
@@ -56,7 +56,20 @@ class Verification:
         }
 
 
-def _sample_points(design: Design, count: int, seed: int = 20261202) -> np.ndarray:
+def sample_points(design: Design, count: int, seed: int = 20261202) -> np.ndarray:
+    """Random states of the envelope (operating point +- 1 for unbounded states).
+
+    Parameters
+    ----------
+    design : Design
+    count : int
+    seed : int
+
+    Returns
+    -------
+    numpy.ndarray
+        count x n.
+    """
     plant = design.plant
     rng = np.random.default_rng(seed)
     center = plant.operating_vector()
@@ -92,7 +105,7 @@ def verify_programs(design: Design, programs, printed: dict[str, dict[str, Any]]
     """
     plant = design.plant
     nominal = [float(v) for v in plant.parameters.values()]
-    states = _sample_points(design, points)
+    states = sample_points(design, points)
     result = Verification(points, tolerance)
     for program in programs:
         spec = printed[program.name]

@@ -14,7 +14,8 @@ from linz_ros import __version__
 from linz_ros.artifact.document import FORMAT, FORMAT_VERSION, seal
 from linz_ros.artifact.watchdog import artifact_settings, defaults_note
 from linz_ros.codegen._printer import to_grammar
-from linz_ros.codegen._verify import DEFAULT_TOLERANCE, Verification, verify_programs
+from linz_ros.codegen._chain_verify import CHAIN_POINTS, verify_chain_law
+from linz_ros.codegen._verify import DEFAULT_TOLERANCE, Verification, sample_points, verify_programs
 from linz_ros.errors import ArtifactError
 from linz_ros.synthesis import Design, transformed_symbols
 
@@ -99,11 +100,15 @@ def _elastic_programs(design: Design, state_args, chain: list[sp.Expr]) -> list[
 def _explicit_programs(design: Design, state_args, chain: list[sp.Expr]) -> list[SymbolicProgram]:
     plant = design.plant
     x, p = state_args[0][1], state_args[1][1]
-    programs = [
-        SymbolicProgram("law", state_args, [
+    if design.law_form == "chain":      # the outputs only: A, b and the chains come from f, G, h at run time
+        law = SymbolicProgram("law", state_args, [("h", (len(design.chains),), [c.expression for c in design.chains])])
+    else:
+        law = SymbolicProgram("law", state_args, [
             ("A", tuple(design.A.shape), list(design.A)),
             ("b", (design.b.shape[0],), list(design.b)),
-            ("chain", (len(chain),), chain)]),
+            ("chain", (len(chain),), chain)])
+    programs = [
+        law,
         SymbolicProgram("dynamics", state_args, [
             ("f", (plant.n,), list(plant.f)),
             ("G", (plant.n, plant.m), list(plant.G))]),
@@ -171,6 +176,7 @@ def _design_section(design: Design) -> dict[str, Any]:
         } for c in design.chains],
         "warnings": list(design.warnings),
         "notes": list(design.notes),
+        **({"law_form": "chain"} if design.law_form == "chain" else {}),
         "mechanics": (None if not design.mechanical else
                       {"form": design.plant.mechanics.form, "coordinates": design.plant.mechanics.nq,
                        "computed_torque": _is_computed_torque(design),
@@ -276,6 +282,9 @@ def build_document(design: Design, tolerance: float = DEFAULT_TOLERANCE, points:
     programs = symbolic_programs(design)
     printed = {program.name: _printed_program(program) for program in programs}
     verification = verify_programs(design, programs, printed, tolerance=tolerance, points=points)
+    if design.law_form == "chain":
+        verification.per_program["chain_law"] = verify_chain_law(
+            design, printed, sample_points(design, CHAIN_POINTS), tolerance)
     document = {
         "format": FORMAT,
         "format_version": FORMAT_VERSION,

@@ -77,12 +77,29 @@ class _Steps:
         self.say(render_logs(report))
 
 
+def _say_when_still(request: DemoRequest, artifact: Path, params: Path, say: Callable[[str], None]) -> None:
+    """Say so when the bringup ends before its built-in reference starts to move (a short ``--seconds``)."""
+    from linz_ros.artifact import load_artifact
+    from linz_ros.bringup import node_parameters
+    from linz_ros.runtime.reference import parse_reference
+
+    if request.wall_clock:      # the reference node's timeline starts when the controller subscribes
+        return
+    loaded = load_artifact(artifact)
+    spec = str(node_parameters(params, "linz_reference")["reference"])
+    start = parse_reference(spec, loaded.relative_degree, [0.0] * len(loaded.outputs), loaded.outputs).at
+    if start >= request.seconds:
+        say(f"  (the reference starts to move {start:g} s after activation: a {request.seconds:g} s run holds the "
+            "outputs where they are; pass a longer --seconds to see the move)")
+
+
 def _bringup(request: DemoRequest, artifact: Path, params: Path, out: Path, say: Callable[[str], None]) -> None:
     from linz_ros.commands._bringup import render_heard, run_bringup
 
     clock = "wall clock" if request.wall_clock else "simulated time, lockstep"
     nodes = "simulator, reference and controller nodes" if request.wall_clock else "simulator and controller nodes"
     say(f"\n== 5. simulation bringup over DDS: {nodes} ({request.seconds:g} s, {clock})")
+    _say_when_still(request, artifact, params, say)
     run = run_bringup(artifact, params, out, request.seconds, lockstep=not request.wall_clock, say=say)
     say(render_sim(run.summary, title="bringup"))
     say(render_heard(run))
@@ -131,6 +148,9 @@ def run_demo(request: DemoRequest, say: Callable[[str], None] = print,
             "(the singularity watchdog at work; never do this on a machine)")
         steps.sim(artifact, out / "reach", reference=DEMO_REACH, watchdog=["envelope_action=warn"],
                   field_log=str(out / "reach" / "field_log"))
+    else:
+        say(f"\n== 4. (skipped: the reach past the workspace is the bundled {DEMO_PLANT}'s, "
+            f"not {name}'s)")
     params = bundled_params(name)
     if params is None:
         say(f"\n(no bringup parameter file config/{name}.yaml: the ROS 2 step is skipped)")

@@ -134,6 +134,10 @@ class ControllerCore:
             # elastic joints: the law's values extended by A = M^-1 K J^-1, b and the chains (artifact.elastic)
             elastic = artifact.elastic_law()
             self._law, slots, self._mechanical = elastic, elastic.slots, None
+        elif artifact.law_form == "chain":
+            # chains too large to print: A, b and the chains from f, G and h by Taylor-mode jets (artifact.chainlaw)
+            chain = artifact.chain_law()
+            self._law, slots = chain, chain.slots
         if self._mechanical is None:
             self._a_slice = _slot_slice(slots, "A")
             self._b_slice = _slot_slice(slots, "b")

@@ -30,7 +30,11 @@ from linz_ros.synthesis._guards import sampling_warnings, sigma_reference, watch
 from linz_ros.synthesis._options import DEFAULT_RATE, DesignOptions, given_poles, outer_loop_gains, rate_and_integral
 from linz_ros.synthesis._transform import closed_form_inverse
 
-__all__ = ["DesignOptions", "Chain", "Design", "synthesise", "DEFAULT_RATE"]
+__all__ = ["DesignOptions", "Chain", "Design", "synthesise", "DEFAULT_RATE", "CHAIN_FORM_NOTE"]
+
+#: The note of a design whose chains exceed the symbolic budget (``Design.law_form`` "chain").
+CHAIN_FORM_NOTE = ("the chains exceed the symbolic budget: A, b and the chains are evaluated at run time "
+                   "from f, G and h by Taylor-mode jets (complex steps along G for A)")
 
 
 @dataclass
@@ -72,6 +76,7 @@ class Design:
     reference: str | None = None
     warnings: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
+    law_form: str = "expressions"    # "chain": A, b, chains too large to print, evaluated from f, G, h at run time
 
     @property
     def relative_degree(self) -> list[int]:
@@ -131,6 +136,8 @@ def synthesise(plant: Plant, options: DesignOptions | None = None, report: Repor
         terms = _mechanical_law_terms if plant.mechanics is not None else _input_output_terms
         names, expressions, chains_sym, degrees, A, b = terms(plant, report, warnings)
         inverse = None
+        if plant.mechanics is None and A is None:
+            notes.append(CHAIN_FORM_NOTE)
     else:
         names, expressions, chains_sym, degrees, A, b = _input_state_terms(plant, report, options, ctx)
         inverse = closed_form_inverse(chains_sym[0], plant, ctx)
@@ -147,7 +154,8 @@ def synthesise(plant: Plant, options: DesignOptions | None = None, report: Repor
     sigma_ref, sigma_note = sigma_reference(plant, report, A, ctx, kind)
     watchdog = watchdog_levels(plant, sigma_ref, rate, names, expressions)
     return Design(plant, report, kind, chains, A, b, integral, rate, method, inverse, sigma_ref, sigma_note,
-                  watchdog, lqr_weights, plant.design.get("reference"), warnings, notes)
+                  watchdog, lqr_weights, plant.design.get("reference"), warnings, notes,
+                  "chain" if CHAIN_FORM_NOTE in notes else "expressions")
 
 
 def _checked_chain(name: str, expr: sp.Expr, derivs: list[sp.Expr], degree: int, gains: np.ndarray, rate: float,
@@ -213,8 +221,15 @@ def _kind_of_design(plant: Plant, options: DesignOptions) -> str:
 
 
 def _input_output_terms(plant: Plant, report: Report, warnings: list[str]):
+    """Chains, A and b of an explicit plant; A and b None (the chain form) when the analysis decided
+    from jets because the Lie derivatives exceed the symbolic budget."""
     io = report.input_output
     assert io is not None
+    if io.decoupling_matrix is None and io.decoupling_values is not None:
+        _check_square(plant, io, warnings, any(d is None for d in io.relative_degree_generic)
+                      or "everywhere" in io.reason)
+        degrees = [int(d) for d in io.relative_degree_generic]
+        return list(plant.output_names), list(plant.h), [[] for _ in degrees], degrees, None, None
     if io.decoupling_matrix is None:
         raise DesignError(plant.source, "outputs", io.reason)
     _check_square(plant, io, warnings, any(d is None for d in io.relative_degree_generic)

@@ -60,7 +60,10 @@ def sigma_reference(plant: Plant, report: Report, A: sp.Matrix, ctx, kind: str) 
         envelope = sample_envelope(plant, A, "L_g L_f^(n-1) T1", 256)
     if envelope is not None and envelope.median_sigma:
         return float(envelope.median_sigma), "median smallest singular value of A over the envelope"
-    if A is None:
+    io = report.input_output
+    if A is None and plant.mechanics is None and io is not None and io.decoupling_values is not None:
+        values = io.decoupling_values(np.array([plant.operating_vector()]))[0]     # from jets (chain form)
+    elif A is None:
         terms = report.mechanical_terms or mechanical_terms(plant)
         values = terms.decoupling(np.array([plant.operating_vector()]))[0][0]
     else:
