@@ -372,9 +372,10 @@ def run_bench(artifact: Artifact, plant: Plant | None = None, calls: int = 2000,
         clock[0] += 0.001
         core.step(states[k & 63], refs[k & 63], clock[0])
 
-    if artifact.elastic:
-        notes.append("elastic joints: the core assembles A and b from jets of the law program each step, which "
-                     "the lambdify and C references do not reproduce; timed: core and law_only")
+    if artifact.elastic or artifact.law_form == "chain":
+        notes.append(("elastic joints: the core assembles A and b from jets of the law program" if artifact.elastic
+                      else "chain form: the core forms the chains, A and b by Taylor-mode jets of f, G and h")
+                     + " each step, which the lambdify and C references do not reproduce; timed: core and law_only")
         candidates = {"core": core_call, "law_only": lambda k: law_program(states[k & 63], params)}
         samples = _interleaved_rounds(candidates, calls, rounds, core, clock, notes)
         return BenchResult(artifact.name, calls, rounds,

@@ -479,3 +479,17 @@ def test_check_command_budget_and_progress(capsys):
     captured = capsys.readouterr()
     assert "check khalil_two_state: input-state: distributions D_k [" in captured.err
     assert "VERDICT" in captured.out
+
+
+def test_a_lie_chain_formed_without_a_budget_is_not_reused_under_one():
+    from linz_ros.analysis import lie_chain, plant_context
+    from linz_ros.geometry import BeyondSymbolicBudget
+    from linz_ros.model import plant_from_text
+
+    plant = plant_from_text("plant: p\nstates: [x1, x2, x3]\ninputs: [u]\n"
+                            "dynamics: {x1: sin(x2), x2: x3**2 + cos(x1), x3: u}\noutputs: {y: x1}")
+    ctx = plant_context(plant)
+    degree, _, chain = lie_chain(plant.h[0], plant, ctx)
+    assert degree == 3 and len(chain) == 3
+    with pytest.raises(BeyondSymbolicBudget):
+        lie_chain(plant.h[0], plant, ctx, tree_budget=1)

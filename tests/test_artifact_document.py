@@ -363,3 +363,21 @@ def test_an_inconsistent_mechanical_artifact_is_refused_even_when_resealed(mecha
     with pytest.raises(ArtifactError) as caught:
         load_artifact(_rewrite(path, tmp_path / "m.artifact.json", change), check_plant=False)
     assert words in str(caught.value) and "\n" not in str(caught.value)
+
+
+@pytest.mark.parametrize("name, value, words", [
+    ("stiffness", "-31", r"programs.law: stiffness\[0\] must be positive at the stored parameters, got -31"),
+    ("stiffness", "0", r"stiffness\[0\] must be positive at the stored parameters, got 0"),
+    ("motor_inertia", "0", r"motor_inertia\[0\] must be positive"),
+    ("motor_damping", "-1", r"motor_damping\[0\] must be not negative"),
+    ("stiffness", "1/0", r"programs.law: stiffness\[0\] must be positive at the stored parameters, got nan"),
+])
+def test_a_resealed_elastic_artifact_with_a_spring_of_zero_or_less_is_refused(name, value, words):
+    from support import built_artifact
+
+    document = json.loads(json.dumps(built_artifact(REFERENCE / "elastic_joint.yaml").document))
+    outputs = document["programs"]["law"]["outputs"]
+    slot = next(o for o in outputs if o[0] == name)
+    slot[2] = [value]
+    with pytest.raises(ArtifactError, match=words):
+        artifact_from_text(seal({k: v for k, v in document.items() if k != "sha256"}))

@@ -163,3 +163,12 @@ def test_an_elastic_arm_is_timed_on_its_core_and_law_and_says_why_no_more():
     assert set(result.microseconds) == {"core", "law_only"}
     assert all(v > 0 for v in result.microseconds.values())
     assert any("elastic joints" in note for note in result.notes)
+
+
+def test_a_chain_form_artifact_is_timed_on_its_core_and_law_and_says_why_no_more(monkeypatch):
+    from test_runtime_core import _chain_form_artifact, pendulum_chain_text
+
+    artifact = _chain_form_artifact(pendulum_chain_text(2), monkeypatch)
+    result = run_bench(artifact, None, calls=10, rounds=1)
+    assert set(result.microseconds) == {"core", "law_only"}
+    assert any(note.startswith("chain form:") for note in result.notes)

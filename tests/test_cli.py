@@ -536,8 +536,16 @@ def test_sim_of_the_elastic_arm_tracks_its_plant_files_reference(capsys, tmp_pat
 def test_demo_of_another_plant_says_the_pick_arms_reach_is_skipped(capsys, tmp_path):
     code, out, err = _run(capsys, "demo", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path), "--no-ros")
     assert code == 0, err
-    assert "== 4. (skipped: the reach past the workspace is the bundled pick_arm's, not mast_camera's)" in out
+    assert ("== 4. (skipped: the reach past the workspace is written for the bundled plant file pick_arm.yaml, "
+            f"and {BUNDLED / 'mast_camera.yaml'} is another file)") in out
     assert not (tmp_path / "reach").exists()
+
+
+def test_demo_of_the_bundled_pick_arm_named_by_its_path_runs_the_reach(capsys, tmp_path):
+    code, out, err = _run(capsys, "demo", str(BUNDLED / "pick_arm.yaml"), "-o", str(tmp_path), "--no-ros")
+    assert code == 0, err
+    assert "== 4. sim: a reach past the workspace" in out and "skipped: the reach" not in out
+    assert (tmp_path / "reach_stopped" / "run.csv").is_file()
 
 
 @pytest.mark.parametrize("seconds, said", [(1.0, True), (6.0, False)])

@@ -27,8 +27,10 @@ def test_a_warn_of_the_bringup_is_explained_in_the_runtimes_words():
     assert "WARN 'active, but no state received' x2" in why and "WARN 'saturating' x1" in why
     assert "steps refused or acted on: stale 9" in why and "stale" in REASONS
     assert "verdict tracked" in why and "tracked" in VERDICTS
-    assert "simulator 47 late ticks" in why and "lockstep timeouts 1" in why
+    assert "lockstep timeouts 1" in why and "late ticks" not in why     # lockstep: wall-clock lateness is no cause
     assert warn_causes(_summary(), [0, 0], simulator) is None
+    wall = warn_causes(_summary(), [0, 1], "run: 47 late ticks; states sent 3002, dropped 0")
+    assert "simulator 47 late ticks" in wall
 
 
 def test_the_heard_line_keeps_its_words_and_adds_the_cause_only_when_not_ok():
@@ -95,3 +97,22 @@ def test_the_cli_leaves_the_environment_alone(capsys, tmp_path):
     before = dict(os.environ)
     assert main(["build", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path)]) == 0
     assert dict(os.environ) == before
+
+
+def test_outputs_undefined_at_the_artifacts_operating_point_name_the_artifact_not_an_option(tmp_path):
+    import json
+
+    from support import built_artifact
+    from linz_ros.artifact import seal
+    from linz_ros.commands.sim import SimRequest, simulate_run
+    from linz_ros.errors import ConfigError
+
+    plant = ("plant: p\nstates: [x1, x2]\ninputs: [u]\ndynamics: {x1: x2, x2: u}\noutputs: {y: sqrt(x1)}\n"
+             "operating_point: {x1: 1.0, x2: 0.0}\ndesign: {poles: {y: [-2, -3]}}\n")
+    document = json.loads(json.dumps(built_artifact(plant).document))
+    document["plant"]["operating_point"]["x1"] = -1.0         # sqrt undefined there
+    path = tmp_path / "p.artifact.json"
+    path.write_text(seal({k: v for k, v in document.items() if k != "sha256"}))
+    with pytest.raises(ConfigError, match=r"the operating point") as err:
+        simulate_run(SimRequest(source=str(path), out=str(tmp_path / "out"), plots=False, force_initial=True))
+    assert "--initial" not in str(err.value) and "not defined at this state" in str(err.value)

@@ -110,6 +110,9 @@ def test_sequence_gaps_count_the_missing_records_across_a_wrap():
     wrapped = _log(4)
     wrapped.sequence = np.array([2**32 - 2, 2**32 - 1, 0, 2])
     assert sequence_gaps(wrapped) == 1
+    restarted = _log(6)                  # two runs joined: the second writer counts from 0 again
+    restarted.sequence = np.array([0, 1, 2, 0, 1, 3])
+    assert sequence_gaps(restarted) == 1
 
 
 def test_without_recorded_levels_the_controller_flags_are_used():

@@ -82,6 +82,12 @@ def test_bad_paths_and_files_are_one_line_errors(tmp_path, make, match):
     assert "\n" not in str(caught.value)
 
 
+def test_a_file_given_twice_is_refused_in_one_line(tmp_path):
+    (tmp_path / "a.mcap").write_bytes(b"x")
+    with pytest.raises(LogError, match=r"a.mcap: given twice \(also as .*a.mcap\): each file is read once"):
+        log_files([tmp_path / "a.mcap", tmp_path])
+
+
 def test_log_files_searches_folders(tmp_path):
     _mcap_bag(tmp_path / "run" / "a.mcap") if (tmp_path / "run").mkdir() is None else None
     (tmp_path / "run" / "notes.txt").write_text("x")

@@ -257,6 +257,9 @@ def test_elastic_default_motor_names():
     ("inputs: [u]", "inputs: [u, u2]", "inputs: an elastic-joint arm takes one motor torque per joint"),
     ("forces: {q: -MgL*sin(q)}", "forces: {q: -MgL*sin(q) + th}", "mass_matrix: depends on motor state th"),
     ("elastic_joints: {", "elastic_joints: [", "elastic_joints"),
+    ("stiffness: [k]", "stiffness: [sqrt(-k)]", r"elastic_joints.stiffness\[0\]: must be positive, got a complex"),
+    ("motor_inertia: [J]}", "motor_inertia: [J], motor_damping: [sqrt(-1)]}",
+     r"motor_damping\[0\]: must be not negative, got a complex"),
 ])
 def test_elastic_section_refuses_bad_input_with_one_line(old, new, words):
     text = ELASTIC.replace(old, new)
@@ -266,6 +269,14 @@ def test_elastic_section_refuses_bad_input_with_one_line(old, new, words):
     with pytest.raises(PlantFileError, match=words) as err:
         plant_from_text(text, "arm.yaml")
     assert "\n" not in str(err.value) and str(err.value).startswith("arm.yaml")
+
+
+def test_an_empty_elastic_section_is_refused_not_ignored():
+    start = ELASTIC.index("elastic_joints:")
+    end = ELASTIC.index("\n", start)
+    text = ELASTIC[:start] + "elastic_joints:" + ELASTIC[end:]
+    with pytest.raises(PlantFileError, match="elastic_joints: expected a mapping with stiffness and motor_inertia"):
+        plant_from_text(text, "arm.yaml")
 
 
 def test_elastic_section_belongs_to_the_mechanical_forms():

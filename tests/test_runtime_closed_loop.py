@@ -237,3 +237,31 @@ def test_the_adaptive_integrator_has_a_budget():
         plant.adaptive([0.4, 1.2, 1e6, 0.0], [0.0, 0.0], 0.002)   # Coriolis terms ~ w1^2 = 1e12
     result = simulate(artifact, SimSettings(duration=0.05, integrator="scipy", initial=[0.4, 1.2, 1e6, 0.0]))
     assert result.diverged_at is not None and "adaptive integrator needed more than" in result.summary()["notes"][-1]
+
+
+def test_a_controlled_stop_that_the_machine_runs_away_from_is_not_called_a_stop(recwarn):
+    # the elastic joint's spring made almost zero (a 99.999 % mismatch): the law pushes the motor, the
+    # link falls away past the envelope, and the stop cannot hold it
+    artifact = built_artifact(REFERENCE / "elastic_joint.yaml")
+    reference = make_reference("step", artifact.relative_degree, [0.0], 0.1, at=0.1)
+    result = simulate(artifact, SimSettings(duration=1.0, reference=reference,
+                                            plant_parameters=mismatched_parameters(artifact, {"k": -99.999})))
+    note = next(n for n in result.notes if n.startswith("watchdog outside_envelope"))
+    assert "ran away" in note and "stopped under control" not in note
+    assert result.summary()["verdict"] in ("left_envelope", "diverged")
+    assert not [w for w in recwarn if issubclass(w.category, RuntimeWarning)]
+
+
+def test_a_step_slower_than_the_control_period_is_noted():
+    from linz_ros.runtime.closed_loop import _note_slow_steps
+
+    artifact = built_artifact(BUNDLED / "mast_camera.yaml")
+    result = simulate(artifact, SimSettings(duration=0.05))
+    result.notes.clear()
+    result.compute_time = np.full(len(result.t), 0.5 / artifact.rate)      # half a period: nothing to say
+    _note_slow_steps(result)
+    assert result.notes == []
+    result.compute_time = np.full(len(result.t), 3.0 / artifact.rate)      # three periods a step
+    _note_slow_steps(result)
+    assert len(result.notes) == 1 and "longer than the control period" in result.notes[0]
+    assert f"{3e6 / artifact.rate:.0f} us against {1e6 / artifact.rate:.0f} us" in result.notes[0]

@@ -288,7 +288,9 @@ def test_closed_form_inverse_gives_up_rather_than_guess():
     (MINIMAL + "outputs: {y: x1}\n", DesignOptions(lqr={"q": [0.0, 0.0]}), "would not be asymptotically stable"),
     (MINIMAL + "outputs: {y: x1}\n", DesignOptions(lqr={"q": [0.0, 1.0]}), "give the first state of every chain"),
     (MINIMAL + "outputs: {y: x1}\n", DesignOptions(poles={"y": [-1.0, -2.0]}, rate=1e-300),
-     "design.rate: the sampled loop of chain y cannot be evaluated"),
+     "--rate: control rate 1e-300 Hz is below 0.00278 Hz (the stale-state watchdog's default of 10 periods"),
+    (MINIMAL + "outputs: {y: x1}\ndesign: {rate: 1.0e-9}\n", DesignOptions(poles={"y": [-1.0, -2.0]}),
+     "p.yaml: design.rate: control rate 1e-09 Hz is below 0.00278 Hz"),
 ])
 def test_designs_that_cannot_be_built_are_one_line(text, options, words):
     with pytest.raises(DesignError) as info:

@@ -368,7 +368,7 @@ def lie_chain(h: sp.Expr, plant: Plant, ctx: NumericContext,
         do not reach (so L_f^r h is one more Lie derivative of the last);
         ``[h, ..., L_f^(n-1) h]`` when ``degree`` is None.
     """
-    key = ("lie_chain", sp.sympify(h))
+    key = ("lie_chain", sp.sympify(h), tree_budget)      # a chain formed without a budget may exceed one
     if key not in ctx.memo:
         ctx.memo[key] = _lie_chain(sp.sympify(h), plant, ctx, tree_budget)
     degree, row, chain = ctx.memo[key]

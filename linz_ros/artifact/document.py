@@ -47,6 +47,8 @@ import json
 from pathlib import Path
 from typing import Any, Sequence
 
+import numpy as np
+
 from linz_ros.artifact._consistency import MAX_UNIT_TEXT, REQUIRED_PROGRAMS, check_consistency, program_parts
 from linz_ros.artifact._files import check_plant_file, parse_json, read_bounded
 from linz_ros.artifact._view import Artifact
@@ -198,12 +200,33 @@ def _checked_programs(document: dict[str, Any], source: str) -> dict[str, Progra
     """Check the document as a whole, then compile its programs; any surprise is an ArtifactError."""
     try:
         check_consistency(document, source)
-        return {name: compile_program(f"{source}: {name}", *program_parts(spec, source, name))
-                for name, spec in document["programs"].items()}
+        programs = {name: compile_program(f"{source}: {name}", *program_parts(spec, source, name))
+                    for name, spec in document["programs"].items()}
+        if (document["design"].get("mechanics") or {}).get("elastic"):
+            _check_elastic_constants(document, programs["law"], source)
+        return programs
     except ArtifactError:
         raise
     except (TypeError, ValueError, KeyError, AttributeError, IndexError, OverflowError) as err:
         raise ArtifactError(source, f"malformed artifact ({type(err).__name__}: {err})") from None
+
+
+def _check_elastic_constants(document: dict[str, Any], law: Program, source: str) -> None:
+    """Stiffness and motor inertia positive, motor damping not negative, at the stored parameters
+    (the plant-file loader's rule, so a resealed file cannot bring a spring of zero or less)."""
+    plant = document["plant"]
+    x = [float(plant["operating_point"][s]) for s in plant["states"]]
+    p = [float(value) for _, value in plant["parameters"]]
+    try:
+        values = law.evaluate(x, p)
+    except (ArithmeticError, ValueError) as err:
+        raise ArtifactError(source, f"programs.law: not defined at the operating point and the stored "
+                                    f"parameters ({type(err).__name__}: {err})") from None
+    for name, least in (("stiffness", "positive"), ("motor_inertia", "positive"), ("motor_damping", "not negative")):
+        for i, value in enumerate(np.ravel(values[name]).tolist()):
+            if not (value > 0 if least == "positive" else value >= 0):
+                raise ArtifactError(source, f"programs.law: {name}[{i}] must be {least} at the stored parameters, "
+                                            f"got {value:g}")
 
 
 def artifact_from_text(text: str, source: str = "<memory>") -> Artifact:

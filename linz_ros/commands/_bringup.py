@@ -144,7 +144,8 @@ def warn_causes(summary: dict[str, Any], levels: list[int], simulator: str) -> s
     parts.append(f"verdict {verdict if verdict in VERDICTS else repr(verdict)}")
     late = re.search(r"(\d+) late ticks", simulator)
     timeouts = re.search(r"lockstep timeouts (\d+)", simulator)
-    if late and int(late.group(1)):
+    # in lockstep simulated time waits for the controller: a tick late on the wall clock is no cause
+    if late and int(late.group(1)) and not timeouts:
         parts.append(f"simulator {late.group(1)} late ticks")
     if timeouts and int(timeouts.group(1)):
         parts.append(f"lockstep timeouts {timeouts.group(1)}")

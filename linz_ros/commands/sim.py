@@ -113,11 +113,16 @@ class ProgressBar:
         sys.stderr.flush()
 
 
-def _reference(artifact: Any, text: str | None, x0: list[float]):
+def _reference(artifact: Any, text: str | None, x0: list[float], given_initial: bool):
     from linz_ros.runtime import ControllerCore, parse_reference
     from linz_ros.runtime.closed_loop import initial_outputs
 
-    base = initial_outputs(ControllerCore(artifact), x0)
+    try:
+        base = initial_outputs(ControllerCore(artifact), x0)
+    except ConfigError as err:
+        # the state is the user's (--initial) or the artifact's operating point
+        where = "--initial" if given_initial else f"{artifact.source}: the operating point"
+        raise ConfigError(where, err.problem) from None
     try:
         return parse_reference(text or artifact.design_reference or "hold", artifact.relative_degree, base,
                                artifact.outputs)
@@ -144,7 +149,8 @@ def _settings(artifact: Any, request: SimRequest):
     if not request.force_initial:
         _check_initial_inside_envelope(artifact, x0)
     return SimSettings(
-        duration=request.duration, reference=_reference(artifact, request.reference, x0), initial=x0,
+        duration=request.duration, reference=_reference(artifact, request.reference, x0, bool(request.initial)),
+        initial=x0,
         plant_parameters=mismatched_parameters(artifact, parse_assignments(request.mismatch, "--mismatch")),
         noise=noise_levels(artifact, request.noise), delay=request.delay, substeps=request.substeps,
         integrator=request.integrator, seed=request.seed, config=watchdog_overrides(artifact, request.watchdog))

@@ -237,7 +237,11 @@ def sequence_gaps(log: StepLog) -> int:
     seq = log.sequence
     if not len(seq) or (seq < 0).all():
         return 0
-    steps = np.diff(seq[seq >= 0]) % 2**32
+    seq = seq[seq >= 0].astype(np.int64)
+    steps = np.diff(seq)
+    # a step back is a new writer (another run, or the writer restarted), unless it wraps at 2^32
+    wrapped = (steps < 0) & (seq[:-1] > 2**32 - 2**20)
+    steps = np.where(wrapped, steps % 2**32, steps)
     return int(np.sum(steps[steps > 1] - 1))
 
 

@@ -32,7 +32,7 @@ from mcap.records import Attachment, Channel, Chunk, Message, Metadata, Schema
 from mcap.stream_reader import breakup_chunk
 from mcap_ros2.decoder import DecoderFactory
 
-from linz_ros.errors import LinzError
+from linz_ros.logs._paths import LogError, log_files
 from linz_ros.runtime.fieldlog import FIELD_LOG_TOPIC, FLOAT64_MULTIARRAY_DEFINITION
 from linz_ros.runtime.steprecord import FIELDS, StepColumns, decode
 
@@ -51,14 +51,6 @@ RECORD_SIZE_LIMIT = 256 * 2**20
 #: The records the reader parses; every other opcode is stepped over unread.
 _PARSED = {Opcode.SCHEMA: Schema.read, Opcode.CHANNEL: Channel.read, Opcode.CHUNK: Chunk.read,
            Opcode.METADATA: Metadata.read, Opcode.ATTACHMENT: Attachment.read}
-
-
-class LogError(LinzError):
-    """A log file or folder that cannot be read at all (nothing usable in it)."""
-
-    def __init__(self, source: str, problem: str) -> None:
-        self.source, self.problem = source, problem
-        super().__init__(f"{source}: {problem}")
 
 
 @dataclass
@@ -130,39 +122,6 @@ class StepLog:
         StepColumns
         """
         return decode(self.values, self.labels)
-
-
-def log_files(paths: Iterable[str | Path]) -> list[Path]:
-    """The log files named by ``paths``: files as given, folders searched for .mcap and .db3.
-
-    Parameters
-    ----------
-    paths : iterable of path
-
-    Returns
-    -------
-    list of Path
-
-    Raises
-    ------
-    LogError
-        A path that does not exist, or a folder with no log files in it.
-    """
-    files: list[Path] = []
-    for raw in paths:
-        path = Path(raw).expanduser()
-        if path.is_dir():
-            found = sorted(p for p in path.rglob("*") if p.suffix in (".mcap", ".db3") and p.is_file())
-            if not found:
-                raise LogError(str(path), "no .mcap or .db3 files in this folder")
-            files.extend(found)
-        elif path.is_file():
-            files.append(path)
-        elif path.exists():
-            raise LogError(str(path), "not a regular file or folder")
-        else:
-            raise LogError(str(path), "no such file or folder")
-    return files
 
 
 @dataclass

@@ -122,9 +122,11 @@ def _diagonal(reader: Any, section: Mapping, key: str, nq: int, allowed: set[str
             raise reader.fail(where, f"depends on {bad[0]}; the {key.replace('_', ' ')} is a constant (parameters)")
         nominal = expr.xreplace(values)
         if nominal.is_number:
-            number = float(nominal)
-            if not (number > 0 if least == "positive" else number >= 0):
-                raise reader.fail(where, f"must be {least}, got {number:g}")
+            value = complex(nominal.evalf())
+            if value.imag != 0.0:
+                raise reader.fail(where, f"must be {least}, got a complex value ({text})")
+            if not (value.real > 0 if least == "positive" else value.real >= 0):
+                raise reader.fail(where, f"must be {least}, got {value.real:g}")
         out.append(expr)
     return tuple(out)
 

@@ -223,7 +223,7 @@ def _read_document(doc: Any, source: str, digest: str) -> Plant:
     else:
         coordinates = reader.name_list(doc, "coordinates", "state")
         states = coordinates + velocity_names(reader, doc, coordinates)
-        if doc.get(ELASTIC_KEY) is not None:
+        if ELASTIC_KEY in doc:                   # present but empty is refused by the section reader
             states += motor_names(reader, doc, coordinates)
     inputs = reader.name_list(doc, "inputs", "input")
     state_symbols = [sp.Symbol(s, real=True) for s in states]

@@ -27,7 +27,7 @@ from linz_ros.runtime.transform import Transform
 from linz_ros.runtime.verdict import VERDICTS, Verdict, error_statistics, first_time, outside_envelope, run_verdict
 from linz_ros.runtime.watchdogs import WatchdogConfig
 
-__all__ = ["SimSettings", "SimResult", "simulate", "fit_decay_rate", "INTEGRATORS", "VERDICTS", "Verdict",
+__all__ = ["SimSettings", "SimResult", "simulate", "INITIAL_STATE", "fit_decay_rate", "INTEGRATORS", "VERDICTS", "Verdict",
            "run_verdict", "outside_envelope", "MAX_SIM_STEPS", "MAX_SUBSTEPS", "ACTED_MODES"]
 
 INTEGRATORS = ("rk4", "scipy")
@@ -364,6 +364,7 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     if artifact.kind == "input_state":
         result.ref_state = _reference_states(artifact, result.ref)
     _note_alarms(result)
+    _note_slow_steps(result)
     if budget_note is not None:
         result.notes.append(budget_note)
     elif diverged_at is not None:
@@ -382,8 +383,35 @@ def _note_alarms(result: SimResult) -> None:
                     else "warned only")
             if "stopping" in acted and "diverging" in result.reason:
                 done = "a controlled stop tried, then the safe command when the stop itself diverged"
+            elif "stopping" in acted and not _ended_near_envelope(result):
+                done = ("a controlled stop tried, but the machine ran away: its last state is not finite or lies "
+                        f"more than a full range outside the envelope (verdict {run_verdict(result).word})")
             result.notes.append(f"watchdog {name} first at t = {first:.4g} s, {int(np.count_nonzero(alarms >> bit & 1))} "
                                 f"step(s), {done}")
+
+
+def _note_slow_steps(result: SimResult) -> None:
+    """A note when the median control step took longer than the control period (this machine, this run)."""
+    if not len(result.compute_time):
+        return
+    median = float(np.median(result.compute_time))
+    if median > result.period:
+        result.notes.append(f"the control step took longer than the control period here (p50 {median * 1e6:.0f} us "
+                            f"against {result.period * 1e6:.0f} us at {result.artifact.rate:g} Hz): this core cannot "
+                            "keep this rate in real time on this machine")
+
+
+#: A stop held the machine when its last state lies within the envelope widened by this fraction of
+#: each range (a stop ends where the machine came to rest, which may be just outside the envelope).
+STOP_HELD_MARGIN = 1.0
+
+
+def _ended_near_envelope(result: SimResult) -> bool:
+    """Whether the run's last state is finite and within :data:`STOP_HELD_MARGIN` of the envelope."""
+    if not len(result.t):
+        return False
+    last = np.asarray(result.x[-1], dtype=float)
+    return bool(np.all(np.isfinite(last)) and not outside_envelope(result.artifact, last, STOP_HELD_MARGIN)[0])
 
 
 def _reference_states(artifact: Artifact, ref: np.ndarray) -> np.ndarray:
@@ -395,6 +423,10 @@ def _reference_states(artifact: Artifact, ref: np.ndarray) -> np.ndarray:
         solution = transform.inverse(values[:n])
         rows.append(solution.x if solution.converged else [math.nan] * n)
     return np.array(rows)
+
+
+#: The field :func:`initial_outputs` names; callers say where the state came from.
+INITIAL_STATE = "initial state"
 
 
 def initial_outputs(core: ControllerCore, x: Sequence[float]) -> list[float]:
@@ -412,15 +444,15 @@ def initial_outputs(core: ControllerCore, x: Sequence[float]) -> list[float]:
     Raises
     ------
     ConfigError
-        When the outputs are not defined or not finite there (``--initial``).
+        When the outputs are not defined or not finite there (field :data:`INITIAL_STATE`).
     """
     try:
         values = core.output_values([float(v) for v in x])
     except (ArithmeticError, ValueError) as err:
-        raise ConfigError("--initial", f"the outputs are not defined at this state ({type(err).__name__}: "
-                                       f"{err})") from None
+        raise ConfigError(INITIAL_STATE, f"the outputs are not defined at this state ({type(err).__name__}: "
+                                         f"{err})") from None
     if not all(math.isfinite(v) for v in values):
-        raise ConfigError("--initial", f"the outputs are not finite at this state ({values})")
+        raise ConfigError(INITIAL_STATE, f"the outputs are not finite at this state ({values})")
     return values
 
 

@@ -188,5 +188,7 @@ def error_statistics(error: np.ndarray) -> dict[str, float | None]:
     finite = finite[np.isfinite(finite)]
     if not finite.size:
         return {"rms_error": None, "final_error": None, "max_error": None}
-    return {"rms_error": float(np.sqrt(np.mean(finite ** 2))), "final_error": float(abs(finite[-1])),
+    with np.errstate(over="ignore"):             # a run that blew up has an rms of inf, said as such
+        rms = float(np.sqrt(np.mean(finite ** 2)))
+    return {"rms_error": rms, "final_error": float(abs(finite[-1])),
             "max_error": float(np.max(np.abs(finite)))}

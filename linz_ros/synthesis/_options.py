@@ -8,6 +8,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from linz_ros.artifact.watchdog import MAX_WATCHDOG_SECONDS, STALE_PERIODS
 from linz_ros.errors import DesignError
 from linz_ros.model import Plant
 from linz_ros.synthesis._gains import LQR_WEIGHT_RANGE, gains_from_lqr, gains_from_poles
@@ -61,13 +62,22 @@ def given_poles(name: str, options: DesignOptions, plant: Plant) -> list[complex
     return []
 
 
+#: The lowest control rate a design takes (Hz).
+MIN_RATE = STALE_PERIODS / MAX_WATCHDOG_SECONDS
+
+
 def rate_and_integral(plant: Plant, options: DesignOptions, notes: list[str]) -> tuple[float, bool]:
     rate = options.rate if options.rate is not None else plant.design.get("rate")
     if rate is None:
         rate = DEFAULT_RATE
         notes.append(f"no control rate given: {DEFAULT_RATE:g} Hz assumed")
+    source, field = (options.source, "--rate") if options.rate is not None else (plant.source, "design.rate")
     if not (isinstance(rate, (int, float)) and math.isfinite(rate) and rate > 0):
-        raise DesignError(options.source, "--rate", f"control rate must be a positive number, got {rate!r}")
+        raise DesignError(source, field, f"control rate must be a positive number, got {rate!r}")
+    if rate < MIN_RATE:
+        raise DesignError(source, field, f"control rate {rate:g} Hz is below {MIN_RATE:.3g} Hz (the stale-state "
+                                         f"watchdog's default of {STALE_PERIODS} periods must fit in its "
+                                         f"{MAX_WATCHDOG_SECONDS:g} s limit)")
     integral = options.integral if options.integral is not None else bool(plant.design.get("integral", False))
     return float(rate), integral
 

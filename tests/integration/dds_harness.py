@@ -80,17 +80,21 @@ class Probe(BringupRecorder):
     def publish_state(self, x, stamp: float | None = None) -> None:
         self.state_pub.publish(self.joint_state(x[:2], x[2:], self.now() if stamp is None else stamp))
 
-    def call(self, client, request, timeout: float = 10.0):
+    def call(self, client, request, timeout: float = 10.0, attempts: int = 1):
+        """One service call; ``attempts`` > 1 only for requests that change nothing (a query)."""
         if not client.wait_for_service(timeout_sec=timeout):
             raise AssertionError(f"service {client.srv_name} not available")
-        future = client.call_async(request)
-        self.executor_.spin_until_future_complete(future, timeout_sec=timeout)
-        if not future.done():
-            raise AssertionError(f"service {client.srv_name} did not answer")
-        return future.result()
+        for _ in range(attempts):
+            future = client.call_async(request)
+            self.executor_.spin_until_future_complete(future, timeout_sec=timeout / attempts)
+            if future.done():
+                return future.result()
+        raise AssertionError(f"service {client.srv_name} did not answer ({attempts} attempt(s))")
 
     def lifecycle_state(self) -> str:
-        return self.call(self.get_client, GetState.Request()).current_state.label
+        # the service can be found before it has found this client's reply reader: the server then
+        # drops its first reply ("failed to send response"); asking again is harmless for a query
+        return self.call(self.get_client, GetState.Request(), attempts=3).current_state.label
 
     def transition(self, transition_id: int) -> bool:
         request = ChangeState.Request()
