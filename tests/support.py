@@ -67,3 +67,20 @@ def sampled_chain_error(gains, period: float, e0: float, steps: int):
         out.append(e[0])
         e = closed @ e
     return np.array(out)
+
+
+def pendulum_chain_text(n: int, envelope: bool = True, rate: float | None = None) -> str:
+    """Plant-file text of n pendulums joined by springs, torque on the first, output the last
+    (relative degree 2n); with ``rate`` a design section placing every pole at -4."""
+    states = ", ".join(f"th{i}, om{i}" for i in range(1, n + 1))
+    lines = [f"plant: chain{n}", f"states: [{states}]", "inputs: [u]", "parameters: {a: 9.0, k: 4.0}",
+             "dynamics:"]
+    for i in range(1, n + 1):
+        springs = "".join(f" + k*(th{j} - th{i})" for j in (i - 1, i + 1) if 1 <= j <= n)
+        lines += [f"  th{i}: om{i}", f"  om{i}: -a*sin(th{i}){springs}{' + u' if i == 1 else ''}"]
+    lines.append(f"outputs: {{y: th{n}}}")
+    if rate is not None:
+        lines.append(f"design: {{rate: {rate}, poles: {{y: [{', '.join(['-4'] * (2 * n))}]}}}}")
+    if envelope:
+        lines.append("envelope: {" + ", ".join(f"th{i}: [-1, 1]" for i in range(1, n + 1)) + "}")
+    return "\n".join(lines) + "\n"

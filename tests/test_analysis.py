@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 import sympy as sp
 
-from support import BUNDLED, REFERENCE
+from support import BUNDLED, REFERENCE, pendulum_chain_text
 from linz_ros.analysis import (analyse, controllability_indices, invariant_zeros, render_text,
                                sample_envelope)
 from linz_ros.analysis._common import plant_context
@@ -367,15 +367,7 @@ def test_plants_beyond_the_state_budget_are_undecided_at_once():
 # ---- beyond the symbolic budget: decisions from Taylor-mode jets ---------------------------
 
 def _pendulum_chain(n):
-    """n pendulums joined by springs, torque on the first, output the last (relative degree 2n)."""
-    states = ", ".join(f"th{i}, om{i}" for i in range(1, n + 1))
-    lines = [f"plant: chain{n}", f"states: [{states}]", "inputs: [u]", "parameters: {a: 9.0, k: 4.0}",
-             "dynamics:"]
-    for i in range(1, n + 1):
-        springs = "".join(f" + k*(th{j} - th{i})" for j in (i - 1, i + 1) if 1 <= j <= n)
-        lines += [f"  th{i}: om{i}", f"  om{i}: -a*sin(th{i}){springs}{' + u' if i == 1 else ''}"]
-    lines += [f"outputs: {{y: th{n}}}", "envelope: {" + ", ".join(f"th{i}: [-1, 1]" for i in range(1, n + 1)) + "}"]
-    return plant_from_text("\n".join(lines) + "\n")
+    return plant_from_text(pendulum_chain_text(n))
 
 
 _TWO_INPUTS = ("plant: two\nstates: [x1, x2, x3]\ninputs: [u1, u2]\nparameters: {c: 0.7}\n"

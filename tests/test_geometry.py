@@ -4,6 +4,7 @@ import numpy as np
 import pytest
 import sympy as sp
 
+from support import pendulum_chain_text
 from linz_ros.geometry import (NumericContext, ad, distribution, evaluate, generic_rank,
                                involutivity, is_identically_zero, lie_bracket, lie_derivative,
                                lie_derivative_covector, numeric_rank, rank_at)
@@ -180,14 +181,7 @@ def test_large_matrices_get_a_numeric_generic_rank_however_simple_their_entries(
 # ---- jets: numeric Lie derivatives and brackets against the symbolic ones ----------------
 
 def _pendulum_chain_text(n):
-    """n pendulums joined by springs, torque on the first, output the last (relative degree 2n)."""
-    states = ", ".join(f"th{i}, om{i}" for i in range(1, n + 1))
-    lines = [f"plant: chain{n}", f"states: [{states}]", "inputs: [u]", "parameters: {a: 9.0, k: 4.0}",
-             "dynamics:"]
-    for i in range(1, n + 1):
-        springs = "".join(f" + k*(th{j} - th{i})" for j in (i - 1, i + 1) if 1 <= j <= n)
-        lines += [f"  th{i}: om{i}", f"  om{i}: -a*sin(th{i}){springs}{' + u' if i == 1 else ''}"]
-    return "\n".join(lines + [f"outputs: {{y: th{n}}}"]) + "\n"
+    return pendulum_chain_text(n, envelope=False)
 
 
 def _jet_plants():

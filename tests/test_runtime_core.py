@@ -8,6 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from support import BUNDLED, MINIMAL, built_artifact
+from support import pendulum_chain_text as chain_text
 from linz_ros.errors import ConfigError
 from linz_ros.runtime import ControllerCore, SimSettings, WatchdogConfig, make_reference, simulate
 
@@ -618,16 +619,8 @@ def test_six_joint_elastic_arm_commands_match_pinocchio_with_the_springs_added_b
 # -- the chain form: A, b and the chains from f, G and h by Taylor-mode jets -----------------------
 
 def pendulum_chain_text(n: int, rate: float = 100.0) -> str:
-    """n spring-coupled pendulums, torque on the first, output the last (relative degree 2n)."""
-    lines = [f"plant: chain{n}", f"states: [{', '.join(f'th{i}, om{i}' for i in range(1, n + 1))}]",
-             "inputs: [u]", "parameters: {a: 9.0, k: 4.0}", "dynamics:"]
-    for i in range(1, n + 1):
-        coupling = "".join(f" + k*(th{j} - th{i})" for j in (i - 1, i + 1) if 1 <= j <= n)
-        lines += [f"  th{i}: om{i}", f"  om{i}: -a*sin(th{i}){coupling}{' + u' if i == 1 else ''}"]
-    poles = ", ".join(["-4"] * (2 * n))
-    lines += [f"outputs: {{y: th{n}}}", f"design: {{rate: {rate}, poles: {{y: [{poles}]}}}}",
-              "envelope: {" + ", ".join(f"th{i}: [-1, 1]" for i in range(1, n + 1)) + "}"]
-    return "\n".join(lines) + "\n"
+    """The chain of :func:`support.pendulum_chain_text` with a design at ``rate``."""
+    return chain_text(n, rate=rate)
 
 
 def _chain_form_artifact(text: str, monkeypatch):
