@@ -43,11 +43,21 @@ def _start_controller(bringup, path, **overrides):
     assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=60)
 
 
+def _refusals_follow_gaps(reasons: list[str]) -> None:
+    """A stretch of refused steps begins with a state gone stale (a gap on the shared cores).
+
+    Under the safe command (no torque) gravity may carry the arm past its envelope before fresh
+    states return, so the stretch may go on as ``outside_envelope``; nothing else is refused.
+    """
+    assert set(reasons) <= {"ok", "stale", "outside_envelope"}, set(reasons)
+    starts = [i for i, r in enumerate(reasons) if r != "ok" and (i == 0 or reasons[i - 1] == "ok")]
+    assert all(reasons[i] == "stale" for i in starts), [(i, reasons[i]) for i in starts]
+
+
 def _stale_steps_are_safe(steps) -> None:
-    """A state late on the shared cores may go stale: then the safe command, and nothing else refused."""
-    reasons = {s["reason"] for s in steps}
-    assert reasons <= {"ok", "stale"}, reasons
-    assert all(s["mode"] == "safe" and s["u"] == [0.0, 0.0] for s in steps if s["reason"] == "stale")
+    """Refusals only after a gap, and every refused step gets the safe command."""
+    _refusals_follow_gaps([s["reason"] for s in steps])
+    assert all(s["mode"] == "safe" and s["u"] == [0.0, 0.0] for s in steps if s["reason"] != "ok")
 
 
 def _wait_for_steps(probe, count: int, timeout: float = 90.0) -> None:
@@ -179,7 +189,7 @@ def test_simulated_time_jumping_back_gives_the_safe_command_then_nominal_in_the_
     before, after = steps[:jump_index], steps[jump_index:]
     peak = max(s["t"] for s in before)
     first_ok = next(i for i, s in enumerate(before) if s["reason"] == "ok")
-    assert set(s["reason"] for s in before[first_ok:]) <= {"ok", "stale"}
+    _refusals_follow_gaps([s["reason"] for s in before[first_ok:]])
     # at the jump: the safe command, never a command from the old timeline's picture
     ok_after = next(i for i, s in enumerate(after) if s["reason"] == "ok")
     at_jump = after[:ok_after]
@@ -254,12 +264,12 @@ def test_a_flood_of_state_messages_leaves_the_controller_alive_and_back_to_nomin
     # take in time its depth-10 keep-last queue dropped, the oldest first. How many it took per second
     # is the machine's speed, not judged.
     assert (np.diff(t[during]) < PERIOD / 2).sum() > 100, summary
-    # safe throughout: a step refused during or after the flood is a state gone stale (a gap on the
-    # shared cores) and gets the safe command; nothing else is refused, every command is finite
-    assert set(reasons) <= {"ok", "stale"}, summary
-    stale = np.array([r == "stale" for r in reasons])
+    # safe throughout: refusals only after a gap on the shared cores, every refused step gets the
+    # safe command, every command is finite
+    _refusals_follow_gaps(reasons)
+    refused = np.array([r != "ok" for r in reasons])
     u = log.block("u")
-    assert np.all(u[stale] == 0.0) and np.all(np.isfinite(u)), summary
+    assert np.all(u[refused] == 0.0) and np.all(np.isfinite(u)), summary
     # back to nominal after the flood, one step a state again (no longer closer than half a period)
     # and still holding the arm where it was, outside the recovery from each gap
     tail = np.flatnonzero(t > end)
