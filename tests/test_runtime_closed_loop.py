@@ -265,3 +265,26 @@ def test_a_step_slower_than_the_control_period_is_noted():
     _note_slow_steps(result)
     assert len(result.notes) == 1 and "longer than the control period" in result.notes[0]
     assert f"{3e6 / artifact.rate:.0f} us against {1e6 / artifact.rate:.0f} us" in result.notes[0]
+
+
+def test_elastic_arm_follows_its_designed_error_dynamics_up_to_a_hold_error_first_order_in_the_period():
+    """The elastic-joint law is exact in continuous time (its A and b are checked against a closed
+    form in test_artifact_elastic); held over a period, the spring modes move y'''' within it, so
+    the deviation from the sampled design shrinks as the period (halving it halves the deviation)."""
+    text = (BUNDLED / "flex_loader_arm.yaml").read_text()
+    amplitude, deviations = 0.01, {}
+    for rate in (1000, 2000):
+        artifact = built_artifact(text.replace("rate: 2000", f"rate: {rate}"))
+        assert artifact.rate == rate
+        core = ControllerCore(artifact)
+        base = core.output_values([artifact.document["plant"]["operating_point"][s] for s in artifact.states])
+        reference = make_reference("step", artifact.relative_degree, base, amplitude, at=0.0)
+        result = simulate(artifact, SimSettings(duration=1.0, reference=reference, substeps=2))
+        assert result.diverged_at is None and set(result.mode) == {"nominal"}
+        errors = result.errors()
+        deviations[rate] = np.array([
+            np.max(np.abs(errors[:, i] - sampled_chain_error(gains, 1 / rate, -amplitude, len(result.t))))
+            for i, gains in enumerate(artifact.gains)])
+    ratio = deviations[1000] / deviations[2000]
+    assert np.all((ratio > 1.7) & (ratio < 2.3)), ratio
+    assert np.all(deviations[2000] < 0.05 * amplitude), deviations[2000]

@@ -22,7 +22,6 @@ and the build verifies it against an independent evaluation.
 
 from __future__ import annotations
 
-import math
 from typing import Callable, Sequence
 
 import numpy as np
@@ -66,7 +65,7 @@ class ChainLaw:
         self.n = len(f_jets.arguments[0][1])
         self._g_offset = G.slots["G"].offset
         self._order = max(self.degrees)
-        self._factorials = np.array([math.factorial(k) for k in range(self._order + 1)], dtype=float)
+        self._factorials = taylor.factorials(self._order)
         m = self.m
         self.slots = {"A": OutputSlot("A", (m, m), 0), "b": OutputSlot("b", (m,), m * m),
                       "chain": OutputSlot("chain", (sum(self.degrees),), m * m + m)}

@@ -31,7 +31,7 @@ import numpy as np
 
 __all__ = ["constant", "variable", "add_constant", "mul", "div", "reciprocal", "power", "integer_power", "sqrt", "exp", "log",
            "sin", "cos", "sin_cos", "tan", "sinh", "cosh", "tanh", "asin", "acos", "atan", "atan2", "abs_", "sign",
-           "derivative", "flow", "lie_chain", "COMPLEX_STEP"]
+           "derivative", "flow", "lie_chain", "factorials", "COMPLEX_STEP"]
 
 #: The complex step: Im F(x + i COMPLEX_STEP v) / COMPLEX_STEP = DF(x) v to rounding.
 COMPLEX_STEP = 1e-30
@@ -576,5 +576,9 @@ def lie_chain(f: Callable[[list[Jet]], Sequence[Jet]], h: Callable[[list[Jet]], 
     values = np.asarray(h([x[:, i] for i in range(x.shape[1])]))
     if values.ndim == 0:
         values = constant(values, x[:, 0])
-    factorials = np.array([math.factorial(k) for k in range(order + 1)], dtype=float)
-    return values * factorials.reshape((-1,) + (1,) * (values.ndim - 1))
+    return values * factorials(order).reshape((-1,) + (1,) * (values.ndim - 1))
+
+
+def factorials(order: int) -> np.ndarray:
+    """``0!, 1!, ..., order!`` as floats: Taylor coefficient k times k! is the k-th derivative."""
+    return np.array([math.factorial(k) for k in range(order + 1)], dtype=float)

@@ -18,7 +18,6 @@ of f; the sympy trees are walked once into a :class:`JetProgram` of
 
 from __future__ import annotations
 
-import math
 from typing import Callable, Sequence
 
 import numpy as np
@@ -163,10 +162,6 @@ def _as_jets(values: list, like: np.ndarray) -> np.ndarray:
     return np.stack([v if _is_jet(v) else taylor.constant(v, like) for v in values], axis=1)
 
 
-def _factorials(order: int) -> np.ndarray:
-    return np.array([math.factorial(k) for k in range(order + 1)], dtype=float)
-
-
 class PlantJets:
     """Numeric Lie derivatives and brackets of a control-affine plant ``x' = f(x) + G(x) u``.
 
@@ -247,7 +242,7 @@ class PlantJets:
         x = self._flow(points, order)
         with np.errstate(all="ignore"):
             values = _as_jets(h([x[:, i] for i in range(self.n)]), x[:, 0])
-        return values * _factorials(order).reshape(-1, 1, 1)
+        return values * taylor.factorials(order).reshape(-1, 1, 1)
 
     def lie_gradients(self, h: JetProgram, points: np.ndarray, order: int) -> np.ndarray:
         """Gradients ``d(L_f^k h_i)`` at the points, by n complex steps: (order+1, outputs, B, n).
@@ -316,7 +311,7 @@ class PlantJets:
             for k in range(order):       # Y' = -Y Df, so (k+1) Y_(k+1) = -sum_a Y_a Df_(k-a)
                 Y[k + 1] = -sum(Y[a] @ Df[k - a] for a in range(k + 1)) / (k + 1)
             V = np.stack([sum(Y[a] @ G[k - a] for a in range(k + 1)) for k in range(order + 1)])
-        return V * _factorials(order).reshape(-1, 1, 1, 1)
+        return V * taylor.factorials(order).reshape(-1, 1, 1, 1)
 
     def ad_directional(self, points: np.ndarray, directions: np.ndarray, order: int) -> np.ndarray:
         """Derivatives ``D(ad_f^k g_j)(x) v`` along given directions by a complex step.
