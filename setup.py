@@ -10,6 +10,8 @@ setup(
     name=package_name,
     version="0.1.0",
     packages=find_packages(exclude=["tests", "tests.*", "benchmarks"]),
+    # the native step's fixed C sources, compiled with each artifact's emitted law at load
+    package_data={"linz_ros.runtime.native": ["*.c", "*.h"]},
     data_files=[
         ("share/ament_index/resource_index/packages", ["resource/" + package_name]),
         ("share/" + package_name, ["package.xml"]),
@@ -29,7 +31,10 @@ setup(
             "ros-kilted-diagnostic-msgs", "ros-kilted-lifecycle-msgs", "ros-kilted-rosgraph-msgs",
         ],
         "test": ["pytest>=7", "hypothesis>=6", "control>=0.10", "colcon-common-extensions", "pin>=2.7",
-                 "cryptography>=41", "symengine>=0.11"],
+                 "cryptography>=41", "symengine>=0.11", "cffi>=1.15"],
+        # the native control step and plant (compiled C at load, called through cffi; the Python core
+        # is used, with a one-line note, where it is missing)
+        "native": ["cffi>=1.15"],
         # the independent check of a chain-form law at build time: symengine forms the long Lie-derivative
         # chains about 400x faster than sympy (which stays the fallback)
         "fast": ["symengine>=0.11"],

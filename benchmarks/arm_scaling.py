@@ -27,6 +27,7 @@ from linz_ros.bench import _pinocchio_step
 from linz_ros.codegen import build_document
 from linz_ros.model import load_plant, plant_from_text
 from linz_ros.runtime import ControllerCore
+from linz_ros.runtime.native import make_core
 from linz_ros.synthesis import synthesise
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -79,13 +80,16 @@ def main() -> None:
     cases = [(f"planar_{n}", planar_arm(n), None) for n in range(2, 7)]
     cases.append(("loader_arm", None, ROOT / "config" / "plants" / "loader_arm.yaml"))
     print(f"{'arm':<12}{'joints':>7}{'build s':>9}{'artifact kB':>12}{'temporaries':>12}{'law us':>9}"
-          f"{'core us':>9}{'pin us':>8}{'core/pin':>9}")
+          f"{'python us':>10}{'native us':>10}{'pin us':>8}{'python/pin':>11}{'native/pin':>11}")
     for name, text, path in cases:
         design, artifact, seconds, size = build(text, path)
         nq = design.plant.mechanics.nq
         rng = np.random.default_rng(1)
         states = [list(rng.uniform(-1.0, 1.0, 2 * nq)) for _ in range(64)]
         core = ControllerCore(artifact)
+        native, note = make_core(artifact)
+        if note:
+            print(f"  note: {note}")
         refs = [core.hold_reference(s) for s in states]
         law, params = artifact.programs["law"], artifact.nominal_parameters.tolist()
         pin_step = _pinocchio_step(design.plant, artifact)
@@ -104,12 +108,14 @@ def main() -> None:
         for _ in range(args.rounds):
             for key, function in candidates.items():
                 core.reset()
+                native.reset()
                 clock[0] = 0.0
                 samples[key].append(per_call(function, args.calls))
         us = {key: statistics.median(values) for key, values in samples.items()}
         temporaries = len(artifact.document["programs"]["law"]["temporaries"])
         print(f"{name:<12}{nq:>7}{seconds:>9.2f}{size / 1000:>12.1f}{temporaries:>12}{us['law']:>9.1f}"
-              f"{us['core']:>9.1f}{us['pin']:>8.2f}{us['core'] / us['pin']:>9.1f}")
+              f"{us['core']:>10.1f}{us['native']:>10.2f}{us['pin']:>8.2f}{us['core'] / us['pin']:>11.1f}"
+              f"{us['native'] / us['pin']:>11.2f}")
 
 
 if __name__ == "__main__":

@@ -12,7 +12,7 @@ setting is measured in ``--repeats`` runs with fresh processes; the verdict is t
 of the runs' ratios.
 
 Run:  python benchmarks/node_latency.py [--seconds 4] [--rates 500,1000] [--executors single_threaded,events]
-                                        [--repeats 3] [--slice 0.5]
+                                        [--repeats 3] [--slice 0.5] [--backend native|python]
 """
 
 from __future__ import annotations
@@ -110,7 +110,7 @@ def _figures(latencies: np.ndarray, published: int) -> dict:
 
 
 def _measure(rate: float, seconds: float, slice_seconds: float, executor: str, artifact: Path,
-             folder: Path) -> dict[str, dict]:
+             folder: Path, backend: str = "native") -> dict[str, dict]:
     """Echo node and controller running side by side, the driver feeding one at a time."""
     import os
     import subprocess
@@ -129,7 +129,8 @@ def _measure(rate: float, seconds: float, slice_seconds: float, executor: str, a
                                  "-p", f"command_topic:={command_topic}"],
                                 env=env, stdout=log, stderr=log, start_new_session=True)
         bringup.start("linz_controller", ROOT / "config" / "pick_arm.yaml",
-                      {"artifact": str(artifact), "reference": "hold", "executor": executor, "stale_after": 0.5})
+                      {"artifact": str(artifact), "reference": "hold", "executor": executor, "stale_after": 0.5,
+                       "backend": backend})
         if not bringup.wait_for_log("linz_controller", "active: commanding", timeout=30):
             echo.terminate()
             raise SystemExit(f"the controller did not become active; see {bringup.log_dir}")
@@ -154,6 +155,7 @@ def main() -> None:
     parser.add_argument("--rates", default="500,1000")
     parser.add_argument("--executors", default="single_threaded,events")
     parser.add_argument("--repeats", type=int, default=3, help="runs per setting, each with fresh processes")
+    parser.add_argument("--backend", default="native", help="the controller's step: native or python")
     parser.add_argument("--slice", type=float, default=0.5,
                         help="seconds of states to one node before the driver switches to the other")
     args = parser.parse_args()
@@ -166,7 +168,8 @@ def main() -> None:
         for executor in args.executors.split(","):
             ratios = []
             for repeat in range(args.repeats):
-                rows = _measure(rate, args.seconds, args.slice, executor, artifact, folder / f"r{repeat}")
+                rows = _measure(rate, args.seconds, args.slice, executor, artifact, folder / f"r{repeat}",
+                                args.backend)
                 echo = rows["echo"]
                 ratio = rows["controller"]["p99"] / echo["p99"] if echo["p99"] > 0 else float("nan")
                 ratios.append(ratio)

@@ -5,7 +5,9 @@ the output chains is made from the artifact's ``law`` program, read through the 
 into sympy (never ``eval``, never a new synthesis), so a bench can never time a law other
 than the one the controller runs. Candidates, all at the same states:
 
-- ``core``: :meth:`ControllerCore.step`, watchdogs and conditioning included;
+- ``core``: the control step of the chosen backend (``native`` by default: compiled C,
+  :mod:`linz_ros.runtime.native`), watchdogs and conditioning included;
+- ``core_python``: :meth:`ControllerCore.step`, the Python core, when ``core`` is native;
 - ``naive``: what one would write by hand: ``sympy.lambdify`` to numpy of the law's
   expressions without common subexpression elimination (the program's temporaries
   substituted back), then the outer loop in numpy, ``numpy.linalg.solve`` for the law
@@ -47,14 +49,16 @@ from linz_ros.artifact.grammar import parse_expression
 from linz_ros.crosscheck import pinocchio_available, pinocchio_reference
 from linz_ros.model import Plant
 from linz_ros.model._symbolic import tree_to_sympy
+from linz_ros.errors import ConfigError
 from linz_ros.runtime import ControllerCore
+from linz_ros.runtime.native import BACKENDS, make_core
 
 __all__ = ["BenchResult", "run_bench", "GOALS", "LawExpressions", "law_expressions", "plant_behind"]
 
 #: The goals the ratios are judged against: ratio -> (comparison, bound, label).
-GOALS = {"core_over_compiled_c": ("<=", 10.0, "goal <= 10"),
+GOALS = {"core_over_compiled_c": ("<=", 2.0, "goal <= 2"),
          "naive_over_core": (">=", 4.0, "goal >= 4"),
-         "core_over_pinocchio": ("<=", 3.0, "goal <= 3 (serial arms)")}
+         "core_over_pinocchio": ("<=", 1.0, "goal <= 1 (serial arms)")}
 
 
 @dataclass
@@ -73,8 +77,9 @@ class BenchResult:
         Returns
         -------
         dict
-            ``core_over_compiled_c`` (goal <= 10) and ``naive_over_core`` (goal >= 4),
-            plus ``core_over_law_only``, where the candidates ran.
+            ``core_over_compiled_c``, ``naive_over_core`` and ``core_over_pinocchio``
+            (:data:`GOALS`), plus ``core_over_law_only`` and ``python_over_core``, where the
+            candidates ran.
         """
         us = self.microseconds
         out = {}
@@ -90,6 +95,8 @@ class BenchResult:
             out["lambdify_cse_math_over_law_only"] = us["lambdify_cse_math"] / us["law_only"]
         if "pinocchio_computed_torque" in us:
             out["core_over_pinocchio"] = us["core"] / us["pinocchio_computed_torque"]
+        if "core_python" in us:
+            out["python_over_core"] = us["core_python"] / us["core"]
         return out
 
     def goals(self) -> dict[str, dict]:
@@ -333,7 +340,7 @@ def _time_per_call(function: Callable[[int], object], calls: int) -> float:
 
 
 def run_bench(artifact: Artifact, plant: Plant | None = None, calls: int = 2000, rounds: int = 7,
-              seed: int = 3, notes: list[str] | None = None) -> BenchResult:
+              seed: int = 3, notes: list[str] | None = None, backend: str = "native") -> BenchResult:
     """Time the core step and the references on the same states, all on the artifact's own law.
 
     Parameters
@@ -352,6 +359,8 @@ def run_bench(artifact: Artifact, plant: Plant | None = None, calls: int = 2000,
         the envelope is silent).
     notes : list of str, optional
         Notes to start the result's notes with (where the plant came from).
+    backend : {"native", "python"}
+        Of the step timed as ``core``.
 
     Returns
     -------
@@ -361,23 +370,31 @@ def run_bench(artifact: Artifact, plant: Plant | None = None, calls: int = 2000,
     envelope = artifact.envelope
     bounds = [envelope.get(s, (x - 0.5, x + 0.5)) for s, x in zip(artifact.states, artifact.operating_point)]
     states = [[float(rng.uniform(lo, hi)) for lo, hi in bounds] for _ in range(64)]
-    core = ControllerCore(artifact)
+    notes = list(notes or [])
+    core, fallback = make_core(artifact, backend=_checked_backend(backend))
+    notes.append(fallback or f"core: the {core.backend} step")
+    python_core = ControllerCore(artifact) if core.backend != "python" else None
     refs = [core.hold_reference(s) for s in states]
     params = artifact.nominal_parameters.tolist()
     law_program = artifact.programs["law"]
-    notes = list(notes or [])
     clock = [0.0]
 
     def core_call(k: int) -> None:
         clock[0] += 0.001
         core.step(states[k & 63], refs[k & 63], clock[0])
 
+    def python_call(k: int) -> None:
+        clock[0] += 0.001
+        python_core.step(states[k & 63], refs[k & 63], clock[0])
+
+    extra = {"core_python": python_call} if python_core is not None else {}
+
     if artifact.elastic or artifact.law_form == "chain":
         notes.append(("elastic joints: the core assembles A and b from jets of the law program" if artifact.elastic
                       else "chain form: the core forms the chains, A and b by Taylor-mode jets of f, G and h")
                      + " each step, which the lambdify and C references do not reproduce; timed: core and law_only")
-        candidates = {"core": core_call, "law_only": lambda k: law_program(states[k & 63], params)}
-        samples = _interleaved_rounds(candidates, calls, rounds, core, clock, notes)
+        candidates = {"core": core_call, **extra, "law_only": lambda k: law_program(states[k & 63], params)}
+        samples = _interleaved_rounds(candidates, calls, rounds, (core, python_core), clock, notes)
         return BenchResult(artifact.name, calls, rounds,
                            {name: statistics.median(values) for name, values in samples.items()}, notes)
     law = law_expressions(artifact)
@@ -389,6 +406,7 @@ def run_bench(artifact: Artifact, plant: Plant | None = None, calls: int = 2000,
     cse_math = sp.lambdify([law.states, law.parameters], law.flat(), modules="math", cse=True)
     candidates: dict[str, Callable[[int], object]] = {
         "core": core_call,
+        **extra,
         "law_only": lambda k: law_program(states[k & 63], params),
         "naive": lambda k: naive(np_states[k & 63], np_params, np_refs[k & 63]),
         "lambdify_numpy": lambda k: plain_numpy(np_states[k & 63], np_params),
@@ -403,13 +421,19 @@ def run_bench(artifact: Artifact, plant: Plant | None = None, calls: int = 2000,
             candidates["compiled_c"] = lambda k: c_law(states[k & 63])
         except _NoCompiledReference as why:
             notes.append(f"{why}: compiled_c not measured")
-        samples = _interleaved_rounds(candidates, calls, rounds, core, clock, notes)
+        samples = _interleaved_rounds(candidates, calls, rounds, (core, python_core), clock, notes)
     microseconds = {name: statistics.median(values) for name, values in samples.items()}
     return BenchResult(artifact.name, calls, rounds, microseconds, notes)
 
 
+def _checked_backend(backend: str) -> str:
+    if backend not in BACKENDS:
+        raise ConfigError("--backend", f"expected one of {', '.join(BACKENDS)}, got {backend!r}")
+    return backend
+
+
 def _interleaved_rounds(candidates: dict[str, Callable[[int], object]], calls: int, rounds: int,
-                        core: ControllerCore, clock: list[float], notes: list[str]) -> dict[str, list[float]]:
+                        cores: tuple, clock: list[float], notes: list[str]) -> dict[str, list[float]]:
     """Microseconds per call of every candidate, one sample per round, rounds interleaved."""
     for function in candidates.values():       # warm up
         _time_per_call(function, min(calls, 200, _calls_for(function, calls, 0.5)))
@@ -419,7 +443,9 @@ def _interleaved_rounds(candidates: dict[str, Callable[[int], object]], calls: i
     samples: dict[str, list[float]] = {name: [] for name in candidates}
     for _ in range(rounds):
         for name, function in candidates.items():
-            core.reset()
+            for core in cores:
+                if core is not None:
+                    core.reset()
             clock[0] = 0.0
             samples[name].append(_time_per_call(function, per_round[name]))
     return samples

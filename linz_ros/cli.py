@@ -109,6 +109,14 @@ def _add_design_options(parser: argparse.ArgumentParser) -> None:
     group.add_argument("--linearizing-output", metavar="EXPR", help="T1 for input-state linearization")
 
 
+def _add_backend(parser: argparse.ArgumentParser, what: str) -> None:
+    # the names are checked where they live (linz_ros.runtime.native.BACKENDS), not here: importing the
+    # runtime would slow every command's start
+    parser.add_argument("--backend", default="native", metavar="NAME",
+                        help=f"{what}: native (compiled C, the default; Python with a note where no C compiler "
+                             "is found) or python")
+
+
 def _add_artifact_checks(parser: argparse.ArgumentParser) -> None:
     """The options of verbs that load an artifact: a changed plant file, trusted signing keys."""
     parser.add_argument("--allow-plant-change", action="store_true",
@@ -187,6 +195,7 @@ def _build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--integrator", choices=("rk4", "scipy"), default="rk4",
                      help="rk4: fixed-step RK4 sub-steps (default); scipy: adaptive RK45")
     sim.add_argument("--substeps", type=_positive_int, default=4, help="RK4 steps per control period (default 4)")
+    _add_backend(sim, "the control step and the plant")
     sim.add_argument("--seed", type=_nonnegative_int, default=1, help="noise seed (a whole number >= 0)")
     sim.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
     sim.add_argument("--progress", action="store_true", default=None,
@@ -206,6 +215,7 @@ def _build_parser() -> argparse.ArgumentParser:
     bench.add_argument("--rounds", type=_count_at_most(MAX_BENCH_ROUNDS), default=7,
                        help=f"rounds (default 7, at most {MAX_BENCH_ROUNDS:_})")
     bench.add_argument("--json", action="store_true", help="print one JSON object instead of text")
+    _add_backend(bench, "the core step timed as 'core'")
     _add_artifact_checks(bench)
 
     logs = _verb(verbs, _run_logs, "logs", help="summarise field logs: near-singular and saturated episodes",
@@ -273,7 +283,7 @@ def _run_sim(args: argparse.Namespace) -> int:
         source=args.source, out=args.out, duration=args.duration, reference=args.reference, mismatch=args.mismatch,
         noise=args.noise, delay=args.delay, initial=args.initial, force_initial=args.force_initial,
         watchdog=args.watchdog, integrator=args.integrator, substeps=args.substeps, seed=args.seed,
-        plots=not args.no_plots, progress=bool(args.progress if args.progress is not None else sys.stderr.isatty()),
+        backend=args.backend, plots=not args.no_plots, progress=bool(args.progress if args.progress is not None else sys.stderr.isatty()),
         allow_plant_change=args.allow_plant_change, field_log=args.field_log, trusted_keys=args.trusted_key,
         design=_design(args))
     run = simulate_run(request)
@@ -286,7 +296,7 @@ def _run_bench(args: argparse.Namespace) -> int:
     from linz_ros.commands.bench import bench, render_bench
 
     result = bench(args.source, calls=args.calls, rounds=args.rounds, allow_plant_change=args.allow_plant_change,
-                   trusted_keys=args.trusted_key)
+                   trusted_keys=args.trusted_key, backend=args.backend)
     print(render_bench(result, as_json=args.json))
     return 0
 

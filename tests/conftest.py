@@ -17,3 +17,19 @@ def write_plant(tmp_path):
         return path
 
     return _write
+
+
+@pytest.fixture(scope="session", autouse=True)
+def native_cache(tmp_path_factory):
+    """Compiled native steps of this session in a folder of its own (child processes inherit it),
+    never the user's cache."""
+    import os
+
+    folder = tmp_path_factory.mktemp("native_cache")
+    previous = os.environ.get("LINZ_ROS_CACHE")
+    os.environ["LINZ_ROS_CACHE"] = str(folder)
+    yield folder
+    if previous is None:
+        os.environ.pop("LINZ_ROS_CACHE", None)
+    else:
+        os.environ["LINZ_ROS_CACHE"] = previous

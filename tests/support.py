@@ -84,3 +84,14 @@ def pendulum_chain_text(n: int, envelope: bool = True, rate: float | None = None
     if envelope:
         lines.append("envelope: {" + ", ".join(f"th{i}: [-1, 1]" for i in range(1, n + 1)) + "}")
     return "\n".join(lines) + "\n"
+
+
+def c_words_not_ours(source: str) -> set:
+    """Identifiers in emitted C that are neither C's own words, our slot names, nor whitelisted functions."""
+    import re
+
+    allowed = re.compile(r"(a\d+_\d+|t\d+|h\d+|v\d+|v|out|const|double|void|static|inline|return|if|include|math|h|"
+                         r"linz_sign|linz_law|linz_dynamics|isgreater|isless|sin|cos|tan|asin|acos|atan|atan2|sinh|"
+                         r"cosh|tanh|exp|log|sqrt|fabs|pow|e)")
+    without_numbers = re.sub(r"\b\d+(\.\d*)?(e[-+]?\d+)?\b", " ", source)
+    return {word for word in re.findall(r"[A-Za-z_][A-Za-z0-9_]*", without_numbers) if not allowed.fullmatch(word)}

@@ -9,10 +9,11 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from support import BUNDLED
+from support import BUNDLED, c_words_not_ours
 from linz_ros.artifact import Artifact, artifact_from_text, load_artifact, seal
 from linz_ros.artifact.document import canonical_text
 from linz_ros.errors import ArtifactError
+from linz_ros.runtime.native._build import program_source
 
 SOURCE = "<fuzz>"
 HEADER = ("format", "format_version", "sha256")
@@ -205,6 +206,10 @@ def test_a_resealed_random_expression_compiles_or_names_the_program(built, data,
     _assert_clean(outcome)
     if isinstance(outcome, ArtifactError):
         assert path[1] in outcome.problem or path[1] in outcome.source
+    else:
+        # the native step is written from the same parse trees, with nothing of the text but numbers
+        for program, symbol in (("law", "linz_law"), ("dynamics", "linz_dynamics")):
+            assert not c_words_not_ours(program_source(outcome, program, symbol))
 
 
 @_settings(40)

@@ -2,6 +2,7 @@
 
 import json
 import os
+import re
 import subprocess
 import sys
 import time
@@ -168,6 +169,19 @@ def test_sim_from_a_plant_file_with_overrides_plots_and_keeps_its_artifact(capsy
     assert json.loads((tmp_path / "summary.json").read_text())["mismatch_percent"] == {"J_cam": 20.0}
 
 
+def test_sim_says_which_backend_ran_and_how_fast_and_both_give_the_same_run(capsys, tmp_path):
+    runs = {}
+    for backend in ("native", "python"):
+        code, out, err = _run(capsys, "sim", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path / backend),
+                              "--duration", "0.5", "--no-plots", "--backend", backend)
+        assert code == 0
+        assert re.search(rf"  {backend} control step, {backend} plant: [0-9,]+ simulated steps per second here", out)
+        summary = json.loads((tmp_path / backend / "summary.json").read_text())
+        assert summary["backend"] == {"step": backend, "plant": backend} and summary["steps_per_second"] > 0
+        runs[backend] = np.loadtxt(tmp_path / backend / "run.csv", delimiter=",", skiprows=1, usecols=range(1, 21))
+    np.testing.assert_allclose(runs["native"], runs["python"], rtol=1e-12, atol=1e-12)
+
+
 def test_sim_shows_the_design_warnings_and_keeps_them_in_its_summary(capsys, tmp_path):
     # poles at |p| T = 0.6 (250 Hz): the design warns, and a run of it must say so too
     code, out, err = _run(capsys, "sim", str(BUNDLED / "mast_camera.yaml"), "-o", str(tmp_path), "--duration", "0.2",
@@ -194,6 +208,7 @@ def test_sim_shows_the_design_warnings_and_keeps_them_in_its_summary(capsys, tmp
     (["--delay", "1e308"], "--delay: 1e+308 s is longer than the run (5 s)"),
     (["--duration", "1e9"], "--duration: 1e+09 s at 250 Hz is more than 10,000,000 control steps"),
     (["--reference", "smooth:amplitude=0.1,duration=1e308"], "reference duration: expected at most 1e+06 s"),
+    (["--backend", "gpu"], "--backend: expected one of native, python, got 'gpu'"),
 ])
 def test_sim_refuses_bad_options_with_one_line(capsys, tmp_path, argv, words):
     try:

@@ -304,3 +304,18 @@ def test_diagnostics_carry_the_windows_level_summary_and_key_values_as_ros_messa
     values = {kv.key: kv.value for kv in second.values}
     assert values["mode_nominal"] == "1" and values["field_log"] == "not recording"
     assert node.window.steps == 0                                 # a new window after each message
+
+
+def test_the_backend_parameter_chooses_the_step_and_a_wrong_one_is_refused_at_configure(make):
+    from lifecycle_msgs.msg import State
+
+    native = make()
+    native.trigger_configure()
+    assert native.configure_error == "" and native.core.backend == "native"
+    python = make(backend="python")
+    python.trigger_configure()
+    assert python.configure_error == "" and python.core.backend == "python"
+    wrong = make(backend="gpu")
+    wrong.trigger_configure()
+    assert wrong._state_machine.current_state[0] == State.PRIMARY_STATE_UNCONFIGURED
+    assert wrong.configure_error == "backend: expected one of native, python, got 'gpu'"

@@ -84,6 +84,12 @@ def test_bad_parameters_are_one_line_config_errors(make):
         make(mismatch="['mass=5']")
     with pytest.raises(ConfigError, match="noise"):
         make(noise="[1.0, 2.0]")
+    with pytest.raises(ConfigError, match="backend: expected one of native, python, got 'gpu'"):
+        make(backend="gpu")
+
+
+def test_the_backend_parameter_chooses_the_plant(make):
+    assert make().plant.backend == "native" and make(backend="python").plant.backend == "python"
 
 
 def _stamp(message):

@@ -22,6 +22,7 @@ Public names
 ------------
 Program            a compiled program: call it with argument vectors, get a flat tuple
 compile_program    build a Program from declarations, temporaries and outputs
+c_source           the same program as C source, for the native control step
 """
 
 from __future__ import annotations
@@ -30,18 +31,19 @@ import math
 import re
 from dataclasses import dataclass
 from functools import partial
-from typing import Callable, Sequence
+from typing import Any, Callable, Sequence
 
 import numpy as np
 
 from linz_ros.artifact import taylor
+from linz_ros.artifact._c_backend import CEmitter
 from linz_ros.artifact._jet2 import Jet2Emitter, run_phases
 from linz_ros.artifact._taylor_backend import TaylorEmitter
 from linz_ros.artifact._tokens import MATH_FUNCTIONS, MAX_NESTING, integer_exponent, leaf_text, sign
 from linz_ros.artifact.grammar import CONSTANTS, Node, fold, parse_expression
 from linz_ros.errors import ArtifactError, ExpressionSyntaxError
 
-__all__ = ["Program", "compile_program", "OutputSlot"]
+__all__ = ["Program", "compile_program", "c_source", "OutputSlot"]
 
 _NUMPY_FUNCTIONS = {
     "sin": "_n.sin", "cos": "_n.cos", "tan": "_n.tan", "asin": "_n.arcsin", "acos": "_n.arccos",
@@ -266,6 +268,30 @@ def compile_program(name: str, arguments: Sequence[tuple[str, Sequence[str]]],
     local: dict[str, str] = {}
     emitter = (Jet2Emitter(local) if backend == "jet2" else TaylorEmitter(local) if backend == "taylor"
                else _PlainEmitter(local, backend))
+    argument_names, declared, results, slots_out = _walk(name, arguments, temporaries, outputs, local, emitter)
+    source = emitter.source(argument_names, results)
+    namespace = {"_m": math, "_n": np, "_t": taylor, "_abs": abs, "_sign": sign, "__builtins__": {}}
+    try:
+        code = compile(source, f"<{name}>", "exec")
+    except (SyntaxError, RecursionError, MemoryError) as err:
+        raise ArtifactError(name, f"expressions too large or too deeply nested to compile ({type(err).__name__})") \
+            from None
+    exec(code, namespace)  # noqa: S102 - source emitted above from whitelisted tree nodes only
+    if backend == "jet2":
+        phases = namespace["_phases"]
+        return Program(name, tuple(declared), slots_out, partial(run_phases, phases), source, backend, phases)
+    return Program(name, tuple(declared), slots_out, namespace["_program"], source, backend)
+
+
+def _walk(name: str, arguments: Sequence[tuple[str, Sequence[str]]], temporaries: Sequence[tuple[str, str]],
+          outputs: Sequence[tuple[str, Sequence[int], Sequence[str]]], local: dict[str, str], emitter: Any
+          ) -> tuple[list[str], list[tuple[str, tuple[str, ...]]], list, dict[str, OutputSlot]]:
+    """Declare the arguments, parse every temporary and output and hand each tree to ``emitter``.
+
+    The one front end of every backend: names checked against the declarations, text parsed
+    by the grammar, nothing of the file's text passed on but through the emitter's own tokens.
+    Returns the argument vectors' names, their declarations, the emitted outputs and the layout.
+    """
     argument_names = []
     declared: list[tuple[str, tuple[str, ...]]] = []
     for index, (vector, names) in enumerate(arguments):
@@ -297,18 +323,45 @@ def compile_program(name: str, arguments: Sequence[tuple[str, Sequence[str]]],
             results.append(emitter.output(_parse(text, where), where))
         slots_out[out_name] = OutputSlot(out_name, shape, offset)
         offset += expected
-    source = emitter.source(argument_names, results)
-    namespace = {"_m": math, "_n": np, "_t": taylor, "_abs": abs, "_sign": sign, "__builtins__": {}}
-    try:
-        code = compile(source, f"<{name}>", "exec")
-    except (SyntaxError, RecursionError, MemoryError) as err:
-        raise ArtifactError(name, f"expressions too large or too deeply nested to compile ({type(err).__name__})") \
-            from None
-    exec(code, namespace)  # noqa: S102 - source emitted above from whitelisted tree nodes only
-    if backend == "jet2":
-        phases = namespace["_phases"]
-        return Program(name, tuple(declared), slots_out, partial(run_phases, phases), source, backend, phases)
-    return Program(name, tuple(declared), slots_out, namespace["_program"], source, backend)
+    return argument_names, declared, results, slots_out
+
+
+def c_source(name: str, arguments: Sequence[tuple[str, Sequence[str]]], temporaries: Sequence[tuple[str, str]],
+             outputs: Sequence[tuple[str, Sequence[int], Sequence[str]]], symbol: str
+             ) -> tuple[str, dict[str, OutputSlot]]:
+    """C source of a program: ``void symbol(const double *v0, ..., double *out)``.
+
+    Emitted, like every backend, from the parsed and checked trees only
+    (:mod:`linz_ros.artifact._c_backend`); the caller compiles it. Domain errors do not
+    raise in C: they set the floating-point exception flags, which the caller tests.
+
+    Parameters
+    ----------
+    name : str
+        For messages.
+    arguments, temporaries, outputs
+        As for :func:`compile_program`.
+    symbol : str
+        The C function's name (a plain identifier).
+
+    Returns
+    -------
+    source : str
+    slots : dict of str -> OutputSlot
+        Layout of ``out``.
+
+    Examples
+    --------
+    >>> text, slots = c_source("demo", [("x", ["a"])], [], [("y", [1], ["a**2"])], "demo")
+    >>> "out[0] = pow(a0_0, 2.0);" in text, slots["y"].offset
+    (True, 0)
+    """
+    if not _NAME.fullmatch(symbol):
+        raise ValueError(f"{symbol!r} is not a C identifier")
+    local: dict[str, str] = {}
+    emitter = CEmitter(local)
+    argument_names, _, results, slots_out = _walk(name, arguments, temporaries, outputs, local, emitter)
+    return emitter.source(symbol, argument_names, results), slots_out
 
 
 def _parse(text: str, where: str) -> Node:

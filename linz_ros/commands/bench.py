@@ -12,7 +12,7 @@ __all__ = ["bench", "render_bench"]
 
 
 def bench(source: str, calls: int = 2000, rounds: int = 7, allow_plant_change: bool = False,
-          trusted_keys: Sequence[str] = ()):
+          trusted_keys: Sequence[str] = (), backend: str = "native"):
     """Time the step of an artifact (or of a plant file's law, built in memory).
 
     Every reference is made from the artifact's own law program; the Pinocchio reference of
@@ -28,6 +28,8 @@ def bench(source: str, calls: int = 2000, rounds: int = 7, allow_plant_change: b
     allow_plant_change : bool
         Accept an artifact whose plant file changed (the Pinocchio reference is then left out).
     trusted_keys : sequence of str
+    backend : {"native", "python"}
+        Of the step timed as ``core``.
 
     Returns
     -------
@@ -44,7 +46,7 @@ def bench(source: str, calls: int = 2000, rounds: int = 7, allow_plant_change: b
     if plant is None and loaded.artifact.computed_torque:
         plant, note = plant_behind(loaded.artifact)
         notes.append(note)
-    return run_bench(loaded.artifact, plant, calls=calls, rounds=rounds, notes=notes)
+    return run_bench(loaded.artifact, plant, calls=calls, rounds=rounds, notes=notes, backend=backend)
 
 
 def render_bench(result, as_json: bool = False) -> str:

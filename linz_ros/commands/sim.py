@@ -37,6 +37,8 @@ class SimRequest:
     force_initial : bool
         Accept an initial state outside the envelope.
     integrator : {"rk4", "scipy"}
+    backend : {"native", "python"}
+        Of the control step and the plant.
     substeps, seed : int
     plots : bool
     progress : bool
@@ -60,6 +62,7 @@ class SimRequest:
     force_initial: bool = False
     watchdog: list[str] = field(default_factory=list)
     integrator: str = "rk4"
+    backend: str = "native"
     substeps: int = 4
     seed: int = 1
     plots: bool = True
@@ -153,7 +156,8 @@ def _settings(artifact: Any, request: SimRequest):
         initial=x0,
         plant_parameters=mismatched_parameters(artifact, parse_assignments(request.mismatch, "--mismatch")),
         noise=noise_levels(artifact, request.noise), delay=request.delay, substeps=request.substeps,
-        integrator=request.integrator, seed=request.seed, config=watchdog_overrides(artifact, request.watchdog))
+        integrator=request.integrator, seed=request.seed, config=watchdog_overrides(artifact, request.watchdog),
+        backend=request.backend)
 
 
 def _simulate(artifact: Any, settings: Any, request: SimRequest, progress: Callable[[float], None]):
@@ -261,6 +265,9 @@ def render_sim(summary: dict[str, Any], as_json: bool = False, title: str = "sim
     ct = summary["compute_time_us"]
     if ct:
         lines.append(f"  step compute time: p50 {ct['p50']:.1f} us, p99 {ct['p99']:.1f} us")
+    backend, speed = summary["backend"], summary["steps_per_second"]
+    lines.append(f"  {backend['step']} control step, {backend['plant']} plant: "
+                 + (f"{speed:,.0f} simulated steps per second here" if speed else "no steps timed"))
     lines.extend(f"  note: {note}" for note in summary["notes"])
     lines.append("wrote " + ", ".join(summary["files"]))
     return "\n".join(lines)

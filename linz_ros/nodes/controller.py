@@ -30,7 +30,8 @@ from linz_ros.errors import LinzError
 from linz_ros.nodes._common import EXECUTORS, SAFETY_NOTICE, control_qos, declare, entry_point
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, labelled_array,
                                      message_class, set_stamp, stamp_seconds)
-from linz_ros.runtime import ControllerCore, WatchdogConfig
+from linz_ros.runtime import WatchdogConfig
+from linz_ros.runtime.native import AnyCore, make_core
 from linz_ros.runtime.controller_settings import (DYNAMIC, controller_parameters, field_log_settings,
                                                   no_state_timeout, parameter_problem, watchdog_overrides)
 from linz_ros.runtime.diagnostics import DiagnosticWindow, field_log_report
@@ -59,7 +60,7 @@ class ControllerNode(LifecycleNode):
         self.get_logger().warning(SAFETY_NOTICE)
         self._declare_parameters()
         self._system_time = False          # True once configured without simulated time (see _configure)
-        self.core: ControllerCore | None = None
+        self.core: AnyCore | None = None
         self.active = False
         self.configure_error = ""
         self._owned_subscriptions: list[Any] = []
@@ -150,7 +151,8 @@ class ControllerNode(LifecycleNode):
         self.configure_error = ""
         a = self.core.artifact
         self.get_logger().info(f"configured: {a.name} ({a.kind}, relative degree {a.relative_degree}, "
-                               f"{a.rate:g} Hz design rate), plant file {a.plant_check}, signature {a.signature_check}")
+                               f"{a.rate:g} Hz design rate), plant file {a.plant_check}, signature {a.signature_check}, "
+                               f"{self.core.backend} step")
         return TransitionCallbackReturn.SUCCESS
 
     def _configure(self) -> None:
@@ -160,7 +162,9 @@ class ControllerNode(LifecycleNode):
         artifact = load_artifact(p["artifact"], plant_path=p["plant_file"] or None,
                                  allow_plant_change=p["allow_plant_change"],
                                  trusted_keys=[k for k in p["trusted_keys"] if k] or None)
-        core = ControllerCore(artifact, self._config(artifact, p))
+        core, note = make_core(artifact, self._config(artifact, p), backend=p["backend"])
+        if note is not None:
+            self.get_logger().warning(note)
         message_class(p["state_type"], STATE_TYPES, "state_type")
         message_class(p["command_type"], COMMAND_TYPES, "command_type")
         self.state_map = FieldMap(p["state_type"], [f for f in p["state_fields"] if f], len(artifact.states),

@@ -31,7 +31,8 @@ from linz_ros.errors import ConfigError
 from linz_ros.nodes._common import RCLError, control_qos, declare, entry_point
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, message_class,
                                      set_stamp, split_seconds)
-from linz_ros.runtime import NumericPlant, mismatched_parameters, parse_assignments
+from linz_ros.runtime import mismatched_parameters, parse_assignments
+from linz_ros.runtime.native import BACKENDS, make_plant
 from rclpy.node import Node
 
 __all__ = ["PlantSimulatorNode", "main"]
@@ -61,7 +62,9 @@ class PlantSimulatorNode(Node):
         self.artifact = artifact
         n, m = len(artifact.states), len(artifact.inputs)
         params = mismatched_parameters(artifact, parse_assignments([s for s in p["mismatch"] if s], "mismatch"))
-        self.plant = NumericPlant(artifact, params)
+        self.plant, note = make_plant(artifact, params, backend=p["backend"])
+        if note is not None:
+            self.get_logger().warning(note)
         initial = [v for v in p["initial_state"]]
         if initial and len(initial) != n:
             raise ConfigError("initial_state", f"expected {n} values ({', '.join(artifact.states)}) or none")
@@ -110,7 +113,7 @@ class PlantSimulatorNode(Node):
         gc.collect()
         gc.freeze()
         self.get_logger().info(f"simulating {artifact.name} at {p['rate']:g} Hz "
-                               f"({p['substeps']} RK4 steps a period)"
+                               f"({p['substeps']} RK4 steps a period, {self.plant.backend} plant)"
                                + (f", mismatch {', '.join(s for s in p['mismatch'] if s)}" if any(p["mismatch"]) else ""))
 
     def _declare_parameters(self) -> dict[str, Any]:
@@ -148,6 +151,8 @@ class PlantSimulatorNode(Node):
         p["lockstep_timeout"] = declare(self, "lockstep_timeout", 1.0, "wall seconds to wait for a command in "
                                         "lockstep before advancing without one", True, 0.001, 60.0)
         p["seed"] = declare(self, "seed", 1, "random seed of the faults", True)
+        p["backend"] = declare(self, "backend", BACKENDS[0], f"the plant's integrator: {' or '.join(BACKENDS)} "
+                               "(native: compiled C, Python with a warning where it cannot be built here)", True)
         p["brake_until_command"] = declare(self, "brake_until_command", True, "hold the plant still until the "
                                            "first command arrives (a brake released by the controller)", True)
         p["clock_jump_at"] = declare(self, "clock_jump_at", -1.0, "at this time (s from the start) move the "

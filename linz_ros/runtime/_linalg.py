@@ -187,9 +187,12 @@ def damped_solve(a: Sequence[float], rhs: Sequence[float], m: int, damping: floa
         w1 = (m22 * rhs[0] - m12 * rhs[1]) / det
         w2 = (m11 * rhs[1] - m12 * rhs[0]) / det
         return [p * w1 + r * w2, q * w1 + s * w2]
-    A = np.asarray(a, dtype=float).reshape(m, m)
-    w = np.linalg.solve(A @ A.T + lam2 * np.eye(m), np.asarray(rhs, dtype=float))
-    return (A.T @ w).tolist()
+    # above 2 x 2, as the least-squares problem min |[A; lambda I] u - [rhs; 0]| (LAPACK's SVD-based
+    # solver): its condition number is the square root of that of A A^T + lambda^2 I, so two
+    # implementations (this one and the native step's Householder QR) agree to eps * cond
+    stacked = np.vstack([np.asarray(a, dtype=float).reshape(m, m), damping * np.eye(m)])
+    target = np.concatenate([np.asarray(rhs, dtype=float), np.zeros(m)])
+    return np.linalg.lstsq(stacked, target, rcond=None)[0].tolist()
 
 
 def spd_solve(a: Sequence[float], columns: Sequence[Sequence[float]], n: int) -> list[list[float]]:

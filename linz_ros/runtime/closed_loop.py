@@ -19,6 +19,7 @@ import numpy as np
 from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime.core import ControllerCore
+from linz_ros.runtime.native import BACKENDS, make_core, make_plant
 from linz_ros.runtime.plant import IntegrationBudgetError, NumericPlant
 from linz_ros.runtime.reference import Reference, make_reference
 from linz_ros.runtime.steprecord import (ACTED_MODES, ALARMS, MODES, alarms_from_reasons, decode, encode,
@@ -57,6 +58,9 @@ class SimSettings:
     config : WatchdogConfig, optional
     seed : int
         Of the noise.
+    backend : {"native", "python"}
+        Of the control step and the plant (:mod:`linz_ros.runtime.native`); ``native`` falls
+        back to Python with a note where it cannot be built.
     """
 
     duration: float = 5.0
@@ -69,6 +73,7 @@ class SimSettings:
     integrator: str = "rk4"
     config: WatchdogConfig | None = None
     seed: int = 1
+    backend: str = "native"
 
 
 @dataclass
@@ -100,6 +105,8 @@ class SimResult:
     config: WatchdogConfig | None = None
     damping: np.ndarray | None = None
     warn: np.ndarray | None = None
+    backend: tuple[str, str] = ("python", "python")
+    wall_seconds: float = 0.0
 
     @property
     def period(self) -> float:
@@ -166,6 +173,9 @@ class SimResult:
             "non_finite_at": self.diverged_at,
             "alarm_steps": {name: int(np.count_nonzero(self.alarm_mask() >> bit & 1))
                             for bit, name in enumerate(ALARMS)},
+            "backend": {"step": self.backend[0], "plant": self.backend[1]},
+            # wall-clock speed of this run on this machine: reported, never judged
+            "steps_per_second": (float(len(self.t) / self.wall_seconds) if self.wall_seconds > 0 else None),
             "notes": list(self.notes),
         }
 
@@ -254,6 +264,8 @@ def _check_settings(artifact: Artifact, settings: SimSettings) -> None:
     if settings.duration * artifact.rate > MAX_SIM_STEPS:
         raise ConfigError("--duration", f"{settings.duration:g} s at {artifact.rate:g} Hz is more than "
                                         f"{MAX_SIM_STEPS:,} control steps; run it in parts")
+    if settings.backend not in BACKENDS:
+        raise ConfigError("--backend", f"expected one of {', '.join(BACKENDS)}, got {settings.backend!r}")
     if settings.integrator not in INTEGRATORS:
         raise ConfigError("--integrator", f"expected one of {', '.join(INTEGRATORS)}, got {settings.integrator!r}")
     if not (isinstance(settings.substeps, int) and 1 <= settings.substeps <= MAX_SUBSTEPS):
@@ -298,8 +310,8 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     """
     settings = settings or SimSettings()
     _check_settings(artifact, settings)
-    core = ControllerCore(artifact, settings.config)
-    plant = NumericPlant(artifact, settings.plant_parameters)
+    core, core_note = make_core(artifact, settings.config, backend=settings.backend)
+    plant, plant_note = make_plant(artifact, settings.plant_parameters, backend=settings.backend)
     x = [float(v) for v in (settings.initial if settings.initial is not None else artifact.operating_point)]
     reference = settings.reference
     if reference is None:
@@ -325,6 +337,7 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     budget_note = None
     log_start = time.time_ns()
     ref_offsets = [sum(r + 1 for r in core.orders[:i]) for i in range(len(core.orders))]
+    started = time.perf_counter()
     for k in range(steps):
         t = k * T
         measured = list(x) if noise is None else (np.asarray(x) + rng.normal(0.0, noise)).tolist()
@@ -355,6 +368,7 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
         if not all(math.isfinite(v) for v in x):
             diverged_at = (k + 1) * T
             break
+    wall_seconds = time.perf_counter() - started
     if progress is not None:
         progress(1.0)
     fields = decode(rows, record_labels(artifact, states=True)).result_fields(artifact.relative_degree,
@@ -365,6 +379,8 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
         result.ref_state = _reference_states(artifact, result.ref)
     _note_alarms(result)
     _note_slow_steps(result)
+    result.backend, result.wall_seconds = (core.backend, plant.backend), wall_seconds
+    result.notes.extend(note for note in (core_note, plant_note) if note is not None)
     if budget_note is not None:
         result.notes.append(budget_note)
     elif diverged_at is not None:

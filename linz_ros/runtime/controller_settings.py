@@ -20,6 +20,7 @@ from linz_ros.artifact import MAX_WATCHDOG_SECONDS, WATCHDOG_SETTINGS, watchdog_
 from linz_ros.artifact.watchdog import RUNTIME_SETTINGS, setting_problem
 from linz_ros.artifact.watchdog import setting as watchdog_setting
 from linz_ros.runtime.fieldlog import FieldLogSettings
+from linz_ros.runtime.native import BACKENDS
 
 __all__ = ["ParameterSpec", "controller_parameters", "table_override", "parameter_problem", "watchdog_overrides",
            "no_state_timeout", "field_log_settings", "UNSET", "DYNAMIC", "TABLE_PARAMETERS", "SIM_TIME_FUTURE_TOLERANCE",
@@ -104,6 +105,8 @@ def controller_parameters(state_types: Sequence[str], command_types: Sequence[st
         P("conditioning_topic", "~/conditioning", "per-step record topic"),
         P("diagnostics_period", 1.0, "seconds between diagnostics", minimum=0.01, maximum=60.0),
         P("autostart", False, "configure and activate at start-up"),
+        P("backend", BACKENDS[0], f"the control step: {' or '.join(BACKENDS)} (native: compiled C, the Python core "
+          "with a warning where it cannot be built here)"),
         P("executor", "single_threaded", f"one of {', '.join(executors)}"),
     ]
     specs += [_table_parameter(row) for row in TABLE_PARAMETERS]

@@ -50,6 +50,33 @@ def _all_finite(values: Sequence[float]) -> bool:
     return _isfinite(sum(values)) or all(map(_isfinite, values))
 
 
+def stamps(t: Any, now: Any) -> tuple[float, float] | None:
+    """The state's stamp and the current time as finite floats (``now`` defaults to ``t``), or None.
+
+    The one conversion of a step's times, for both backends: None means the step is refused
+    as ``bad_time``.
+    """
+    try:
+        t = float(t)
+        now = t if now is None else float(now)
+    except (TypeError, ValueError, OverflowError):
+        return None
+    return (t, now) if _isfinite(t) and _isfinite(now) else None
+
+
+def refusal_stamps(t: Any, now: Any) -> tuple[float, float | None]:
+    """The stamp a refused step records (nan when ``t`` is no number) and the time it holds against."""
+    try:
+        stamp = float(t)
+    except (TypeError, ValueError, OverflowError):
+        stamp = math.nan
+    try:
+        current = None if now is None else float(now)
+    except (TypeError, ValueError, OverflowError):
+        current = None
+    return stamp, current
+
+
 def _straight_line_outer_loop(layout: list[tuple], b_offset: int | None = None) -> Callable:
     """The outer loop of :meth:`ControllerCore._outer_loop` as one function without loops.
 
@@ -108,6 +135,9 @@ class ControllerCore:
     >>> round(u[0], 6), record.mode, record.reason
     (-0.500167, 'nominal', 'ok')
     """
+
+    #: Which implementation steps (:data:`linz_ros.runtime.native.BACKENDS`).
+    backend = "python"
 
     def __init__(self, artifact: Artifact, config: WatchdogConfig | None = None,
                  parameters: Sequence[float] | None = None) -> None:
@@ -264,13 +294,10 @@ class ControllerCore:
         """
         start = time.perf_counter()
         config = self.config
-        try:
-            t = float(t)
-            now = t if now is None else float(now)
-        except (TypeError, ValueError, OverflowError):
+        times = stamps(t, now)
+        if times is None:
             return self._refuse("bad_time", t, start, now)
-        if not (_isfinite(t) and _isfinite(now)):
-            return self._refuse("bad_time", t, start, now)
+        t, now = times
         try:
             if len(x) != self.n:
                 return self._refuse("wrong_length", t, start, now)
@@ -480,12 +507,5 @@ class ControllerCore:
         return u, record
 
     def _refuse(self, reason: str, t: Any, start: float, now: Any = None) -> tuple[list[float], StepRecord]:
-        try:
-            stamp = float(t)
-        except (TypeError, ValueError, OverflowError):
-            stamp = math.nan
-        try:
-            current = None if now is None else float(now)
-        except (TypeError, ValueError, OverflowError):
-            current = None
+        stamp, current = refusal_stamps(t, now)
         return self._safe(reason, stamp, start, now=current)

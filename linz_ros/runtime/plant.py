@@ -114,6 +114,9 @@ class NumericPlant:
         The plant's parameters (nominal by default).
     """
 
+    #: Which implementation integrates (:data:`linz_ros.runtime.native.BACKENDS`).
+    backend = "python"
+
     def __init__(self, artifact: Artifact, parameters: Sequence[float] | None = None) -> None:
         self.artifact = artifact
         self.n = len(artifact.states)

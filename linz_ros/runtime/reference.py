@@ -80,6 +80,7 @@ class Reference:
     period: float = 2.0
     duration: float = 2.0
     _poly: list[np.ndarray] = field(default_factory=list, repr=False)
+    _horner: list[list[float]] = field(default_factory=list, repr=False)
 
     def __post_init__(self) -> None:
         if self.kind == "smooth":
@@ -88,6 +89,9 @@ class Reference:
             for _ in range(max(self.orders)):
                 c = self._poly[-1]
                 self._poly.append(c[1:] * np.arange(1, len(c)))
+            # highest power first, as floats: Horner's rule in plain Python, the arithmetic of
+            # numpy.polyval (y = y * s + c from y = 0) without its per-call cost
+            self._horner = [[float(v) for v in c[::-1]] for c in self._poly]
 
     @property
     def size(self) -> int:
@@ -128,8 +132,10 @@ class Reference:
         for j in range(r + 1):
             if tau >= self.duration and j > 0:
                 break
-            c = self._poly[j]
-            values[j] += amp * float(np.polyval(c[::-1], s)) / self.duration ** j
+            y = 0.0
+            for coefficient in self._horner[j]:
+                y = y * s + coefficient
+            values[j] += amp * y / self.duration ** j
         return values
 
 

@@ -1,0 +1,94 @@
+"""The ``c`` emitter of the grammar compiler: a program as one C function (numpy only, no compiling here).
+
+Like the Python backends, the text is written from the parse tree with tokens of our own:
+slot names (``a0_3``, ``t12``, ``h4``), numbers re-printed from ``float`` (``repr``
+round-trips, and C's ``strtod`` rounds correctly), fully parenthesised operators that keep
+the tree's association, and calls of the whitelisted functions of ``<math.h>``. Nothing of
+the artifact's text reaches the C compiler.
+
+Each operation is the IEEE operation CPython performs for the ``math`` backend (``a ** k``
+is C's ``pow`` in both, ``math.sin`` is the C library's ``sin``), so with
+``-ffp-contract=off`` and without fast-math the results are equal. Where CPython raises
+(a zero divisor, ``math.log(0)``, ``math.exp(1000)``) C sets the divide-by-zero, invalid
+or overflow flag instead; the native step tests those flags after the call.
+"""
+
+from __future__ import annotations
+
+from typing import Sequence
+
+from linz_ros.artifact._tokens import MAX_NESTING, integer_exponent, leaf_text
+from linz_ros.artifact.grammar import Node, fold
+
+__all__ = ["CEmitter", "C_PRELUDE"]
+
+_C_FUNCTIONS = {
+    "sin": "sin", "cos": "cos", "tan": "tan", "asin": "asin", "acos": "acos", "atan": "atan",
+    "atan2": "atan2", "sinh": "sinh", "cosh": "cosh", "tanh": "tanh", "exp": "exp", "log": "log",
+    "sqrt": "sqrt", "abs": "fabs", "sign": "linz_sign",
+}
+_OPERATORS = {"add": "+", "sub": "-", "mul": "*", "div": "/"}
+
+#: What every emitted program starts with: the grammar's sign (0 at 0, nan stays nan), with
+#: quiet comparisons so a nan raises no invalid flag of its own.
+C_PRELUDE = """#include <math.h>
+
+static inline double linz_sign(double v) {
+    if (isgreater(v, 0.0)) return 1.0;
+    if (isless(v, 0.0)) return -1.0;
+    return v == v ? 0.0 : v;
+}
+"""
+
+
+class CEmitter:
+    """Collects the C statements of one program (the compiler's emitter protocol)."""
+
+    def __init__(self, local: dict[str, str]) -> None:
+        self._local = local
+        self._lines: list[str] = []
+        self._hoisted = 0
+
+    def bind(self, index: int, argument: str, slots: Sequence[str]) -> None:
+        self._lines.extend(f"    const double {s} = {argument}[{k}];" for k, s in enumerate(slots))
+
+    def temporary(self, slot: str, tree: Node, where: str) -> None:
+        self._lines.append(f"    const double {slot} = {self._text(tree, where)};")
+
+    def output(self, tree: Node, where: str) -> str:
+        return self._text(tree, where)
+
+    def source(self, symbol: str, argument_names: Sequence[str], results: Sequence[str]) -> str:
+        """The whole translation unit: the prelude and ``void symbol(const double *v0, ..., double *out)``."""
+        parameters = ", ".join([f"const double *{a}" for a in argument_names] + ["double *out"])
+        stores = [f"    out[{i}] = {text};" for i, text in enumerate(results)]
+        body = "\n".join(self._lines + stores)
+        return f"{C_PRELUDE}\nvoid {symbol}({parameters}) {{\n{body}\n}}\n"
+
+    def _hoist(self, text: str) -> str:
+        self._hoisted += 1
+        slot = f"h{self._hoisted}"
+        self._lines.append(f"    const double {slot} = {text};")
+        return slot
+
+    def _text(self, tree: Node, where: str) -> str:
+        """C text of one tree; subtrees nested deeper than MAX_NESTING get their own local."""
+
+        def leaf(n: Node) -> tuple[str, int]:
+            return leaf_text(n, self._local, where), 1
+
+        def combine(kind: str, n: Node, parts: list[tuple[str, int]]) -> tuple[str, int]:
+            parts = [(self._hoist(p[0]), 1) if p[1] > MAX_NESTING else p for p in parts]
+            depth = 1 + max(p[1] for p in parts)
+            texts = [p[0] for p in parts]
+            if kind == "call":
+                return f"{_C_FUNCTIONS[n[1]]}({', '.join(texts)})", depth
+            if kind == "neg":
+                return f"(-{texts[0]})", depth
+            if kind == "pow":
+                exponent = integer_exponent(n[2])
+                right = f"{float(exponent)!r}" if exponent is not None else texts[1]
+                return f"pow({texts[0]}, {right})", depth
+            return f"({texts[0]} {_OPERATORS[kind]} {texts[1]})", depth
+
+        return fold(tree, leaf, combine)[0]
