@@ -91,7 +91,8 @@ def c_words_not_ours(source: str) -> set:
     import re
 
     allowed = re.compile(r"(a\d+_\d+|t\d+|h\d+|v\d+|v|out|const|double|void|static|inline|return|if|include|math|h|"
-                         r"linz_sign|linz_law|linz_dynamics|isgreater|isless|sin|cos|tan|asin|acos|atan|atan2|sinh|"
+                         r"linz_sign|linz_law|linz_law_jets|linz_dynamics|linz_next_order|between|next|int|order|"
+                         r"outputs|inputs|out[012]|a\d+_\d+_[12]|j\d+|isgreater|isless|sin|cos|tan|asin|acos|atan|atan2|sinh|"
                          r"cosh|tanh|exp|log|sqrt|fabs|pow|e)")
     without_numbers = re.sub(r"\b\d+(\.\d*)?(e[-+]?\d+)?\b", " ", source)
     return {word for word in re.findall(r"[A-Za-z_][A-Za-z0-9_]*", without_numbers) if not allowed.fullmatch(word)}

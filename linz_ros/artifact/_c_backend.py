@@ -15,12 +15,14 @@ or overflow flag instead; the native step tests those flags after the call.
 
 from __future__ import annotations
 
+import re
 from typing import Sequence
 
+from linz_ros.artifact._jet2 import Jet2Emitter, _Value
 from linz_ros.artifact._tokens import MAX_NESTING, integer_exponent, leaf_text
 from linz_ros.artifact.grammar import Node, fold
 
-__all__ = ["CEmitter", "C_PRELUDE"]
+__all__ = ["CEmitter", "CJet2Emitter", "C_PRELUDE"]
 
 _C_FUNCTIONS = {
     "sin": "sin", "cos": "cos", "tan": "tan", "asin": "asin", "acos": "acos", "atan": "atan",
@@ -92,3 +94,56 @@ class CEmitter:
             return f"({texts[0]} {_OPERATORS[kind]} {texts[1]})", depth
 
         return fold(tree, leaf, combine)[0]
+
+
+class CJet2Emitter(Jet2Emitter):
+    """The ``jet2`` emitter's three phases as one C function (the native elastic-joint law).
+
+    The phases, their lines and their rules are :class:`Jet2Emitter`'s; only the spelling
+    changes: each line becomes a ``const double``, the calls of ``math`` their C names, and
+    between two orders the function calls ``linz_next_order`` (fixed code, not emitted),
+    which forms the first argument vector's coefficients of the next order from the
+    outputs so far. Every local lives in one scope, so later orders read earlier ones.
+    """
+
+    def bind(self, index: int, argument: str, slots: Sequence[str]) -> None:
+        self._phases[0].extend(f"    {s} = {argument}[{k}]" for k, s in enumerate(slots))
+        for slot in slots:
+            self._values[slot] = _Value(slot, f"{slot}_1", f"{slot}_2") if index == 0 else _Value(slot)
+        if index == 0:
+            self._inputs = list(slots)
+
+    def _constant(self, kind: str, n: Node, parts: list) -> _Value:
+        if kind == "pow" and integer_exponent(n[2]) is not None:
+            depth = 1 + max(p.depth for p in parts)
+            return _Value(f"pow({parts[0].c0}, {float(integer_exponent(n[2]))!r})", depth=depth)
+        return super()._constant(kind, n, parts)
+
+    def c_source(self, symbol: str, argument_names: Sequence[str], results: Sequence[tuple[str, str, str]]) -> str:
+        """``void symbol(const double *v0, ..., double *out0, double *out1, double *out2, void *between)``."""
+        count = len(self._inputs)
+        parameters = ", ".join([f"const double *{a}" for a in argument_names]
+                               + ["double *out0", "double *out1", "double *out2", "void *between"])
+        lines = [C_PRELUDE, "void linz_next_order(int order, const double *outputs, double *inputs, void *between);",
+                 "", f"void {symbol}({parameters}) {{", f"    double next[{max(1, count)}];"]
+        for order in range(3):
+            if order:
+                lines.append(f"    linz_next_order({order}, out{order - 1}, next, between);")
+                lines.extend(f"    const double {slot}_{order} = next[{k}];" for k, slot in enumerate(self._inputs))
+            lines.extend(_c_line(line) for line in self._phases[order])
+            lines.extend(f"    out{order}[{i}] = {_c_text(r[order])};" for i, r in enumerate(results))
+        lines.append("}")
+        return "\n".join(lines) + "\n"
+
+
+_PYTHON_CALL = re.compile(r"_m\.([a-z0-9]+)\(")
+
+
+def _c_text(text: str) -> str:
+    """The jet2 emitter's own Python spelling in C: ``_m.sin(`` -> ``sin(``, ``_sign(`` and ``_abs(``."""
+    return _PYTHON_CALL.sub(r"\1(", text).replace("_sign(", "linz_sign(").replace("_abs(", "fabs(")
+
+
+def _c_line(line: str) -> str:
+    name, text = line.strip().split(" = ", 1)
+    return f"    const double {name} = {_c_text(text)};"

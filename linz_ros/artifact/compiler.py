@@ -36,7 +36,7 @@ from typing import Any, Callable, Sequence
 import numpy as np
 
 from linz_ros.artifact import taylor
-from linz_ros.artifact._c_backend import CEmitter
+from linz_ros.artifact._c_backend import CEmitter, CJet2Emitter
 from linz_ros.artifact._jet2 import Jet2Emitter, run_phases
 from linz_ros.artifact._taylor_backend import TaylorEmitter
 from linz_ros.artifact._tokens import MATH_FUNCTIONS, MAX_NESTING, integer_exponent, leaf_text, sign
@@ -327,9 +327,12 @@ def _walk(name: str, arguments: Sequence[tuple[str, Sequence[str]]], temporaries
 
 
 def c_source(name: str, arguments: Sequence[tuple[str, Sequence[str]]], temporaries: Sequence[tuple[str, str]],
-             outputs: Sequence[tuple[str, Sequence[int], Sequence[str]]], symbol: str
+             outputs: Sequence[tuple[str, Sequence[int], Sequence[str]]], symbol: str, jets: bool = False
              ) -> tuple[str, dict[str, OutputSlot]]:
     """C source of a program: ``void symbol(const double *v0, ..., double *out)``.
+
+    With ``jets``, the program's ``jet2`` form instead (:class:`~linz_ros.artifact._c_backend.CJet2Emitter`):
+    ``void symbol(const double *v0, ..., double *out0, double *out1, double *out2, void *between)``.
 
     Emitted, like every backend, from the parsed and checked trees only
     (:mod:`linz_ros.artifact._c_backend`); the caller compiles it. Domain errors do not
@@ -359,8 +362,10 @@ def c_source(name: str, arguments: Sequence[tuple[str, Sequence[str]]], temporar
     if not _NAME.fullmatch(symbol):
         raise ValueError(f"{symbol!r} is not a C identifier")
     local: dict[str, str] = {}
-    emitter = CEmitter(local)
+    emitter = CJet2Emitter(local) if jets else CEmitter(local)
     argument_names, _, results, slots_out = _walk(name, arguments, temporaries, outputs, local, emitter)
+    if jets:
+        return emitter.c_source(symbol, argument_names, results), slots_out
     return emitter.source(symbol, argument_names, results), slots_out
 
 

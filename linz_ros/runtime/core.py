@@ -35,6 +35,7 @@ from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime._linalg import (computed_torque, damped_solve, inverse_mass_singular_values, singular_values,
                                       solve, task_space_terms)
+from linz_ros.runtime._stamps import refusal_stamps, stamps
 from linz_ros.runtime.steprecord import ALARMS, StepRecord
 from linz_ros.runtime.watchdogs import DivergenceWatch, WatchdogConfig, outside_check
 
@@ -48,33 +49,6 @@ def _all_finite(values: Sequence[float]) -> bool:
     # nan and +-inf make any float sum non-finite, so a finite sum needs no second look; a sum
     # that overflowed on finite values falls through to the exact check
     return _isfinite(sum(values)) or all(map(_isfinite, values))
-
-
-def stamps(t: Any, now: Any) -> tuple[float, float] | None:
-    """The state's stamp and the current time as finite floats (``now`` defaults to ``t``), or None.
-
-    The one conversion of a step's times, for both backends: None means the step is refused
-    as ``bad_time``.
-    """
-    try:
-        t = float(t)
-        now = t if now is None else float(now)
-    except (TypeError, ValueError, OverflowError):
-        return None
-    return (t, now) if _isfinite(t) and _isfinite(now) else None
-
-
-def refusal_stamps(t: Any, now: Any) -> tuple[float, float | None]:
-    """The stamp a refused step records (nan when ``t`` is no number) and the time it holds against."""
-    try:
-        stamp = float(t)
-    except (TypeError, ValueError, OverflowError):
-        stamp = math.nan
-    try:
-        current = None if now is None else float(now)
-    except (TypeError, ValueError, OverflowError):
-        current = None
-    return stamp, current
 
 
 def _straight_line_outer_loop(layout: list[tuple], b_offset: int | None = None) -> Callable:

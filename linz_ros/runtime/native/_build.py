@@ -37,6 +37,7 @@ HEADER = HERE / "linz_step.h"
 STEP_SOURCE = HERE / "linz_step.c"
 FAST_SOURCE = HERE / "linz_fast.c"
 PLANT_SOURCE = HERE / "linz_plant.c"
+ELASTIC_SOURCE = HERE / "linz_elastic.c"
 LINALG = HERE / "linz_linalg.h"
 #: IEEE arithmetic as CPython does it: no contraction into fused multiply-adds, no fast-math.
 FLAGS = ("-O2", "-std=c99", "-fPIC", "-shared", "-ffp-contract=off", "-fno-fast-math")
@@ -118,8 +119,9 @@ def program_source(artifact: Artifact, program: str, symbol: str) -> str:
     Raises
     ------
     NativeUnavailable
-        For a law the native step does not evaluate (elastic-joint and chain-form laws are
-        assembled from jets at run time).
+        For a law the native step does not evaluate (the chain form's Lie derivatives are
+        Taylor-mode jets of f and h at run time). An elastic-joint law is emitted in its
+        jet2 form (``symbol(x, p, out0, out1, out2, between)``).
     """
     key = (artifact.sha256, program, symbol)
     if key not in _EMITTED:
@@ -132,15 +134,15 @@ _EMITTED: dict[tuple[str, str, str], str] = {}
 
 
 def _emit(artifact: Artifact, program: str, symbol: str) -> str:
-    if program == "law" and artifact.elastic:
-        raise NativeUnavailable("the elastic-joint law is assembled from jets; no native form yet")
     if program == "law" and artifact.law_form == "chain":
         raise NativeUnavailable("the chain-form law is evaluated from jets; no native form yet")
     arguments, temporaries, outputs = artifact.program_text(program)
     if len(arguments) != 2:
         raise NativeUnavailable(f"the {program} program takes {len(arguments)} argument vectors, the native "
                                 "code two (x, p)")
-    return c_source(f"{artifact.source}: {program}", arguments, temporaries, outputs, symbol)[0]
+    # an elastic-joint law runs as its jet2 form, assembled by linz_elastic.c
+    jets = program == "law" and artifact.elastic
+    return c_source(f"{artifact.source}: {program}", arguments, temporaries, outputs, symbol, jets=jets)[0]
 
 
 @dataclass(frozen=True)
@@ -184,10 +186,20 @@ def compiled_step(artifact: Artifact) -> CompiledStep:
     ------
     NativeUnavailable
     """
-    law = program_source(artifact, "law", "linz_law")
     headers = python_headers()
     fixed = [STEP_SOURCE] + ([FAST_SOURCE] if headers is not None else [])
-    return _library(artifact, "linz_step", law, fixed, headers)
+    if artifact.elastic:
+        law = program_source(artifact, "law", "linz_law_jets")
+        return _library(artifact, "linz_step", law, fixed + [ELASTIC_SOURCE], headers, _elastic_defines(artifact))
+    return _library(artifact, "linz_step", program_source(artifact, "law", "linz_law"), fixed, headers)
+
+
+def _elastic_defines(artifact: Artifact) -> list[str]:
+    """Sizes and offsets of an elastic-joint law for linz_elastic.c (artifact/elastic.py's layout)."""
+    law = artifact.programs["law"]
+    offsets = {"M": "M", "F": "F", "K": "stiffness", "J": "motor_inertia", "D": "motor_damping"}
+    return ([f"-DLINZ_NQ={int(artifact.mechanical_coordinates)}", f"-DLINZ_JETS_SIZE={law.size}"]
+            + [f"-DLINZ_OFF_{macro}={law.slots[slot].offset}" for macro, slot in offsets.items()])
 
 
 def compiled_plant(artifact: Artifact) -> CompiledStep:
@@ -210,10 +222,11 @@ def compiled_plant(artifact: Artifact) -> CompiledStep:
                     [PLANT_SOURCE], None)
 
 
-def _library(artifact: Artifact, prefix: str, emitted: str, fixed: list[Path], headers: Path | None) -> CompiledStep:
+def _library(artifact: Artifact, prefix: str, emitted: str, fixed: list[Path], headers: Path | None,
+             defines: list[str] | None = None) -> CompiledStep:
     """Compile ``emitted`` with the ``fixed`` sources into one shared object, cached by the hash of it all."""
     compiler = find_compiler()
-    flags = [*FLAGS, *_defines()]
+    flags = [*FLAGS, *_defines(), *(defines or [])]
     try:
         sources = [p.read_text() for p in (*fixed, HEADER, LINALG)]
     except OSError as err:

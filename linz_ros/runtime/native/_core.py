@@ -17,7 +17,8 @@ from functools import partial
 from typing import Any, Sequence
 
 from linz_ros.artifact.document import Artifact
-from linz_ros.runtime.core import ControllerCore, refusal_stamps, stamps
+from linz_ros.runtime._stamps import refusal_stamps, stamps
+from linz_ros.runtime.core import ControllerCore
 from linz_ros.runtime.native._build import REPORT_FIELDS, codes, compiled_step, load_ffi
 from linz_ros.runtime.steprecord import MODES, REASONS, StepRecord
 from linz_ros.runtime.watchdogs import WatchdogConfig
@@ -87,7 +88,7 @@ class NativeCore:
         n, m, chains = self.n, self.m, len(self.orders)
         self._x, self._ref = self._doubles(n), self._doubles(max(1, self.reference_size))
         ctx.parameters = self._doubles(max(1, len(python.parameters)), python.parameters)
-        ctx.values = self._doubles(max(1, artifact.programs["law"].size))
+        ctx.values = self._doubles(max(1, self._law_size(python)))
         nq = ctx.nq if ctx.nq > 0 else m
         size = max(nq, m) + 1
         ctx.work = self._doubles(4 * m * m + 4 * m + chains + 4 * size * size + 8 * size)
@@ -136,11 +137,17 @@ class NativeCore:
         else:
             self._settings[setting] = array
 
+    @staticmethod
+    def _law_size(python: ControllerCore) -> int:
+        """Entries of the law's values as the core reads them (an elastic law's extended layout included)."""
+        slots = getattr(python._law, "slots", None) or python.artifact.programs["law"].slots
+        return max(slot.offset + slot.size for slot in slots.values())
+
     def _layout(self, python: ControllerCore) -> None:
         """Sizes, the law's form and offsets, and the outer loop's chains, from the Python core."""
         ctx, artifact = self._ctx, self.artifact
         ctx.n, ctx.m, ctx.chains = self.n, self.m, len(self.orders)
-        ctx.law_size = artifact.programs["law"].size
+        ctx.law_size = self._law_size(python)
         ctx.ref_size, ctx.integral = self.reference_size, int(bool(self.integral))
         ctx.period = python._period
         if python._mechanical is None:
