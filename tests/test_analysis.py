@@ -293,7 +293,11 @@ def test_a_parameter_factor_zero_at_the_nominal_values_makes_the_singular_set_ev
     report = analyse(plant_from_text(DECOUPLING_RANK_ONE))           # det A = 1 - a b = 0
     io = report.to_json()["input_output"]
     assert io["reason"] == ("the decoupling matrix has rank 1 < 2 everywhere: the outputs cannot be decoupled "
-                            "by static feedback (dynamic extension may help)")
+                            "by static feedback; no extension with at most 2 integrators per input and 4 in all "
+                            "gives a decoupling matrix of full rank: its rank stays at most 1 < 2 in all 8 "
+                            "candidates because the outputs' highest derivatives see the inputs through at most "
+                            "1 independent combination whatever the delays (as when one output is the rate of "
+                            "another)")
     assert io["singular_set"] == "0" and io["singular_set_everywhere"] is True
     assert io["singular_set_empty"] is False and io["linearizable"] is False
     text = render_text(report)

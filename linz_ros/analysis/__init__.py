@@ -15,9 +15,11 @@ controllability_indices  Kronecker indices from the ranks of D_k
 plant_context         parameters and random envelope points for numeric decisions
 lie_chain             relative degree of one output and its derivatives h, L_f h, ...
 mechanical_terms      numeric M, F, B, J and J M^-1 B of a mechanical plant
+search_dynamic_extension  integrators on inputs that decouple a rank-deficient square plant (bounded)
 """
 
 from linz_ros.analysis._common import plant_context
+from linz_ros.analysis._extension import DynamicExtension, search_dynamic_extension
 from linz_ros.analysis._envelope import EnvelopeResult, envelope_points, output_ranges, sample_envelope
 from linz_ros.analysis._input_output import (InputOutputResult, ZeroDynamics, analyse_input_output,
                                              decoupling_terms, invariant_zeros)
@@ -32,5 +34,5 @@ __all__ = [
     "sample_envelope", "envelope_points", "output_ranges", "invariant_zeros", "controllability_indices", "relative_degree_of",
     "decoupling_terms", "lie_chain", "DistributionInfo", "InputStateResult", "InputOutputResult",
     "ZeroDynamics", "EnvelopeResult", "plant_context", "MechanicalTerms", "mechanical_terms",
-    "DEFAULT_BUDGET_SECONDS",
+    "DEFAULT_BUDGET_SECONDS", "DynamicExtension", "search_dynamic_extension",
 ]

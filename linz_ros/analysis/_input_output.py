@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import partial
 from typing import Any, Callable
 
 import numpy as np
@@ -10,6 +11,7 @@ import scipy.linalg
 import sympy as sp
 
 from linz_ros.analysis._common import count, names_are, show, show_matrix, tidy
+from linz_ros.analysis._extension import DynamicExtension, search_dynamic_extension
 from linz_ros.analysis._input_state import EVERYWHERE, lie_chain, state_factors
 from linz_ros.analysis._numeric import NUMERIC_METHOD, numeric_chains, plant_jets, sampled_generic_rank, sampled_minimum
 from linz_ros.geometry import (SYMBOLIC_TREE_BUDGET, BeyondSymbolicBudget, NumericContext, PlantJets, evaluate,
@@ -62,6 +64,7 @@ class InputOutputResult:
     summary: str = ""            # the reason in a few words, for the verdict line
     method: str = ""             # set when decided from jets (no symbolic chains or decoupling matrix)
     decoupling_values: Callable[[np.ndarray], np.ndarray] | None = None   # K x n points -> K x p x m, from jets
+    dynamic_extension: DynamicExtension | None = None    # square, rank-deficient explicit plants only
 
     @property
     def linearizable(self) -> bool | None:
@@ -72,6 +75,7 @@ class InputOutputResult:
 
     def to_json(self) -> dict[str, Any]:
         extra = {"method": self.method} if self.method else {}
+        extension = {} if self.dynamic_extension is None else {"dynamic_extension": self.dynamic_extension.to_json()}
         return {
             **extra,
             "outputs": self.outputs,
@@ -87,6 +91,7 @@ class InputOutputResult:
             "zero_dynamics_order": self.zero_dynamics_order,
             "zero_dynamics": None if self.zero_dynamics is None else self.zero_dynamics.to_json(),
             "decoupling_structure": self.decoupling_structure,
+            **extension,
         }
 
 
@@ -127,7 +132,8 @@ def decoupling_terms(plant: Plant, ctx: NumericContext, tree_budget: int | None 
     return degrees, A, sp.Matrix(drift), chains
 
 
-def analyse_input_output(plant: Plant, ctx: NumericContext, numeric: bool = False) -> InputOutputResult | None:
+def analyse_input_output(plant: Plant, ctx: NumericContext, numeric: bool = False,
+                         extend: bool = True) -> InputOutputResult | None:
     """Relative degree, decoupling matrix, singular set and zero dynamics of the outputs.
 
     Definitions follow Isidori, Nonlinear Control Systems, sec. 5.1: the vector
@@ -141,6 +147,9 @@ def analyse_input_output(plant: Plant, ctx: NumericContext, numeric: bool = Fals
     numeric : bool
         Decide from jets at once (the plant's expressions are known to exceed the symbolic
         budget); otherwise symbolically, switching to jets when a Lie derivative exceeds it.
+    extend : bool
+        Search for a dynamic extension when the decoupling matrix is square and of deficient
+        generic rank (:func:`search_dynamic_extension`; its candidates are analysed without one).
 
     Returns
     -------
@@ -152,12 +161,14 @@ def analyse_input_output(plant: Plant, ctx: NumericContext, numeric: bool = Fals
         return None
     names = list(plant.output_names)
     jets = plant_jets(plant, ctx)
+    extension = partial(search_dynamic_extension, plant, ctx, partial(analyse_input_output, extend=False)) \
+        if extend else None
     try:
         if numeric and jets is not None:
             raise BeyondSymbolicBudget("the brackets exceed the symbolic budget")
         degrees, A, b, chains = decoupling_terms(plant, ctx, None if jets is None else SYMBOLIC_TREE_BUDGET)
     except BeyondSymbolicBudget:
-        return _numeric_input_output(plant, ctx, jets)
+        return _numeric_input_output(plant, ctx, jets, extension)
     if A is None:
         return _unreached(names, degrees, plant)
     result = InputOutputResult(names, None, degrees, "", decoupling_matrix=A, drift_terms=b, chains=chains)
@@ -166,7 +177,8 @@ def analyse_input_output(plant: Plant, ctx: NumericContext, numeric: bool = Fals
         return result
     result.singular_set, result.singular_set_note = _singular_set(A, plant, ctx)
     ranks = generic_rank(A, ctx).rank, rank_at(A, ctx, plant.operating_vector())
-    return rank_verdict(result, plant, ranks, _DECOUPLING_MATRIX, lambda order: _zero_dynamics(plant, order, ctx))
+    return rank_verdict(result, plant, ranks, _DECOUPLING_MATRIX, lambda order: _zero_dynamics(plant, order, ctx),
+                        extension)
 
 
 #: What the report says of input-output results decided from jets.
@@ -174,7 +186,8 @@ INPUT_OUTPUT_METHOD = (f"{NUMERIC_METHOD}: L_f^k h along the flow and L_g L_f^k 
                        "operating point and the random points (the expressions exceed the symbolic budget)")
 
 
-def _numeric_input_output(plant: Plant, ctx: NumericContext, jets: PlantJets) -> InputOutputResult:
+def _numeric_input_output(plant: Plant, ctx: NumericContext, jets: PlantJets,
+                          extension: Callable[[], DynamicExtension] | None = None) -> InputOutputResult:
     """:func:`analyse_input_output` from jets: no chains and no decoupling matrix are formed."""
     p, m, names = plant.h.shape[0], plant.m, list(plant.output_names)
     chains = numeric_chains(list(plant.h), plant, ctx, jets)
@@ -191,7 +204,8 @@ def _numeric_input_output(plant: Plant, ctx: NumericContext, jets: PlantJets) ->
                                 + sampled_minimum(chains.rows_samples, ctx.samples, plant))
     here = chains.rows_here if chains.finite_here else np.full_like(chains.rows_here, np.nan)
     ranks = sampled_generic_rank(chains.rows_samples).rank, numeric_rank(here)
-    return rank_verdict(result, plant, ranks, _DECOUPLING_MATRIX, lambda order: _zero_dynamics(plant, order, ctx))
+    return rank_verdict(result, plant, ranks, _DECOUPLING_MATRIX, lambda order: _zero_dynamics(plant, order, ctx),
+                        extension)
 
 
 def _unreached(names: list[str], degrees: list[int | None], plant: Plant, method: str = "") -> InputOutputResult:
@@ -219,7 +233,8 @@ _DECOUPLING_MATRIX = MatrixWording("the decoupling matrix", "everywhere", " (dyn
 
 
 def rank_verdict(result: InputOutputResult, plant: Plant, ranks: tuple[int | None, int | None],
-                 wording: MatrixWording, zero_dynamics: Callable[[int], ZeroDynamics]) -> InputOutputResult:
+                 wording: MatrixWording, zero_dynamics: Callable[[int], ZeroDynamics],
+                 extension: Callable[[], DynamicExtension] | None = None) -> InputOutputResult:
     """The verdict on a p x m decoupling matrix (p <= m) from its generic rank and its rank at the
     operating point.
 
@@ -233,6 +248,9 @@ def rank_verdict(result: InputOutputResult, plant: Plant, ranks: tuple[int | Non
     wording : MatrixWording
     zero_dynamics : callable
         Order of the zero dynamics -> their linearization, called when the relative degree is defined.
+    extension : callable or None
+        The dynamic-extension search, run when the matrix is square and of deficient generic
+        rank; its result is attached and its reason replaces the wording's hint.
 
     Returns
     -------
@@ -245,8 +263,12 @@ def rank_verdict(result: InputOutputResult, plant: Plant, ranks: tuple[int | Non
         result.summary = f"{wording.name} is not finite at the operating point"
         return result
     if generic < p:
+        hint = wording.hint
+        if extension is not None and p == plant.m:
+            result.dynamic_extension = extension()
+            hint = f"; {result.dynamic_extension.reason}"
         result.reason = (f"{wording.name} has rank {generic} < {p} {wording.everywhere}: the outputs "
-                         f"cannot be decoupled by static feedback{wording.hint}")
+                         f"cannot be decoupled by static feedback{hint}")
         result.summary = "the decoupling matrix is singular everywhere"
         result.singular_set = EVERYWHERE
         return result

@@ -244,6 +244,8 @@ def render_text(report: Report) -> str:
     if io is not None:
         lines += ["", "INPUT-OUTPUT", f"  {io.reason}",
                   f"  generic relative degree: {io.relative_degree_generic}"]
+        if io.dynamic_extension is not None:
+            lines.append(f"  dynamic extension: {io.dynamic_extension.text_line()}")
         if io.method:
             lines.append(f"  method: {io.method}")
         if io.decoupling_structure is not None:

@@ -122,6 +122,9 @@ class NumericPlant:
         self.n = len(artifact.states)
         self.m = len(artifact.inputs)
         self.parameters = list(artifact.nominal_parameters.tolist() if parameters is None else parameters)
+        if len(self.parameters) != len(artifact.parameter_names):
+            raise ConfigError("parameters", f"expected {len(artifact.parameter_names)} values "
+                                            f"({', '.join(artifact.parameter_names)}), got {len(self.parameters)}")
         self._dynamics = artifact.programs["dynamics"]
         slots = self._dynamics.slots
         self._nq = artifact.mechanical_coordinates

@@ -9,7 +9,6 @@
 from __future__ import annotations
 
 import math
-from collections import deque
 from dataclasses import dataclass, fields, replace
 from typing import Any, Callable, Sequence
 
@@ -371,7 +370,7 @@ class DivergenceWatch:
         self._above_since: float | None = None     # start of the episode above the bound
         self._below_since: float | None = None     # when the error last went back under it, in the episode
         self._first_peak = 0.0                     # largest scaled error in the episode's first half-window
-        self._recent: deque[tuple[float, float]] = deque()   # (t, scaled), decreasing: the sliding maximum
+        self._last_high = -math.inf                # latest time the scaled error reached the first peak
 
     def end_episode(self) -> None:
         """End the episode under way (the law was not in command: its error says nothing of the model)."""
@@ -396,7 +395,7 @@ class DivergenceWatch:
             self._below_since = None
             if self._above_since is None:
                 self._above_since, self._first_peak = t, scaled
-                self._recent.clear()
+                self._last_high = -math.inf
         elif self._above_since is None:
             return False
         elif self._below_since is None:
@@ -407,10 +406,10 @@ class DivergenceWatch:
         elapsed = t - self._above_since
         if elapsed <= 0.5 * span:
             self._first_peak = max(self._first_peak, scaled)
-        recent = self._recent                    # the sliding maximum over the last half-window
-        while recent and recent[-1][1] <= scaled:
-            recent.pop()
-        recent.append((t, scaled))
-        while recent[0][0] <= t - 0.5 * span:
-            recent.popleft()
-        return elapsed >= span and recent[0][1] >= self._first_peak
+        # "the largest s over the last half-window is at least the first peak" is "s reached the
+        # first peak at some time in the last half-window": once the episode has lasted its span
+        # that window lies wholly after the first half, where the first peak no longer changes,
+        # so the latest such time is all there is to keep (constant memory at any rate and span)
+        if elapsed > 0.5 * span and scaled >= self._first_peak:
+            self._last_high = t
+        return elapsed >= span and self._last_high > t - 0.5 * span

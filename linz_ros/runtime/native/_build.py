@@ -30,7 +30,7 @@ from linz_ros.artifact.watchdog import SAFE_KINDS, setting as watchdog_setting
 from linz_ros.runtime.steprecord import MODES, REASONS
 
 __all__ = ["NativeUnavailable", "CompiledStep", "REPORT_FIELDS", "compiled_step", "compiled_plant", "cache_folder", "codes",
-           "load_ffi", "python_headers", "program_source", "HEADER"]
+           "load_ffi", "open_library", "python_headers", "program_source", "HEADER"]
 
 HERE = Path(__file__).resolve().parent
 HEADER = HERE / "linz_step.h"
@@ -95,11 +95,16 @@ def find_compiler() -> str:
     ------
     NativeUnavailable
     """
-    for candidate in (os.environ.get("CC"), "cc", "gcc"):
-        if candidate:
-            found = shutil.which(candidate)
-            if found:
-                return found
+    chosen = os.environ.get("CC")
+    if chosen:                   # asked for by name: that one, or the reason it cannot be used
+        found = shutil.which(chosen)
+        if not found:
+            raise NativeUnavailable(f"CC={chosen!r} is not an executable on PATH")
+        return found
+    for candidate in ("cc", "gcc"):
+        found = shutil.which(candidate)
+        if found:
+            return found
     raise NativeUnavailable("no C compiler found (CC, cc or gcc on PATH)")
 
 
@@ -240,7 +245,7 @@ def _library(artifact: Artifact, prefix: str, emitted: str, fixed: list[Path], h
     suffix = sysconfig.get_config_var("EXT_SUFFIX") or ".so"
     folder = _writable(cache_folder())
     target = folder / f"{module_name}_{artifact.sha256[:12]}{suffix}"
-    if not target.is_file():
+    if not _intact(target):      # missing, or damaged (a truncated library would crash the loader)
         if headers is not None:
             flags += ["-I", str(headers), f"-DLINZ_MODULE={module_name}"]
         _compile(compiler, flags, emitted, fixed, folder, target)
@@ -266,16 +271,47 @@ def _compile(compiler: str, flags: list[str], emitted: str, sources: list[Path],
         if done.returncode != 0 or not output.is_file():
             first = next((line for line in done.stderr.splitlines() if "error" in line), done.stderr.strip()[:200])
             raise NativeUnavailable(f"the C compiler failed: {first or f'exit {done.returncode}'}")
+        digest = _file_digest(output)
+        _durable_write(Path(work) / "digest", digest)
         os.replace(output, target)       # atomic: a concurrent loader sees no file or the whole new one
+        os.replace(Path(work) / "digest", _digest_path(target))
     _prune(folder)
+
+
+def _digest_path(target: Path) -> Path:
+    return target.with_name(target.name + ".sha256")
+
+
+def _file_digest(path: Path) -> str:
+    with open(path, "rb") as handle:
+        data = handle.read()
+        os.fsync(handle.fileno())
+    return hashlib.sha256(data).hexdigest()
+
+
+def _durable_write(path: Path, text: str) -> None:
+    with open(path, "w") as handle:
+        handle.write(text)
+        handle.flush()
+        os.fsync(handle.fileno())
+
+
+def _intact(target: Path) -> bool:
+    """Whether a cached library is there and is the file that was built (its digest beside it)."""
+    try:
+        return _digest_path(target).read_text().strip() == _file_digest(target)
+    except OSError:
+        return False
 
 
 def _prune(folder: Path) -> None:
     """Keep the newest :data:`CACHE_KEEP` libraries (a library in use stays mapped when its file goes)."""
     try:
-        built = sorted(folder.glob("linz_*"), key=lambda p: p.stat().st_mtime, reverse=True)
+        built = sorted((p for p in folder.glob("linz_*") if not p.name.endswith(".sha256")),
+                       key=lambda p: p.stat().st_mtime, reverse=True)
         for old in built[CACHE_KEEP:]:
             old.unlink(missing_ok=True)
+            _digest_path(old).unlink(missing_ok=True)
     except OSError:
         pass
 
@@ -288,19 +324,36 @@ def _load_module(name: str, path: Path) -> ModuleType:
     try:
         module = importlib.util.module_from_spec(spec)
         loader.exec_module(module)
-    except ImportError as err:
+    except (ImportError, OSError) as err:
         raise NativeUnavailable(f"{path.name} could not be loaded ({err})") from None
     return module
 
 
-def _writable(folder: Path) -> Path:
+def open_library(ffi: Any, path: Path) -> Any:
+    """``ffi.dlopen`` of a compiled library; a library the loader refuses is :class:`NativeUnavailable`."""
     try:
-        folder.mkdir(parents=True, exist_ok=True)
-        probe = tempfile.NamedTemporaryFile(dir=folder)
-        probe.close()
-        return folder
-    except OSError:
-        return Path(tempfile.mkdtemp(prefix="linz_native_"))
+        return ffi.dlopen(str(path))
+    except OSError as err:
+        raise NativeUnavailable(f"{path.name} could not be loaded ({err})") from None
+
+
+def _writable(folder: Path) -> Path:
+    """``folder``, or this user's folder under the system's temporary one when it cannot be written.
+
+    Raises
+    ------
+    NativeUnavailable
+        When neither can be written.
+    """
+    for candidate in (folder, Path(tempfile.gettempdir()) / f"linz_ros-{os.getuid()}" / "native"):
+        try:
+            candidate.mkdir(parents=True, exist_ok=True)
+            probe = tempfile.NamedTemporaryFile(dir=candidate)
+            probe.close()
+            return candidate
+        except OSError:
+            continue
+    raise NativeUnavailable(f"no writable cache folder ({folder} nor the temporary folder)")
 
 
 def load_ffi() -> Any:

@@ -19,7 +19,7 @@ from typing import Any, Sequence
 from linz_ros.artifact.document import Artifact
 from linz_ros.runtime._stamps import refusal_stamps, stamps
 from linz_ros.runtime.core import ControllerCore
-from linz_ros.runtime.native._build import REPORT_FIELDS, codes, compiled_step, load_ffi
+from linz_ros.runtime.native._build import REPORT_FIELDS, codes, compiled_step, load_ffi, open_library
 from linz_ros.runtime.steprecord import MODES, REASONS, StepRecord
 from linz_ros.runtime.watchdogs import WatchdogConfig
 
@@ -31,8 +31,6 @@ _HEAD = len(REPORT_FIELDS)
 (_MODE, _REASON, _SIGMA_MIN, _CONDITION, _WARN, _DAMPING, _ALARMS, _VALID) = (
     REPORT_FIELDS.index(name) for name in ("mode", "reason", "sigma_min", "condition", "warn", "damping", "alarms",
                                            "outputs_valid"))
-#: Entries of the sliding maximum of the divergence watch (a ring in C; Python's deque is unbounded).
-RECENT_CAPACITY = 1 << 16
 _FFI: Any = None
 
 
@@ -76,7 +74,7 @@ class NativeCore:
         ffi = _ffi()
         self._ffi = ffi
         compiled = compiled_step(artifact)
-        self._lib = ffi.dlopen(str(compiled.path))
+        self._lib = open_library(ffi, compiled.path)
         self._python = python = ControllerCore(artifact, config, parameters)
         self.artifact, self.n, self.m, self.orders = artifact, python.n, python.m, python.orders
         self.integral, self.gains, self.reference_size = python.integral, python.gains, python.reference_size
@@ -102,8 +100,6 @@ class NativeCore:
         for name in ("integrators", "last_errors", "stop_reference"):
             setattr(ctx, name, self._doubles(max(1, self.reference_size, chains)))
         ctx.last_command, ctx.last_good_command = self._doubles(m), self._doubles(m)
-        ctx.recent_t, ctx.recent_s = self._doubles(RECENT_CAPACITY), self._doubles(RECENT_CAPACITY)
-        ctx.recent_capacity = RECENT_CAPACITY
         self._step, self._refuse_c = self._lib.linz_step, self._lib.linz_refuse
         self._chains = chains
         self.config = python.config
@@ -213,9 +209,9 @@ class NativeCore:
                             ("last_command", self.m), ("last_good_command", self.m)):
             getattr(ctx, name)[0:count] = [0.0] * count
         for flag in ("has_last_t", "has_last_good_t", "has_last_errors", "integrate_next", "diverged", "stopping",
-                     "above", "below", "recent_head", "recent_count"):
+                     "above", "below"):
             setattr(ctx, flag, 0)
-        ctx.first_peak = 0.0
+        ctx.first_peak, ctx.last_high = 0.0, -math.inf
 
     @property
     def last_t(self) -> float | None:
@@ -281,7 +277,7 @@ class NativeCore:
         try:
             if len(x) != self.n:
                 return self._refuse("wrong_length", t, start, now)
-            if type(x) is not list:
+            if type(x) is not list or not all(type(v) is float for v in x):
                 x = list(map(float, x))
         except (TypeError, ValueError, OverflowError):
             return self._refuse("wrong_length", t, start, now)
@@ -289,7 +285,7 @@ class NativeCore:
         try:
             if len(ref) != self.reference_size:
                 reference_ok, ref = 0, self._ref
-            elif type(ref) is not list:
+            elif type(ref) is not list or not all(type(v) is float for v in ref):
                 ref = list(map(float, ref))
         except (TypeError, ValueError, OverflowError):
             reference_ok, ref = 0, self._ref

@@ -5,7 +5,7 @@ from __future__ import annotations
 from typing import Any, Sequence
 
 from linz_ros.artifact.document import Artifact
-from linz_ros.runtime.native._build import compiled_plant, load_ffi
+from linz_ros.runtime.native._build import compiled_plant, load_ffi, open_library
 from linz_ros.runtime.plant import NumericPlant
 
 __all__ = ["NativePlant"]
@@ -36,7 +36,7 @@ class NativePlant(NumericPlant):
     def __init__(self, artifact: Artifact, parameters: Sequence[float] | None = None) -> None:
         super().__init__(artifact, parameters)
         self._ffi = ffi = load_ffi()
-        self._lib = ffi.dlopen(str(compiled_plant(artifact).path))
+        self._lib = open_library(ffi, compiled_plant(artifact).path)
         program = artifact.programs["dynamics"]
         slots = program.slots
         self._keep: list[Any] = []
@@ -54,6 +54,9 @@ class NativePlant(NumericPlant):
         self._out = self._doubles(self.n)
         self._derivative_c, self._rk4_c = self._lib.linz_derivative, self._lib.linz_rk4
 
+    def _checked(self, x: Sequence[float], u: Sequence[float]) -> tuple[list[float], list[float]]:
+        return _floats(x, self.n, "state values"), _floats(u, self.m, "inputs")
+
     def _doubles(self, count: int, values: Sequence[float] | None = None) -> Any:
         array = self._ffi.new("double[]", count)
         if values is not None:
@@ -63,16 +66,20 @@ class NativePlant(NumericPlant):
 
     def derivative(self, x: Sequence[float], u: Sequence[float]) -> list[float]:
         """dx/dt at state x under input u (as :meth:`NumericPlant.derivative`)."""
-        if self._derivative_c(self._ctx, _floats(x), _floats(u), self._out) != 0:
+        x, u = self._checked(x, u)
+        if self._derivative_c(self._ctx, x, u, self._out) != 0:
             raise ArithmeticError("the plant's model is not defined at this state")
         return self._ffi.unpack(self._out, self.n)
 
     def rk4(self, x: Sequence[float], u: Sequence[float], h: float, steps: int = 1) -> list[float]:
         """``steps`` classical Runge-Kutta steps of size h with u held (as :meth:`NumericPlant.rk4`)."""
-        if self._rk4_c(self._ctx, _floats(x), _floats(u), float(h), int(steps), self._out) != 0:
+        x, u = self._checked(x, u)
+        if self._rk4_c(self._ctx, x, u, float(h), int(steps), self._out) != 0:
             raise ArithmeticError("the plant's model is not defined along the step")
         return self._ffi.unpack(self._out, self.n)
 
 
-def _floats(values: Sequence[float]) -> list[float]:
-    return values if type(values) is list else [float(v) for v in values]
+def _floats(values: Sequence[float], count: int, what: str) -> list[float]:
+    if len(values) != count:         # the C code reads exactly count entries
+        raise ValueError(f"expected {count} {what}, got {len(values)}")
+    return values if type(values) is list and all(type(v) is float for v in values) else [float(v) for v in values]

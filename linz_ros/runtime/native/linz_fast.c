@@ -1,8 +1,8 @@
 /* The native step's fast entry from Python: core.step(x, ref, t, now=None) straight into C.
 
    Built only where the Python headers are (-DLINZ_MODULE names the module). The fast path
-   takes exactly the common case: x and ref lists of floats of the right lengths, t and now
-   finite floats. It converts them, runs linz_step and builds the command list and the
+   takes exactly the common case: x and ref lists of floats (exactly float) of the right
+   lengths, t and now finite floats. It converts them, runs linz_step and builds the command list and the
    StepRecord itself. Anything else (other types, lengths, non-finite stamps, keywords other
    than `now`) goes to the Python method given at bind time, which converts and refuses as
    the Python core does and calls the same C step, so both routes give the same records. */
@@ -53,7 +53,7 @@ static int take_floats(PyObject *list, Py_ssize_t size, double *out) {
     if (!PyList_CheckExact(list) || PyList_GET_SIZE(list) != size) return 0;
     for (Py_ssize_t i = 0; i < size; i++) {
         PyObject *item = PyList_GET_ITEM(list, i);
-        if (!PyFloat_Check(item)) return 0;        /* float and its subclasses (numpy.float64) */
+        if (!PyFloat_CheckExact(item)) return 0;   /* a subclass may convert otherwise: the careful path */
         out[i] = PyFloat_AS_DOUBLE(item);
     }
     return 1;
@@ -76,7 +76,7 @@ static PyObject *fast_step(PyObject *capsule, PyObject *const *args, size_t narg
     } else if (plain && nargs == 4) {
         now_object = args[3];
     }
-    if (plain) plain = PyFloat_Check(args[2]) && (now_object == Py_None || PyFloat_Check(now_object));
+    if (plain) plain = PyFloat_CheckExact(args[2]) && (now_object == Py_None || PyFloat_CheckExact(now_object));
     double t = 0.0, now = 0.0;
     if (plain) {
         t = PyFloat_AS_DOUBLE(args[2]);

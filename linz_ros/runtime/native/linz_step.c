@@ -31,7 +31,7 @@ static int outside(const double *x, int count, const int *index, const double *l
     return 0;
 }
 
-/* DivergenceWatch.check: the episode, and the sliding maximum over the last half-window (a ring) */
+/* DivergenceWatch.check: the episode, its first peak and the latest time the error reached it */
 static int divergence_check(linz_ctx *c, const double *errors, double t) {
     double scaled = 0.0;
     int first = 1;
@@ -49,7 +49,7 @@ static int divergence_check(linz_ctx *c, const double *errors, double t) {
             c->above = 1;
             c->above_since = t;
             c->first_peak = scaled;
-            c->recent_count = 0;
+            c->last_high = -INFINITY;
         }
     } else if (!c->above) {
         return 0;
@@ -62,25 +62,9 @@ static int divergence_check(linz_ctx *c, const double *errors, double t) {
     }
     double elapsed = t - c->above_since;
     if (elapsed <= 0.5 * span && scaled > c->first_peak) c->first_peak = scaled;
-    int cap = c->recent_capacity;
-    while (c->recent_count > 0) {
-        int last = (c->recent_head + c->recent_count - 1) % cap;
-        if (!(c->recent_s[last] <= scaled)) break;
-        c->recent_count--;
-    }
-    if (c->recent_count == cap) {          /* full: the oldest goes (DEVELOPERS.md: capacity) */
-        c->recent_head = (c->recent_head + 1) % cap;
-        c->recent_count--;
-    }
-    int slot = (c->recent_head + c->recent_count) % cap;
-    c->recent_t[slot] = t;
-    c->recent_s[slot] = scaled;
-    c->recent_count++;
-    while (c->recent_count > 0 && c->recent_t[c->recent_head] <= t - 0.5 * span) {
-        c->recent_head = (c->recent_head + 1) % cap;
-        c->recent_count--;
-    }
-    return elapsed >= span && c->recent_count > 0 && c->recent_s[c->recent_head] >= c->first_peak;
+    /* the latest time the first peak was reached (watchdogs.DivergenceWatch.check explains why it suffices) */
+    if (elapsed > 0.5 * span && scaled >= c->first_peak) c->last_high = t;
+    return elapsed >= span && c->last_high > t - 0.5 * span;
 }
 
 /* ---- the step ---------------------------------------------------------------------------- */

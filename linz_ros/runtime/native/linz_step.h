@@ -25,9 +25,7 @@ typedef struct linz_ctx {
     int has_last_t, has_last_good_t, has_last_errors, integrate_next, diverged, stopping;
     double last_t, last_good_t;
     int above, below;
-    double above_since, below_since, first_peak;
-    double *recent_t, *recent_s;
-    int recent_capacity, recent_head, recent_count;
+    double above_since, below_since, first_peak, last_high;
     /* the model's parameters */
     double *parameters;
     /* scratch: the law's values, then room for A, b, w, e, u and the solves */
