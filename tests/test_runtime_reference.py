@@ -10,15 +10,36 @@ from linz_ros.runtime import extrapolate_reference, make_reference, parse_refere
 
 
 @pytest.mark.parametrize("kind, options", [("sine", {"period": 1.7, "at": 0.2}),
-                                           ("smooth", {"duration": 1.3, "at": 0.2})])
+                                           ("smooth", {"duration": 1.3, "at": 0.2}),
+                                           ("ring", {"period": 3.1, "at": 0.2}),
+                                           ("eight", {"period": 3.1, "at": 0.2})])
 def test_derivatives_are_the_derivatives_of_the_value(kind, options):
-    ref = make_reference(kind, [4], [0.5], 0.3, **options)
+    ref = make_reference(kind, [4, 4], [0.5, -0.2], 0.3, **options)
     h = 1e-4
     for t in np.linspace(0.25, 1.4, 13):
         now, ahead, behind = ref.sample(t), ref.sample(t + h), ref.sample(t - h)
-        for j in range(4):
+        for j in list(range(4)) + list(range(5, 9)):
             derivative = (ahead[j] - behind[j]) / (2 * h)
             assert now[j + 1] == pytest.approx(derivative, rel=1e-5, abs=1e-5 * (1 + abs(now[j + 1])))
+
+
+def test_the_closed_paths_start_at_the_base_point_and_close_after_a_period():
+    for kind in ("ring", "eight"):
+        ref = make_reference(kind, [2, 2, 2], [1.0, 2.0, 3.0], 0.5, period=4.0, at=1.0)
+        assert ref.sample(0.5) == [1.0, 0.0, 0.0, 2.0, 0.0, 0.0, 3.0, 0.0, 0.0]
+        start, lap = np.array(ref.sample(1.0)), np.array(ref.sample(5.0))
+        assert start[[0, 3, 6]] == pytest.approx([1.0, 2.0, 3.0]) and np.allclose(start, lap, atol=1e-12)
+        assert ref.sample(2.7)[6:] == [3.0, 0.0, 0.0]                 # the third output holds
+    # the ring's centre lies a radius to the left of the start; the eight crosses itself there
+    ring = make_reference("ring", [1, 1], [0.0, 0.0], 0.5, period=4.0)
+    assert [ring.sample(2.0)[0], ring.sample(2.0)[2]] == pytest.approx([0.0, 1.0], abs=1e-12)
+    eight = make_reference("eight", [1, 1], [0.0, 0.0], 0.5, period=4.0)
+    assert [eight.sample(2.0)[0], eight.sample(2.0)[2]] == pytest.approx([0.0, 0.0], abs=1e-12)
+
+
+def test_a_closed_path_needs_two_outputs():
+    with pytest.raises(ConfigError, match="eight draws a path with the first two outputs"):
+        make_reference("eight", [2], [0.0], 1.0)
 
 
 def test_smooth_move_starts_and_ends_at_rest_with_the_right_values():

@@ -12,6 +12,14 @@ sine     base + amplitude sin(2 pi (t - at) / period) from time ``at``
 smooth   base to base + amplitude over ``duration`` from ``at`` along the polynomial
          of degree 2k+1 whose first k derivatives vanish at both ends (k = the largest
          relative degree, so every derivative the law uses is continuous)
+ring     a closed path for vehicles, drawn by the first two outputs (x, y), the others
+         held: a circle of radius ``amplitude`` through the base point, once per
+         ``period``, x = x0 + a sin(w tau), y = y0 + a (1 - cos(w tau))
+eight    the figure eight through the base point: x = x0 + a sin(w tau),
+         y = y0 + (a/2) sin(2 w tau) (Gerono's lemniscate), once per ``period``
+
+Every derivative of the closed paths is analytic (d^j/dt^j sin(w t) = w^j sin(w t + j pi/2)),
+so chains of any relative degree get their whole reference.
 """
 
 from __future__ import annotations
@@ -24,16 +32,19 @@ import numpy as np
 
 from linz_ros.errors import ConfigError
 
-__all__ = ["Reference", "make_reference", "parse_reference", "extrapolate_reference", "KINDS"]
+__all__ = ["Reference", "make_reference", "parse_reference", "extrapolate_reference", "KINDS", "PATHS"]
 
-KINDS = ("hold", "step", "sine", "smooth")
+KINDS = ("hold", "step", "sine", "smooth", "ring", "eight")
+#: Kinds that draw a path with the first two outputs.
+PATHS = ("ring", "eight")
 #: Shortest period or duration accepted (seconds).
 _SHORTEST = 1e-4
 #: Longest time a reference's start, period or duration may take (seconds; about 11 days):
 #: the smooth move's polynomial takes powers of its duration.
 _LONGEST = 1e6
 _OPTIONS = {"hold": (), "step": ("amplitude", "at"), "sine": ("amplitude", "period", "at"),
-            "smooth": ("amplitude", "duration", "at")}
+            "smooth": ("amplitude", "duration", "at"), "ring": ("amplitude", "period", "at"),
+            "eight": ("amplitude", "period", "at")}
 
 
 def _smoothstep_coefficients(k: int) -> np.ndarray:
@@ -110,9 +121,32 @@ class Reference:
         list of float
         """
         out: list[float] = []
+        if self.kind in PATHS:
+            for i, (r, base) in enumerate(zip(self.orders, self.base)):
+                out.extend(self._path(t, i, r, base))
+            return out
         for r, base, amp in zip(self.orders, self.base, self.amplitude):
             out.extend(self._chain(t, r, base, amp))
         return out
+
+    def _path(self, t: float, i: int, r: int, base: float) -> list[float]:
+        """Chain ``i`` of a closed path (x for i = 0, y for i = 1, the others held)."""
+        values = [base] + [0.0] * r
+        tau = t - self.at
+        if tau < 0 or i > 1:
+            return values
+        a, w = self.amplitude[0], 2.0 * math.pi / self.period
+        if i == 0:                                   # x = a sin(w tau) for both paths
+            terms = [(a, w, 0.0)]
+        elif self.kind == "ring":                    # y = a - a cos(w tau) = a - a sin(w tau + pi/2)
+            values[0] += a
+            terms = [(-a, w, math.pi / 2)]
+        else:                                        # y = (a/2) sin(2 w tau)
+            terms = [(0.5 * a, 2.0 * w, 0.0)]
+        for scale, rate, phase in terms:
+            for j in range(r + 1):
+                values[j] += scale * rate ** j * math.sin(rate * tau + phase + j * math.pi / 2)
+        return values
 
     def _chain(self, t: float, r: int, base: float, amp: float) -> list[float]:
         values = [base] + [0.0] * r
@@ -175,6 +209,9 @@ def make_reference(kind: str, orders: Sequence[int], base: Sequence[float],
     if kind not in KINDS:
         raise ConfigError("reference", f"unknown kind {kind!r}; expected one of {', '.join(KINDS)}")
     orders = [int(r) for r in orders]
+    if kind in PATHS and len(orders) < 2:
+        raise ConfigError("reference", f"{kind} draws a path with the first two outputs (x, y); this controller "
+                                       f"has {len(orders)}")
     if isinstance(amplitude, (int, float)):
         amplitude = [float(amplitude)] * len(orders)
     amplitude = [float(a) for a in amplitude]
