@@ -85,7 +85,7 @@ def main() -> None:
         design, artifact, seconds, size = build(text, path)
         nq = design.plant.mechanics.nq
         rng = np.random.default_rng(1)
-        states = [list(rng.uniform(-1.0, 1.0, 2 * nq)) for _ in range(64)]
+        states = [rng.uniform(-1.0, 1.0, 2 * nq).tolist() for _ in range(64)]     # Python floats, as a node passes
         core = ControllerCore(artifact)
         native, note = make_core(artifact)
         if note:
@@ -100,7 +100,11 @@ def main() -> None:
             clock[0] += 0.002
             core.step(states[k & 63], refs[k & 63], clock[0])
 
-        candidates = {"law": lambda k: law(states[k & 63], params), "core": core_call,
+        def native_call(k: int) -> None:
+            clock[0] += 0.002
+            native.step(states[k & 63], refs[k & 63], clock[0])
+
+        candidates = {"law": lambda k: law(states[k & 63], params), "core": core_call, "native": native_call,
                       "pin": lambda k: pin_step(np_states[k & 63], np_refs[k & 63])}
         samples = {key: [] for key in candidates}
         for function in candidates.values():

@@ -1,10 +1,11 @@
 """Benchmark of the controller step on every bundled plant (what ``linz bench`` measures).
 
-For each plant: ``ControllerCore.step`` (watchdogs and conditioning included), the law
-program alone, the naive hand-written pipeline (plain lambdify to numpy, numpy solve and
-svd), lambdify with CSE to the math module, and the law's expressions compiled from C,
-all on the same states in interleaved rounds. Prints microseconds per call and the two
-ratios the goals are stated in: core / compiled C (goal <= 10) and naive / core (goal >= 4).
+For each plant: the core step (the native one, ``linz_ros.runtime.native``, watchdogs and
+conditioning included) and the Python ``ControllerCore.step`` beside it, the law program
+alone, the naive hand-written pipeline (plain lambdify to numpy, numpy solve and svd),
+lambdify with CSE to the math module, and the law's expressions compiled from C, all on the
+same states in interleaved rounds. Prints microseconds per call and the ratios the goals are
+stated in (``linz_ros.bench.GOALS``): core / compiled C (goal <= 2) and naive / core (goal >= 4).
 The machine is noisy; only the ratios measured in one run mean anything.
 
 Run:  python benchmarks/step_cost.py [--calls 2000] [--rounds 7]

@@ -265,9 +265,10 @@ def render_sim(summary: dict[str, Any], as_json: bool = False, title: str = "sim
     ct = summary["compute_time_us"]
     if ct:
         lines.append(f"  step compute time: p50 {ct['p50']:.1f} us, p99 {ct['p99']:.1f} us")
-    backend, speed = summary["backend"], summary["steps_per_second"]
-    lines.append(f"  {backend['step']} control step, {backend['plant']} plant: "
-                 + (f"{speed:,.0f} simulated steps per second here" if speed else "no steps timed"))
+    backend, speed = summary.get("backend"), summary.get("steps_per_second")
+    if backend is not None:              # an offline run (a bringup's summary comes from the field log)
+        lines.append(f"  {backend['step']} control step, {backend['plant']} plant: "
+                     + (f"{speed:,.0f} simulated steps per second here" if speed else "no steps timed"))
     lines.extend(f"  note: {note}" for note in summary["notes"])
     lines.append("wrote " + ", ".join(summary["files"]))
     return "\n".join(lines)

@@ -105,7 +105,7 @@ class SimResult:
     config: WatchdogConfig | None = None
     damping: np.ndarray | None = None
     warn: np.ndarray | None = None
-    backend: tuple[str, str] = ("python", "python")
+    backend: tuple[str, str] | None = None      # (step, plant) of an offline run; None for a record of a field run
     wall_seconds: float = 0.0
 
     @property
@@ -173,7 +173,7 @@ class SimResult:
             "non_finite_at": self.diverged_at,
             "alarm_steps": {name: int(np.count_nonzero(self.alarm_mask() >> bit & 1))
                             for bit, name in enumerate(ALARMS)},
-            "backend": {"step": self.backend[0], "plant": self.backend[1]},
+            "backend": None if self.backend is None else {"step": self.backend[0], "plant": self.backend[1]},
             # wall-clock speed of this run on this machine: reported, never judged
             "steps_per_second": (float(len(self.t) / self.wall_seconds) if self.wall_seconds > 0 else None),
             "notes": list(self.notes),
