@@ -209,6 +209,7 @@ def test_sim_shows_the_design_warnings_and_keeps_them_in_its_summary(capsys, tmp
     (["--duration", "1e9"], "--duration: 1e+09 s at 250 Hz is more than 10,000,000 control steps"),
     (["--reference", "smooth:amplitude=0.1,duration=1e308"], "reference duration: expected at most 1e+06 s"),
     (["--backend", "gpu"], "--backend: expected one of native, python, got 'gpu'"),
+    (["--reference", "sine:amplitude=0.1,period=0"], "linz: --reference: period and duration must be positive"),
 ])
 def test_sim_refuses_bad_options_with_one_line(capsys, tmp_path, argv, words):
     try:

@@ -131,7 +131,8 @@ def _reference(artifact: Any, text: str | None, x0: list[float], given_initial: 
                                artifact.outputs)
     except ConfigError as err:
         if text:
-            raise (err if err.field == "--reference" else ConfigError("--reference", str(err))) from None
+            problem = err.problem if err.field == "reference" else str(err)   # "reference duration: ..." keeps its name
+            raise (err if err.field == "--reference" else ConfigError("--reference", problem)) from None
         raise ConfigError(f"{artifact.plant_source}: design.reference", err.problem) from None
 
 
