@@ -35,7 +35,7 @@ from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime._linalg import (computed_torque, damped_solve, inverse_mass_singular_values, singular_values,
                                       solve, task_space_terms)
-from linz_ros.runtime._stamps import refusal_stamps, stamps
+from linz_ros.runtime._arguments import float_list, refusal_stamps, stamps
 from linz_ros.runtime.steprecord import ALARMS, StepRecord
 from linz_ros.runtime.watchdogs import DivergenceWatch, WatchdogConfig, outside_check
 
@@ -275,7 +275,7 @@ class ControllerCore:
         try:
             if len(x) != self.n:
                 return self._refuse("wrong_length", t, start, now)
-            x = list(map(float, x))
+            x = float_list(x)
         except (TypeError, ValueError, OverflowError):
             return self._refuse("wrong_length", t, start, now)
         if not _all_finite(x):
@@ -291,7 +291,7 @@ class ControllerCore:
         try:
             if len(ref) != self.reference_size:
                 return self._refuse("bad_reference", t, start, now)
-            ref = list(map(float, ref))
+            ref = float_list(ref)
         except (TypeError, ValueError, OverflowError):
             return self._refuse("bad_reference", t, start, now)
         if not _all_finite(ref):

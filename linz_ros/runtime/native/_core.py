@@ -17,7 +17,7 @@ from functools import partial
 from typing import Any, Sequence
 
 from linz_ros.artifact.document import Artifact
-from linz_ros.runtime._stamps import refusal_stamps, stamps
+from linz_ros.runtime._arguments import float_list, refusal_stamps, stamps
 from linz_ros.runtime.core import ControllerCore
 from linz_ros.runtime.native._build import REPORT_FIELDS, codes, compiled_step, load_ffi, open_library
 from linz_ros.runtime.steprecord import MODES, REASONS, StepRecord
@@ -83,8 +83,8 @@ class NativeCore:
         self._settings: dict[str, Any] = {}
         self._ctx = ctx = ffi.new("linz_ctx *")
         self._layout(python)
-        n, m, chains = self.n, self.m, len(self.orders)
-        self._x, self._ref = self._doubles(n), self._doubles(max(1, self.reference_size))
+        m, chains = self.m, len(self.orders)
+        self._ref = self._doubles(max(1, self.reference_size))    # stands in for a reference refused
         ctx.parameters = self._doubles(max(1, len(python.parameters)), python.parameters)
         ctx.values = self._doubles(max(1, self._law_size(python)))
         nq = ctx.nq if ctx.nq > 0 else m
@@ -141,7 +141,7 @@ class NativeCore:
 
     def _layout(self, python: ControllerCore) -> None:
         """Sizes, the law's form and offsets, and the outer loop's chains, from the Python core."""
-        ctx, artifact = self._ctx, self.artifact
+        ctx = self._ctx
         ctx.n, ctx.m, ctx.chains = self.n, self.m, len(self.orders)
         ctx.law_size = self._law_size(python)
         ctx.ref_size, ctx.integral = self.reference_size, int(bool(self.integral))
@@ -277,30 +277,18 @@ class NativeCore:
         try:
             if len(x) != self.n:
                 return self._refuse("wrong_length", t, start, now)
-            if type(x) is not list or not all(type(v) is float for v in x):
-                x = list(map(float, x))
+            x = float_list(x)
         except (TypeError, ValueError, OverflowError):
             return self._refuse("wrong_length", t, start, now)
         reference_ok = 1
         try:
             if len(ref) != self.reference_size:
                 reference_ok, ref = 0, self._ref
-            elif type(ref) is not list or not all(type(v) is float for v in ref):
-                ref = list(map(float, ref))
+            else:
+                ref = float_list(ref)
         except (TypeError, ValueError, OverflowError):
             reference_ok, ref = 0, self._ref
-        try:
-            self._step(self._ctx, x, ref, t, now, reference_ok)
-        except (TypeError, OverflowError):      # entries cffi does not take as double: float() them
-            try:
-                x = list(map(float, x))
-            except (TypeError, ValueError, OverflowError):
-                return self._refuse("wrong_length", t, start, now)
-            try:
-                ref = list(map(float, ref))
-            except (TypeError, ValueError, OverflowError):
-                reference_ok, ref = 0, self._ref
-            self._step(self._ctx, x, ref, t, now, reference_ok)
+        self._step(self._ctx, x, ref, t, now, reference_ok)
         return self._result(t, start)
 
     def safe_step(self, now: float, reason: str = "no_state", final: bool = False) -> tuple[list[float], StepRecord]:
@@ -311,7 +299,7 @@ class NativeCore:
 
     def _refuse(self, reason: str, t: Any, start: float, now: Any = None) -> tuple[list[float], StepRecord]:
         stamp, current = refusal_stamps(t, now)
-        self._refuse_c(self._ctx, _REASON_CODE[reason], stamp, math.inf if current is None else current)
+        self._refuse_c(self._ctx, _REASON_CODE[reason], math.inf if current is None else current)
         return self._result(stamp, start)
 
     def _result(self, t: float, start: float) -> tuple[list[float], StepRecord]:

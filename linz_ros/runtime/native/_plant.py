@@ -6,6 +6,7 @@ from typing import Any, Sequence
 
 from linz_ros.artifact.document import Artifact
 from linz_ros.runtime.native._build import compiled_plant, load_ffi, open_library
+from linz_ros.runtime._arguments import float_list
 from linz_ros.runtime.plant import NumericPlant
 
 __all__ = ["NativePlant"]
@@ -82,4 +83,4 @@ class NativePlant(NumericPlant):
 def _floats(values: Sequence[float], count: int, what: str) -> list[float]:
     if len(values) != count:         # the C code reads exactly count entries
         raise ValueError(f"expected {count} {what}, got {len(values)}")
-    return values if type(values) is list and all(type(v) is float for v in values) else [float(v) for v in values]
+    return float_list(values)

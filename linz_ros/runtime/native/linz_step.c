@@ -91,8 +91,7 @@ static void report(linz_ctx *c, int mode, int reason, double sigma_min, double c
     r[LINZ_REPORT_outputs_valid] = outputs_valid;
 }
 
-static void safe(linz_ctx *c, int reason, double t, double sigma_min, double condition, int warn, double now,
-                 int alarms) {
+static void safe(linz_ctx *c, int reason, double sigma_min, double condition, int warn, double now, int alarms) {
     int m = c->m;
     if (!isfinite(now)) now = INFINITY;
     int mode = LINZ_MODE_safe;
@@ -117,8 +116,8 @@ static void safe(linz_ctx *c, int reason, double t, double sigma_min, double con
     report(c, mode, reason, sigma_min, condition, warn, 0.0, alarms, 0);
 }
 
-void linz_refuse(linz_ctx *c, int reason, double t, double now) {
-    safe(c, reason, t, NAN, NAN, 0, now, 0);
+void linz_refuse(linz_ctx *c, int reason, double now) {
+    safe(c, reason, NAN, NAN, 0, now, 0);
 }
 
 /* the alarm whose action is the safe command (ControllerCore._acted_alarm); -1 for none */
@@ -140,21 +139,21 @@ int linz_step(linz_ctx *c, const double *x, const double *ref, double t, double 
     int n = c->n, m = c->m, chains = c->chains;
     double *values = c->values;
     for (int i = 0; i < n; i++)
-        if (!isfinite(x[i])) return linz_refuse(c, LINZ_REASON_non_finite_state, t, now), 0;
+        if (!isfinite(x[i])) return linz_refuse(c, LINZ_REASON_non_finite_state, now), 0;
     int had_last_t = c->has_last_t;
     double last_t = c->last_t;
-    if (had_last_t && t <= last_t) return linz_refuse(c, LINZ_REASON_out_of_order, t, now), 0;
-    if (now - t > c->stale_after) return linz_refuse(c, LINZ_REASON_stale, t, now), 0;
-    if (t - now > c->future_tolerance) return linz_refuse(c, LINZ_REASON_future_stamp, t, now), 0;
-    if (!reference_ok) return linz_refuse(c, LINZ_REASON_bad_reference, t, now), 0;
+    if (had_last_t && t <= last_t) return linz_refuse(c, LINZ_REASON_out_of_order, now), 0;
+    if (now - t > c->stale_after) return linz_refuse(c, LINZ_REASON_stale, now), 0;
+    if (t - now > c->future_tolerance) return linz_refuse(c, LINZ_REASON_future_stamp, now), 0;
+    if (!reference_ok) return linz_refuse(c, LINZ_REASON_bad_reference, now), 0;
     for (int i = 0; i < c->ref_size; i++)
-        if (!isfinite(ref[i])) return linz_refuse(c, LINZ_REASON_bad_reference, t, now), 0;
+        if (!isfinite(ref[i])) return linz_refuse(c, LINZ_REASON_bad_reference, now), 0;
 
     feclearexcept(LAW_FLAGS);
     linz_law(x, c->parameters, values);
-    if (fetestexcept(LAW_FLAGS)) return linz_refuse(c, LINZ_REASON_model_not_finite, t, now), 0;
+    if (fetestexcept(LAW_FLAGS)) return linz_refuse(c, LINZ_REASON_model_not_finite, now), 0;
     for (int i = 0; i < c->law_size; i++)
-        if (!isfinite(values[i])) return linz_refuse(c, LINZ_REASON_model_not_finite, t, now), 0;
+        if (!isfinite(values[i])) return linz_refuse(c, LINZ_REASON_model_not_finite, now), 0;
 
     double *A = c->work, *b = A + m * m, *w = b + m, *errors = w + m, *u = errors + chains;
     double *scratch = u + m;
@@ -162,17 +161,17 @@ int linz_step(linz_ctx *c, const double *x, const double *ref, double t, double 
     double sigma_min, sigma_max;
     if (c->form == 2) {
         if (inverse_mass_singular_values(values + c->mass_off, m, scratch, &sigma_min, &sigma_max) != 0)
-            return linz_refuse(c, LINZ_REASON_model_not_finite, t, now), 0;
+            return linz_refuse(c, LINZ_REASON_model_not_finite, now), 0;
     } else {
         if (c->form == 0) {
             memcpy(A, values + c->a_off, sizeof(double) * m * m);
             memcpy(b, values + c->b_off, sizeof(double) * m);
         } else if (task_space_terms(c, values, A, b, scratch) != 0) {
-            return linz_refuse(c, LINZ_REASON_model_not_finite, t, now), 0;
+            return linz_refuse(c, LINZ_REASON_model_not_finite, now), 0;
         }
         have_a = 1;
         if (singular_values(A, m, scratch, &sigma_min, &sigma_max) != 0)
-            return linz_refuse(c, LINZ_REASON_model_not_finite, t, now), 0;
+            return linz_refuse(c, LINZ_REASON_model_not_finite, now), 0;
     }
     double condition = sigma_min > 0.0 ? sigma_max / sigma_min : INFINITY;
     double accepted_t = t <= now ? t : now;
@@ -221,7 +220,7 @@ int linz_step(linz_ctx *c, const double *x, const double *ref, double t, double 
         if (acted != LINZ_REASON_diverging) c->above = 0;    /* DivergenceWatch.end_episode */
         c->has_last_t = 1;
         c->last_t = accepted_t;
-        safe(c, acted, t, sigma_min, condition, warn, now, alarms);
+        safe(c, acted, sigma_min, condition, warn, now, alarms);
         return 0;
     }
     int mode, reason, failed;                    /* mechanical laws: w = v here, b is subtracted below */
@@ -257,7 +256,7 @@ int linz_step(linz_ctx *c, const double *x, const double *ref, double t, double 
     if (failed) {
         c->has_last_t = 1;
         c->last_t = accepted_t;
-        safe(c, LINZ_REASON_singular, t, sigma_min, condition, warn, now, alarms);
+        safe(c, LINZ_REASON_singular, sigma_min, condition, warn, now, alarms);
         return 0;
     }
     /* the saturation watchdog (WatchdogConfig.limit); the first step after a reset is
@@ -293,7 +292,7 @@ int linz_step(linz_ctx *c, const double *x, const double *ref, double t, double 
     if (!finite) {
         c->has_last_t = 1;
         c->last_t = accepted_t;
-        safe(c, LINZ_REASON_non_finite_command, t, sigma_min, condition, warn, now, alarms);
+        safe(c, LINZ_REASON_non_finite_command, sigma_min, condition, warn, now, alarms);
         return 0;
     }
     if (c->stopping) {

@@ -45,7 +45,7 @@ typedef struct linz_plant {
 } linz_plant;
 
 int linz_step(linz_ctx *c, const double *x, const double *ref, double t, double now, int reference_ok);
-void linz_refuse(linz_ctx *c, int reason, double t, double now);
+void linz_refuse(linz_ctx *c, int reason, double now);
 int linz_evaluate(linz_ctx *c, const double *x);
 int linz_derivative(linz_plant *p, const double *x, const double *u, double *out);
 int linz_rk4(linz_plant *p, const double *x, const double *u, double h, int steps, double *out);

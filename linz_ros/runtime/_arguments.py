@@ -1,11 +1,12 @@
-"""The one conversion of a control step's time stamps, shared by the Python and the native core."""
+"""The one conversion of a control step's arguments (stamps, state and reference), shared by the Python
+and the native core."""
 
 from __future__ import annotations
 
 import math
-from typing import Any
+from typing import Any, Sequence
 
-__all__ = ["stamps", "refusal_stamps"]
+__all__ = ["stamps", "refusal_stamps", "float_list"]
 
 _isfinite = math.isfinite
 
@@ -35,3 +36,16 @@ def refusal_stamps(t: Any, now: Any) -> tuple[float, float | None]:
     except (TypeError, ValueError, OverflowError):
         current = None
     return stamp, current
+
+
+def float_list(values: Sequence[float]) -> list[float]:
+    """``values`` as a list of floats, ``float()`` of each (the list itself when it already is one).
+
+    Raises
+    ------
+    TypeError, ValueError, OverflowError
+        As ``float()`` does.
+    """
+    if type(values) is list and all(type(v) is float for v in values):
+        return values
+    return [float(v) for v in values]
