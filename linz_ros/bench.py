@@ -50,7 +50,6 @@ from linz_ros.crosscheck import pinocchio_available, pinocchio_reference
 from linz_ros.model import Plant
 from linz_ros.model._symbolic import tree_to_sympy
 from linz_ros.errors import ConfigError
-from linz_ros.runtime import ControllerCore
 from linz_ros.runtime.native import BACKENDS, make_core
 
 __all__ = ["BenchResult", "run_bench", "GOALS", "LawExpressions", "law_expressions", "plant_behind"]
@@ -373,19 +372,23 @@ def run_bench(artifact: Artifact, plant: Plant | None = None, calls: int = 2000,
     notes = list(notes or [])
     core, fallback = make_core(artifact, backend=_checked_backend(backend))
     notes.append(fallback or f"core: the {core.backend} step")
-    python_core = ControllerCore(artifact) if core.backend != "python" else None
-    refs = [core.hold_reference(s) for s in states]
+    python_core = make_core(artifact, backend="python")[0] if core.backend != "python" else None
+    own = [s[:core.n] for s in states]     # a dynamic extension's core keeps its compensator itself
+    if core.n < len(artifact.states):
+        notes.append("dynamic extension: core steps the plant's own state and integrates its compensator; "
+                     "the references evaluate the extended law")
+    refs = [core.hold_reference(s) for s in own]
     params = artifact.nominal_parameters.tolist()
     law_program = artifact.programs["law"]
     clock = [0.0]
 
     def core_call(k: int) -> None:
         clock[0] += 0.001
-        core.step(states[k & 63], refs[k & 63], clock[0])
+        core.step(own[k & 63], refs[k & 63], clock[0])
 
     def python_call(k: int) -> None:
         clock[0] += 0.001
-        python_core.step(states[k & 63], refs[k & 63], clock[0])
+        python_core.step(own[k & 63], refs[k & 63], clock[0])
 
     extra = {"core_python": python_call} if python_core is not None else {}
 

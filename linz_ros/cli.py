@@ -178,7 +178,9 @@ def _build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--duration", type=_positive_float, default=5.0, metavar="S", help="seconds (default 5)")
     sim.add_argument("--reference", metavar="SPEC",
                      help="hold | step:amplitude=A,at=T | sine:amplitude=A,period=P,at=T | "
-                          "smooth:amplitude=A,duration=D,at=T; per-output amplitudes as OUTPUT=A; "
+                          "smooth:amplitude=A,duration=D,at=T | ring:amplitude=A,period=P,at=T | "
+                          "eight:amplitude=A,period=P,at=T (paths drawn by the first two outputs); "
+                          "per-output amplitudes as OUTPUT=A; "
                           "default: the plant's design.reference, else hold")
     sim.add_argument("--mismatch", action="append", default=[], metavar="PARAM=PCT",
                      help="plant parameter off by PCT percent (repeatable; all=PCT for every parameter)")

@@ -27,6 +27,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from linz_ros.runtime import ALARMS, MODES, SimResult, Verdict, WatchdogConfig, run_verdict
+from linz_ros.runtime.extension import command_limits
 from linz_ros.runtime.steprecord import ACTED_MODES
 
 __all__ = ["RunView", "run_view", "plot_run", "write_plots", "unit_label", "title_figure", "save_figure",
@@ -122,8 +123,8 @@ def run_view(result: SimResult) -> RunView:
     config = result.config or WatchdogConfig.from_artifact(a)
     return RunView(
         plant=a.name, t=result.t, units=a.signal_units, outputs=list(a.outputs), y=result.y,
-        ref=result.reference_values(), inputs=list(a.inputs), u=result.u, saturated=result.saturated,
-        input_limits=list(config.input_limits), states=list(a.states), x=result.x, sigma_min=result.sigma_min,
+        ref=result.reference_values(), inputs=list(a.plant_inputs), u=result.u, saturated=result.saturated,
+        input_limits=command_limits(a, config), states=list(a.states), x=result.x, sigma_min=result.sigma_min,
         mode=list(result.mode), reason=list(result.reason), alarms=result.alarm_mask(), envelope=a.envelope,
         envelope_margin=config.envelope_margin,
         levels=(config.sigma_warn, config.sigma_act, config.sigma_stop), verdict=run_verdict(result),

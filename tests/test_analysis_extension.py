@@ -53,6 +53,18 @@ def test_the_unicycles_extended_decoupling_matrix_is_the_textbook_one():
     assert ext.result.singular_set == v                                # singular where v = 0
 
 
+def test_the_unicycles_extended_matrix_is_swept_over_the_speed_limits():
+    # sigma_min of [[cos th, -v sin th], [sin th, v cos th]] is min(1, |v|) (its columns are orthogonal,
+    # of norms 1 and |v|); with v uniform over its limits [-0.5, 1.5], P(min(1, |v|) <= s) = (0.5 + s) / 2
+    # for 0.5 <= s < 1, so the median is 0.5 (hand-derived)
+    _, ext = _extension(UNICYCLE)
+    envelope = ext.envelope
+    assert envelope.subject == "decoupling matrix of the extended plant" and envelope.samples == 256
+    assert envelope.median_sigma == pytest.approx(0.5, abs=0.02)
+    assert 0 < envelope.min_sigma < 0.02 and abs(envelope.worst_state["v_i1"]) == pytest.approx(envelope.min_sigma)
+    assert ext.to_json()["envelope"]["median_sigma"] == envelope.median_sigma
+
+
 def test_the_unicycle_report_says_what_was_found_in_text_and_json():
     report, _ = _extension(UNICYCLE)
     io = report.to_json()["input_output"]
@@ -175,6 +187,11 @@ def test_linz_check_shows_the_extension_in_json_and_text(capsys):
     out, err = capsys.readouterr()
     ext = json.loads(out)["input_output"]["dynamic_extension"]
     assert err == "" and ext["found"] is True and ext["compensator_states"] == ["v_i1"]
+    assert main(["check", str(UNICYCLE)]) == 0
+    lines = capsys.readouterr()[0].splitlines()
+    at = lines.index("  dynamic extension: v + 1 integrator: relative degree [2, 2], defined at the operating "
+                     "point with v_i1=0.5")
+    assert lines[at + 1].startswith("  extended decoupling matrix over the envelope: smallest singular value ")
     assert main(["check", str(TWIN_CART)]) == 0
     out, _ = capsys.readouterr()
     assert "  dynamic extension: none within 2 integrators per input and 4 in all (8 candidates, largest " \

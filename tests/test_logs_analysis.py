@@ -272,3 +272,35 @@ def test_non_finite_recorded_levels_are_not_used(text):
     log.metadata["linz_watchdog"] = {"sigma_warn": text, "sigma_act": "0.2", "sigma_stop": "0.05"}
     assert thresholds_of(log) is None
     assert "watchdog levels unknown" in summary_text(summarise(log))
+
+
+def test_a_log_of_an_extended_plants_own_states_reads_with_the_compensator_unknown(tmp_path):
+    # the delivery cart: the controller's field log has x over the extended states (x, y, th, v_i1); a log
+    # of the plant's own states (x, y, th; a recorder's) is read too, the compensator's column nan
+    from linz_ros.logs import LogError, read_logs
+    from linz_ros.logs.analysis import as_sim_result
+    from linz_ros.runtime import SimSettings, WatchdogConfig, simulate
+    from linz_ros.runtime.fieldlog import FieldLogSettings, open_field_log
+    from support import BUNDLED, built_artifact
+
+    artifact = built_artifact(BUNDLED / "delivery_cart.yaml")
+    assert artifact.states[-1] == "v_i1" and artifact.plant_states == ["x", "y", "th"]
+    settings = SimSettings(duration=0.5, config=WatchdogConfig.from_artifact(artifact))
+    writer = open_field_log(FieldLogSettings(tmp_path), artifact, settings.config)
+    run = simulate(artifact, settings, field_log=writer)
+    assert writer.close().state == "closed"
+    full = read_logs([tmp_path])
+    assert full.names("x") == artifact.states
+    keep = [i for i, label in enumerate(full.labels) if label != "x.v_i1"]
+    own = StepLog([full.labels[i] for i in keep], full.values[:, keep], full.log_time, full.sequence, full.files,
+                  full.metadata, clean_close={f: True for f in full.files})
+    whole, plant_only = as_sim_result(full, artifact), as_sim_result(own, artifact)
+    np.testing.assert_array_equal(whole.x, run.x)                 # the compensator each step used: the speed
+    assert whole.x[0, 3] == pytest.approx(0.45)
+    np.testing.assert_array_equal(plant_only.x[:, :3], run.x[:, :3])
+    assert np.isnan(plant_only.x[:, 3]).all() and plant_only.summary()["steps"] == whole.summary()["steps"]
+    other = StepLog([label.replace("x.th", "x.heading") for label in own.labels], own.values, own.log_time,
+                    own.sequence, own.files, own.metadata, clean_close={f: True for f in own.files})
+    with pytest.raises(LogError, match=r"its x fields \['x', 'y', 'heading'\] are not those of the artifact "
+                                       r"delivery_cart \(\['x', 'y', 'th', 'v_i1'\]\)"):
+        as_sim_result(other, artifact)

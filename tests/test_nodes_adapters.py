@@ -156,3 +156,118 @@ def test_a_field_map_of_an_unknown_type_is_one_line():
     with pytest.raises(ConfigError, match="state_fields: unsupported message type 'std_msgs/msg/String'; expected "
                                           "one of std_msgs/msg/Float64MultiArray, "):
         FieldMap("std_msgs/msg/String", ["data"], 1, "state_fields")
+
+
+# -- Odometry's derived fields: parent-frame velocity and Euler-angle rates (REP 103/105) ---
+VEHICLE = ["pose.position.x", "pose.position.y", "pose.position.z", "pose.orientation.roll", "pose.orientation.pitch",
+           "pose.orientation.yaw", "twist.world.x", "twist.world.y", "-twist.world.z", "twist.euler.roll",
+           "twist.euler.pitch", "twist.euler.yaw"]
+
+
+def _zyx(roll, pitch, yaw):
+    """R = Rz(yaw) Ry(pitch) Rx(roll), built with numpy (not the adapters' quaternion route)."""
+    import numpy as np
+    cr, sr, cp, sp, cy, sy = np.cos(roll), np.sin(roll), np.cos(pitch), np.sin(pitch), np.cos(yaw), np.sin(yaw)
+    rx = np.array([[1, 0, 0], [0, cr, -sr], [0, sr, cr]])
+    ry = np.array([[cp, 0, sp], [0, 1, 0], [-sp, 0, cp]])
+    rz = np.array([[cy, -sy, 0], [sy, cy, 0], [0, 0, 1]])
+    return rz @ ry @ rx
+
+
+def _odometry(roll=0.0, pitch=0.0, yaw=0.0, linear=(0.0, 0.0, 0.0), angular=(0.0, 0.0, 0.0)):
+    message = FieldMap("nav_msgs/msg/Odometry", ["pose.orientation.roll", "pose.orientation.pitch",
+                                                 "pose.orientation.yaw"], 3, "f").write([roll, pitch, yaw])
+    twist = message.twist.twist
+    (twist.linear.x, twist.linear.y, twist.linear.z), (twist.angular.x, twist.angular.y, twist.angular.z) = \
+        linear, angular
+    return message
+
+
+def test_a_vehicle_state_in_world_velocities_and_euler_rates_round_trips():
+    import numpy as np
+    rng = np.random.default_rng(20240615)
+    mapping = FieldMap("nav_msgs/msg/Odometry", VEHICLE, 12, "state_fields")
+    for _ in range(20):
+        state = list(rng.uniform(-5.0, 5.0, 12))
+        state[3:6] = rng.uniform(-1.0, 1.0, 3)
+        message = mapping.write(state)
+        assert mapping.read(message) == pytest.approx(state, abs=1e-12, rel=0)
+        # the twist is in the body frame: |v_body| = |v_world|
+        linear = message.twist.twist.linear
+        assert math.hypot(linear.x, linear.y, linear.z) == pytest.approx(math.hypot(*state[6:9]), rel=1e-12)
+
+
+def test_world_velocity_at_yaw_90_degrees_is_body_forward_speed_along_y():
+    # hand-computed: heading +y (yaw = 90 deg), moving forward at 1 m/s -> parent-frame (0, 1, 0)
+    mapping = FieldMap("nav_msgs/msg/Odometry", ["twist.world.x", "twist.world.y", "twist.world.z"], 3, "f")
+    assert mapping.read(_odometry(yaw=math.pi / 2, linear=(1.0, 0.0, 0.0))) == pytest.approx([0.0, 1.0, 0.0],
+                                                                                             abs=1e-15)
+    # and writing that state gives the body forward speed
+    written = FieldMap("nav_msgs/msg/Odometry", ["pose.orientation.yaw", "twist.world.y"], 2, "f").write(
+        [math.pi / 2, 1.0])
+    linear = written.twist.twist.linear
+    assert (linear.x, linear.y, linear.z) == pytest.approx((1.0, 0.0, 0.0), abs=1e-15)
+
+
+def test_euler_rates_are_the_body_rates_when_level():
+    mapping = FieldMap("nav_msgs/msg/Odometry", ["twist.euler.roll", "twist.euler.pitch", "-twist.euler.yaw"], 3, "f")
+    assert mapping.read(_odometry(yaw=2.2, angular=(0.3, -0.4, 0.5))) == pytest.approx([0.3, -0.4, -0.5],
+                                                                                       abs=1e-15)
+
+
+def test_euler_rates_agree_with_the_rotation_matrix_differentiated_numerically():
+    # Euler kinematic equations (Stevens and Lewis, Aircraft Control and Simulation; from memory),
+    # checked by another route: R(t) from ZYX angles moving at the rates, body rates from the skew
+    # matrix R^T dR/dt (central differences)
+    import numpy as np
+    rng = np.random.default_rng(7)
+    angles, rates = rng.uniform(-1.0, 1.0, 3), rng.uniform(-2.0, 2.0, 3)
+    h = 1e-6
+    derivative = (_zyx(*(angles + h * rates)) - _zyx(*(angles - h * rates))) / (2 * h)
+    omega = _zyx(*angles).T @ derivative
+    body = (omega[2, 1], omega[0, 2], omega[1, 0])
+    mapping = FieldMap("nav_msgs/msg/Odometry", ["twist.euler.roll", "twist.euler.pitch", "twist.euler.yaw"], 3, "f")
+    assert mapping.read(_odometry(*angles, angular=body)) == pytest.approx(list(rates), abs=1e-8)
+
+
+def test_euler_rates_at_gimbal_lock_are_refused_but_world_velocity_is_read():
+    message = _odometry(roll=0.2, pitch=math.pi / 2, yaw=0.1, linear=(1.0, 0.0, 0.0), angular=(0.0, 0.0, 0.1))
+    with pytest.raises(MessageError, match=r"bad_message: pitch 90 deg is at gimbal lock: the Euler-angle rates "
+                                           r"are undefined \(\|cos\(pitch\)\| < 1e-06\)") as info:
+        FieldMap("nav_msgs/msg/Odometry", ["twist.euler.yaw"], 1, "f").read(message)
+    assert info.value.reason == "bad_message"
+    world = FieldMap("nav_msgs/msg/Odometry", ["twist.world.z"], 1, "f").read(message)
+    assert world == pytest.approx([-1.0], abs=1e-15)             # nose straight up in ZYX: forward is -z
+
+
+def test_derived_fields_need_a_filled_quaternion_when_read():
+    message = _odometry(linear=(1.0, 0.0, 0.0))
+    message.pose.pose.orientation.w = 0.0
+    with pytest.raises(MessageError, match="norm 0"):
+        FieldMap("nav_msgs/msg/Odometry", ["twist.world.x"], 1, "f").read(message)
+
+
+def test_without_pose_angles_the_derived_twist_is_written_with_the_identity_pose():
+    mapping = FieldMap("nav_msgs/msg/Odometry", ["twist.world.x", "twist.euler.yaw"], 2, "f")
+    message = _odometry(roll=0.5, pitch=0.2, yaw=1.0)                # a reused message: its pose is not kept
+    mapping.write([2.0, 0.3], message)
+    q = message.pose.pose.orientation
+    assert (q.x, q.y, q.z, q.w) == (0.0, 0.0, 0.0, 1.0)
+    assert message.twist.twist.linear.x == 2.0 and message.twist.twist.angular.z == 0.3
+    assert mapping.read(message) == [2.0, 0.3]
+
+
+@pytest.mark.parametrize("fields, words", [
+    (["twist.world.x", "-twist.linear.y"], "'twist.linear.y' and 'twist.world.x' cannot share a map: both stand "
+                                           "for twist.twist.linear"),
+    (["twist.euler.yaw", "twist.angular.z"], "'twist.angular.z' and 'twist.euler.yaw' cannot share a map: both "
+                                             "stand for twist.twist.angular"),
+])
+def test_body_and_derived_twist_fields_cannot_share_a_map(fields, words):
+    with pytest.raises(ConfigError, match=f"^state_fields: {words} \\(use the body-frame or the derived paths, "
+                                          f"not both\\)$"):
+        FieldMap("nav_msgs/msg/Odometry", fields, 2, "state_fields")
+    # body-frame velocity with Euler rates, or parent-frame velocity with body rates, is one map
+    for allowed in (["twist.linear.x", "twist.euler.yaw"], ["twist.world.x", "twist.angular.z"]):
+        mapping = FieldMap("nav_msgs/msg/Odometry", allowed, 2, "state_fields")
+        assert mapping.read(mapping.write([0.5, -0.25])) == pytest.approx([0.5, -0.25], abs=1e-15)

@@ -319,3 +319,150 @@ def test_the_backend_parameter_chooses_the_step_and_a_wrong_one_is_refused_at_co
     wrong.trigger_configure()
     assert wrong._state_machine.current_state[0] == State.PRIMARY_STATE_UNCONFIGURED
     assert wrong.configure_error == "backend: expected one of native, python, got 'gpu'"
+
+
+# -- a dynamically extended artifact: the delivery cart (states x, y, th; compensator v_i1; inputs v, omega) --
+@pytest.fixture(scope="module")
+def cart_artifact(tmp_path_factory):
+    from linz_ros.codegen import artifact_path, build_document, write_artifact
+    from linz_ros.model import load_plant
+    from linz_ros.synthesis import synthesise
+    design = synthesise(load_plant(BUNDLED / "delivery_cart.yaml"))
+    return write_artifact(build_document(design, points=8)[0],
+                          artifact_path(tmp_path_factory.mktemp("cart"), "delivery_cart"))
+
+
+@pytest.fixture
+def make_cart(cart_artifact):
+    from linz_ros.nodes.controller import ControllerNode
+    made = []
+
+    def _make(**parameters):
+        context = rclpy.Context()
+        args = ["--ros-args", "--params-file", str(ROOT / "config" / "delivery_cart.yaml"), "-p",
+                f"artifact:={cart_artifact}", "-p", "autostart:=false"]
+        for key, value in parameters.items():
+            args += ["-p", f"{key}:={value}"]
+        rclpy.init(args=args, context=context)
+        node = ControllerNode(context=context)
+        made.append((node, context))
+        return node
+
+    yield _make
+    for node, context in made:
+        node.destroy_node()
+        context.try_shutdown()
+
+
+def _odometry(stamp, x=0.0, y=0.0, th=0.7854, speed=0.0, turn=0.0):
+    from nav_msgs.msg import Odometry
+    message = Odometry()
+    message.header.stamp.sec, message.header.stamp.nanosec = split_seconds(stamp)
+    message.pose.pose.position.x, message.pose.pose.position.y = x, y
+    message.pose.pose.orientation.z, message.pose.pose.orientation.w = math.sin(th / 2), math.cos(th / 2)
+    message.twist.twist.linear.x, message.twist.twist.angular.z = speed, turn
+    return message
+
+
+class _FieldLog:
+    """Stands in for the field-log writer: keeps what the loop puts."""
+
+    def __init__(self):
+        self.records = []
+
+    def put(self, values):
+        self.records.append(list(values))
+
+    def close(self):
+        from types import SimpleNamespace
+        return SimpleNamespace(state="closed", files=[], written=len(self.records), dropped=0, lost=0, error="")
+
+
+def test_an_extended_cart_reads_its_own_states_and_speed_and_commands_its_own_inputs(make_cart):
+    from geometry_msgs.msg import Twist
+    from linz_ros.runtime.steprecord import record_labels
+
+    node = make_cart(reference="hold")
+    node.trigger_configure()
+    assert node.configure_error == ""
+    artifact = node.core.artifact
+    assert artifact.states == ["x", "y", "th", "v_i1"] and artifact.inputs == ["v_d1", "omega"]
+    # messages in the plant's own states and inputs; the compensator's speed read from the twist
+    assert node.state_map.size == 3 and node.command_map.size == 2 and node.command_map.cls is Twist
+    assert [f.path for f in node.compensator_fields.map.fields] == ["twist.linear.x"]
+    assert node._conditioning_labels[-2:] == ["u.v", "u.omega"]
+    node.trigger_activate()
+    commands, records, log = [], [], _FieldLog()
+    node._command_pub.publish = commands.append
+    node._conditioning_pub.publish = lambda message: records.append(
+        (REASONS[int(message.data[4])], MODES[int(message.data[3])]))
+    node.field_log = log
+    now, T = time.time(), 1.0 / artifact.rate
+    labels = record_labels(artifact, states=True)
+    # the first state since activation: the compensator starts at the speed it measures (0.3 m/s), not the
+    # artifact's start value (0.45). With one integrator the plant gets the mean over the period,
+    # u = v0 + w T / 2, and the compensator ends at v0 + w T: 2 u - v_i1 = v0
+    node._on_state(_odometry(now, speed=0.3))
+    v = commands[-1].linear.x
+    assert 2 * v - node.core.compensator[0] == pytest.approx(0.3, abs=1e-12)
+    assert (commands[-1].angular.z, commands[-1].linear.y, commands[-1].angular.x) == (
+        pytest.approx(node.core.last_command[1]), 0.0, 0.0)
+    # the field log's x: the plant's state and the compensator this step used
+    assert len(log.records[-1]) == len(labels)
+    assert log.records[-1][-4:] == pytest.approx([0.0, 0.0, 0.7854, 0.3])
+    node._on_state(_odometry(now + T, speed=v))
+    assert records == [("ok", "nominal")] * 2
+    # a bad state: the safe command (zero: the cart stops), and the next accepted state restarts the
+    # compensator from the measured speed, 0, lifted to compensator_floor (0.1 m/s) off the singular set
+    node._on_state(_odometry(now + 2 * T, x=math.nan, speed=v))
+    assert records[-1] == ("non_finite_state", "safe") and (commands[-1].linear.x, commands[-1].angular.z) == (0, 0)
+    node._on_state(_odometry(now + 3 * T, speed=0.0))
+    assert records[-1] == ("ok", "nominal")
+    assert 2 * commands[-1].linear.x - node.core.compensator[0] == pytest.approx(0.1, abs=1e-12)
+
+
+def test_compensator_fields_are_refused_without_an_extension_or_in_the_wrong_number(make, make_cart):
+    from lifecycle_msgs.msg import State
+
+    arm = make(compensator_fields="['velocity.shoulder']")
+    arm.trigger_configure()
+    assert arm._state_machine.current_state[0] == State.PRIMARY_STATE_UNCONFIGURED
+    assert arm.configure_error == ("compensator_fields: the artifact pick_arm has no dynamic extension: there are "
+                                   "no compensator states to measure")
+    cart = make_cart(compensator_fields="['twist.linear.x', 'twist.angular.z']")
+    cart.trigger_configure()
+    assert cart._state_machine.current_state[0] == State.PRIMARY_STATE_UNCONFIGURED
+    assert cart.configure_error == ("compensator_fields: expected 1 field paths, one per compensator state (v_i1; "
+                                    "'' for one not measured), got 2")
+    unmeasured = make_cart(compensator_fields="['']")                # none measured: the start value
+    unmeasured.trigger_configure()
+    assert unmeasured.configure_error == "" and unmeasured.compensator_fields.map is None
+
+
+def test_the_compensator_floor_is_a_per_input_watchdog_parameter_that_changes_the_running_law(make_cart):
+    from rclpy.parameter import Parameter
+
+    node = make_cart(reference="hold")
+    assert node.describe_parameter("compensator_floor").read_only is False
+    node.trigger_configure()
+    node.trigger_activate()
+    assert node.core.config.compensator_floor == (0.1, math.inf)          # from config/delivery_cart.yaml
+    for value, reason in (([0.2], "expected 2 entries, one per input, got 1"), ([-0.1, 0.0], "must be >= 0")):
+        result = node.set_parameters([Parameter("compensator_floor", value=value)])[0]
+        assert not result.successful and "compensator_floor" in result.reason and reason in result.reason, result
+    result = node.set_parameters([Parameter("compensator_floor", value=[0.25, 0.0])])[0]
+    assert result.successful and node.core.config.compensator_floor == (0.25, math.inf)
+    commands = []
+    node._command_pub.publish = commands.append
+    node._on_state(_odometry(time.time(), speed=0.0))        # a standing cart restarts at the new floor
+    assert 2 * commands[-1].linear.x - node.core.compensator[0] == pytest.approx(0.25, abs=1e-12)
+
+
+def test_the_start_up_line_names_the_extension_and_nothing_without_one():
+    from linz_ros.nodes._extension import extension_text
+    from support import built_artifact
+
+    text = extension_text(built_artifact(BUNDLED / "delivery_cart.yaml"))
+    assert text == (", dynamic extension: compensator v_i1 (start v_i1=0.45 unless measured), law inputs v_d1, "
+                    "omega driving v, omega")
+    assert extension_text(built_artifact(BUNDLED / "pick_arm.yaml")) == ""

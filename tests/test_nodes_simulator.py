@@ -236,3 +236,79 @@ def test_the_summary_counts_states_sent_and_dropped(make):
     assert sim.states_sent + sim.states_dropped == 200 and 60 < sim.states_dropped < 140
     assert sim.summary().startswith("run: 0.400 s simulated, ") and \
         f"states sent {sim.states_sent}, dropped {sim.states_dropped}," in sim.summary()
+
+
+# -- a dynamically extended artifact: the delivery cart's plant (states x, y, th; inputs v, omega) -----------
+@pytest.fixture(scope="module")
+def cart_artifact(tmp_path_factory):
+    from linz_ros.codegen import artifact_path, build_document, write_artifact
+    from linz_ros.model import load_plant
+    from linz_ros.synthesis import synthesise
+    design = synthesise(load_plant(BUNDLED / "delivery_cart.yaml"))
+    return write_artifact(build_document(design, points=8)[0],
+                          artifact_path(tmp_path_factory.mktemp("cart"), "delivery_cart"))
+
+
+@pytest.fixture
+def make_cart(cart_artifact):
+    from linz_ros.nodes.simulator import PlantSimulatorNode
+    from support import ROOT
+    made = []
+
+    def _make(**parameters):
+        context = rclpy.Context()
+        args = ["--ros-args", "--params-file", str(ROOT / "config" / "delivery_cart.yaml"), "-p",
+                f"artifact:={cart_artifact}", "-p", "publish_clock:=true"]
+        for key, value in parameters.items():
+            args += ["-p", f"{key}:={value}"]
+        rclpy.init(args=args, context=context)
+        node = PlantSimulatorNode(context=context)
+        made.append((node, context))
+        return node
+
+    yield _make
+    for node, context in made:
+        node.destroy_node()
+        context.try_shutdown()
+
+
+def test_the_carts_odometry_carries_its_own_states_and_echoes_the_inputs_it_holds(make_cart):
+    from geometry_msgs.msg import Twist
+
+    sim = make_cart()
+    assert sim.x == pytest.approx([0.0, 0.0, 0.7854]) and sim.u == [0.0, 0.0]   # the plant's own, not v_i1
+    published = []
+    sim.state_pub.publish = published.append
+    sim._tick()                                        # braked: standing, and its odometry says so
+    assert (published[-1].twist.twist.linear.x, published[-1].twist.twist.angular.z) == (0.0, 0.0)
+    speed, turn, ticks = 0.5, 0.2, 50
+    sim._on_command(Twist(linear=type(Twist().linear)(x=speed), angular=type(Twist().angular)(z=turn)))
+    for _ in range(ticks):
+        sim._tick()
+    odometry = published[-1]
+    assert (odometry.twist.twist.linear.x, odometry.twist.twist.angular.z) == (speed, turn)
+    assert (odometry.twist.twist.linear.y, odometry.twist.twist.angular.x) == (0.0, 0.0)
+    assert (odometry.header.frame_id, odometry.child_frame_id) == ("odom", "base_link")    # REP 105
+    # a unicycle at constant speed and turn rate runs on a circle of radius v / omega (from memory)
+    t, th0 = ticks / sim.p["rate"], 0.7854
+    x = speed / turn * (math.sin(th0 + turn * t) - math.sin(th0))
+    y = speed / turn * (math.cos(th0) - math.cos(th0 + turn * t))
+    assert sim.x == pytest.approx([x, y, th0 + turn * t], abs=1e-9)
+    assert sim.state_map.read(odometry) == pytest.approx(sim.x, abs=1e-9)
+
+
+def test_input_fields_that_are_state_fields_or_of_the_wrong_number_are_one_line_config_errors(make_cart):
+    with pytest.raises(ConfigError, match=r"input_fields: 'pose.position.x' \(input v\) is also a state field"):
+        make_cart(input_fields="['-pose.position.x', '']")
+    with pytest.raises(ConfigError, match=r"input_fields: expected 2 field paths, one per input \(v, omega; '' "
+                                          r"for one not echoed\), got 1"):
+        make_cart(input_fields="['twist.linear.x']")
+    with pytest.raises(ConfigError, match="input_fields: 'twist.linear.q' is not a field of nav_msgs/msg/Odometry"):
+        make_cart(input_fields="['twist.linear.q', '']")
+    # the echoed inputs share the state message's map: a body twist beside its derived world one is refused
+    with pytest.raises(ConfigError, match="input_fields: 'twist.linear.x' and 'twist.world.x' cannot share a map"):
+        make_cart(state_fields="['pose.position.x', 'pose.position.y', 'twist.world.x']")
+    with pytest.raises(ConfigError, match=r"initial_state: expected 3 values \(x, y, th\) or none"):
+        make_cart(initial_state="[0.0, 0.0, 0.0, 0.45]")          # the compensator is not the plant's
+    echo_speed_only = make_cart(input_fields="['twist.linear.x', '']")
+    assert echo_speed_only.echoed == [0]

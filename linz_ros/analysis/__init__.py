@@ -19,7 +19,7 @@ search_dynamic_extension  integrators on inputs that decouple a rank-deficient s
 """
 
 from linz_ros.analysis._common import plant_context
-from linz_ros.analysis._extension import DynamicExtension, search_dynamic_extension
+from linz_ros.analysis._extension import DynamicExtension, extended_plant, search_dynamic_extension
 from linz_ros.analysis._envelope import EnvelopeResult, envelope_points, output_ranges, sample_envelope
 from linz_ros.analysis._input_output import (InputOutputResult, ZeroDynamics, analyse_input_output,
                                              decoupling_terms, invariant_zeros)
@@ -34,5 +34,5 @@ __all__ = [
     "sample_envelope", "envelope_points", "output_ranges", "invariant_zeros", "controllability_indices", "relative_degree_of",
     "decoupling_terms", "lie_chain", "DistributionInfo", "InputStateResult", "InputOutputResult",
     "ZeroDynamics", "EnvelopeResult", "plant_context", "MechanicalTerms", "mechanical_terms",
-    "DEFAULT_BUDGET_SECONDS", "DynamicExtension", "search_dynamic_extension",
+    "DEFAULT_BUDGET_SECONDS", "DynamicExtension", "search_dynamic_extension", "extended_plant",
 ]

@@ -40,6 +40,7 @@ import numpy as np
 import sympy as sp
 
 from linz_ros.analysis._common import count, plant_context, show, show_matrix
+from linz_ros.analysis._envelope import sample_envelope
 from linz_ros.analysis._input_state import describe_singular_set, lie_chain
 from linz_ros.analysis._numeric import numeric_chains, plant_jets, sampled_generic_rank
 from linz_ros.geometry import (SYMBOLIC_TREE_BUDGET, BeyondSymbolicBudget, BudgetExceeded, Monitor, NumericContext,
@@ -55,6 +56,8 @@ MAX_INTEGRATORS_PER_INPUT = 2
 MAX_ADDED_STATES = 4
 #: CPU seconds the whole search may take (within the analysis budget, whichever ends first).
 EXTENSION_SECONDS = 30.0
+#: Points of the extended decoupling matrix's sweep over the extended envelope.
+EXTENSION_ENVELOPE_SAMPLES = 256
 
 
 @dataclass
@@ -76,6 +79,10 @@ class DynamicExtension:
         The input-output analysis of the extended plant.
     largest_rank : int or None
         The largest generic rank seen over the candidates.
+    envelope : EnvelopeResult or None
+        The extended decoupling matrix over the extended envelope (the first compensator state of
+        each delayed input over its input's limits), when the plant has an envelope and the
+        matrix was formed; synthesis takes its sigma levels from it.
     """
 
     found: bool | None
@@ -87,6 +94,7 @@ class DynamicExtension:
     start: dict[str, float] = field(default_factory=dict)
     result: Any = None
     largest_rank: int | None = None
+    envelope: Any = None
 
     def text_line(self) -> str:
         """The extension in one line of the text report (after ``dynamic extension:``).
@@ -132,6 +140,7 @@ class DynamicExtension:
             "at_operating_point": None if io is None else io.reason,
             **({"method": io.method} if io is not None and io.method else {}),
             "largest_rank": self.largest_rank,
+            "envelope": None if self.envelope is None else self.envelope.to_json(),
             "tried": self.tried,
             "bound": {"integrators_per_input": MAX_INTEGRATORS_PER_INPUT, "added_states": MAX_ADDED_STATES},
             "reason": self.reason,
@@ -361,4 +370,8 @@ def _found(plant: Plant, counts: tuple[int, ...], extended: Plant, io: Any, trie
               f"{_nouns(new_inputs, 'new input')}) gives relative degree "
               f"{io.relative_degree_generic} and a decoupling matrix of full rank {len(plant.output_names)}, "
               f"{where}; zero dynamics of order {io.zero_dynamics_order}")
-    return DynamicExtension(True, reason, tried, dict(delayed), added, new_inputs, start, io, largest)
+    envelope = None
+    if extended.envelope and io.decoupling_matrix is not None:
+        envelope = sample_envelope(extended, io.decoupling_matrix, "decoupling matrix of the extended plant",
+                                   EXTENSION_ENVELOPE_SAMPLES)
+    return DynamicExtension(True, reason, tried, dict(delayed), added, new_inputs, start, io, largest, envelope)

@@ -244,8 +244,6 @@ def render_text(report: Report) -> str:
     if io is not None:
         lines += ["", "INPUT-OUTPUT", f"  {io.reason}",
                   f"  generic relative degree: {io.relative_degree_generic}"]
-        if io.dynamic_extension is not None:
-            lines.append(f"  dynamic extension: {io.dynamic_extension.text_line()}")
         if io.method:
             lines.append(f"  method: {io.method}")
         if io.decoupling_structure is not None:
@@ -271,6 +269,12 @@ def render_text(report: Report) -> str:
             lines.append(f"  zero dynamics at the equilibrium: {zd.stability}; eigenvalues {eig}")
         if zd is not None and zd.reason and not zd.eigenvalues:
             lines.append(f"  zero dynamics: {zd.reason}")
+        extension = io.dynamic_extension
+        if extension is not None:        # of the extended plant, which linz build designs for
+            lines.append(f"  dynamic extension: {extension.text_line()}")
+        if extension is not None and extension.envelope is not None and extension.envelope.min_sigma is not None:
+            lines.append(f"  extended decoupling matrix over the envelope: smallest singular value "
+                         f"{_fmt(extension.envelope.min_sigma)}, median {_fmt(extension.envelope.median_sigma)}")
     if env is not None:
         lines += ["", "ENVELOPE", f"  {env.subject}; {env.method}"]
         if env.min_sigma is None:

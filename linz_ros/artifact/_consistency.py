@@ -9,6 +9,7 @@ from typing import Any
 
 from linz_ros.artifact.chainlaw import CHAIN_LAW_OUTPUTS, LAW_FORMS
 from linz_ros.artifact.elastic import ELASTIC_CONSTANTS
+from linz_ros.artifact.extension import extension_problem
 from linz_ros.artifact.watchdog import PLANT_FILE_SETTINGS, setting, watchdog_problem
 from linz_ros.errors import ArtifactError
 
@@ -64,7 +65,13 @@ def check_consistency(document: dict[str, Any], source: str) -> None:
     need(isinstance(outputs, list) and len(outputs) == len(chains) and all(
         isinstance(o, str) and _IDENTIFIER.match(o) for o in outputs) and len(set(outputs)) == len(outputs),
          "design.outputs: expected one distinct identifier per chain")
-    _check_signal_units(plant.get("signal_units", {}), states + inputs + outputs, need)
+    extension = design.get("extension")
+    plant_inputs = []
+    if extension is not None:
+        found = extension_problem(extension, states, inputs, lambda v: bool(_IDENTIFIER.match(v)))
+        need(found is None, "" if found is None else f"design.extension{'.' if found[0] else ''}{found[0]}: {found[1]}")
+        plant_inputs = extension["plant_inputs"]
+    _check_signal_units(plant.get("signal_units", {}), states + inputs + plant_inputs + outputs, need)
     need(_is_number(design.get("rate")) and design["rate"] > 0, "design.rate: expected a positive number")
     integral = design.get("integral")
     need(isinstance(integral, bool), "design.integral: expected true or false")

@@ -15,6 +15,7 @@ from linz_ros.artifact._files import recorded_plant_paths
 from linz_ros.artifact.compiler import Program, compile_program
 from linz_ros.artifact.chainlaw import ChainLaw, chain_law
 from linz_ros.artifact.elastic import ElasticLaw, elastic_law
+from linz_ros.artifact.extension import Extension, read_extension
 
 __all__ = ["Artifact"]
 
@@ -55,8 +56,26 @@ class Artifact:
 
     @property
     def states(self) -> list[str]:
-        """State names in order."""
+        """State names in order (with a dynamic extension: the plant's, then the compensator's)."""
         return list(self.document["plant"]["states"])
+
+    @property
+    def extension(self) -> Extension | None:
+        """The compensator of a dynamically extended law (``design.extension``), else None."""
+        section = self.document["design"].get("extension")
+        return None if section is None else read_extension(section)
+
+    @property
+    def plant_states(self) -> list[str]:
+        """The states a state message carries: the plant's own (``states`` without an extension)."""
+        extension = self.extension
+        return self.states if extension is None else list(extension.plant_states)
+
+    @property
+    def plant_inputs(self) -> list[str]:
+        """The inputs a command carries: the plant's own (``inputs`` without an extension)."""
+        extension = self.extension
+        return self.inputs if extension is None else list(extension.plant_inputs)
 
     @property
     def inputs(self) -> list[str]:

@@ -14,7 +14,8 @@ Layout (format version 1)::
               and outputs; optional), input_limits, envelope, operating_point
     design:   kind, outputs, output_expressions, relative_degree, integral, rate, method,
               chains [{name, degree, gains, poles, sampled}], lqr, warnings, notes, law_form
-              (optional: "chain" when the chains are too large to print, else absent)
+              (optional: "chain" when the chains are too large to print, else absent), extension
+              (optional: the compensator of a dynamically extended law, artifact.extension)
     analysis: singular_set, singular_set_note, zero_dynamics_order, zero_dynamics_stability,
               sigma_reference, sigma_reference_note, envelope
     watchdog: sigma_warn, sigma_act, sigma_stop, damping, stale_after, integral_limit,

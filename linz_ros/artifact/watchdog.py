@@ -127,6 +127,11 @@ WATCHDOG_SETTINGS: tuple[WatchdogSetting, ...] = (
     WatchdogSetting("divergence_time", "s", "scalar", "a tracking error above divergence_error, and not "
                     "smaller than when it crossed it, for this long is divergence", lower_open=True,
                     upper=MAX_WATCHDOG_SECONDS, default=0.5),
+    WatchdogSetting("compensator_floor", "input", "per_input", "smallest magnitude the compensator keeps for a "
+                    "dynamically extended input (its first compensator state, the value the plant receives): a "
+                    "speed floor that keeps a vehicle off the extended singular set where the law needs it "
+                    "(det A = v for a wheeled cart); inputs without integrators ignore it",
+                    lower_open=True, none_means="no floor: the singularity watchdog alone acts near the set"),
     WatchdogSetting("divergence_action", "-", "choice", "when diverging: record it and go on (warn) or send "
                     "the safe command until the controller is reset (safe); a diverging law is not trusted to "
                     "stop the machine", default="safe", choices=("warn", "safe")),
@@ -304,6 +309,7 @@ def default_settings(sigma_reference: float, rate: float, inputs: int, outputs: 
     values["damping"] = values["sigma_act"]
     values["stale_after"] = STALE_PERIODS / rate
     values["rate_limits"] = [None] * inputs
+    values["compensator_floor"] = [None] * inputs
     values["divergence_error"] = None
     for row in WATCHDOG_SETTINGS:
         if row.artifact and row.name not in values:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import datetime
+import math
 import os
 from dataclasses import dataclass
 from pathlib import Path
@@ -12,12 +13,13 @@ import sympy as sp
 
 from linz_ros import __version__
 from linz_ros.artifact.document import FORMAT, FORMAT_VERSION, seal
+from linz_ros.artifact.extension import Extension
 from linz_ros.artifact.watchdog import artifact_settings, defaults_note
 from linz_ros.codegen._printer import to_grammar
 from linz_ros.codegen._chain_verify import CHAIN_POINTS, verify_chain_law
 from linz_ros.codegen._verify import DEFAULT_TOLERANCE, Verification, sample_points, verify_programs
 from linz_ros.errors import ArtifactError
-from linz_ros.synthesis import Design, transformed_symbols
+from linz_ros.synthesis import Design, delayed_counts, transformed_symbols
 
 __all__ = ["SymbolicProgram", "symbolic_programs", "build_document", "write_artifact", "artifact_path"]
 
@@ -177,11 +179,23 @@ def _design_section(design: Design) -> dict[str, Any]:
         "warnings": list(design.warnings),
         "notes": list(design.notes),
         **({"law_form": "chain"} if design.law_form == "chain" else {}),
+        **({"extension": _extension_section(design).to_json()} if design.extension is not None else {}),
         "mechanics": (None if not design.mechanical else
                       {"form": design.plant.mechanics.form, "coordinates": design.plant.mechanics.nq,
                        "computed_torque": _is_computed_torque(design),
                        **({"elastic": True} if design.plant.mechanics.elastic is not None else {})}),
     }
+
+
+def _extension_section(design: Design) -> Extension:
+    """The compensator of an extended design (:mod:`linz_ros.artifact.extension`)."""
+    base, extended = design.base_plant, design.plant
+    added = extended.state_names[base.n:]
+    return Extension(tuple(base.state_names), tuple(base.input_names),
+                     delayed_counts(base, design.extension), tuple(added),
+                     tuple(float(extended.operating_point[s]) for s in added),
+                     tuple(tuple(float(b) for b in base.input_limits.get(u, (-math.inf, math.inf)))
+                           for u in base.input_names))
 
 
 def _is_computed_torque(design: Design) -> bool:
@@ -230,6 +244,8 @@ def _signal_units(design: Design) -> dict[str, str]:
     """The plant's signal units of the names the artifact carries: states, inputs, the design's outputs."""
     plant = design.plant
     known = set(plant.state_names) | set(plant.input_names) | {c.name for c in design.chains}
+    if design.base_plant is not None:
+        known |= set(design.base_plant.input_names)
     return {name: unit for name, unit in plant.signal_units.items() if name in known}
 
 

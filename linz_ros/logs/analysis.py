@@ -325,12 +325,17 @@ def as_sim_result(log: StepLog, artifact: Artifact, note: str = "from the contro
     LogError
         When the log's outputs, inputs or states are not the artifact's.
     """
-    for prefix, names in (("y", artifact.outputs), ("u", artifact.inputs), ("x", artifact.states)):
-        if log.names(prefix) != list(names):
+    # x: the artifact's states or, with a dynamic extension, the plant's own (a log without the compensator)
+    own = log.names("x") == artifact.plant_states != artifact.states
+    for prefix, names in (("y", artifact.outputs), ("u", artifact.plant_inputs), ("x", artifact.states)):
+        if log.names(prefix) != list(names) and not (prefix == "x" and own):
             raise LogError(", ".join(log.files) or "log", f"its {prefix} fields {log.names(prefix)} are not "
                                                          f"those of the artifact {artifact.name} ({list(names)})")
+    x = None
+    if own:               # the compensator's columns unknown (nan)
+        x = np.hstack([log.block("x"), np.full((len(log), len(artifact.states) - len(artifact.plant_states)), np.nan)])
     return SimResult(artifact=artifact, reference=None, notes=[note],
-                     **log.decoded().result_fields(artifact.relative_degree))
+                     **log.decoded().result_fields(artifact.relative_degree, x=x))
 
 
 def _alarm_summary(log: StepLog, t: np.ndarray, reason: np.ndarray, mode: np.ndarray) -> dict[str, Any]:

@@ -27,6 +27,7 @@ from linz_ros.logs.reader import StepLog, metadata_json
 from linz_ros.plotting import (NO_UNIT, RunView, pyplot, save_figure, sigma_label, title_figure, unit_label,
                                write_plots)
 from linz_ros.runtime import WatchdogConfig
+from linz_ros.runtime.extension import command_limits
 from linz_ros.runtime.steprecord import write_csv as write_run_csv
 
 __all__ = ["summary_text", "write_csv", "plot_log", "write_html", "log_view", "singular_plane", "singular_slice",
@@ -177,7 +178,7 @@ def log_view(log: StepLog, artifact: Artifact | None = None) -> RunView:
         plant=str(plant or "field log"), t=steps.t, units=artifact.signal_units if artifact is not None else {},
         outputs=steps.outputs, y=steps.y, ref=steps.ref if steps.outputs and log.names("ref") == steps.outputs
         else None, inputs=steps.inputs, u=steps.u, saturated=steps.saturated,
-        input_limits=list(artifact.input_limits) if artifact is not None else None, states=steps.states, x=steps.x,
+        input_limits=command_limits(artifact, config) if artifact is not None else None, states=steps.states, x=steps.x,
         sigma_min=steps.sigma_min, mode=steps.mode, reason=steps.reason, alarms=steps.alarms,
         envelope=artifact.envelope if artifact is not None else {},
         envelope_margin=_recorded_margin(log, config),

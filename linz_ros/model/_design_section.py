@@ -102,7 +102,7 @@ def _read_watchdog(reader: Reader, section: Any, inputs: list[str], outputs: tup
             result[key] = _read_safe_command(reader, value, inputs)
         elif row.shape == "choice":
             result[key] = value
-        elif key == "rate_limits":
+        elif row.shape == "per_input":
             result[key] = _per_name(reader, field, value, inputs, "input")
         elif key == "divergence_error" and not isinstance(value, dict):
             result[key] = reader.number(field, value)
@@ -116,7 +116,7 @@ def _read_watchdog(reader: Reader, section: Any, inputs: list[str], outputs: tup
     found = watchdog_problem(canonical, len(inputs))
     if found is not None:
         name, problem = found
-        names = inputs if name == "rate_limits" else list(result.get(name, {})) if name == "divergence_error" else []
+        names = inputs if watchdog_setting(name).shape == "per_input" else list(result.get(name, {})) if name == "divergence_error" else []
         entry = re.fullmatch(r"entry (\d+): (.*)", problem)
         if entry and int(entry.group(1)) < len(names):
             raise reader.fail(f"design.watchdog.{name}.{names[int(entry.group(1))]}", entry.group(2))

@@ -6,16 +6,18 @@ negated with a leading ``-`` (for frame conventions such as ENU against NED):
 - ``sensor_msgs/msg/JointState``: ``position.<joint>``, ``velocity.<joint>``,
   ``effort.<joint>`` (joints by name, in any order in the message);
 - ``nav_msgs/msg/Odometry``: ``pose.position.x|y|z``, ``pose.orientation.roll|pitch|yaw``
-  (from the quaternion), ``twist.linear.x|y|z``, ``twist.angular.x|y|z``;
+  (from the quaternion), ``twist.linear.x|y|z``, ``twist.angular.x|y|z`` (body frame), and
+  derived from them through the pose: ``twist.world.x|y|z`` (parent-frame velocity) and
+  ``twist.euler.roll|pitch|yaw`` (Euler-angle rates); see :mod:`linz_ros.nodes._odometry`;
 - ``geometry_msgs/msg/Wrench``: ``force.x|y|z``, ``torque.x|y|z``;
 - ``geometry_msgs/msg/Twist``: ``linear.x|y|z``, ``angular.x|y|z``;
 - ``std_msgs/msg/Float64MultiArray``: ``data.<index>`` (an empty field list means
   ``data.0, data.1, ...`` in the artifact's order).
 
 Every supported type is one row of :data:`ADAPTERS` (a :class:`MessageType`): its class,
-the direction(s) it may carry, whether it has a header stamp, which field paths it has,
-and the codec that reads and writes a list of field paths; :class:`FieldMap` dispatches
-through the row and knows no type by name.
+the direction(s) it may carry, whether it has a header stamp, which field paths it has
+(and which may not share a map), and the codec that reads and writes a list of field paths;
+:class:`FieldMap` dispatches through the row and knows no type by name.
 
 A message that does not fit (missing joint, arrays of the wrong length, a value that is
 not a number) raises :class:`MessageError` with a short reason; the controller then sends
@@ -35,15 +37,12 @@ from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray, MultiArrayDimension
 
 from linz_ros.errors import ConfigError
+from linz_ros.nodes._odometry import AXES, PATHS, OdometryCodec, map_problem
 
 __all__ = ["MessageError", "FieldMap", "MessageType", "ADAPTERS", "STATE_TYPES", "COMMAND_TYPES", "message_class",
            "stamp_seconds", "set_stamp", "split_seconds", "labelled_array"]
 
 _JOINT_ARRAYS = ("position", "velocity", "effort")
-_AXES = ("x", "y", "z")
-_ANGLES = ("roll", "pitch", "yaw")
-_ODOMETRY = {f"pose.position.{a}" for a in _AXES} | {f"pose.orientation.{a}" for a in _ANGLES} \
-    | {f"twist.{k}.{a}" for k in ("linear", "angular") for a in _AXES}
 _LAST_STAMP = 2_147_483_647.0       # builtin_interfaces/Time.sec is an int32
 _MAX_ENTRIES = 100_000              # data.<index> of a Float64MultiArray: index below this
 
@@ -95,6 +94,9 @@ class MessageType:
     default_fields : callable or None
         ``default_fields(size)``: the field paths an empty field list stands for; None when
         the type needs one field per entry.
+    map_problem : callable
+        ``map_problem(paths)``: why fields of the type (each passing ``path_problem``) cannot
+        share one map, as one line, or None.
     """
 
     name: str
@@ -104,6 +106,7 @@ class MessageType:
     path_problem: Callable[[str], str | None]
     bind: Callable[[list[_Field], bool], _Codec]
     default_fields: Callable[[int], list[str]] | None = None
+    map_problem: Callable[[Sequence[str]], str | None] = lambda paths: None
 
 
 def message_class(type_name: str, allowed: Sequence[str], option: str) -> type:
@@ -205,31 +208,6 @@ def labelled_array(values: Sequence[float], labels: Sequence[str]) -> Float64Mul
     return message
 
 
-def _quaternion_to_rpy(q) -> tuple[float, float, float]:
-    # ZYX (yaw-pitch-roll) angles of a unit quaternion (common practice, e.g. REP 103 frames);
-    # an unfilled (all-zero) or far from unit quaternion is refused, a nearly unit one normalised
-    x, y, z, w = q.x, q.y, q.z, q.w
-    norm = math.sqrt(x * x + y * y + z * z + w * w)
-    if not (math.isfinite(norm) and abs(norm - 1.0) <= 0.05):
-        raise MessageError("bad_message", f"orientation quaternion has norm {norm:.4g}, not 1")
-    x, y, z, w = x / norm, y / norm, z / norm, w / norm
-    roll = math.atan2(2.0 * (w * x + y * z), 1.0 - 2.0 * (x * x + y * y))
-    sine = max(-1.0, min(1.0, 2.0 * (w * y - z * x)))
-    pitch = math.asin(sine)
-    yaw = math.atan2(2.0 * (w * z + x * y), 1.0 - 2.0 * (y * y + z * z))
-    return roll, pitch, yaw
-
-
-def _rpy_to_quaternion(roll: float, pitch: float, yaw: float) -> tuple[float, float, float, float]:
-    if not (math.isfinite(roll) and math.isfinite(pitch) and math.isfinite(yaw)):
-        return (math.nan,) * 4           # written as is, like any other non-finite value
-    cr, sr = math.cos(roll / 2), math.sin(roll / 2)
-    cp, sp = math.cos(pitch / 2), math.sin(pitch / 2)
-    cy, sy = math.cos(yaw / 2), math.sin(yaw / 2)
-    return (sr * cp * cy - cr * sp * sy, cr * sp * cy + sr * cp * sy, cr * cp * sy - sr * sp * cy,
-            cr * cp * cy + sr * sp * sy)
-
-
 def _listed(names: Sequence[str], most: int = 8) -> str:
     """Names for a message: quoted (a name may hold a line break), at most ``most`` of them."""
     shown = ", ".join(repr(n) for n in names[:most])
@@ -327,50 +305,26 @@ class _ArrayCodec:
         message.data = data
 
 
-# -- Odometry, Wrench, Twist: attributes (and Euler angles of a quaternion) ----------------
+# -- Odometry (in _odometry.py), Wrench, Twist: attributes --------------------------------
 class _AttributeCodec:
-    """Fields at dotted attribute chains (``attribute(path)``, never a bare name); with ``angles``
-    (path prefix, quaternion chain) the ``<prefix>roll|pitch|yaw`` fields go through that quaternion."""
+    """Fields whose paths are dotted attribute chains (``group.axis``, never a bare name)."""
 
-    def __init__(self, fields: list[_Field], attribute: Callable[[str], str],
-                 angles: tuple[str, str] | None = None) -> None:
-        prefix, quaternion = angles if angles is not None else (None, "")
-        self.slots = []                       # (read, parent, name, angle index or None, sign)
+    def __init__(self, fields: list[_Field], exact: bool = False) -> None:
+        self.slots = []                       # (read, parent, name, sign)
         for f in fields:
-            if prefix is not None and f.path.startswith(prefix):
-                self.slots.append((None, None, "", _ANGLES.index(f.path[len(prefix):]), f.sign))
-                continue
-            chain = attribute(f.path)
-            parent, _, name = chain.rpartition(".")
-            self.slots.append((attrgetter(chain), attrgetter(parent), name, None, f.sign))
-        self.angles = any(slot[3] is not None for slot in self.slots)
-        self.quaternion = attrgetter(quaternion) if self.angles else None
+            parent, _, name = f.path.rpartition(".")
+            self.slots.append((attrgetter(f.path), attrgetter(parent), name, f.sign))
 
     def read(self, message: Any) -> list[float]:
-        rpy = _quaternion_to_rpy(self.quaternion(message)) if self.angles else ()
-        return [sign * (rpy[angle] if angle is not None else float(get(message)))
-                for get, _, _, angle, sign in self.slots]
+        return [sign * float(get(message)) for get, _, _, sign in self.slots]
 
     def write(self, values: Sequence[float], message: Any) -> None:
-        rpy = [0.0, 0.0, 0.0]
-        for (_, parent, name, angle, sign), v in zip(self.slots, values):
-            if angle is not None:
-                rpy[angle] = sign * float(v)
-            else:
-                setattr(parent(message), name, sign * float(v))
-        if self.angles:
-            q = self.quaternion(message)
-            q.x, q.y, q.z, q.w = _rpy_to_quaternion(*rpy)
+        for (_, parent, name, sign), v in zip(self.slots, values):
+            setattr(parent(message), name, sign * float(v))
 
 
 def _odometry_problem(path: str) -> str | None:
-    return None if path in _ODOMETRY else _not_a_field(path, "nav_msgs/msg/Odometry")
-
-
-def _odometry_codec(fields: list[_Field], exact: bool) -> _AttributeCodec:
-    # pose.position.x is message.pose.pose.position.x (PoseWithCovariance), twist.* likewise
-    return _AttributeCodec(fields, lambda path: f"{path.split('.', 1)[0]}.{path}",
-                           ("pose.orientation.", "pose.pose.orientation"))
+    return None if path in PATHS else _not_a_field(path, "nav_msgs/msg/Odometry")
 
 
 def _vector3_row(name: str, cls: type, groups: tuple[str, str]) -> MessageType:
@@ -378,10 +332,9 @@ def _vector3_row(name: str, cls: type, groups: tuple[str, str]) -> MessageType:
 
     def problem(path: str) -> str | None:
         head, _, axis = path.partition(".")
-        return None if head in groups and axis in _AXES else _not_a_field(path, name)
+        return None if head in groups and axis in AXES else _not_a_field(path, name)
 
-    return MessageType(name, cls, ("command",), False, problem,
-                       lambda fields, exact: _AttributeCodec(fields, lambda path: path))
+    return MessageType(name, cls, ("command",), False, problem, _AttributeCodec)
 
 
 #: The supported message types, one row each; a new type is a new row (DEVELOPERS.md).
@@ -390,7 +343,8 @@ ADAPTERS: dict[str, MessageType] = {row.name: row for row in (
                 _ArrayCodec, lambda size: [f"data.{i}" for i in range(size)]),
     MessageType("sensor_msgs/msg/JointState", JointState, ("state", "command"), True, _joint_state_problem,
                 _JointStateCodec),
-    MessageType("nav_msgs/msg/Odometry", Odometry, ("state",), True, _odometry_problem, _odometry_codec),
+    MessageType("nav_msgs/msg/Odometry", Odometry, ("state",), True, _odometry_problem,
+                lambda fields, exact: OdometryCodec(fields), map_problem=map_problem),
     _vector3_row("geometry_msgs/msg/Wrench", Wrench, ("force", "torque")),
     _vector3_row("geometry_msgs/msg/Twist", Twist, ("linear", "angular")),
 )}
@@ -417,7 +371,8 @@ class FieldMap:
     Raises
     ------
     ConfigError
-        For an unknown type or field, a repeated field, or the wrong number of fields.
+        For an unknown type or field, a repeated field, the wrong number of fields, or
+        fields that cannot share a map (the type's ``map_problem``).
     """
 
     def __init__(self, type_name: str, fields: Sequence[str], size: int, option: str) -> None:
@@ -440,8 +395,7 @@ class FieldMap:
         paths = [f.path for f in parsed]
         if len(set(paths)) != len(paths):
             raise ConfigError(option, "a field path appears twice")
-        for path in paths:
-            problem = row.path_problem(path)
+        for problem in [row.path_problem(path) for path in paths] + [row.map_problem(paths)]:
             if problem is not None:
                 raise ConfigError(option, problem)
         self.fields = parsed

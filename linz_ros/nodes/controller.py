@@ -1,4 +1,6 @@
-"""The managed controller node: state in, linearizing command out, watchdogs and diagnostics.
+"""Over 500 lines because the managed node is one class whose lifecycle, loop, timers and callbacks share
+its state (its ROS-free parts live in ``runtime``). The managed controller node: state in, linearizing
+command out, watchdogs and diagnostics.
 
 Lifecycle: ``configure`` loads and verifies the artifact and builds the core and the
 topics (refusing with a logged reason), ``activate`` starts commanding, ``deactivate``
@@ -9,7 +11,9 @@ Topics (names are parameters): state in (JointState, Odometry or Float64MultiArr
 command out (Float64MultiArray, JointState efforts, Wrench or Twist), reference in
 (Float64MultiArray ``[y1, y1', ..., y1^(r1), y2, ...]``) unless a built-in reference is
 chosen, ``~/conditioning`` (one labelled Float64MultiArray per step) and
-``/diagnostics`` (about once a second).
+``/diagnostics`` (about once a second). With a dynamic extension the messages carry the
+plant's own states and inputs; ``compensator_fields`` name the state message's fields that
+measure the compensator (a cart's speed), from which it restarts.
 """
 
 from __future__ import annotations
@@ -28,6 +32,7 @@ from std_msgs.msg import Float64MultiArray
 from linz_ros.artifact import load_artifact
 from linz_ros.errors import LinzError
 from linz_ros.nodes._common import EXECUTORS, SAFETY_NOTICE, control_qos, declare, entry_point
+from linz_ros.nodes._extension import CompensatorFields, extension_text
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, labelled_array,
                                      message_class, set_stamp, stamp_seconds)
 from linz_ros.runtime import WatchdogConfig
@@ -152,7 +157,7 @@ class ControllerNode(LifecycleNode):
         a = self.core.artifact
         self.get_logger().info(f"configured: {a.name} ({a.kind}, relative degree {a.relative_degree}, "
                                f"{a.rate:g} Hz design rate), plant file {a.plant_check}, signature {a.signature_check}, "
-                               f"{self.core.backend} step")
+                               f"{self.core.backend} step{extension_text(a)}")
         return TransitionCallbackReturn.SUCCESS
 
     def _configure(self) -> None:
@@ -167,10 +172,12 @@ class ControllerNode(LifecycleNode):
             self.get_logger().warning(note)
         message_class(p["state_type"], STATE_TYPES, "state_type")
         message_class(p["command_type"], COMMAND_TYPES, "command_type")
-        self.state_map = FieldMap(p["state_type"], [f for f in p["state_fields"] if f], len(artifact.states),
+        # messages carry the plant's own states and inputs; a dynamic extension's compensator lives in the core
+        self.state_map = FieldMap(p["state_type"], [f for f in p["state_fields"] if f], len(artifact.plant_states),
                                   "state_fields")
-        self.command_map = FieldMap(p["command_type"], [f for f in p["command_fields"] if f], len(artifact.inputs),
-                                    "command_fields")
+        self.command_map = FieldMap(p["command_type"], [f for f in p["command_fields"] if f],
+                                    len(artifact.plant_inputs), "command_fields")
+        self.compensator_fields = CompensatorFields(artifact, p["state_type"], p["compensator_fields"])
         self.reference = ReferenceSource(core, p["reference"].strip(), p["reference_timeout"], artifact.outputs,
                                          p["reference_extrapolate"])
         self.core = core
@@ -191,7 +198,8 @@ class ControllerNode(LifecycleNode):
             self._owned_subscriptions.append(self.create_subscription(Float64MultiArray, p["reference_topic"],
                                                                 self._on_reference, qos))
         self._owned_timers = [self._stale_timer(core.config.stale_after)]
-        self._no_state = [math.nan] * len(artifact.states)
+        self._no_state = [math.nan] * len(artifact.states)        # x of the field log: with the compensator
+        self._extended = artifact.extension is not None
         self._open_field_log()
 
     def _open_field_log(self) -> None:
@@ -236,6 +244,7 @@ class ControllerNode(LifecycleNode):
 
     def on_activate(self, state: LifecycleState) -> TransitionCallbackReturn:
         self.core.reset()
+        self._compensator_fresh = self.compensator_fields.map is not None     # restarted again at the first state
         self.reference.restart(self._now())
         # everything alive now (modules, the artifact, rclpy) stays out of the cyclic garbage
         # collector's passes: a full pass over it takes tens of milliseconds, in the control loop
@@ -364,6 +373,7 @@ class ControllerNode(LifecycleNode):
             now = stamp
         try:
             x = self.state_map.read(message)
+            measured = self.compensator_fields.read(message) if self.compensator_fields.map is not None else None
         except MessageError as err:
             self.window.rejected += 1
             self.get_logger().warning(f"state message rejected ({err.reason}): {err.detail}",
@@ -371,6 +381,11 @@ class ControllerNode(LifecycleNode):
             u, record = self.core.safe_step(now, "bad_message")
             self._publish(u, record, now)
             return
+        if measured is not None:             # used whenever the compensator restarts
+            self.core.observe_compensator(measured)
+            if self._compensator_fresh:       # the first state since activation: start from what it measures
+                self._compensator_fresh = False
+                self.core.reset()
         ref = self.reference.sample(x, now)
         if self.reference.stale:
             if self.reference.latest is None:
@@ -378,6 +393,7 @@ class ControllerNode(LifecycleNode):
             else:
                 self.window.reference_stale += 1
         u, record = self.core.step(x, ref, stamp, now)
+        logged = self.core.last_extended_state if self._extended else x     # with the compensator this step used
         accepted = record.reason in ("ok", "near_singular", "singular")
         if accepted:
             self._last_state_steady = self._steady_now()
@@ -388,7 +404,7 @@ class ControllerNode(LifecycleNode):
             self.get_logger().warning(f"state refused ({record.reason}): stamp {stamp:.6f} s, now {now:.6f} s; "
                                       "safe command", throttle_duration_sec=2.0)
         # a command computed from a state carries its stamp (traceable); a refusal is stamped now
-        self._publish(u, record, stamp if accepted else now, ref if accepted else None, x)
+        self._publish(u, record, stamp if accepted else now, ref if accepted else None, logged)
 
     def no_state_timeout(self) -> float:
         """Wall-clock seconds without an accepted state before the stale timer sends the safe command.

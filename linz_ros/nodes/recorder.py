@@ -23,6 +23,7 @@ from std_msgs.msg import Float64MultiArray
 
 from linz_ros.artifact import Artifact
 from linz_ros.nodes._common import control_qos
+from linz_ros.nodes._extension import CompensatorFields
 from linz_ros.nodes.adapters import FieldMap, MessageError, stamp_seconds
 from linz_ros.runtime import Reference, SimResult
 from linz_ros.runtime.steprecord import decode, record_labels
@@ -42,6 +43,7 @@ class TopicMap:
     command_fields: list[str]
     reference_topic: str
     conditioning_topic: str = "/linz_controller/conditioning"
+    compensator_fields: list[str] = field(default_factory=list)   # as the controller's, with a dynamic extension
 
 
 @dataclass
@@ -74,9 +76,12 @@ class BringupRecorder(Node):
         self.executor_.add_node(self)
         self.artifact = artifact
         self.topics = topics
-        self.state_map = FieldMap(topics.state_type, topics.state_fields, len(artifact.states), "state_fields")
-        self.command_map = FieldMap(topics.command_type, topics.command_fields, len(artifact.inputs),
+        # messages carry the plant's own states and inputs; a state row is the artifact's states (with a dynamic
+        # extension, the compensator's as far as compensator_fields measure them, else nan)
+        self.state_map = FieldMap(topics.state_type, topics.state_fields, len(artifact.plant_states), "state_fields")
+        self.command_map = FieldMap(topics.command_type, topics.command_fields, len(artifact.plant_inputs),
                                     "command_fields")
+        self.compensator = CompensatorFields(artifact, topics.state_type, topics.compensator_fields)
         self.recording = Recording()
         self.callbacks: list[Callable[[str, Any], None]] = []
         qos = control_qos(1000)         # a deep reader queue: a recorder that falls behind loses nothing
@@ -92,18 +97,20 @@ class BringupRecorder(Node):
         return time.monotonic()
 
     def _on_state(self, message: Any) -> None:
-        self._keep_vector("state", message, self.state_map, self.recording.states)
+        self._keep_vector("state", message, self.state_map, self.recording.states, self.compensator)
 
     def _on_command(self, message: Any) -> None:
         self._keep_vector("command", message, self.command_map, self.recording.commands)
 
     def _keep_vector(self, kind: str, message: Any, field_map: FieldMap,
-                     kept: list[tuple[float, float | None, list[float]]]) -> None:
+                     kept: list[tuple[float, float | None, list[float]]], more: Any = None) -> None:
         """Keep the vector a state or command message carries (nan where it does not read) with its stamp."""
-        try:
-            values = field_map.read(message)
-        except MessageError:
-            values = [math.nan] * field_map.size
+        values = []
+        for reader in (field_map, more) if more is not None and more.size else (field_map,):
+            try:
+                values += reader.read(message)
+            except MessageError:
+                values += [math.nan] * reader.size
         kept.append((self._now(), stamp_seconds(message), values))
         self._notify(kind, message)
 

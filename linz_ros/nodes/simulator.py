@@ -13,6 +13,10 @@ a burst of NaN, parameter mismatch, input delay, sensor delay (a state goes out
 ``state_delay`` after its stamp), a jump of the clock (a simulation reset:
 simulated time, ``/clock`` and the state stamps move back or ahead once) and a flood
 (for a while every period is sampled and published ``flood_factor`` times).
+
+States and commands are the plant's own (with a dynamic extension, the compensator is the
+controller's); ``input_fields`` write the inputs the plant holds into its state message
+beside the states, as a wheeled cart's odometry reports its speed and turn rate.
 """
 
 from __future__ import annotations
@@ -29,6 +33,7 @@ from rosgraph_msgs.msg import Clock
 from linz_ros.artifact import load_artifact
 from linz_ros.errors import ConfigError
 from linz_ros.nodes._common import RCLError, control_qos, declare, entry_point
+from linz_ros.nodes._extension import echo_map
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, message_class,
                                      set_stamp, split_seconds)
 from linz_ros.runtime import mismatched_parameters, parse_assignments
@@ -60,15 +65,17 @@ class PlantSimulatorNode(Node):
             raise ConfigError("artifact", "parameter is empty: pass -p artifact:=PATH (from linz build)")
         artifact = load_artifact(p["artifact"], check_plant=False)
         self.artifact = artifact
-        n, m = len(artifact.states), len(artifact.inputs)
+        # the plant's own states and inputs (with a dynamic extension the compensator is the controller's)
+        states, inputs = artifact.plant_states, artifact.plant_inputs
+        n, m = len(states), len(inputs)
         params = mismatched_parameters(artifact, parse_assignments([s for s in p["mismatch"] if s], "mismatch"))
         self.plant, note = make_plant(artifact, params, backend=p["backend"])
         if note is not None:
             self.get_logger().warning(note)
         initial = [v for v in p["initial_state"]]
         if initial and len(initial) != n:
-            raise ConfigError("initial_state", f"expected {n} values ({', '.join(artifact.states)}) or none")
-        self.x = [float(v) for v in initial] if initial else artifact.operating_point
+            raise ConfigError("initial_state", f"expected {n} values ({', '.join(states)}) or none")
+        self.x = [float(v) for v in initial] if initial else artifact.operating_point[:n]
         noise = list(p["noise"])
         if len(noise) not in (0, 1, n) or any(not (v >= 0) for v in noise):
             raise ConfigError("noise", f"expected no value, one, or {n} standard deviations >= 0")
@@ -77,6 +84,7 @@ class PlantSimulatorNode(Node):
         message_class(p["command_type"], COMMAND_TYPES, "command_type")
         self.state_map = FieldMap(p["state_type"], [f for f in p["state_fields"] if f], n, "state_fields")
         self.command_map = FieldMap(p["command_type"], [f for f in p["command_fields"] if f], m, "command_fields")
+        self.echo_map, self.echoed = echo_map(self.state_map, p["input_fields"], inputs)
         self.p = p
         self.period = 1.0 / p["rate"]
         self.u = [0.0] * m
@@ -124,9 +132,16 @@ class PlantSimulatorNode(Node):
         p["state_topic"] = declare(self, "state_topic", "state", "state topic", True)
         p["state_type"] = declare(self, "state_type", "std_msgs/msg/Float64MultiArray", "state message type", True)
         p["state_fields"] = declare(self, "state_fields", [], "field path of each state", True, array_of=str)
+        p["frame_id"] = declare(self, "frame_id", "", "header.frame_id of the state messages (REP 105: odom "
+                                "for odometry; '': left empty)", True)
+        p["child_frame_id"] = declare(self, "child_frame_id", "", "child_frame_id of Odometry state messages, the "
+                                      "twist's frame (REP 105: base_link; '': left empty)", True)
         p["command_topic"] = declare(self, "command_topic", "command", "command topic", True)
         p["command_type"] = declare(self, "command_type", "std_msgs/msg/Float64MultiArray", "command type", True)
         p["command_fields"] = declare(self, "command_fields", [], "field path of each input", True, array_of=str)
+        p["input_fields"] = declare(self, "input_fields", [], "field path of the state message echoing each input "
+                                    "the plant holds ('' for one not echoed; empty: none), e.g. a cart's odometry "
+                                    "twist.linear.x for its speed", True, array_of=str)
         p["initial_state"] = declare(self, "initial_state", [], "initial state (empty: the operating point)",
                                      True, array_of=float)
         p["mismatch"] = declare(self, "mismatch", [], "parameter=percent changes of the plant", True,
@@ -321,13 +336,24 @@ class PlantSimulatorNode(Node):
         burst = p["nan_burst_at"]
         if burst >= 0 and burst <= elapsed < burst + p["nan_burst_duration"]:
             measured = [math.nan] * len(measured)
-        message = self.state_map.write(measured)
+        if self.echo_map is None:
+            message = self.state_map.write(measured)
+        else:           # the inputs held over the period just integrated, beside the states
+            message = self.echo_map.write(measured + [self.u[j] for j in self.echoed])
         set_stamp(message, stamp)
+        self._set_frames(message)
         self.frozen = message
         if p["state_delay"] > 0.0:
             self.delayed_states.append((self._now() + p["state_delay"], message))
             return
         self._send(self.state_pub, message)
+
+    def _set_frames(self, message: Any) -> None:
+        """The frames of the parameters, where the message has them."""
+        if self.p["frame_id"] and hasattr(message, "header"):
+            message.header.frame_id = self.p["frame_id"]
+        if self.p["child_frame_id"] and hasattr(message, "child_frame_id"):
+            message.child_frame_id = self.p["child_frame_id"]
 
     def _send_due_states(self, now: float) -> None:
         """Publish the delayed state messages whose time has come (stamps unchanged)."""

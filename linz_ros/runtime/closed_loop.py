@@ -163,7 +163,7 @@ class SimResult:
             "max_condition": float(condition.max()) if condition.size else None,
             "time_in_mode": {m: float(sum(1 for x in self.mode if x == m) * T) for m in MODES},
             "saturated_fraction": {u: float(np.mean(self.saturated[:, j])) if len(self.t) else 0.0
-                                   for j, u in enumerate(self.artifact.inputs)},
+                                   for j, u in enumerate(self.artifact.plant_inputs)},
             "reasons": reasons,
             "compute_time_us": {"p50": float(np.percentile(self.compute_time, 50) * 1e6),
                                 "p99": float(np.percentile(self.compute_time, 99) * 1e6),
@@ -203,7 +203,7 @@ class SimResult:
         pathlib.Path
         """
         a = self.artifact
-        return write_csv(path, vars(self), a.states, a.outputs, a.inputs, a.relative_degree)
+        return write_csv(path, vars(self), a.states, a.outputs, a.plant_inputs, a.relative_degree)
 
 
 def fit_decay_rate(t: np.ndarray, error: np.ndarray, upper: float = 1e-1, lower: float = 1e-4,
@@ -312,7 +312,11 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     _check_settings(artifact, settings)
     core, core_note = make_core(artifact, settings.config, backend=settings.backend)
     plant, plant_note = make_plant(artifact, settings.plant_parameters, backend=settings.backend)
-    x = [float(v) for v in (settings.initial if settings.initial is not None else artifact.operating_point)]
+    start = [float(v) for v in (settings.initial if settings.initial is not None else artifact.operating_point)]
+    x, compensator = start[:plant.n], start[plant.n:] or None   # a dynamic extension's compensator starts here
+    if compensator is not None:
+        core.observe_compensator(compensator)
+        core.reset()
     reference = settings.reference
     if reference is None:
         reference = make_reference("hold", artifact.relative_degree, initial_outputs(core, x))
@@ -330,25 +334,26 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     xs: list[list[float]] = []
     refs: list[list[float]] = []
     ys: list[list[float]] = []
-    no_outputs = [math.nan] * len(core.orders)
     commands: list[list[float]] = []
-    diverged_at = None
+    no_outputs, diverged_at, budget_note = [math.nan] * len(core.orders), None, None
     report_every = max(1, steps // 200)
-    budget_note = None
     log_start = time.time_ns()
     ref_offsets = [sum(r + 1 for r in core.orders[:i]) for i in range(len(core.orders))]
     started = time.perf_counter()
     for k in range(steps):
         t = k * T
-        measured = list(x) if noise is None else (np.asarray(x) + rng.normal(0.0, noise)).tolist()
+        measured = list(x) if noise is None else (np.asarray(x) + rng.normal(0.0, noise[:n])).tolist()
         ref = reference.sample(t)
         u, record = core.step(measured, ref, t)
-        values = encode(record, [ref[i] for i in ref_offsets], u, no_outputs, measured)
+        if compensator is not None:       # logged beside the state: the compensator this step used
+            compensator = list(core.last_extended_state[n:])
+        values = encode(record, [ref[i] for i in ref_offsets], u, no_outputs,
+                        measured if compensator is None else measured + compensator)
         if field_log is not None:
             field_log.put(values, log_start + int(round(t * 1e9)))
         rows.append(values)
         commands.append(u)
-        xs.append(list(x))
+        xs.append(list(x) if compensator is None else list(x) + compensator)
         refs.append(ref)
         ys.append(_outputs_of(core, x))
         if progress is not None and k % report_every == 0:

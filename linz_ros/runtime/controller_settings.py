@@ -96,6 +96,9 @@ def controller_parameters(state_types: Sequence[str], command_types: Sequence[st
         P("command_type", "std_msgs/msg/Float64MultiArray", f"one of {', '.join(command_types)}"),
         P("command_fields", [], "field path of each input, in the artifact's order (empty: data.0, ...)",
           array_of=str),
+        P("compensator_fields", [], "with a dynamic extension: field path of the state message measuring each "
+          "compensator state ('' for one not measured), used when the compensator restarts (empty: none)",
+          array_of=str),
         P("reference_topic", "reference", "reference topic"),
         P("reference", "topic", "'topic', or a built-in reference such as 'smooth:tool_x=0.05,duration=2' (starts "
           "at activation)"),

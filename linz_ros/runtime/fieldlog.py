@@ -410,7 +410,7 @@ def artifact_metadata(artifact: Artifact) -> dict[str, str]:
         "plant": artifact.name, "artifact_file": artifact.source, "sha256": artifact.sha256,
         "created": artifact.created, "linz_ros_version": artifact.built_by,
         "kind": artifact.kind, "relative_degree": artifact.relative_degree, "rate_hz": artifact.rate,
-        "states": artifact.states, "inputs": artifact.inputs, "outputs": artifact.outputs,
+        "states": artifact.states, "inputs": artifact.plant_inputs, "outputs": artifact.outputs,
         "plant_check": artifact.plant_check,
     })
 

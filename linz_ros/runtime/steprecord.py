@@ -111,7 +111,7 @@ def record_labels(artifact: Artifact, states: bool = False) -> list[str]:
     list of str
     """
     return (list(FIELDS) + [f"y.{y}" for y in artifact.outputs] + [f"ref.{y}" for y in artifact.outputs]
-            + [f"u.{u}" for u in artifact.inputs] + ([f"x.{s}" for s in artifact.states] if states else []))
+            + [f"u.{u}" for u in artifact.plant_inputs] + ([f"x.{s}" for s in artifact.states] if states else []))
 
 
 def encode(record: StepRecord, y_ref: Sequence[float], u: Sequence[float],

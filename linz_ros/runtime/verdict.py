@@ -125,7 +125,7 @@ def run_verdict(result: SimResult) -> Verdict:
         worst = int(np.argmax(fractions))
         if fractions[worst] > SATURATED_FRACTION:
             return Verdict("saturated", first_time(t, result.saturated[:, worst]),
-                           f"{result.artifact.inputs[worst]} saturated {100 * fractions[worst]:.0f} % of the time")
+                           f"{result.artifact.plant_inputs[worst]} saturated {100 * fractions[worst]:.0f} % of the time")
     unsettled = _unsettled_outputs(result)
     if unsettled:
         return Verdict("not_settled", None, "the error has not settled: " + ", ".join(unsettled))

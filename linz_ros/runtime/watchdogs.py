@@ -108,6 +108,9 @@ class WatchdogConfig:
         Seconds the error must stay above its bound, not smaller than when it crossed it.
     divergence_action : {"warn", "safe"}
         When diverging: flag the step, or send the safe command until the next reset.
+    compensator_floor : tuple of float
+        Per input, the smallest magnitude of a dynamically extended input's compensator
+        (``linz_ros.runtime.extension``); ``inf`` for none, ignored by inputs without integrators.
     """
 
     sigma_warn: float
@@ -130,6 +133,7 @@ class WatchdogConfig:
     divergence_error: tuple[float, ...] = ()
     divergence_time: float = watchdog_setting("divergence_time").default
     divergence_action: str = watchdog_setting("divergence_action").default
+    compensator_floor: tuple[float, ...] = ()
 
     @classmethod
     def from_artifact(cls, artifact: Artifact, **overrides: Any) -> "WatchdogConfig":
@@ -178,7 +182,9 @@ class WatchdogConfig:
             envelope_action=stored("envelope_action"),
             divergence_error=tuple(math.inf if e is None else float(e) for e in divergence),
             divergence_time=float(stored("divergence_time")),
-            divergence_action=stored("divergence_action"))
+            divergence_action=stored("divergence_action"),
+            compensator_floor=tuple(math.inf if f is None else float(f)
+                                    for f in (w.get("compensator_floor") or [None] * m)))
         config = config.with_overrides(**overrides)
         config.check_counts(len(artifact.states), m, len(artifact.outputs), complete=True)
         return config
@@ -218,6 +224,7 @@ class WatchdogConfig:
                   if f.name not in ("input_limits", "anti_windup", "max_dt", "envelope", "safe_kind", "safe_value")}
         values["rate_limits"] = list(self.rate_limits)
         values["divergence_error"] = list(self.divergence_error)
+        values["compensator_floor"] = list(self.compensator_floor) or [math.inf] * len(self.input_limits)
         values["safe_command"] = ({"kind": self.safe_kind} if self.safe_kind != "fixed"
                                   else {"kind": "fixed", "value": list(self.safe_value)})
         return values
@@ -231,7 +238,7 @@ class WatchdogConfig:
             Naming the first setting that is wrong.
         """
         m = len(self.input_limits)
-        for key in ("input_limits", "rate_limits", "safe_value", "envelope", "divergence_error"):
+        for key in ("input_limits", "rate_limits", "safe_value", "envelope", "divergence_error", "compensator_floor"):
             if not isinstance(getattr(self, key), tuple):
                 raise ConfigError(key, "expected a tuple")
         if self.safe_kind not in SAFE_KINDS:
@@ -274,6 +281,8 @@ class WatchdogConfig:
             raise ConfigError("envelope", f"expected {states} (lower, upper) pairs, one per state")
         if len(self.divergence_error) not in (outputs, *empty):
             raise ConfigError("divergence_error", f"expected {outputs} bounds, one per output")
+        if len(self.compensator_floor) not in (inputs, 0):
+            raise ConfigError("compensator_floor", f"expected {inputs} values, one per input")
 
     def limit(self, u: Sequence[float], previous: Sequence[float], dt: float) -> tuple[list[float], list[bool]]:
         """The saturation watchdog: rate limits against the previous command, then box limits.

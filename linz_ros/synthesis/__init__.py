@@ -15,7 +15,8 @@ from linz_ros.synthesis._design import Chain, Design, DesignOptions, synthesise
 from linz_ros.synthesis._gains import (SampledLoop, chain_matrices, closed_loop_poles, gains_from_lqr,
                                        gains_from_poles, sampled_loop)
 from linz_ros.synthesis._transform import closed_form_inverse, transformed_symbols
+from linz_ros.synthesis._extension import delayed_counts
 
 __all__ = ["synthesise", "Design", "Chain", "DesignOptions", "gains_from_poles", "gains_from_lqr",
            "sampled_loop", "SampledLoop", "chain_matrices", "closed_loop_poles", "closed_form_inverse",
-           "transformed_symbols"]
+           "transformed_symbols", "delayed_counts"]

@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 import sympy as sp
 
-from linz_ros.analysis import InputOutputResult, Report, analyse, lie_chain, plant_context
+from linz_ros.analysis import DynamicExtension, InputOutputResult, Report, analyse, lie_chain, plant_context
 from linz_ros.errors import DesignError, PlantFileError
 from linz_ros.geometry import evaluate, lie_derivative
 from linz_ros.model import Plant, expression_in
@@ -29,6 +29,7 @@ from linz_ros.synthesis._gains import SampledLoop, closed_loop_poles, sampled_lo
 from linz_ros.synthesis._guards import sampling_warnings, sigma_reference, watchdog_levels, zero_dynamics_warnings
 from linz_ros.synthesis._options import DEFAULT_RATE, DesignOptions, given_poles, outer_loop_gains, rate_and_integral
 from linz_ros.synthesis._transform import closed_form_inverse
+from linz_ros.synthesis._extension import extended_design_plant, extended_report
 
 __all__ = ["DesignOptions", "Chain", "Design", "synthesise", "DEFAULT_RATE", "CHAIN_FORM_NOTE"]
 
@@ -77,6 +78,8 @@ class Design:
     warnings: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
     law_form: str = "expressions"    # "chain": A, b, chains too large to print, evaluated from f, G, h at run time
+    extension: DynamicExtension | None = None    # the law is the extended plant's (``plant``); see ``base_plant``
+    base_plant: Plant | None = None               # the plant as loaded, when ``plant`` is its extension
 
     @property
     def relative_degree(self) -> list[int]:
@@ -128,8 +131,13 @@ def synthesise(plant: Plant, options: DesignOptions | None = None, report: Repor
     """
     options = options or DesignOptions()
     report = report or analyse(plant, samples=256)
-    ctx = plant_context(plant)
     kind = _kind_of_design(plant, options)
+    extension = _found_extension(plant, report, kind)
+    base_plant = None
+    if extension is not None:
+        base_plant, plant = plant, extended_design_plant(plant, extension)
+        report = extended_report(base_plant, plant, report, extension)
+    ctx = plant_context(plant)
     warnings: list[str] = []
     notes: list[str] = []
     if kind == "input_output":
@@ -153,9 +161,21 @@ def synthesise(plant: Plant, options: DesignOptions | None = None, report: Repor
     warnings.extend(zero_dynamics_warnings(report, kind))
     sigma_ref, sigma_note = sigma_reference(plant, report, A, ctx, kind)
     watchdog = watchdog_levels(plant, sigma_ref, rate, names, expressions)
+    if extension is not None:
+        notes.append(f"dynamic extension: {extension.text_line()}; the law is the extended plant's and the "
+                     "runtime integrates the compensator states at its rate")
     return Design(plant, report, kind, chains, A, b, integral, rate, method, inverse, sigma_ref, sigma_note,
                   watchdog, lqr_weights, plant.design.get("reference"), warnings, notes,
-                  "chain" if CHAIN_FORM_NOTE in notes else "expressions")
+                  "chain" if CHAIN_FORM_NOTE in notes else "expressions", extension, base_plant)
+
+
+def _found_extension(plant: Plant, report: Report, kind: str) -> DynamicExtension | None:
+    """The dynamic extension the analysis found for outputs static feedback cannot decouple."""
+    io = report.input_output
+    if kind != "input_output" or plant.mechanics is not None or io is None:
+        return None
+    extension = io.dynamic_extension
+    return extension if extension is not None and extension.found else None
 
 
 def _checked_chain(name: str, expr: sp.Expr, derivs: list[sp.Expr], degree: int, gains: np.ndarray, rate: float,

@@ -119,7 +119,7 @@ class Probe(BringupRecorder):
         index = {name: i for i, name in enumerate(labels)}
         outputs = [index[f"y.{y}"] for y in self.artifact.outputs]
         refs = [index[f"ref.{y}"] for y in self.artifact.outputs]
-        inputs = [index[f"u.{u}"] for u in self.artifact.inputs]
+        inputs = [index[f"u.{u}"] for u in self.artifact.plant_inputs]     # the command's: the plant's own
         rows = []
         records = self.recording.conditioning
         for received, data in (records if last is None else records[-last:]):

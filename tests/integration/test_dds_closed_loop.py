@@ -1,5 +1,5 @@
 """Over real DDS: each bundled simulation bringup tracks its reference (JointState, and Odometry
-with Wrench commands), in wall time and in simulated time."""
+with Wrench or Twist commands, dynamically extended laws included), in wall time and in simulated time."""
 
 import math
 
@@ -36,7 +36,22 @@ BRINGUPS = {
     # (y_q3; 0.91e-3 on y_q2, 0.59e-3 on the unmoved y_q5), the same with 1 and 4 RK4 substeps
     "flex_loader_arm": ("smooth:y_q2=0.03,y_q3=-0.02,duration=0.5,at=0.2", [0.0, 0.03, -0.02, 0.0, 0.0, 0.0],
                         2000, 1.6e-3),
+    # dynamically extended laws, lockstep with built-in references. The cart (Odometry in, Twist on /cmd_vel
+    # out) on its design's figure eight: its odometry says it stands still at the start, so the compensator
+    # starts at its 0.1 m/s floor, not at the eight's 0.44 m/s. `linz sim <cart artifact> --reference <this
+    # spec> --initial v_i1=0.1 --watchdog compensator_floor=0.1,0 --duration 40` gives a largest error of
+    # 0.057 m (at 0.58 s, while it catches up; 5 mm after 3 s, 0.13 mm after 10 s), plus up to 9 mm per period
+    # the built-in reference may start before the first state (0.44 m/s for 20 ms). A path has no end point:
+    # the amplitudes are the eight's extents, 2 m along x and 1 m along y (checked as the outputs' reach)
+    "delivery_cart": ("eight:amplitude=2.0,period=40.0,at=0.0", [2.0, 1.0], 750, 7e-2),
+    # the drone (Odometry with world-frame velocity and Euler-angle rates in, Wrench out): `linz sim <drone
+    # artifact> --reference <this spec> --duration 6` gives a largest error of 3.0e-4 (x; 1.9e-4 y, 1.1e-4 z,
+    # 1.9e-4 rad heading)
+    "inspection_drone": ("smooth:x=1.0,y=-0.5,z=0.5,heading=0.3,duration=3.0,at=1.0", [1.0, -0.5, 0.5, 0.3],
+                         1400, 1e-3),
 }
+#: Rows whose reference is a path (no end point): their amplitudes are the outputs' reach from the start.
+PATH_ROWS = {"delivery_cart"}
 # how the reference reaches the controller: the reference node's topic, or the built-in generator
 # (which starts at activation). A topic reference is timed by its arrival (the message carries no
 # stamp): when the reference node runs late the controller follows it late, by the lag times the
@@ -44,7 +59,8 @@ BRINGUPS = {
 # built in.
 SOURCES = {("pick_arm", False): "topic", ("pick_arm", True): "built-in", ("mast_camera", True): "topic",
            ("survey_boat", False): "built-in", ("loader_arm", True): "built-in",
-           ("survey_boat_thrusters", True): "built-in", ("flex_loader_arm", True): "built-in"}
+           ("survey_boat_thrusters", True): "built-in", ("flex_loader_arm", True): "built-in",
+           ("delivery_cart", True): "built-in", ("inspection_drone", True): "built-in"}
 # In simulated time the simulator runs in lockstep: simulated time waits for each command, so the
 # loop closes every period however loaded the shared cores are, and the tracking is the design's.
 # The wall-time runs show the loop keeping up in real time; their gaps are judged on their own.
@@ -53,7 +69,7 @@ SOURCES = {("pick_arm", False): "topic", ("pick_arm", True): "built-in", ("mast_
 def _topics(plant: str) -> TopicMap:
     c = node_parameters(CONFIG / f"{plant}.yaml", "linz_controller")
     return TopicMap(c["state_topic"], c["state_type"], c["state_fields"], c["command_topic"], c["command_type"],
-                    c["command_fields"], c["reference_topic"])
+                    c["command_fields"], c["reference_topic"], compensator_fields=list(c.get("compensator_fields", [])))
 
 
 class _Artifacts(dict):
@@ -81,7 +97,8 @@ def built(tmp_path_factory):
 
 @pytest.mark.parametrize("plant, sim_time", [("pick_arm", False), ("pick_arm", True), ("mast_camera", True),
                                              ("survey_boat", False), ("loader_arm", True),
-                                             ("survey_boat_thrusters", True), ("flex_loader_arm", True)])
+                                             ("survey_boat_thrusters", True), ("flex_loader_arm", True),
+                                             ("delivery_cart", True), ("inspection_drone", True)])
 def test_the_simulation_bringup_tracks_its_reference(bringup, built, domain_id, plant, sim_time, tmp_path):
     path, artifact = built[plant]
     spec, amplitudes, steps, tolerance = BRINGUPS[plant]
@@ -150,7 +167,11 @@ def test_the_simulation_bringup_tracks_its_reference(bringup, built, domain_id, 
     y = log.block("y")
     accepted = np.flatnonzero(np.isfinite(y).all(axis=1))
     # a refused step records no outputs (nan): the move is measured from the first accepted one
-    np.testing.assert_allclose(y[accepted[-1]] - y[accepted[0]], amplitudes, atol=5 * tolerance)
+    if plant in PATH_ROWS:
+        reach = np.abs(y[accepted] - y[accepted[0]]).max(axis=0)
+        np.testing.assert_allclose(reach, amplitudes, atol=5 * tolerance)
+    else:
+        np.testing.assert_allclose(y[accepted[-1]] - y[accepted[0]], amplitudes, atol=5 * tolerance)
 
 
 def _window_steps(values) -> int:
@@ -211,3 +232,53 @@ def _check_diagnostics(probe, log, artifact, controller, sim_time: bool) -> None
             # period, so steps / span is the design's rate, give or take a step at each end of the window
             implied = steps * artifact.rate / rate                  # steps the span holds at the design's rate
             assert abs(implied - steps) <= 2.0, (steps, rate, artifact.rate)
+
+
+def test_a_cart_holding_a_point_runs_near_its_singular_set_and_linz_logs_shows_the_episodes(bringup, built, tmp_path):
+    """The extended cart's law is singular where it stands still (det A = v_i1): told to hold the point it
+    starts on, it keeps slowing towards v = 0, and config/delivery_cart.yaml's compensator_floor (0.1 m/s)
+    keeps it circling at that speed instead. The controller's field log, read by `linz logs`, shows it."""
+    import json
+    import subprocess
+    import sys
+
+    path, artifact = built["delivery_cart"]
+    params = CONFIG / "delivery_cart.yaml"
+    floor = float(node_parameters(params, "linz_controller")["compensator_floor"][0])
+    probe = Probe(artifact, _topics("delivery_cart"), states=False)
+    try:
+        bringup.start("linz_plant_sim", params, {"artifact": str(path), "publish_clock": True, "lockstep": True})
+        bringup.start("linz_controller", params, {"artifact": str(path), "use_sim_time": True, "stale_after": 1.0,
+                                                  "reference": "hold", "field_log_folder": str(tmp_path / "log")})
+        assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=60)
+        # 8 s of simulated time: the heading winds up as it circles, and leaves its envelope after about 13 s
+        assert wait_until(lambda: len(probe.recording.conditioning) > 400, timeout=120, node=probe)
+    finally:
+        probe.destroy_node()
+    bringup.stop("linz_controller")
+    log = field_log(tmp_path / "log")
+    speed, sigma = log.block("x")[:, log.names("x").index("v_i1")], log.column("sigma_min")
+    accepted = np.isfinite(sigma)
+    # A = [[cos th, -v sin th], [sin th, v cos th]]: orthogonal columns of norms 1 and |v|, so sigma_min =
+    # min(1, |v_i1|) at every step (common practice: the unicycle's extended decoupling matrix)
+    np.testing.assert_allclose(sigma[accepted], np.minimum(1.0, np.abs(speed[accepted])), rtol=1e-9)
+    assert np.abs(speed[accepted]).min() >= floor * (1 - 1e-12)          # the floor held: never on the set
+    done = subprocess.run([sys.executable, "-m", "linz_ros", "logs", str(tmp_path / "log"), "--json"],
+                          capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    summary = json.loads(done.stdout)
+    warn, act = summary["thresholds"]["sigma_warn"], summary["thresholds"]["sigma_act"]
+    assert act < floor < warn, summary["thresholds"]                      # the floor sits between the two levels
+    episodes = summary["near_singular"]["under_warn"]["episodes"]
+    print(f"delivery_cart holding: {len(episodes)} episodes under the warn level ({warn:.4g}), "
+          f"{summary['near_singular']['under_warn']['total_time']:.3g} s of {summary['duration']:.3g} s; "
+          f"min sigma {summary['min_sigma']:.6g}")
+    assert episodes and summary["near_singular"]["under_warn"]["total_time"] > 2.0
+    for episode in episodes:
+        v = episode["state_at_worst"]["v_i1"]
+        assert abs(v) < warn and episode["min_sigma"] == pytest.approx(abs(v), rel=1e-9), episode
+    assert min(abs(e["state_at_worst"]["v_i1"]) for e in episodes) == pytest.approx(floor, rel=1e-9)
+    # never below the act level: the law stays in command (nominal), the cart never sent the safe command
+    assert summary["near_singular"]["under_act"]["count"] == 0
+    modes = log.column("mode")[np.argmax(accepted):].astype(int)
+    assert set(modes.tolist()) == {MODES.index("nominal")}, [MODES[m] for m in set(modes.tolist())]

@@ -18,6 +18,7 @@ from typing import Sequence, Union
 from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime.core import ControllerCore
+from linz_ros.runtime.extension import ExtendedCore, ExtendedPlant
 from linz_ros.runtime.native._build import NativeUnavailable
 from linz_ros.runtime.native._core import NativeCore
 from linz_ros.runtime.native._plant import NativePlant
@@ -29,7 +30,7 @@ __all__ = ["BACKENDS", "make_core", "make_plant", "NativeCore", "NativePlant", "
 #: ``native``: compiled C when it can be built here, else the Python core with a note; ``python``.
 BACKENDS = ("native", "python")
 
-AnyCore = Union[ControllerCore, NativeCore]
+AnyCore = Union[ControllerCore, NativeCore, ExtendedCore]
 
 
 def make_core(artifact: Artifact, config: WatchdogConfig | None = None, parameters: Sequence[float] | None = None,
@@ -46,6 +47,8 @@ def make_core(artifact: Artifact, config: WatchdogConfig | None = None, paramete
     Returns
     -------
     core : ControllerCore or NativeCore
+        Wrapped in :class:`~linz_ros.runtime.extension.ExtendedCore` when the artifact carries a
+        dynamic extension (the plant's own states and inputs).
     note : str or None
         One line when ``native`` was asked for and the Python core is used instead.
 
@@ -55,12 +58,16 @@ def make_core(artifact: Artifact, config: WatchdogConfig | None = None, paramete
         For an unknown backend (named ``backend``), bad settings or parameters.
     """
     _check_backend(backend)
+    note = None
     if backend == "native":
         try:
-            return NativeCore(artifact, config, parameters), None
+            core = NativeCore(artifact, config, parameters)
         except NativeUnavailable as why:
-            return ControllerCore(artifact, config, parameters), f"native step unavailable, using Python: {why}"
-    return ControllerCore(artifact, config, parameters), None
+            core, note = ControllerCore(artifact, config, parameters), f"native step unavailable, using Python: {why}"
+    else:
+        core = ControllerCore(artifact, config, parameters)
+    extension = artifact.extension
+    return (core if extension is None else ExtendedCore(core, extension)), note
 
 
 def make_plant(artifact: Artifact, parameters: Sequence[float] | None = None,
@@ -76,16 +83,22 @@ def make_plant(artifact: Artifact, parameters: Sequence[float] | None = None,
     Returns
     -------
     plant : NumericPlant or NativePlant
+        Wrapped in :class:`~linz_ros.runtime.extension.ExtendedPlant` when the artifact carries a
+        dynamic extension (the plant's own states and inputs).
     note : str or None
         One line when ``native`` was asked for and the Python plant is used instead.
     """
     _check_backend(backend)
+    note = None
     if backend == "native":
         try:
-            return NativePlant(artifact, parameters), None
+            plant = NativePlant(artifact, parameters)
         except NativeUnavailable as why:
-            return NumericPlant(artifact, parameters), f"native plant unavailable, using Python: {why}"
-    return NumericPlant(artifact, parameters), None
+            plant, note = NumericPlant(artifact, parameters), f"native plant unavailable, using Python: {why}"
+    else:
+        plant = NumericPlant(artifact, parameters)
+    extension = artifact.extension
+    return (plant if extension is None else ExtendedPlant(plant, extension)), note
 
 
 def _check_backend(backend: str) -> None:
