@@ -29,9 +29,10 @@ setup(
             "ros-kilted-rclpy", "ros-kilted-rmw-fastrtps-cpp", "ros-kilted-std-msgs",
             "ros-kilted-sensor-msgs", "ros-kilted-geometry-msgs", "ros-kilted-nav-msgs",
             "ros-kilted-diagnostic-msgs", "ros-kilted-lifecycle-msgs", "ros-kilted-rosgraph-msgs",
+            "ros-kilted-trajectory-msgs",
         ],
         "test": ["pytest>=7", "hypothesis>=6", "control>=0.10", "colcon-common-extensions", "pin>=2.7",
-                 "cryptography>=41", "symengine>=0.11", "cffi>=1.15"],
+                 "cryptography>=41", "symengine>=0.11", "cffi>=1.15", "mujoco>=3.2,<4"],
         # the native control step and plant (compiled C at load, called through cffi; the Python core
         # is used, with a one-line note, where it is missing)
         "native": ["cffi>=1.15"],
@@ -40,6 +41,10 @@ setup(
         "fast": ["symengine>=0.11"],
         # signed artifacts: linz keygen, linz build --sign-key, trusted keys on the robot
         "sign": ["cryptography>=41"],
+        # MuJoCo as the plant of a URDF arm (linz sim --physics mujoco, the simulator's physics parameter);
+        # 4.x on PyPI is a stub without the engine, and MjSpec (the URDF compiled with its fixed links kept)
+        # needs 3.2
+        "physics": ["mujoco>=3.2,<4"],
     },
     zip_safe=True,
     maintainer="linz_ros developers",

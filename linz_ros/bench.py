@@ -223,7 +223,7 @@ def _naive_step(law: LawExpressions, artifact: Artifact) -> Callable:
         v = np.empty(len(orders))
         i = j = 0
         for c, r in enumerate(orders):
-            v[c] = ref[j + r] - K[c] @ (chain[i:i + r] - ref[j:j + r])
+            v[c] = ref[j + r] - K[c][-r:] @ (chain[i:i + r] - ref[j:j + r])   # no integral action here
             i += r
             j += r + 1
         u = np.linalg.solve(A, v - b)
@@ -281,7 +281,7 @@ def _c_library(law: LawExpressions, artifact: Artifact, workdir: Path) -> Callab
 def _pinocchio_step(plant: Plant | None, artifact: Artifact) -> Callable[[np.ndarray, np.ndarray], np.ndarray] | None:
     """Computed torque with Pinocchio for joint-space outputs of a serial arm (None otherwise)."""
     mech = plant.mechanics if plant is not None else None
-    if mech is None or not mech.links or not artifact.computed_torque or not pinocchio_available():
+    if mech is None or mech.form != "serial_arm" or not artifact.computed_torque or not pinocchio_available():
         return None
     import pinocchio as pin
 

@@ -9,6 +9,7 @@ bench   time the controller step against reference implementations
 logs    summarise field logs: near-singular episodes, mode switches, saturation
 keygen  make a key pair for signing artifacts (linz build --sign-key, trusted keys on the robot)
 demo    the whole job on the bundled example (check, build, two simulations)
+wire    write the bringup parameter file (the nodes' topics and rates) of a plant or an artifact
 
 Exit codes: 0 when the work ran (whatever the verdict), 2 for bad input (one line on
 stderr naming the file, the field and the problem), 1 for an internal error.
@@ -198,6 +199,9 @@ def _build_parser() -> argparse.ArgumentParser:
                      help="rk4: fixed-step RK4 sub-steps (default); scipy: adaptive RK45")
     sim.add_argument("--substeps", type=_positive_int, default=4, help="RK4 steps per control period (default 4)")
     _add_backend(sim, "the control step and the plant")
+    sim.add_argument("--physics", default="model", metavar="NAME",
+                     help="the plant: model (our integrator of the artifact's dynamics, the default) or mujoco "
+                          "(MuJoCo on the arm's URDF: joint limits, damping and friction by the engine)")
     sim.add_argument("--seed", type=_nonnegative_int, default=1, help="noise seed (a whole number >= 0)")
     sim.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
     sim.add_argument("--progress", action="store_true", default=None,
@@ -242,9 +246,23 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--seconds", type=_positive_float, default=6.0, metavar="S",
                       help="length of the ROS 2 simulation bringup (default 6)")
     demo.add_argument("--no-ros", action="store_true", help="skip the ROS 2 simulation bringup")
+    demo.add_argument("--bringup", metavar="FILE",
+                      help="the bringup parameter file of the ROS 2 step (default: config/<plant>.yaml of a bundled "
+                           "plant, else <plant stem>.bringup.yaml beside the plant file, else one written by "
+                           "linz wire)")
     demo.add_argument("--wall-clock", action="store_true",
                       help="run the bringup on the wall clock (default: simulated time, in lockstep with the "
                            "controller, so that a busy machine slows the run down instead of starving the loop)")
+
+    # "wire": the file wires the three nodes to their topics; "bringup" would read as starting them
+    wire = _verb(verbs, _run_wire, "wire", help="write the bringup parameter file of a plant or an artifact",
+                 description="Write the controller's, simulator's and reference node's parameters (topics named "
+                             "after the plant, JointState for an arm's joints, the design rate, the plant's reference) "
+                             "as the bundled config/<plant>.yaml files have them.")
+    wire.add_argument("source", metavar="PLANT_OR_ARTIFACT",
+                      help="a plant file (built in memory) or an artifact (*.json)")
+    wire.add_argument("-o", "--out", metavar="FILE", help="the file to write (default: <stem>.bringup.yaml beside it)")
+    wire.add_argument("--force", action="store_true", help="replace an existing file")
     return parser
 
 
@@ -285,7 +303,7 @@ def _run_sim(args: argparse.Namespace) -> int:
         source=args.source, out=args.out, duration=args.duration, reference=args.reference, mismatch=args.mismatch,
         noise=args.noise, delay=args.delay, initial=args.initial, force_initial=args.force_initial,
         watchdog=args.watchdog, integrator=args.integrator, substeps=args.substeps, seed=args.seed,
-        backend=args.backend, plots=not args.no_plots, progress=bool(args.progress if args.progress is not None else sys.stderr.isatty()),
+        backend=args.backend, physics=args.physics, plots=not args.no_plots, progress=bool(args.progress if args.progress is not None else sys.stderr.isatty()),
         allow_plant_change=args.allow_plant_change, field_log=args.field_log, trusted_keys=args.trusted_key,
         design=_design(args))
     run = simulate_run(request)
@@ -323,12 +341,20 @@ def _run_demo(args: argparse.Namespace) -> int:
     from linz_ros.commands.demo import DemoRequest, run_demo
 
     run_demo(DemoRequest(plant=args.plant, out=args.out, seconds=args.seconds, ros=not args.no_ros,
-                         wall_clock=args.wall_clock, progress=sys.stderr.isatty()))
+                         wall_clock=args.wall_clock, progress=sys.stderr.isatty(), bringup=args.bringup))
+    return 0
+
+
+def _run_wire(args: argparse.Namespace) -> int:
+    from linz_ros.commands.wire import render_wire, wire
+
+    print(render_wire(wire(args.source, args.out, force=args.force)))
     return 0
 
 
 #: Options naming a file or folder: an empty name would silently mean the current folder, or nothing.
-_PATH_OPTIONS = (("out", "--out"), ("field_log", "--field-log"), ("folder", "keygen"), ("sign_key", "--sign-key"),
+_PATH_OPTIONS = (("out", "--out"), ("bringup", "--bringup"), ("field_log", "--field-log"), ("folder", "keygen"),
+                 ("sign_key", "--sign-key"),
                  ("trusted_key", "--trusted-key"))
 
 

@@ -95,7 +95,7 @@ def pinocchio_reference(plant: Plant, parameters: Sequence[float] | None = None)
         When the plant is not a serial arm, or ``pin`` is not installed.
     """
     mech = plant.mechanics
-    if mech is None or not mech.links:
+    if mech is None or not mech.links or mech.form != "serial_arm":
         raise ConfigError("plant", f"{plant.name} is not in serial-arm form (no DH table)")
     try:
         import pinocchio as pin

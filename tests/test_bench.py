@@ -187,3 +187,17 @@ def test_a_chain_form_artifact_is_timed_on_its_core_and_law_and_says_why_no_more
     result = run_bench(artifact, None, calls=10, rounds=1, backend="python")
     assert set(result.microseconds) == {"core", "law_only"}
     assert any(note.startswith("chain form:") for note in result.notes)
+
+
+def test_the_naive_pipeline_of_a_law_with_integral_action_matches_the_core_on_its_first_step():
+    # regression: the integral gain K_I leads each chain's gains; the naive pipeline has no integrator
+    # state, which is zero on the core's first step, so both give the same command there
+    text = ("plant: p\nstates: [x1, x2]\ninputs: [u]\ndynamics: {x1: x2, x2: -sin(x1) + u}\n"
+            "outputs: {y: x1}\ndesign: {poles: {y: [-1, -2, -3]}, integral: true}\n")
+    artifact = built_artifact(text)
+    naive = _naive_step(law_expressions(artifact), artifact)
+    core = ControllerCore(artifact, None)
+    x, ref = [0.2, -0.1], [0.5, 0.0, 0.0]
+    u, record = core.step(x, ref, t=0.0)
+    assert record.mode == "nominal"
+    np.testing.assert_allclose(naive(np.array(x), artifact.nominal_parameters, np.array(ref)), u, rtol=1e-12)

@@ -10,6 +10,7 @@ from linz_ros.commands._bringup import render_heard, BringupRun, warn_causes
 from linz_ros.commands._options import DesignChoices
 from linz_ros.commands.build import build, render_build
 from linz_ros.commands.bench import bench
+from linz_ros.errors import LinzError
 from linz_ros.runtime import REASONS, VERDICTS
 
 
@@ -116,3 +117,80 @@ def test_outputs_undefined_at_the_artifacts_operating_point_name_the_artifact_no
     with pytest.raises(ConfigError, match=r"the operating point") as err:
         simulate_run(SimRequest(source=str(path), out=str(tmp_path / "out"), plots=False, force_initial=True))
     assert "--initial" not in str(err.value) and "not defined at this state" in str(err.value)
+
+
+_SMALL_PLANT = """plant: tank_pair
+states: [h1, h2]
+inputs: [q1, q2]
+parameters: {a: 0.5}
+dynamics:
+  h1: -a*h1 + q1
+  h2: a*h1 - a*h2 + q2
+outputs: {y1: h1, y2: h2}
+design:
+  rate: 80
+  poles: {y1: [-3], y2: [-4]}
+  reference: "smooth:y1=0.2,duration=1,at=0.1"
+"""
+
+
+def test_linz_wire_writes_the_three_nodes_parameters_beside_the_plant_named_after_it(tmp_path):
+    from linz_ros.bringup import node_parameters
+    from linz_ros.commands.wire import render_wire, wire
+    plant = tmp_path / "tanks.yaml"
+    plant.write_text(_SMALL_PLANT)
+    result = wire(str(plant))
+    assert result.path == tmp_path / "tanks.bringup.yaml" and result.layout == "Float64MultiArray"
+    controller = node_parameters(result.path, "linz_controller")
+    simulator = node_parameters(result.path, "linz_plant_sim")
+    reference = node_parameters(result.path, "linz_reference")
+    assert controller["state_topic"] == simulator["state_topic"] == "/tank_pair/state"
+    assert controller["command_topic"] == simulator["command_topic"] == "/tank_pair/command"
+    assert controller["reference_topic"] == reference["topic"] == "/tank_pair/reference"
+    assert controller["state_type"] == "std_msgs/msg/Float64MultiArray" and controller["state_fields"] == []
+    assert simulator["rate"] == 80.0 and controller["stale_after"] == pytest.approx(25 / 80)
+    assert reference["reference"] == "smooth:y1=0.2,duration=1,at=0.1" and reference["rate"] == 80.0
+    assert "wrote " + str(result.path) in render_wire(result)
+    with pytest.raises(LinzError, match="tanks.bringup.yaml exists; pass --force to replace it"):
+        wire(str(plant))
+    assert wire(str(plant), force=True).path == result.path
+
+
+def test_linz_wire_gives_an_arm_its_joints_in_a_joint_state_and_their_efforts():
+    from linz_ros.commands.wire import bringup_text
+    import yaml
+    from support import built_artifact
+    document = yaml.safe_load(bringup_text(built_artifact(BUNDLED / "loader_arm.yaml"), "loader_arm.yaml"))
+    c = document["/linz_controller"]["ros__parameters"]
+    assert c["state_type"] == c["command_type"] == "sensor_msgs/msg/JointState"
+    assert c["state_fields"][:2] == ["position.q1", "position.q2"] and c["state_fields"][6] == "velocity.q1"
+    assert c["command_fields"] == [f"effort.q{k}" for k in range(1, 7)]
+    assert c["state_topic"] == "/loader_arm/joint_states"
+
+
+def test_the_demo_takes_its_bringup_from_the_option_the_package_beside_the_plant_or_linz_wire(tmp_path):
+    from linz_ros.commands.demo import choose_bringup
+    plant = tmp_path / "tanks.yaml"
+    plant.write_text(_SMALL_PLANT)
+    artifact = build(plant, tmp_path / "built").path
+    out = tmp_path / "demo"
+    path, why = choose_bringup(plant, "tank_pair", None, artifact, out)
+    assert path == out / "tank_pair.bringup.yaml" and path.is_file() and why.startswith("written by `linz wire`")
+    beside = tmp_path / "tanks.bringup.yaml"
+    beside.write_text(path.read_text())
+    assert choose_bringup(plant, "tank_pair", None, artifact, out) == (beside, "beside the plant file")
+    assert choose_bringup(BUNDLED / "pick_arm.yaml", "pick_arm", None, artifact, out) == \
+        (BUNDLED.parent / "pick_arm.yaml", "the package's, for the bundled plant")
+    given = choose_bringup(BUNDLED / "pick_arm.yaml", "pick_arm", str(beside), artifact, out)
+    assert given == (beside, "named by --bringup")
+    with pytest.raises(LinzError, match="--bringup: .*nowhere.yaml: no such file"):
+        choose_bringup(plant, "tank_pair", str(tmp_path / "nowhere.yaml"), artifact, out)
+
+
+def test_linz_demo_refuses_a_missing_bringup_file_at_once_in_one_line(tmp_path, capsys):
+    from linz_ros.cli import main
+    assert main(["demo", str(BUNDLED / "pick_arm.yaml"), "-o", str(tmp_path), "--bringup",
+                 str(tmp_path / "none.yaml")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "--bringup" in err and "none.yaml: no such file" in err
+    assert not any(tmp_path.iterdir())                                # nothing ran

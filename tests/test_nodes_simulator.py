@@ -2,6 +2,7 @@
 
 import math
 
+import numpy as np
 import pytest
 
 rclpy = pytest.importorskip("rclpy", reason="rclpy is not installed (pip install '.[ros]')")
@@ -312,3 +313,26 @@ def test_input_fields_that_are_state_fields_or_of_the_wrong_number_are_one_line_
         make_cart(initial_state="[0.0, 0.0, 0.0, 0.45]")          # the compensator is not the plant's
     echo_speed_only = make_cart(input_fields="['twist.linear.x', '']")
     assert echo_speed_only.echoed == [0]
+
+
+def test_the_physics_parameter_runs_mujoco_on_a_urdf_arm_and_refuses_it_elsewhere(make, tmp_path):
+    from std_msgs.msg import Float64MultiArray
+    from test_runtime_physics import _sorting_artifact
+
+    with pytest.raises(ConfigError, match=r"physics: mujoco needs an arm described by a URDF; pick_arm has none"):
+        make(physics="mujoco")
+    with pytest.raises(ConfigError, match=r"physics: expected one of model, mujoco, got 'bullet'"):
+        make(physics="bullet")
+    artifact = _sorting_artifact(tmp_path, friction=False)
+    flat = {"state_type": "std_msgs/msg/Float64MultiArray", "state_fields": "['']",
+            "command_type": "std_msgs/msg/Float64MultiArray", "command_fields": "['']"}
+    with pytest.raises(ConfigError, match=r"mismatch: applies to physics model only"):
+        make(artifact=artifact.source, physics="mujoco", mismatch="['all=5']", **flat)
+    engine, ours = (make(artifact=artifact.source, physics=p, **flat) for p in ("mujoco", "model"))
+    assert engine.plant.backend == "mujoco"
+    for sim in (engine, ours):
+        sim._on_command(Float64MultiArray(data=[1.0, -2.0, 0.5, 0.01]))
+        for _ in range(50):                              # 0.1 s of simulated time
+            sim._tick()
+    np.testing.assert_allclose(engine.x, ours.x, atol=1e-9)      # no friction: the same rigid body
+    assert engine.x != artifact.operating_point

@@ -14,6 +14,8 @@ from linz_ros.runtime import (ControllerCore, SimSettings, fit_decay_rate, make_
 
 STEPS = {"pick_arm": (0.03, 3.0), "mast_camera": (0.2, 3.0), "survey_boat": (0.5, 16.0),
          "loader_arm": (0.01, 3.0), "survey_boat_thrusters": (0.2, 16.0)}
+# sorting_arm is checked without its friction in tests/test_runtime_physics.py: its smoothed Coulomb friction
+# (tanh over 0.05 rad/s) turns within a control period near rest, which the held command cannot cancel
 
 
 @pytest.mark.parametrize("name", sorted(STEPS))

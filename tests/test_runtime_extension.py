@@ -13,7 +13,9 @@ import scipy.linalg
 
 from linz_ros.runtime import SimSettings, WatchdogConfig, simulate
 from linz_ros.runtime.core import ControllerCore
-from linz_ros.runtime.extension import ExtendedCore, ExtendedPlant, advance_chain, command_limits, mean_of_first
+from linz_ros.errors import ConfigError
+from linz_ros.runtime.extended_plant import ExtendedPlant
+from linz_ros.runtime.extension import ExtendedCore, advance_chain, command_limits, mean_of_first
 from linz_ros.runtime.native import make_core, make_plant
 from linz_ros.runtime.reference import make_reference
 from support import built_artifact
@@ -66,6 +68,10 @@ def test_the_chain_advances_as_its_exact_discretisation(k):
 
 
 # -- the wrapper ------------------------------------------------------------------------------
+HOLD = [0.0] * 6
+AHEAD = [1.0, 0.3, 0.0, 0.0, 0.0, 0.0]          # 1 m ahead in x, moving on at 0.3 m/s
+
+
 def test_the_core_of_an_extended_artifact_steps_the_plants_own_state_and_inputs(cart):
     core, _ = make_core(cart, backend="python")
     assert isinstance(core, ExtendedCore) and (core.n, core.m) == (3, 2)
@@ -74,13 +80,26 @@ def test_the_core_of_an_extended_artifact_steps_the_plants_own_state_and_inputs(
     assert core.compensator == [0.5]                      # the midpoint of v's limits
     ref = [0.1, 0.0, 0.0, 0.2, 0.0, 0.0]
     u, record = core.step([0.0, 0.0, 0.0], ref, t=0.0)
-    # the law at x = (0, 0, 0), v = 0.5: A = [[1, 0], [0, 0.5]], v_k = -K e - ... so w = A^-1 v
-    inner = ControllerCore(cart)
-    w, _ = inner.step([0.0, 0.0, 0.0, 0.5], ref, t=0.0)
+    # the law of the extended plant at (0, 0, 0, v = 0.5), stepped alone
+    w, _ = ControllerCore(cart).step([0.0, 0.0, 0.0, 0.5], ref, t=0.0)
     T = 1 / 50
-    assert u == pytest.approx([0.5 + w[0] * T / 2, w[1]], rel=1e-12)
-    assert core.compensator == pytest.approx([0.5 + w[0] * T], rel=1e-12)
-    assert record.command == tuple(u) and record.mode == "nominal"
+    assert u == pytest.approx([0.5 + w[0] * T / 2, w[1]], rel=1e-12)   # the compensator's mean over the period
+    assert core.last_extended_state == [0.0, 0.0, 0.0, 0.5] and record.command == tuple(u)
+    core.step([0.0, 0.0, 0.0], ref, t=T)                  # the next state: advanced exactly over the period
+    assert core.last_extended_state[3] == pytest.approx(0.5 + w[0] * T, rel=1e-12)
+
+
+def test_the_compensator_advances_over_the_real_interval_between_states(cart):
+    # states every second period (a slow odometry): each advance covers the real 2T under the w the law
+    # chose at the state before (read back from the command: u = xi + w T / 2 for one integrator)
+    core = make_core(cart, backend="python")[0]
+    T, chain = 1 / 50, 0.5
+    for k in range(0, 12, 2):
+        u, _ = core.step([0.0, 0.0, 0.0], AHEAD, t=k * T)
+        assert core.last_extended_state[3] == pytest.approx(chain, rel=1e-12)
+        w = (u[0] - chain) * 2 / T
+        chain = advance_chain([chain], w, 2 * T)[0]
+    assert chain > 0.6                          # the law did speed the cart up
 
 
 def test_either_core_wrapped_gives_the_same_commands(cart):
@@ -112,53 +131,121 @@ def test_the_compensator_stays_within_the_inputs_limits_and_says_so(cart):
     assert saturated and core.compensator[0] == 1.5
 
 
-def test_a_speed_floor_keeps_the_compensator_off_the_singular_set(cart):
+def test_a_cut_compensator_freezes_the_laws_integral_action():
+    # with integral action, a speed pinned at its limit must not wind the integrator up
+    text = CART.replace("poles: {px: [-2, -3], py: [-2, -3]}", "poles: {px: [-1, -1.5, -2], py: [-1, -1.5, -2]}, "
+                                                             "integral: true")
+    core, _ = make_core(built_artifact(text), backend="python")
+    far = [3.0, 0.0, 0.0, 0.0, 0.0, 0.0]
+    seen = []
+    for k in range(150):
+        _, record = core.step([0.0, 0.0, 0.0], far, t=k / 50)
+        if record.saturated[0]:
+            seen.append(core.inner.integrators[0])
+    assert len(seen) > 50 and max(seen) - min(seen) < 0.1 * 3.0 / 50      # at most the step before the cut
+
+
+def test_a_speed_floor_keeps_the_compensator_and_the_cart_off_the_singular_set(cart):
     config = WatchdogConfig.from_artifact(cart, compensator_floor=(0.2, math.inf))
     core, _ = make_core(cart, config, backend="python")
     floored = False
     for k in range(300):                 # held at the origin: the law slows the cart towards v = 0
-        u, record = core.step([0.0, 0.0, 0.0], [0.0] * 6, t=k / 50)
+        u, record = core.step([0.0, 0.0, 0.0], HOLD, t=k / 50)
         assert abs(core.compensator[0]) >= 0.2 - 1e-15 and abs(u[0]) >= 0.2 - 1e-15
         floored |= record.saturated[0]
-    assert floored
+    assert floored and record.mode == "nominal"
+
+
+def test_a_floor_outside_the_limits_is_refused_and_a_one_sided_one_holds_its_side(cart):
+    with pytest.raises(ConfigError, match=r"compensator_floor: 2 for v lies outside its limits \[-0.5, 1.5\] on both sides"):
+        make_core(cart, WatchdogConfig.from_artifact(cart, compensator_floor=(2.0, math.inf)), backend="python")
+    # 0.8 fits above (v <= 1.5) but not below (v >= -0.5): the floor holds the cart moving forward
+    core, _ = make_core(cart, WatchdogConfig.from_artifact(cart, compensator_floor=(0.8, math.inf)),
+                        backend="python")
+    core.reset([-0.3])
+    assert core.compensator == [0.8]
+    for k in range(100):
+        u, _ = core.step([0.0, 0.0, math.pi], HOLD, t=k / 50)
+        assert 0.8 - 1e-12 <= core.compensator[0] <= 1.5 and 0.8 - 1e-12 <= u[0] <= 1.5
+
+
+def test_the_floor_catches_a_period_that_would_carry_the_speed_through_zero(cart):
+    core, _ = make_core(cart, WatchdogConfig.from_artifact(cart, compensator_floor=(0.05, math.inf)),
+                        backend="python")
+    core.reset([0.06])
+    core.step([0.0, 0.0, 0.0], HOLD, t=0.0)
+    core._w[0] = -20.0                         # a period that ends at 0.06 - 0.4 = -0.34
+    core.step([0.0, 0.0, 0.0], HOLD, t=0.02)
+    assert core.last_extended_state[3] == 0.05
 
 
 def test_without_a_floor_the_singularity_watchdog_acts_near_a_stop(cart):
     core, _ = make_core(cart, backend="python")
     modes = set()
     for k in range(300):
-        _, record = core.step([0.0, 0.0, 0.0], [0.0] * 6, t=k / 50)
+        _, record = core.step([0.0, 0.0, 0.0], HOLD, t=k / 50)
         modes.add(record.mode)
     assert {"damped", "safe"} <= modes
 
 
-def test_a_refusal_sends_the_plants_safe_command_and_restarts_the_compensator(cart):
+def test_a_refusal_sends_the_plants_safe_command_and_logs_what_the_plant_has(cart):
     core, _ = make_core(cart, backend="python")
     for k in range(5):
-        core.step([0.0, 0.0, 0.0], [1.0, 0.3, 0.0, 0.0, 0.0, 0.0], t=k / 50)
+        core.step([0.0, 0.0, 0.0], AHEAD, t=k / 50)
     assert core.compensator[0] != 0.5
-    u, record = core.step([math.nan, 0.0, 0.0], [0.0] * 6, t=0.2)
+    u, record = core.step([math.nan, 0.0, 0.0], HOLD, t=0.1)
     assert record.mode == "safe" and u == [0.0, 0.0] and record.command == (0.0, 0.0)
-    core.observe_compensator([0.3])          # e.g. the speed in the cart's odometry
-    core.step([0.0, 0.0, 0.0], [0.0] * 6, t=0.22)
-    assert core.compensator[0] == pytest.approx(0.3 + (core.compensator[0] - 0.3))  # restarted from 0.3, then advanced
-    core2, _ = make_core(cart, backend="python")
-    core2.observe_compensator([0.3])
-    core2.reset()
-    assert core2.compensator == [0.3]
-    core2.observe_compensator([math.nan])
-    core2.reset()
-    assert core2.compensator == [0.5]
+    assert core.last_extended_state[3] == 0.0             # the plant's speed input while safe, not the law's
+
+
+def test_after_a_safe_command_the_compensator_restarts_from_what_the_plant_has(cart):
+    core, _ = make_core(cart, backend="python")
+    for k in range(5):
+        core.step([0.0, 0.0, 0.0], AHEAD, t=k / 50)
+    core.step([math.nan, 0.0, 0.0], HOLD, t=0.1)           # safe: the cart was sent v = 0
+    core.step([0.0, 0.0, 0.0], HOLD, t=0.12)
+    assert core.last_extended_state[3] == 0.0             # no measurement: continue from the command sent
+    core.step([math.nan, 0.0, 0.0], HOLD, t=0.14)
+    core.observe_compensator([0.3])                       # e.g. the speed in the cart's odometry
+    core.step([0.0, 0.0, 0.0], AHEAD, t=0.16)
+    assert core.last_extended_state[3] == 0.3
     with pytest.raises(ValueError, match="expected 1 values"):
-        core2.observe_compensator([0.1, 0.2])
+        core.observe_compensator([0.1, 0.2])
 
 
-def test_a_held_safe_command_holds_the_plants_last_command(cart):
-    config = WatchdogConfig.from_artifact(cart).with_overrides(safe_kind="hold")
+def test_a_restart_moves_the_input_no_faster_than_its_rate_limit(cart):
+    config = WatchdogConfig.from_artifact(cart, rate_limits=(0.5, math.inf))
     core, _ = make_core(cart, config, backend="python")
-    last, _ = core.step([0.0, 0.0, 0.0], [1.0, 0.3, 0.0, 0.0, 0.0, 0.0], t=0.0)
-    u, record = core.step([math.nan, 0.0, 0.0], [0.0] * 6, t=0.02)
+    core.step([0.0, 0.0, 0.0], AHEAD, t=0.0)
+    core.step([math.nan, 0.0, 0.0], HOLD, t=0.02)          # safe: v = 0 sent
+    core.observe_compensator([1.2])                       # measured 1.2 m/s: a restart there would jump
+    u, _ = core.step([0.0, 0.0, 0.0], AHEAD, t=0.04)
+    assert core.last_extended_state[3] == pytest.approx(0.5 / 50)
+    assert abs(u[0]) <= 2 * 0.5 / 50 + 1e-12
+
+
+def test_reset_starts_from_given_values_without_remembering_them(cart):
+    core, _ = make_core(cart, backend="python")
+    core.reset([0.3])
+    assert core.compensator == [0.3]
+    core.reset()
+    assert core.compensator == [0.5]
+    core.reset([math.nan])
+    assert core.compensator == [0.5]
+
+
+def test_a_held_safe_command_holds_the_plants_last_command_and_the_restart_continues_it(quadrotor):
+    config = WatchdogConfig.from_artifact(quadrotor).with_overrides(safe_kind="hold")
+    core, _ = make_core(quadrotor, config, backend="python")
+    x = [0.0] * 12
+    climb = [0.0] * 18
+    climb[10:15] = [0.5, 0.2, 0.0, 0.0, 0.0]              # z: 0.5 m up, rising at 0.2 m/s
+    for k in range(40):
+        last, _ = core.step(x, climb, t=k / 200)
+    u, record = core.step([math.nan] * 12, climb, t=40 / 200)
     assert record.mode == "held" and u == last
+    core.step(x, climb, t=41 / 200)
+    assert core.last_extended_state[12] == last[0]        # the thrust continues from the held one: no jump
 
 
 def test_rate_limits_bound_the_plants_input_not_the_new_one(cart):
@@ -245,17 +332,14 @@ def test_a_restart_from_a_measured_standstill_starts_at_the_floor_not_on_the_sin
     # a cart whose odometry says it stands still (v = 0) after a stop: det A = v, so a compensator restarted
     # at 0 would give sigma_min = 0 and the safe command again at every step; the floor lifts the restart too
     stuck, _ = make_core(cart, backend="python")
-    stuck.observe_compensator([0.0])
-    stuck.reset()
+    stuck.reset([0.0])
     _, record = stuck.step([0.0, 0.0, 0.0], [0.0] * 6, t=0.0)
     assert stuck.compensator == [0.0] and record.mode == "safe" and record.reason == "singular"
     config = WatchdogConfig.from_artifact(cart, compensator_floor=(0.2, math.inf))
     core, _ = make_core(cart, config, backend="python")
-    core.observe_compensator([0.0])
-    core.reset()
-    assert core.compensator == [0.2]                 # the sign of the start value (0.5)
+    core.reset([0.0])
+    assert core.compensator == [0.2]                 # the side of the start value (0.5)
     _, record = core.step([0.0, 0.0, 0.0], [0.0] * 6, t=0.0)
     assert record.mode == "nominal" and record.sigma_min == pytest.approx(0.2)
-    core.observe_compensator([-0.05])                # reversing slowly: the floor keeps its sign
-    core.reset()
+    core.reset([-0.05])                              # reversing slowly: the floor keeps its side
     assert core.compensator == [-0.2]

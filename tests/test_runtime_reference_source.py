@@ -102,3 +102,47 @@ def test_a_clock_jump_moves_the_ages_and_the_origin(core):
     source.restart(0.0)
     source.shift(-1.0)                                                 # an origin not yet taken stays so
     assert source.origin is None
+
+
+def _trajectory(names, times, positions, velocities=None):
+    from linz_ros.runtime.trajectory import TrajectoryPoints
+    empty = [[] for _ in times]
+    return TrajectoryPoints(names, times, positions, velocities or empty, list(empty))
+
+
+def test_a_trajectory_reference_holds_until_one_comes_then_follows_it_from_where_the_outputs_were(core):
+    from linz_ros.runtime.reference_source import TRAJECTORY
+    from linz_ros.runtime.trajectory import quintic_coefficients
+    source = ReferenceSource(core, TRAJECTORY, 0.5, OUTPUTS, trajectory_names=["x", "y"])
+    held = core.hold_reference(X)
+    assert source.sample(X, now=1.0) == held and not source.stale          # nothing planned: held, not stale
+    x0, y0 = held[0], held[3]
+    # one point 2 s after its stamp (1.5 s), names in another order than the outputs
+    assert source.accept_trajectory(_trajectory(["y", "x"], [2.0], [[y0 + 0.1, x0 - 0.2]]), 1.5, now=1.6) is None
+    assert source.sample(X, now=1.5) == pytest.approx(held)                # from where the outputs were, at rest
+    c = quintic_coefficients(2.0, x0, 0.0, 0.0, x0 - 0.2, 0.0, 0.0)
+    assert source.sample(X, now=2.5)[:3] == pytest.approx([sum(c[i] * 1.0 ** i for i in range(6)),
+                                                          sum(i * c[i] for i in range(1, 6)),
+                                                          sum(i * (i - 1) * c[i] for i in range(2, 6))])
+    assert source.sample(X, now=9.0) == pytest.approx([x0 - 0.2, 0.0, 0.0, y0 + 0.1, 0.0, 0.0])   # held at its end
+
+
+def test_a_new_trajectory_starts_from_the_one_followed_so_far_and_bad_ones_are_counted(core):
+    from linz_ros.runtime.reference_source import TRAJECTORY
+    source = ReferenceSource(core, TRAJECTORY, 0.5, OUTPUTS)
+    source.sample(X, now=0.0)
+    assert source.accept_trajectory(_trajectory(OUTPUTS, [0.0, 1.0], [[0.0, 0.0], [1.0, 1.0]]), None, 0.0) is None
+    mid = source.sample(X, now=0.5)
+    assert source.accept_trajectory(_trajectory(OUTPUTS, [1.0], [[2.0, 2.0]]), None, now=0.5) is None
+    assert source.sample(X, now=0.5) == pytest.approx(mid)                  # continuous up to the acceleration
+    refusal = source.accept_trajectory(_trajectory(["tool_x", "elbow"], [1.0], [[0.0, 0.0]]), None, 0.6)
+    assert refusal.startswith("trajectory: joint_names 'elbow' are not among") and source.refused == 1
+    assert source.accept_trajectory(_trajectory(OUTPUTS, [1.0, 0.5], [[0.0, 0.0]] * 2), None, 0.6) is not None
+    assert source.refused == 2
+    assert source.sample(X, now=1.5) == pytest.approx([2.0, 0.0, 0.0, 2.0, 0.0, 0.0])   # the good one goes on
+
+
+def test_trajectory_names_must_be_one_per_output(core):
+    from linz_ros.runtime.reference_source import TRAJECTORY
+    with pytest.raises(ConfigError, match="reference_joints: expected 2 names, one per output"):
+        ReferenceSource(core, TRAJECTORY, 0.5, OUTPUTS, trajectory_names=["a"])

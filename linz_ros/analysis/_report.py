@@ -217,7 +217,7 @@ def render_text(report: Report) -> str:
              f"operating point: {at}", "", *render_verdict(report).split("\n")]
     if p.mechanics is not None:
         form = {"mass_matrix": "mass-matrix form", "energy": "energy form (Lagrange's equations)",
-                "serial_arm": "serial arm (DH table)"}[p.mechanics.form]
+                "serial_arm": "serial arm (DH table)", "urdf": "URDF chain"}[p.mechanics.form]
         law = ("M(q) q'' = F(q, q') + B(q) u" if p.mechanics.kinematics is None
                else "M(q) v' = F(q, v) + B(q) u with q' = k(q, v)")
         if p.mechanics.elastic is not None:

@@ -10,6 +10,7 @@ from typing import Any
 from linz_ros.artifact.chainlaw import CHAIN_LAW_OUTPUTS, LAW_FORMS
 from linz_ros.artifact.elastic import ELASTIC_CONSTANTS
 from linz_ros.artifact.extension import extension_problem
+from linz_ros.artifact.urdf import urdf_problem
 from linz_ros.artifact.watchdog import PLANT_FILE_SETTINGS, setting, watchdog_problem
 from linz_ros.errors import ArtifactError
 
@@ -72,6 +73,9 @@ def check_consistency(document: dict[str, Any], source: str) -> None:
         need(found is None, "" if found is None else f"design.extension{'.' if found[0] else ''}{found[0]}: {found[1]}")
         plant_inputs = extension["plant_inputs"]
     _check_signal_units(plant.get("signal_units", {}), states + inputs + plant_inputs + outputs, need)
+    if plant.get("urdf") is not None:
+        found = urdf_problem(plant["urdf"], states, inputs)
+        need(found is None, "" if found is None else f"plant.urdf{'.' if found[0] else ''}{found[0]}: {found[1]}")
     need(_is_number(design.get("rate")) and design["rate"] > 0, "design.rate: expected a positive number")
     integral = design.get("integral")
     need(isinstance(integral, bool), "design.integral: expected true or false")

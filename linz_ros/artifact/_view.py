@@ -16,6 +16,7 @@ from linz_ros.artifact.compiler import Program, compile_program
 from linz_ros.artifact.chainlaw import ChainLaw, chain_law
 from linz_ros.artifact.elastic import ElasticLaw, elastic_law
 from linz_ros.artifact.extension import Extension, read_extension
+from linz_ros.artifact.urdf import UrdfRecord
 
 __all__ = ["Artifact"]
 
@@ -64,6 +65,12 @@ class Artifact:
         """The compensator of a dynamically extended law (``design.extension``), else None."""
         section = self.document["design"].get("extension")
         return None if section is None else read_extension(section)
+
+    @property
+    def urdf(self) -> UrdfRecord | None:
+        """The URDF the plant was built from (``plant.urdf``; :meth:`UrdfRecord.path` finds it), else None."""
+        section = self.document["plant"].get("urdf")
+        return None if section is None else UrdfRecord.from_json(section)
 
     @property
     def plant_states(self) -> list[str]:

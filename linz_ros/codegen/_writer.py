@@ -237,6 +237,7 @@ def _plant_section(design: Design) -> dict[str, Any]:
         "input_limits": {k: [float(a), float(b)] for k, (a, b) in plant.input_limits.items()},
         "envelope": {k: [float(a), float(b)] for k, (a, b) in plant.envelope.items()},
         "operating_point": {k: float(v) for k, v in plant.operating_point.items()},
+        **({"urdf": plant.urdf.to_json()} if plant.urdf is not None else {}),
     }
 
 

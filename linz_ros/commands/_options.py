@@ -208,7 +208,8 @@ def noise_levels(artifact: Any, items: list[str]) -> list[float] | None:
             raise ConfigError("--noise", f"expected a number or STATE=SIGMA, got {items[0]!r}") from None
         if not (math.isfinite(sigma) and sigma >= 0):
             raise ConfigError("--noise", f"expected a standard deviation >= 0, got {items[0]!r}")
-        return [sigma] * len(artifact.states)
+        measured = len(artifact.plant_states)      # a dynamic extension's compensator is not measured
+        return [sigma] * measured + [0.0] * (len(artifact.states) - measured)
     noise = state_vector(artifact, items, "--noise", [0.0] * len(artifact.states))
     if any(s < 0 for s in noise):
         raise ConfigError("--noise", "standard deviations must be >= 0")

@@ -2,8 +2,10 @@
 
 Check, build, a nominal simulation and (for the bundled pick arm) a reach past the
 workspace stopped by the envelope watchdog and the same reach with that watchdog only
-warning; then the nodes over DDS (when the plant has a bringup parameter file) and the
-field logs read back.
+warning; then the nodes over DDS and the field logs read back. The nodes' parameter file
+is, in this order, the one named by ``--bringup``, the package's ``config/<plant>.yaml`` for a
+bundled plant file, ``<plant stem>.bringup.yaml`` beside the plant file, or one written by
+``linz wire`` into the demo's folder (:func:`choose_bringup`).
 """
 
 from __future__ import annotations
@@ -14,12 +16,13 @@ from pathlib import Path
 from typing import Callable
 
 from linz_ros.commands._common import DEFAULT_OUT, bundled_params, bundled_plant
+from linz_ros.errors import ConfigError, LinzError
 from linz_ros.commands.build import build, render_build
 from linz_ros.commands.check import check
 from linz_ros.commands.logs import LogsRequest, read_and_report, render_logs
 from linz_ros.commands.sim import SimRequest, render_sim, simulate_run
 
-__all__ = ["DEMO_PLANT", "DEMO_REACH", "DemoRequest", "run_demo"]
+__all__ = ["DEMO_PLANT", "DEMO_REACH", "DemoRequest", "choose_bringup", "run_demo"]
 
 #: The bundled example and the reach that takes it through its singular set (sin q2 = 0).
 DEMO_PLANT = "pick_arm"
@@ -44,6 +47,8 @@ class DemoRequest:
         Run the bringup on the wall clock instead of simulated time in lockstep.
     progress : bool
         Progress bars of the simulations on stderr.
+    bringup : str, optional
+        The bringup parameter file (default: see :func:`choose_bringup`).
     """
 
     plant: str | None = None
@@ -52,6 +57,7 @@ class DemoRequest:
     ros: bool = True
     wall_clock: bool = False
     progress: bool = False
+    bringup: str | None = None
 
 
 def _warn(text: str) -> None:
@@ -105,6 +111,60 @@ def _bringup(request: DemoRequest, artifact: Path, params: Path, out: Path, say:
     say(render_heard(run))
 
 
+def _bundled_params_of(plant_file: Path, name: str) -> Path | None:
+    """The package's config/<name>.yaml when ``plant_file`` is the bundled plant file of that name."""
+    try:
+        bundled = bundled_plant(name)
+    except LinzError:
+        return None
+    return bundled_params(name) if bundled.resolve() == plant_file.resolve() else None
+
+
+def choose_bringup(plant_file: Path, name: str, given: str | None, artifact: Path, out: Path) -> tuple[Path, str]:
+    """The bringup parameter file of the demo's ROS 2 step, and where it came from.
+
+    ``--bringup`` first (an explicit choice, such as the ros2_control layout of a bundled arm),
+    then the package's ``config/<name>.yaml`` of a bundled plant file, then
+    ``<plant stem>.bringup.yaml`` beside the plant file, else one written by ``linz wire`` from the
+    artifact into ``out``.
+
+    Parameters
+    ----------
+    plant_file : pathlib.Path
+    name : str
+        The plant's name.
+    given : str or None
+        ``--bringup``.
+    artifact : pathlib.Path
+        The artifact just built (for ``linz wire``).
+    out : pathlib.Path
+        The demo's folder.
+
+    Returns
+    -------
+    (pathlib.Path, str)
+
+    Raises
+    ------
+    ConfigError
+        For a ``--bringup`` file that is not there.
+    """
+    from linz_ros.commands.wire import default_bringup_path, wire
+
+    if given is not None:
+        if not Path(given).is_file():
+            raise ConfigError("--bringup", f"{given}: no such file")
+        return Path(given), "named by --bringup"
+    bundled = _bundled_params_of(plant_file, name)
+    if bundled is not None:
+        return bundled, "the package's, for the bundled plant"
+    beside = default_bringup_path(plant_file)
+    if beside.is_file():
+        return beside, "beside the plant file"
+    written = wire(str(artifact), str(out / f"{name}.bringup.yaml"), force=True)
+    return written.path, f"written by `linz wire` (none beside the plant file: {beside.name})"
+
+
 def run_demo(request: DemoRequest, say: Callable[[str], None] = print,
              warn: Callable[[str], None] = _warn) -> Path:
     """Run the demo's steps, saying each step's text as it comes.
@@ -130,6 +190,8 @@ def run_demo(request: DemoRequest, say: Callable[[str], None] = print,
 
     plant_file = Path(request.plant) if request.plant is not None else bundled_plant(DEMO_PLANT)
     out = Path(request.out)
+    if request.bringup is not None and not Path(request.bringup).is_file():      # before the long steps
+        raise ConfigError("--bringup", f"{request.bringup}: no such file")
     steps = _Steps(request, say, warn)
     say(f"== 1. check {plant_file}")
     say(render_verdict(check(plant_file, samples=512)))
@@ -151,10 +213,9 @@ def run_demo(request: DemoRequest, say: Callable[[str], None] = print,
     else:
         say(f"\n== 4. (skipped: the reach past the workspace is written for the bundled plant file "
             f"{DEMO_PLANT}.yaml, and {plant_file} is another file)")
-    params = bundled_params(name)
-    if params is None:
-        say(f"\n(no bringup parameter file config/{name}.yaml: the ROS 2 step is skipped)")
-    elif request.ros:
+    if request.ros:
+        params, why = choose_bringup(plant_file, name, request.bringup, artifact, out)
+        say(f"\nbringup parameter file: {params} ({why})")
         _bringup(request, artifact, params, out / "bringup", say)
     logs = [folder for folder in (out / "reach" / "field_log", out / "bringup" / "field_log") if folder.is_dir()]
     for step, folder in enumerate(logs, start=6):

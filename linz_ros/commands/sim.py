@@ -39,6 +39,8 @@ class SimRequest:
     integrator : {"rk4", "scipy"}
     backend : {"native", "python"}
         Of the control step and the plant.
+    physics : {"model", "mujoco"}
+        The plant: our integrator of the artifact's dynamics, or MuJoCo on its URDF.
     substeps, seed : int
     plots : bool
     progress : bool
@@ -63,6 +65,7 @@ class SimRequest:
     watchdog: list[str] = field(default_factory=list)
     integrator: str = "rk4"
     backend: str = "native"
+    physics: str = "model"
     substeps: int = 4
     seed: int = 1
     plots: bool = True
@@ -149,6 +152,9 @@ def _check_initial_inside_envelope(artifact: Any, x0: list[float]) -> None:
 def _settings(artifact: Any, request: SimRequest):
     from linz_ros.runtime import SimSettings, mismatched_parameters, parse_assignments
 
+    if request.physics == "mujoco" and request.mismatch:
+        raise ConfigError("--mismatch", "applies to --physics model only: mujoco simulates the URDF as written "
+                                        "(edit the URDF, or the plant file, to make them differ)")
     x0 = state_vector(artifact, request.initial, "--initial", artifact.operating_point)
     if not request.force_initial:
         _check_initial_inside_envelope(artifact, x0)
@@ -158,7 +164,7 @@ def _settings(artifact: Any, request: SimRequest):
         plant_parameters=mismatched_parameters(artifact, parse_assignments(request.mismatch, "--mismatch")),
         noise=noise_levels(artifact, request.noise), delay=request.delay, substeps=request.substeps,
         integrator=request.integrator, seed=request.seed, config=watchdog_overrides(artifact, request.watchdog),
-        backend=request.backend)
+        backend=request.backend, physics=request.physics)
 
 
 def _simulate(artifact: Any, settings: Any, request: SimRequest, progress: Callable[[float], None]):
@@ -251,8 +257,9 @@ def render_sim(summary: dict[str, Any], as_json: bool = False, title: str = "sim
     at = "" if summary["verdict_at"] is None else f" at t = {summary['verdict_at']:.4g} s"
     lines.append(f"  verdict: {summary['verdict']}{at} ({summary['verdict_detail']})")
     for name, o in summary["outputs"].items():
-        rate = (f"fitted decay rate {_fmt(o['decay_rate'])} 1/s" if summary["verdict"] == "tracked"
-                else "no decay rate (the run did not track)")
+        rate = ("no decay rate (the run did not track)" if summary["verdict"] != "tracked"
+                else "no decay rate (the error did not decay through the fitting window)" if o["decay_rate"] is None
+                else f"fitted decay rate {_fmt(o['decay_rate'])} 1/s")
         lines.append(f"{tracking_line(name, o)}; {rate}")
     modes = ", ".join(f"{m} {t:.3g} s" for m, t in summary["time_in_mode"].items() if t > 0)
     lines.append(f"  min sigma {_fmt(summary['min_sigma'])}, max condition {_fmt(summary['max_condition'])}; "
@@ -270,6 +277,8 @@ def render_sim(summary: dict[str, Any], as_json: bool = False, title: str = "sim
     if backend is not None:              # an offline run (a bringup's summary comes from the field log)
         lines.append(f"  {backend['step']} control step, {backend['plant']} plant: "
                      + (f"{speed:,.0f} simulated steps per second here" if speed else "no steps timed"))
+    if summary.get("physics") is not None:
+        lines.append(f"  physics: {summary['physics']}")
     lines.extend(f"  note: {note}" for note in summary["notes"])
     lines.append("wrote " + ", ".join(summary["files"]))
     return "\n".join(lines)

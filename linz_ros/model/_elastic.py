@@ -59,14 +59,8 @@ class Elastic:
 
 
 def _section(reader: Any, doc: Mapping) -> dict:
-    section = doc.get(ELASTIC_KEY)
-    if not isinstance(section, dict):
-        raise reader.fail(ELASTIC_KEY, "expected a mapping with stiffness and motor_inertia (and optionally "
-                                       "motor_angles, motor_rates, motor_damping)")
-    unknown = [str(k) for k in section if k not in _KEYS]
-    if unknown:
-        raise reader.fail(f"{ELASTIC_KEY}.{unknown[0]}", "unknown key; expected one of " + ", ".join(_KEYS))
-    return section
+    return reader.section(doc, ELASTIC_KEY, _KEYS, "stiffness and motor_inertia (and optionally motor_angles, "
+                                                   "motor_rates, motor_damping)")
 
 
 def _names(reader: Any, section: Mapping, key: str, defaults: list[str]) -> list[str]:

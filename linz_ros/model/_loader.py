@@ -24,13 +24,14 @@ from linz_ros.model._plausibility import check_physical_sign
 from linz_ros.model._reader import (IDENTIFIER, Reader, StrictLoader, describe, kind_of, printable, read_bounded,
                                     stray_keys_problem, yaml_problem)
 from linz_ros.model._units import read_signal_units
+from linz_ros.model._urdf import URDF_KEY, read_urdf
 
 __all__ = ["load_plant", "plant_from_text", "expression_in"]
 
 _TOP_LEVEL = ("plant", "description", "states", "coordinates", "velocities", "inputs", "parameters",
               "definitions", "dynamics", "mass_matrix", "kinetic_energy", "potential_energy", "serial_arm",
               "forces", "input_map", "kinematics", "outputs", "input_limits", "envelope", "operating_point", "design",
-              "units", "elastic_joints")
+              "units", "elastic_joints", URDF_KEY)
 _REQUIRED = ("plant", "inputs")
 #: Keys that only a mechanical form may carry, and the one key of each model form.
 _MECHANICAL_ONLY = ("coordinates", "velocities", "forces", "input_map", "kinematics", ELASTIC_KEY)
@@ -117,7 +118,7 @@ def _model_form(reader: Reader, doc: Mapping) -> str:
     given = [key for key in _MODEL_FORMS if doc.get(key) is not None]
     if not given:
         raise reader.fail("dynamics", "missing (required): give the model as dynamics (explicit form), "
-                                      "mass_matrix, kinetic_energy or serial_arm")
+                                      "mass_matrix, kinetic_energy, serial_arm or urdf")
     if len(given) > 1:
         raise reader.fail(given[1], f"give one model form; {given[0]} is given as well")
     form = given[0]
@@ -128,6 +129,12 @@ def _model_form(reader: Reader, doc: Mapping) -> str:
                                         "serial_arm), not to dynamics")
         if doc.get("states") is None:
             raise reader.fail("states", "missing (required)")
+    elif form == URDF_KEY:
+        derived = [k for k in ("states", "coordinates", "velocities", "inputs", "input_map", "kinematics",
+                               "potential_energy") if doc.get(k) is not None]
+        if derived:
+            raise reader.fail(derived[0], "a URDF plant's states (q_<joint>, qd_<joint>) and inputs (tau_<joint>) "
+                                          "come from the URDF's movable joints; remove this field")
     else:
         if doc.get("states") is not None:
             raise reader.fail("states", "a mechanical plant's states are its coordinates and velocities; "
@@ -207,7 +214,7 @@ def _read_document(doc: Any, source: str, digest: str) -> Plant:
     if unknown:
         raise reader.fail(unknown[0], "unknown field; expected one of " + ", ".join(_TOP_LEVEL))
     for key in _REQUIRED:
-        if doc.get(key) is None:
+        if doc.get(key) is None and not (key == "inputs" and doc.get(URDF_KEY) is not None):
             raise reader.fail(key, "missing (required)")
     name = doc["plant"]
     if not isinstance(name, str) or not IDENTIFIER.fullmatch(name):
@@ -217,15 +224,26 @@ def _read_document(doc: Any, source: str, digest: str) -> Plant:
                                    "artifact and output files)")
     description = reader.text(doc, "description", "description")
     form = _model_form(reader, doc)
+    chain = None
     if form == "dynamics":
         states = reader.name_list(doc, "states", "state")
         coordinates: list[str] = []
+    elif form == URDF_KEY:
+        chain = read_urdf(reader, doc)
+        coordinates, rates, torques = chain.names()
+        states = [reader.declare(f"{URDF_KEY} (joint {j.name!r})", name, "state")
+                  for j, name in zip(chain.joints + chain.joints, coordinates + rates)]
+        if ELASTIC_KEY in doc:
+            states += motor_names(reader, doc, coordinates)
     else:
         coordinates = reader.name_list(doc, "coordinates", "state")
         states = coordinates + velocity_names(reader, doc, coordinates)
         if ELASTIC_KEY in doc:                   # present but empty is refused by the section reader
             states += motor_names(reader, doc, coordinates)
-    inputs = reader.name_list(doc, "inputs", "input")
+    if chain is None:
+        inputs = reader.name_list(doc, "inputs", "input")
+    else:
+        inputs = [reader.declare(f"{URDF_KEY} (joint {j.name!r})", u, "input") for j, u in zip(chain.joints, torques)]
     state_symbols = [sp.Symbol(s, real=True) for s in states]
     input_symbols = [sp.Symbol(u, real=True) for u in inputs]
     reader.table.update({s.name: s for s in state_symbols + input_symbols})
@@ -241,11 +259,13 @@ def _read_document(doc: Any, source: str, digest: str) -> Plant:
     else:
         nq = len(coordinates)
         mechanics = read_mechanics(reader, doc, form, state_symbols[:nq], state_symbols[nq:2 * nq], input_symbols,
-                                   state_symbols[2 * nq:])
+                                   state_symbols[2 * nq:], chain)
         f = G = None
         output_names, h = _read_mechanical_outputs(reader, doc, mechanics)
     input_limits = _read_bounds(reader, doc, "input_limits", inputs, "an input")
     envelope = _read_bounds(reader, doc, "envelope", states, "a state")
+    if chain is not None:        # the URDF's limits, under what the plant file says
+        input_limits, envelope = {**chain.input_limits(), **input_limits}, {**chain.envelope(), **envelope}
     operating_point = _read_operating_point(reader, doc, states, envelope)
     if mechanics is not None:
         check_mass_matrix(reader, form, mechanics, parameters, envelope, operating_point)
@@ -256,7 +276,7 @@ def _read_document(doc: Any, source: str, digest: str) -> Plant:
         inputs=tuple(input_symbols), parameters=parameters, units=units, f=f, G=G,
         output_names=output_names, h=h, input_limits=input_limits, envelope=envelope,
         operating_point=operating_point, design=design, source=source, sha256=digest, mechanics=mechanics,
-        signal_units=signal_units)
+        signal_units=signal_units, urdf=None if chain is None else chain.source)
 
 
 def plant_from_text(text: str, source: str = "<string>") -> Plant:

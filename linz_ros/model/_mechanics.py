@@ -1,4 +1,4 @@
-"""The mechanical plant forms: mass-matrix, energy (Lagrange) and serial-arm (DH table).
+"""The mechanical plant forms: mass-matrix, energy (Lagrange), serial-arm (DH table) and URDF.
 
 Each reduces to :class:`~linz_ros.model._plant.Mechanics`, ``M(q) q'' = F(q, q') + B(q) u``,
 with the states ``(q, q')``. The reader object is the plant-file reader of ``_reader``
@@ -17,14 +17,16 @@ import sympy as sp
 from linz_ros.model._elastic import ELASTIC_KEY, read_elastic
 from linz_ros.model._plant import Mechanics
 from linz_ros.model._serial_arm import Link, arm_model
+from linz_ros.model._urdf import URDF_KEY, UrdfChain, urdf_terms
 from linz_ros.model._symbolic import numeric_function
 
 __all__ = ["MECHANICAL_FORMS", "read_mechanics", "check_mass_matrix", "velocity_names", "TOOL_NAMES",
            "STANDARD_GRAVITY", "MAX_JOINTS"]
 
 #: Top-level key that selects each mechanical form.
-MECHANICAL_FORMS = {"mass_matrix": "mass_matrix", "kinetic_energy": "energy", "serial_arm": "serial_arm"}
-#: Names under which a serial arm's tool point can be used in ``outputs``.
+MECHANICAL_FORMS = {"mass_matrix": "mass_matrix", "kinetic_energy": "energy", "serial_arm": "serial_arm",
+                    URDF_KEY: "urdf"}
+#: Names under which a serial arm's (or a URDF chain's) tool point can be used in ``outputs``.
 TOOL_NAMES = ("tip_x", "tip_y", "tip_z")
 #: Standard gravity, m/s^2 (CGPM 1901), the serial arm's default along -z.
 STANDARD_GRAVITY = 9.80665
@@ -212,16 +214,21 @@ def _serial_arm_terms(reader: Any, doc: Mapping, q: list[sp.Symbol], qd: list[sp
             raise reader.fail(f"serial_arm.joints[{i}].mass", f"the mass of joint {i + 1}'s link must be positive, "
                                                               f"got {float(mass):g}")
     model = arm_model(links, q, qd, gravity, tool)
-    if model.tool is not None:
-        for name, expr in zip(TOOL_NAMES, model.tool):
-            reader.declare("serial_arm.tool", name, "definition")
-            reader.table[name] = expr
+    _declare_tool(reader, "serial_arm.tool", model.tool)
     return model.M, model.F, links, gravity
+
+
+def _declare_tool(reader: Any, field: str, tool: sp.Matrix | None) -> None:
+    """The tool point's coordinates as definitions ``tip_x``, ``tip_y``, ``tip_z`` for the outputs."""
+    if tool is not None:
+        for name, expr in zip(TOOL_NAMES, tool):
+            reader.declare(field, name, "definition")
+            reader.table[name] = expr
 
 
 def read_mechanics(reader: Any, doc: Mapping, form_key: str, coordinates: list[sp.Symbol],
                    velocities: list[sp.Symbol], inputs: list[sp.Symbol],
-                   motor: list[sp.Symbol] | None = None) -> Mechanics:
+                   motor: list[sp.Symbol] | None = None, chain: UrdfChain | None = None) -> Mechanics:
     """Read the model of a mechanical plant in the form named by ``form_key``.
 
     Parameters
@@ -229,10 +236,12 @@ def read_mechanics(reader: Any, doc: Mapping, form_key: str, coordinates: list[s
     reader : the plant-file reader
     doc : mapping
         The plant document.
-    form_key : {"mass_matrix", "kinetic_energy", "serial_arm"}
+    form_key : {"mass_matrix", "kinetic_energy", "serial_arm", "urdf"}
     coordinates, velocities, inputs : list of sympy.Symbol
     motor : list of sympy.Symbol, optional
         The motor angles then rates of an elastic-joint arm (with its section in ``doc``).
+    chain : UrdfChain, optional
+        The chain read from the ``urdf`` section (``model._urdf.read_urdf``; the URDF form only).
 
     Returns
     -------
@@ -250,6 +259,11 @@ def read_mechanics(reader: Any, doc: Mapping, form_key: str, coordinates: list[s
     elif form_key == "kinetic_energy":
         M, F = _energy_terms(reader, doc, coordinates, velocities, allowed, input_set)
         F = F + _forces(reader, doc, coordinates, allowed, input_set)
+    elif form_key == URDF_KEY:
+        M, F, tool, gravity = urdf_terms(chain, coordinates, velocities)
+        links = list(chain.joints)
+        _declare_tool(reader, f"{URDF_KEY}.tool", tool)
+        F = F + _forces(reader, doc, coordinates, set(reader.names), input_set)
     else:
         M, F, links, gravity = _serial_arm_terms(reader, doc, coordinates, velocities, allowed - {s.name for s in coordinates}
                                  - {s.name for s in velocities} - {u.name for u in inputs},

@@ -7,7 +7,44 @@ from typing import Any
 
 import sympy as sp
 
-__all__ = ["Plant", "Mechanics"]
+__all__ = ["Plant", "Mechanics", "UrdfSource"]
+
+
+@dataclass(frozen=True)
+class UrdfSource:
+    """The URDF a plant's model was read from (the ``urdf`` section of the plant file).
+
+    Attributes
+    ----------
+    file : str
+        As the plant file wrote it (relative to the plant file's folder, or absolute).
+    path : str
+        The file it resolved to.
+    sha256 : str
+        Of the URDF's bytes.
+    base, tip : str
+        The links that end the chain.
+    joints : tuple of str
+        The chain's movable joints (URDF names), in state order.
+    """
+
+    file: str
+    path: str
+    sha256: str
+    base: str
+    tip: str
+    joints: tuple[str, ...]
+
+    def to_json(self) -> dict[str, Any]:
+        """The artifact's ``plant.urdf`` section.
+
+        Returns
+        -------
+        dict
+            ``file``, ``sha256``, ``base``, ``tip``, ``joints``.
+        """
+        return {"file": self.file, "sha256": self.sha256, "base": self.base, "tip": self.tip,
+                "joints": list(self.joints)}
 
 
 @dataclass(frozen=True)
@@ -21,7 +58,7 @@ class Mechanics:
 
     Attributes
     ----------
-    form : {"mass_matrix", "energy", "serial_arm"}
+    form : {"mass_matrix", "energy", "serial_arm", "urdf"}
         The plant-file form the model came from.
     coordinates, velocities : tuple of sympy.Symbol
     M : sympy.Matrix
@@ -30,8 +67,9 @@ class Mechanics:
         Generalized forces other than the inputs (Coriolis, gravity, friction), nq x 1.
     B : sympy.Matrix
         Input map, nq x m, in q and the parameters.
-    links : tuple of Link
-        The DH table of a serial arm (empty for the other forms).
+    links : tuple
+        The DH table of a serial arm (``Link``), or the movable joints of a URDF chain
+        (``model._urdf.UrdfJoint``; each has ``kind``, ``name``, ``damping``); empty for the other forms.
     gravity : sympy.Matrix or None
         A serial arm's gravity vector in its base frame.
     kinematics : sympy.Matrix or None
@@ -116,8 +154,10 @@ class Plant:
     sha256 : str
         Hash of the file's bytes.
     mechanics : Mechanics or None
-        The mass-matrix structure of a mechanical plant (mass-matrix, energy or
-        serial-arm form); None for the explicit form.
+        The mass-matrix structure of a mechanical plant (mass-matrix, energy,
+        serial-arm or URDF form); None for the explicit form.
+    urdf : UrdfSource or None
+        The URDF of a plant in the URDF form.
     """
 
     name: str
@@ -138,6 +178,7 @@ class Plant:
     sha256: str = ""
     mechanics: Mechanics | None = None
     signal_units: dict[str, str] = field(default_factory=dict)
+    urdf: UrdfSource | None = None
 
     def identity(self) -> dict[str, Any]:
         """What names the plant and where it came from, as JSON values (the check report and the

@@ -88,6 +88,16 @@ class Reader:
             raise self.fail(key, f"expected a mapping of name: value, got {kind_of(value)}")
         return value
 
+    def section(self, doc: Mapping, key: str, keys: tuple[str, ...], expected: str) -> dict:
+        """A mapping section whose keys are all among ``keys``; ``expected`` says what it holds."""
+        value = doc.get(key)
+        if not isinstance(value, dict):
+            raise self.fail(key, f"expected a mapping with {expected}")
+        unknown = [str(k) for k in value if k not in keys]
+        if unknown:
+            raise self.fail(f"{key}.{unknown[0]}", "unknown key; expected one of " + ", ".join(keys))
+        return value
+
     def number(self, field: str, value: Any) -> float:
         if isinstance(value, bool) or value is None:
             raise self.fail(field, f"expected a number, got {describe(value)}")

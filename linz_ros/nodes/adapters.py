@@ -19,6 +19,9 @@ the direction(s) it may carry, whether it has a header stamp, which field paths 
 (and which may not share a map), and the codec that reads and writes a list of field paths;
 :class:`FieldMap` dispatches through the row and knows no type by name.
 
+A planned trajectory (``trajectory_msgs/msg/JointTrajectory``, a reference) is converted as a
+whole in :mod:`linz_ros.nodes._ros2_control` and checked by :mod:`linz_ros.runtime.trajectory`.
+
 A message that does not fit (missing joint, arrays of the wrong length, a value that is
 not a number) raises :class:`MessageError` with a short reason; the controller then sends
 the safe command and counts the message as rejected.

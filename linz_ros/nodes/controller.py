@@ -9,8 +9,9 @@ publishes the safe command once and stops, ``cleanup`` releases everything. With
 
 Topics (names are parameters): state in (JointState, Odometry or Float64MultiArray),
 command out (Float64MultiArray, JointState efforts, Wrench or Twist), reference in
-(Float64MultiArray ``[y1, y1', ..., y1^(r1), y2, ...]``) unless a built-in reference is
-chosen, ``~/conditioning`` (one labelled Float64MultiArray per step) and
+(Float64MultiArray ``[y1, y1', ..., y1^(r1), y2, ...]``, or with ``reference: trajectory`` a
+trajectory_msgs/JointTrajectory whose joint_names name the outputs, ``reference_joints``)
+unless a built-in reference is chosen, ``~/conditioning`` (one labelled Float64MultiArray per step) and
 ``/diagnostics`` (about once a second). With a dynamic extension the messages carry the
 plant's own states and inputs; ``compensator_fields`` name the state message's fields that
 measure the compensator (a cart's speed), from which it restarts.
@@ -28,6 +29,7 @@ from rcl_interfaces.msg import SetParametersResult
 from rclpy.clock import Clock, ClockType
 from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackReturn
 from std_msgs.msg import Float64MultiArray
+from trajectory_msgs.msg import JointTrajectory
 
 from linz_ros.artifact import load_artifact
 from linz_ros.errors import LinzError
@@ -35,13 +37,14 @@ from linz_ros.nodes._common import EXECUTORS, SAFETY_NOTICE, control_qos, declar
 from linz_ros.nodes._extension import CompensatorFields, extension_text
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, labelled_array,
                                      message_class, set_stamp, stamp_seconds)
+from linz_ros.nodes._ros2_control import trajectory_points
 from linz_ros.runtime import WatchdogConfig
 from linz_ros.runtime.native import AnyCore, make_core
 from linz_ros.runtime.controller_settings import (DYNAMIC, controller_parameters, field_log_settings,
                                                   no_state_timeout, parameter_problem, watchdog_overrides)
 from linz_ros.runtime.diagnostics import DiagnosticWindow, field_log_report
 from linz_ros.runtime.fieldlog import FieldLogWriter, open_field_log
-from linz_ros.runtime.reference_source import TOPIC, ReferenceSource
+from linz_ros.runtime.reference_source import TOPIC, TRAJECTORY, ReferenceSource
 from linz_ros.runtime.steprecord import encode as conditioning_values, record_labels as conditioning_labels
 
 __all__ = ["ControllerNode", "main"]
@@ -179,7 +182,7 @@ class ControllerNode(LifecycleNode):
                                     len(artifact.plant_inputs), "command_fields")
         self.compensator_fields = CompensatorFields(artifact, p["state_type"], p["compensator_fields"])
         self.reference = ReferenceSource(core, p["reference"].strip(), p["reference_timeout"], artifact.outputs,
-                                         p["reference_extrapolate"])
+                                         p["reference_extrapolate"], [n for n in p["reference_joints"] if n] or None)
         self.core = core
         # without simulated time the node's clock is the system clock: read it directly in the
         # loop (rclpy's Clock.now costs about ten microseconds); use_sim_time is fixed from here on
@@ -197,6 +200,9 @@ class ControllerNode(LifecycleNode):
         if self.reference.spec == TOPIC:
             self._owned_subscriptions.append(self.create_subscription(Float64MultiArray, p["reference_topic"],
                                                                 self._on_reference, qos))
+        elif self.reference.spec == TRAJECTORY:
+            self._owned_subscriptions.append(self.create_subscription(JointTrajectory, p["reference_topic"],
+                                                                      self._on_trajectory, qos))
         self._owned_timers = [self._stale_timer(core.config.stale_after)]
         self._no_state = [math.nan] * len(artifact.states)        # x of the field log: with the compensator
         self._extended = artifact.extension is not None
@@ -348,6 +354,23 @@ class ControllerNode(LifecycleNode):
             self.get_logger().warning(f"reference message refused: expected {self.core.reference_size} finite "
                                       "numbers", throttle_duration_sec=2.0)
 
+    def _on_trajectory(self, message: JointTrajectory) -> None:
+        """A planned trajectory: converted, checked, followed from its header stamp (zero: from now)."""
+        if self.core is None:
+            return
+        try:
+            points, stamp = trajectory_points(message)
+            refusal = self.reference.accept_trajectory(points, stamp, self._now())
+        except Exception as err:  # noqa: BLE001 - a message must never stop the controller
+            self.reference.refused += 1
+            refusal = f"{type(err).__name__}: {str(err).splitlines()[0] if str(err) else ''}"
+        if refusal is None:
+            self.get_logger().info(f"trajectory of {len(points.times)} points accepted, "
+                                   f"{points.times[-1]:g} s long", throttle_duration_sec=1.0)
+        else:
+            self.get_logger().warning(f"trajectory refused ({self.reference.refused} so far): {refusal}",
+                                      throttle_duration_sec=1.0)
+
     def _on_state(self, message: Any) -> None:
         if not self.active or self.core is None:
             return
@@ -381,11 +404,11 @@ class ControllerNode(LifecycleNode):
             u, record = self.core.safe_step(now, "bad_message")
             self._publish(u, record, now)
             return
-        if measured is not None:             # used whenever the compensator restarts
+        if measured is not None and self._compensator_fresh:   # the first state since activation: start there
+            self._compensator_fresh = False
+            self.core.reset(measured)
+        elif measured is not None:          # a restart at this step (after a safe command) starts from it
             self.core.observe_compensator(measured)
-            if self._compensator_fresh:       # the first state since activation: start from what it measures
-                self._compensator_fresh = False
-                self.core.reset()
         ref = self.reference.sample(x, now)
         if self.reference.stale:
             if self.reference.latest is None:
@@ -482,6 +505,8 @@ class ControllerNode(LifecycleNode):
             else:
                 status.level, status.message = DiagnosticStatus.OK, "inactive: not commanding"
             status.values = [KeyValue(key=k, value=v) for k, v in self.window.values(now)]
+            if self.reference.spec == TRAJECTORY:
+                status.values.append(KeyValue(key="trajectories_refused", value=str(self.reference.refused)))
             self._field_log_diagnostics(status)
         array = DiagnosticArray(status=[status])
         array.header.stamp = self.get_clock().now().to_msg()

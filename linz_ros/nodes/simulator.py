@@ -34,10 +34,12 @@ from linz_ros.artifact import load_artifact
 from linz_ros.errors import ConfigError
 from linz_ros.nodes._common import RCLError, control_qos, declare, entry_point
 from linz_ros.nodes._extension import echo_map
+from linz_ros.nodes._ros2_control import joint_order_problem, order_joints
 from linz_ros.nodes.adapters import (COMMAND_TYPES, STATE_TYPES, FieldMap, MessageError, message_class,
                                      set_stamp, split_seconds)
 from linz_ros.runtime import mismatched_parameters, parse_assignments
-from linz_ros.runtime.native import BACKENDS, make_plant
+from linz_ros.runtime.native import BACKENDS
+from linz_ros.runtime.physics import PHYSICS, make_physics_plant
 from rclpy.node import Node
 
 __all__ = ["PlantSimulatorNode", "main"]
@@ -68,8 +70,10 @@ class PlantSimulatorNode(Node):
         # the plant's own states and inputs (with a dynamic extension the compensator is the controller's)
         states, inputs = artifact.plant_states, artifact.plant_inputs
         n, m = len(states), len(inputs)
+        if p["physics"] == "mujoco" and any(p["mismatch"]):
+            raise ConfigError("mismatch", "applies to physics model only: mujoco simulates the URDF as written")
         params = mismatched_parameters(artifact, parse_assignments([s for s in p["mismatch"] if s], "mismatch"))
-        self.plant, note = make_plant(artifact, params, backend=p["backend"])
+        self.plant, note = make_physics_plant(artifact, p["physics"], params, backend=p["backend"], field="physics")
         if note is not None:
             self.get_logger().warning(note)
         initial = [v for v in p["initial_state"]]
@@ -85,6 +89,9 @@ class PlantSimulatorNode(Node):
         self.state_map = FieldMap(p["state_type"], [f for f in p["state_fields"] if f], n, "state_fields")
         self.command_map = FieldMap(p["command_type"], [f for f in p["command_fields"] if f], m, "command_fields")
         self.echo_map, self.echoed = echo_map(self.state_map, p["input_fields"], inputs)
+        self.joint_order = [j for j in p["joint_order"] if j]
+        if self.joint_order and joint_order_problem(self.state_map, self.joint_order):
+            raise ConfigError("joint_order", joint_order_problem(self.state_map, self.joint_order))
         self.p = p
         self.period = 1.0 / p["rate"]
         self.u = [0.0] * m
@@ -121,7 +128,8 @@ class PlantSimulatorNode(Node):
         gc.collect()
         gc.freeze()
         self.get_logger().info(f"simulating {artifact.name} at {p['rate']:g} Hz "
-                               f"({p['substeps']} RK4 steps a period, {self.plant.backend} plant)"
+                               f"({p['substeps']} RK4 steps a period, {self.plant.backend} plant"
+                               + (f"; {self.plant.description})" if p["physics"] != "model" else ")")
                                + (f", mismatch {', '.join(s for s in p['mismatch'] if s)}" if any(p["mismatch"]) else ""))
 
     def _declare_parameters(self) -> dict[str, Any]:
@@ -136,6 +144,9 @@ class PlantSimulatorNode(Node):
                                 "for odometry; '': left empty)", True)
         p["child_frame_id"] = declare(self, "child_frame_id", "", "child_frame_id of Odometry state messages, the "
                                       "twist's frame (REP 105: base_link; '': left empty)", True)
+        p["joint_order"] = declare(self, "joint_order", [], "JointState states: the joints in the order the message "
+                                   "lists them, as a joint_state_broadcaster lists them in its own (empty: as "
+                                   "state_fields first name them)", True, array_of=str)
         p["command_topic"] = declare(self, "command_topic", "command", "command topic", True)
         p["command_type"] = declare(self, "command_type", "std_msgs/msg/Float64MultiArray", "command type", True)
         p["command_fields"] = declare(self, "command_fields", [], "field path of each input", True, array_of=str)
@@ -168,6 +179,9 @@ class PlantSimulatorNode(Node):
         p["seed"] = declare(self, "seed", 1, "random seed of the faults", True)
         p["backend"] = declare(self, "backend", BACKENDS[0], f"the plant's integrator: {' or '.join(BACKENDS)} "
                                "(native: compiled C, Python with a warning where it cannot be built here)", True)
+        p["physics"] = declare(self, "physics", PHYSICS[0], f"the plant: {' or '.join(PHYSICS)} (model: our "
+                               "integrator of the artifact's dynamics; mujoco: MuJoCo on the artifact's URDF, "
+                               "its own RK4)", True)
         p["brake_until_command"] = declare(self, "brake_until_command", True, "hold the plant still until the "
                                            "first command arrives (a brake released by the controller)", True)
         p["clock_jump_at"] = declare(self, "clock_jump_at", -1.0, "at this time (s from the start) move the "
@@ -340,6 +354,8 @@ class PlantSimulatorNode(Node):
             message = self.state_map.write(measured)
         else:           # the inputs held over the period just integrated, beside the states
             message = self.echo_map.write(measured + [self.u[j] for j in self.echoed])
+        if self.joint_order:
+            order_joints(message, self.joint_order)
         set_stamp(message, stamp)
         self._set_frames(message)
         self.frozen = message

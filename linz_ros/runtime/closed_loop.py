@@ -19,8 +19,9 @@ import numpy as np
 from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime.core import ControllerCore
-from linz_ros.runtime.native import BACKENDS, make_core, make_plant
-from linz_ros.runtime.plant import IntegrationBudgetError, NumericPlant
+from linz_ros.runtime.native import BACKENDS, make_core
+from linz_ros.runtime.physics import advance_period, make_physics_plant
+from linz_ros.runtime.plant import IntegrationBudgetError
 from linz_ros.runtime.reference import Reference, make_reference
 from linz_ros.runtime.steprecord import (ACTED_MODES, ALARMS, MODES, alarms_from_reasons, decode, encode,
                                          record_labels, write_csv)
@@ -61,6 +62,9 @@ class SimSettings:
     backend : {"native", "python"}
         Of the control step and the plant (:mod:`linz_ros.runtime.native`); ``native`` falls
         back to Python with a note where it cannot be built.
+    physics : {"model", "mujoco"}
+        The plant: our integrator of the artifact's dynamics, or MuJoCo on the artifact's URDF
+        (:mod:`linz_ros.runtime.physics`; its own RK4, ``substeps`` steps a period).
     """
 
     duration: float = 5.0
@@ -74,6 +78,7 @@ class SimSettings:
     config: WatchdogConfig | None = None
     seed: int = 1
     backend: str = "native"
+    physics: str = "model"
 
 
 @dataclass
@@ -106,6 +111,7 @@ class SimResult:
     damping: np.ndarray | None = None
     warn: np.ndarray | None = None
     backend: tuple[str, str] | None = None      # (step, plant) of an offline run; None for a record of a field run
+    physics: str | None = None                  # "model" or "mujoco" of an offline run; None for a field run
     wall_seconds: float = 0.0
 
     @property
@@ -174,6 +180,7 @@ class SimResult:
             "alarm_steps": {name: int(np.count_nonzero(self.alarm_mask() >> bit & 1))
                             for bit, name in enumerate(ALARMS)},
             "backend": None if self.backend is None else {"step": self.backend[0], "plant": self.backend[1]},
+            "physics": self.physics,
             # wall-clock speed of this run on this machine: reported, never judged
             "steps_per_second": (float(len(self.t) / self.wall_seconds) if self.wall_seconds > 0 else None),
             "notes": list(self.notes),
@@ -268,6 +275,9 @@ def _check_settings(artifact: Artifact, settings: SimSettings) -> None:
         raise ConfigError("--backend", f"expected one of {', '.join(BACKENDS)}, got {settings.backend!r}")
     if settings.integrator not in INTEGRATORS:
         raise ConfigError("--integrator", f"expected one of {', '.join(INTEGRATORS)}, got {settings.integrator!r}")
+    if settings.physics == "mujoco" and settings.integrator != "rk4":
+        raise ConfigError("--integrator", f"{settings.integrator} integrates the model physics only; mujoco steps "
+                                          "with its own RK4 (set --substeps)")
     if not (isinstance(settings.substeps, int) and 1 <= settings.substeps <= MAX_SUBSTEPS):
         raise ConfigError("--substeps", f"expected a whole number from 1 to {MAX_SUBSTEPS}, got {settings.substeps}")
     if settings.integrator == "rk4" and settings.duration * artifact.rate * settings.substeps > MAX_RUN_SUBSTEPS:
@@ -276,12 +286,15 @@ def _check_settings(artifact: Artifact, settings: SimSettings) -> None:
     if not (math.isfinite(settings.delay) and settings.delay >= 0):
         raise ConfigError("--delay", f"expected a number of seconds >= 0, got {settings.delay}")
     if settings.delay > settings.duration:
-        raise ConfigError("--delay", f"{settings.delay:g} s is longer than the run ({settings.duration:g} s): no "
-                                     "command would arrive")
+        raise ConfigError("--delay", f"{settings.delay:g} s is longer than the run ({settings.duration:g} s)")
     if settings.initial is not None and len(settings.initial) != n:
         raise ConfigError("--initial", f"expected {n} values")
     if settings.noise is not None and (len(settings.noise) != n or any(not (s >= 0) for s in settings.noise)):
         raise ConfigError("--noise", f"expected {n} standard deviations >= 0")
+    own = len(artifact.plant_states)      # a dynamic extension's compensator states follow the plant's
+    unmeasured = [s for s, sigma in zip(artifact.states[own:], list(settings.noise or ())[own:]) if sigma]
+    if unmeasured:
+        raise ConfigError("--noise", f"{unmeasured[0]} is the controller's own compensator state, not measured")
 
 
 def simulate(artifact: Artifact, settings: SimSettings | None = None,
@@ -311,12 +324,12 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     settings = settings or SimSettings()
     _check_settings(artifact, settings)
     core, core_note = make_core(artifact, settings.config, backend=settings.backend)
-    plant, plant_note = make_plant(artifact, settings.plant_parameters, backend=settings.backend)
+    plant, plant_note = make_physics_plant(artifact, settings.physics, settings.plant_parameters, settings.backend,
+                                           field="--physics")
     start = [float(v) for v in (settings.initial if settings.initial is not None else artifact.operating_point)]
     x, compensator = start[:plant.n], start[plant.n:] or None   # a dynamic extension's compensator starts here
     if compensator is not None:
-        core.observe_compensator(compensator)
-        core.reset()
+        core.reset(compensator)
     reference = settings.reference
     if reference is None:
         reference = make_reference("hold", artifact.relative_degree, initial_outputs(core, x))
@@ -364,7 +377,7 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
         before = commands[k - delay_periods - 1] if k - delay_periods - 1 >= 0 else zero
         after = commands[k - delay_periods] if k - delay_periods >= 0 else zero
         try:
-            x = _advance(plant, x, before, after, fraction, T, settings)
+            x = advance_period(plant, x, (before, after), fraction, T, settings.substeps, settings.integrator)
         except IntegrationBudgetError as err:
             budget_note = f"stopped at t = {(k + 1) * T:.4g} s: {err}"
             x = [math.nan] * n
@@ -384,8 +397,9 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
         result.ref_state = _reference_states(artifact, result.ref)
     _note_alarms(result)
     _note_slow_steps(result)
-    result.backend, result.wall_seconds = (core.backend, plant.backend), wall_seconds
-    result.notes.extend(note for note in (core_note, plant_note) if note is not None)
+    result.backend, result.wall_seconds, result.physics = (core.backend, plant.backend), wall_seconds, settings.physics
+    # MuJoCo's plant describes the engine (the version, what it models); ours need no description
+    result.notes.extend(n for n in (core_note, plant_note, getattr(plant, "description", None)) if n is not None)
     if budget_note is not None:
         result.notes.append(budget_note)
     elif diverged_at is not None:
@@ -483,18 +497,3 @@ def _outputs_of(core: ControllerCore, x: Sequence[float]) -> list[float]:
         return core.output_values(x)
     except (ArithmeticError, ValueError):
         return [math.nan] * len(core.orders)
-
-
-def _advance(plant: NumericPlant, x: list[float], before: list[float], after: list[float], fraction: float,
-             T: float, settings: SimSettings) -> list[float]:
-    """One control period: ``before`` acts for ``fraction`` seconds, then ``after``."""
-    segments = [(fraction, before), (T - fraction, after)] if fraction > 0 else [(T, after)]
-    for length, u in segments:
-        if length <= 0:
-            continue
-        if settings.integrator == "scipy":
-            x = plant.adaptive(x, u, length)
-        else:
-            steps = max(1, int(round(settings.substeps * length / T)))
-            x = plant.rk4(x, u, length / steps, steps)
-    return x

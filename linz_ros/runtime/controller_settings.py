@@ -100,11 +100,13 @@ def controller_parameters(state_types: Sequence[str], command_types: Sequence[st
           "compensator state ('' for one not measured), used when the compensator restarts (empty: none)",
           array_of=str),
         P("reference_topic", "reference", "reference topic"),
-        P("reference", "topic", "'topic', or a built-in reference such as 'smooth:tool_x=0.05,duration=2' (starts "
-          "at activation)"),
+        P("reference", "topic", "'topic', 'trajectory' (trajectory_msgs/msg/JointTrajectory on reference_topic), or "
+          "a built-in reference such as 'smooth:tool_x=0.05,duration=2' (starts at activation)"),
         P("reference_timeout", 0.5, "hold the outputs when the reference topic is older than this (s)", minimum=0.0),
         P("reference_extrapolate", True, "carry the latest topic reference forward along its derivatives until the "
           "next one"),
+        P("reference_joints", [], "with reference: trajectory, the name of each output among the trajectory's "
+          "joint_names, in the artifact's output order (empty: the outputs' own names)", array_of=str),
         P("conditioning_topic", "~/conditioning", "per-step record topic"),
         P("diagnostics_period", 1.0, "seconds between diagnostics", minimum=0.01, maximum=60.0),
         P("autostart", False, "configure and activate at start-up"),

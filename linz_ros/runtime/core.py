@@ -200,6 +200,10 @@ class ControllerCore:
         self._diverged = False                     # latched by a divergence with action "safe"
         self._stop_reference: list[float] | None = None   # held while a controlled stop lasts
 
+    def freeze_integrators(self) -> None:
+        """Skip the integral action's next update (a limit outside the core cut the command it sent)."""
+        self._integrate_next = False
+
     def hold_reference(self, x: Sequence[float]) -> list[float]:
         """The reference that holds the outputs where they are at state ``x``.
 

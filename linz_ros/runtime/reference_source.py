@@ -5,7 +5,10 @@ control rate; between messages each chain is carried along its own Taylor polyno
 (:func:`~linz_ros.runtime.reference.extrapolate_reference`) for at most the typical
 interval between messages, and once the latest message is older than the timeout the
 outputs are held where they were. A built-in reference (a spec such as
-``smooth:tool_x=0.05,duration=2``) starts from the outputs at the first good state.
+``smooth:tool_x=0.05,duration=2``) starts from the outputs at the first good state. A
+trajectory reference (:data:`TRAJECTORY`) follows the latest accepted planned trajectory
+(:mod:`linz_ros.runtime.trajectory`), from where the reference was when it came, and holds
+its last point after its end; before the first one the outputs are held where they are.
 """
 
 from __future__ import annotations
@@ -15,15 +18,18 @@ import statistics
 from collections import deque
 from typing import Sequence
 
-from linz_ros.errors import LinzError
+from linz_ros.errors import ConfigError, LinzError
 from linz_ros.runtime.closed_loop import initial_outputs
 from linz_ros.runtime.core import ControllerCore
 from linz_ros.runtime.reference import Reference, extrapolate_reference, parse_reference
+from linz_ros.runtime.trajectory import Knots, Trajectory, TrajectoryPoints, check_points
 
-__all__ = ["ReferenceSource", "TOPIC"]
+__all__ = ["ReferenceSource", "TOPIC", "TRAJECTORY"]
 
 #: The spec that means "from the reference topic".
 TOPIC = "topic"
+#: The spec that means "planned trajectories from the reference topic".
+TRAJECTORY = "trajectory"
 #: Intervals between topic messages whose median is the typical interval.
 _INTERVALS = 9
 
@@ -42,6 +48,8 @@ class ReferenceSource:
         Output names, for per-output amplitudes in a spec.
     extrapolate : bool
         Carry a topic reference forward along its derivatives between messages.
+    trajectory_names : list of str, optional
+        The name of each output in a trajectory's ``names`` (default: the outputs' own names).
 
     Raises
     ------
@@ -50,7 +58,7 @@ class ReferenceSource:
     """
 
     def __init__(self, core: ControllerCore, spec: str, timeout: float, outputs: list[str],
-                 extrapolate: bool = True) -> None:
+                 extrapolate: bool = True, trajectory_names: list[str] | None = None) -> None:
         self.core = core
         self.spec = spec
         self.timeout = timeout
@@ -64,7 +72,15 @@ class ReferenceSource:
         self.origin: float | None = 0.0
         self.latched: list[float] | None = None
         self.stale = False
-        if spec != TOPIC:
+        self.trajectory_names = list(trajectory_names or outputs)
+        if len(self.trajectory_names) != len(outputs):
+            raise ConfigError("reference_joints", f"expected {len(outputs)} names, one per output "
+                                                  f"({', '.join(outputs)}), got {len(self.trajectory_names)}")
+        self.trajectory: Trajectory | None = None
+        self.trajectory_origin = 0.0          # the clock's reading at the trajectory's time 0
+        self._pending: tuple[Knots, float] | None = None    # accepted, started at the next sample
+        self.refused = 0                      # trajectories refused so far
+        if spec not in (TOPIC, TRAJECTORY):
             # checked now so that configure fails on a bad spec
             parse_reference(spec, core.orders, [0.0] * len(core.orders), outputs)
 
@@ -77,6 +93,7 @@ class ReferenceSource:
             The clock's reading; 0 (simulated time before the first ``/clock``) defers the origin.
         """
         self.generator = None
+        self.trajectory = self._pending = None
         # times of a built-in reference count from activation; in simulated time before the
         # first /clock the clock reads zero, so the origin is taken at the first real reading
         self.origin = now if now > 0.0 else None
@@ -90,6 +107,9 @@ class ReferenceSource:
         delta : float
         """
         self.latest_at += delta
+        self.trajectory_origin += delta
+        if self._pending is not None:
+            self._pending = (self._pending[0], self._pending[1] + delta)
         if self.origin is not None:
             self.origin += delta
 
@@ -131,6 +151,8 @@ class ReferenceSource:
             NaN while a built-in reference has no good state to start from; :attr:`stale`
             tells whether a topic reference is being held.
         """
+        if self.spec == TRAJECTORY:
+            return self._planned(x, now)
         if self.spec != TOPIC:
             return self._generated(x, now)
         if self.latest is not None and now - self.latest_at <= self.timeout:
@@ -158,3 +180,59 @@ class ReferenceSource:
         if self.origin is None and now > 0.0:
             self.origin = now
         return self.generator.sample(now - (self.origin if self.origin is not None else now))
+
+    def accept_trajectory(self, points: TrajectoryPoints, start: float | None, now: float) -> str | None:
+        """Take a planned trajectory (it replaces the one followed so far at its start).
+
+        Parameters
+        ----------
+        points : TrajectoryPoints
+            Names as :attr:`trajectory_names` says; times from ``start``.
+        start : float or None
+            The clock's reading at the trajectory's time 0 (its header stamp); None: ``now``.
+        now : float
+
+        Returns
+        -------
+        str or None
+            None when accepted, else the one-line reason it was refused (counted in :attr:`refused`).
+        """
+        try:
+            knots = check_points(points, self.trajectory_names)
+        except LinzError as err:
+            self.refused += 1
+            return str(err)
+        self._pending = (knots, now if start is None else start)
+        return None
+
+    def _planned(self, x: Sequence[float], now: float) -> list[float]:
+        self.stale = False               # no trajectory, or after its end: held on purpose, not stalled
+        if self.trajectory is None and self.latched is None:
+            self.latched = self._held(x)
+        if self._pending is not None and (self.trajectory is not None or self.latched is not None):
+            knots, origin = self._pending
+            self._pending = None
+            self.trajectory = Trajectory(knots, self._start_of_move(now))
+            self.trajectory_origin = origin
+        if self.trajectory is None:
+            return self.latched if self.latched is not None else [math.nan] * self.core.reference_size
+        return self.trajectory.sample(now - self.trajectory_origin, self.core.orders)
+
+    def _held(self, x: Sequence[float]) -> list[float] | None:
+        """The reference holding the outputs at ``x``; None where they are not defined (a refused state)."""
+        try:
+            held = self.core.hold_reference(x)
+        except (ArithmeticError, ValueError):
+            return None
+        return held if all(math.isfinite(v) for v in held) else None
+
+    def _start_of_move(self, now: float) -> tuple[list[float], list[float], list[float]]:
+        """Position, velocity and acceleration per output where a new trajectory starts: the reference in
+        force (the trajectory followed so far, at ``now``), else the outputs held where they were, at rest."""
+        if self.trajectory is not None:
+            values = self.trajectory.derivatives(now - self.trajectory_origin)
+            return values[0].tolist(), values[1].tolist(), values[2].tolist()
+        held = self.latched
+        offsets = [sum(r + 1 for r in self.core.orders[:i]) for i in range(len(self.core.orders))]
+        zeros = [0.0] * len(offsets)
+        return [held[k] for k in offsets], zeros, list(zeros)

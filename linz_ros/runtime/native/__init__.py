@@ -18,7 +18,8 @@ from typing import Sequence, Union
 from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime.core import ControllerCore
-from linz_ros.runtime.extension import ExtendedCore, ExtendedPlant
+from linz_ros.runtime.extended_plant import ExtendedPlant
+from linz_ros.runtime.extension import ExtendedCore
 from linz_ros.runtime.native._build import NativeUnavailable
 from linz_ros.runtime.native._core import NativeCore
 from linz_ros.runtime.native._plant import NativePlant

@@ -213,6 +213,10 @@ class NativeCore:
             setattr(ctx, flag, 0)
         ctx.first_peak, ctx.last_high = 0.0, -math.inf
 
+    def freeze_integrators(self) -> None:
+        """Skip the integral action's next update (a limit outside the core cut the command it sent)."""
+        self._ctx.integrate_next = 0
+
     @property
     def last_t(self) -> float | None:
         """Stamp of the last accepted state."""
