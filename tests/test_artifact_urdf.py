@@ -10,6 +10,7 @@ from linz_ros.artifact import load_artifact, seal
 from linz_ros.artifact.urdf import joint_identifier, urdf_names
 from linz_ros.codegen import build_document, write_artifact
 from linz_ros.errors import ArtifactError
+from linz_ros.model._mechanics import STANDARD_GRAVITY
 from linz_ros.model import load_plant
 from linz_ros.synthesis import synthesise
 
@@ -61,6 +62,7 @@ def test_the_artifact_records_the_urdf_and_finds_it_beside_the_plant_file(built)
     record = artifact.urdf
     assert (record.file, record.base, record.tip, record.joints) == ("../urdf/swing.urdf", "support", "bob", ("hinge",))
     assert record.sha256 == __import__("hashlib").sha256(URDF.encode()).hexdigest()
+    assert record.gravity == (0.0, 0.0, -STANDARD_GRAVITY)          # the plant file names none: the one default
     assert record.path(artifact) == (root / "urdf" / "swing.urdf").resolve()
     assert artifact.states == ["q_hinge", "qd_hinge"] and artifact.inputs == ["tau_hinge"]
     assert artifact.envelope == {"q_hinge": (-1.5, 1.5), "qd_hinge": (-3.0, 3.0)}
@@ -98,7 +100,10 @@ def test_a_changed_or_missing_urdf_is_one_line(built, tmp_path):
     (lambda u: u.update(joints=["elbow"]), r"plant\.urdf\.joints: the plant's states are not q_<joint> then qd_<joint>"),
     (lambda u: u.update(joints=[]), r"plant\.urdf\.joints: expected a non-empty list of distinct joint names"),
     (lambda u: u.update(base=7), r"plant\.urdf\.base: expected a link name"),
-    (lambda u: u.pop("tip"), r"plant\.urdf: expected exactly the keys file, sha256, base, tip, joints"),
+    (lambda u: u.pop("tip"), r"plant\.urdf: expected exactly the keys file, sha256, base, tip, joints, gravity"),
+    (lambda u: u.pop("gravity"), r"plant\.urdf: expected exactly the keys .* \('gravity' differs\)"),
+    (lambda u: u.update(gravity=[0, 0]), r"plant\.urdf\.gravity: expected \[gx, gy, gz\] \(finite numbers, m/s\^2\)"),
+    (lambda u: u.update(gravity=[0, "0", -9.8]), r"plant\.urdf\.gravity: expected \[gx, gy, gz\]"),
     (lambda u: u.update(file=""), r"plant\.urdf\.file: expected the URDF file name"),
 ])
 def test_an_inconsistent_urdf_record_is_refused_even_when_resealed(built, tmp_path, change, words):

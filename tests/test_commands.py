@@ -162,10 +162,13 @@ def test_linz_wire_gives_an_arm_its_joints_in_a_joint_state_and_their_efforts():
     from support import built_artifact
     document = yaml.safe_load(bringup_text(built_artifact(BUNDLED / "loader_arm.yaml"), "loader_arm.yaml"))
     c = document["/linz_controller"]["ros__parameters"]
-    assert c["state_type"] == c["command_type"] == "sensor_msgs/msg/JointState"
+    # the ros2_control layout: a joint_state_broadcaster's JointState in, an effort forward command
+    # controller's Float64MultiArray out (in the artifact's input order)
+    assert c["state_type"] == "sensor_msgs/msg/JointState" and c["command_type"] == "std_msgs/msg/Float64MultiArray"
     assert c["state_fields"][:2] == ["position.q1", "position.q2"] and c["state_fields"][6] == "velocity.q1"
-    assert c["command_fields"] == [f"effort.q{k}" for k in range(1, 7)]
-    assert c["state_topic"] == "/loader_arm/joint_states"
+    assert c["command_fields"] == []
+    assert (c["state_topic"], c["command_topic"]) == ("/loader_arm/joint_states", "/loader_arm/effort_controller/commands")
+    assert document["/linz_plant_sim"]["ros__parameters"]["command_type"] == "std_msgs/msg/Float64MultiArray"
 
 
 def test_the_demo_takes_its_bringup_from_the_option_the_package_beside_the_plant_or_linz_wire(tmp_path):
@@ -194,3 +197,12 @@ def test_linz_demo_refuses_a_missing_bringup_file_at_once_in_one_line(tmp_path, 
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "--bringup" in err and "none.yaml: no such file" in err
     assert not any(tmp_path.iterdir())                                # nothing ran
+
+
+def test_a_bringup_summary_names_the_physics_its_simulator_ran(tmp_path):
+    from linz_ros.commands._bringup import _simulator_physics
+    params = tmp_path / "bringup.yaml"
+    params.write_text("/linz_plant_sim:\n  ros__parameters:\n    physics: mujoco\n")
+    assert _simulator_physics(params) == "mujoco"
+    params.write_text("/linz_plant_sim:\n  ros__parameters:\n    rate: 100.0\n")
+    assert _simulator_physics(params) == "model"

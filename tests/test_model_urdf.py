@@ -11,6 +11,7 @@ from support import BUNDLED, ROOT
 from linz_ros.errors import PlantFileError
 from linz_ros.model import load_plant, numeric_function, plant_from_text
 from linz_ros.model._urdf import FRICTION_VELOCITY, rpy_matrix
+from linz_ros.model._mechanics import STANDARD_GRAVITY
 
 URDF = ROOT / "config" / "urdf" / "sorting_arm.urdf"
 
@@ -34,6 +35,7 @@ def test_the_bundled_arm_matches_pinocchio_built_from_the_same_urdf():
     tip = sp.Matrix([plant.h[i] for i in range(3)])           # tool_x, tool_y, tool_z
     evaluate = _evaluate(plant, mech.M, mech.F, tip, tip.jacobian(sp.Matrix(mech.coordinates)))
     model = pin.buildModelFromUrdf(str(URDF))
+    model.gravity.linear = np.array(plant.urdf.gravity)     # Pinocchio's default is 9.81, ours standard gravity
     data = model.createData()
     gripper = model.getFrameId("suction_gripper")
     tool = model.addFrame(pin.Frame("suction_cup", model.frames[gripper].parentJoint, gripper,
@@ -127,7 +129,7 @@ def test_a_pendulum_has_the_textbook_mass_and_gravity_torque(tmp_path):
     for q, w in [(0.3, 0.0), (-1.2, 0.7), (2.5, -0.01)]:
         M, F = evaluate([q, w])
         assert M.item() == pytest.approx(0.03 + 2.0 * 0.5 ** 2, rel=1e-14)
-        expected = -2.0 * 9.81 * 0.5 * np.sin(q) - 0.1 * w - 0.2 * np.tanh(w / FRICTION_VELOCITY)
+        expected = -2.0 * STANDARD_GRAVITY * 0.5 * np.sin(q) - 0.1 * w - 0.2 * np.tanh(w / FRICTION_VELOCITY)
         assert F.item() == pytest.approx(expected, rel=1e-13, abs=1e-14)
     assert plant.state_names == ["q_hinge", "qd_hinge"] and plant.input_names == ["tau_hinge"]
     assert plant.envelope == {} and plant.input_limits == {}       # continuous, no limit element
@@ -180,9 +182,13 @@ def test_tool_point_joint_names_and_a_prismatic_joint(tmp_path):
 
 def test_the_bundled_urdf_survives_a_copy_elsewhere(tmp_path):
     shutil.copy(URDF, tmp_path / "arm.urdf")
-    plant = plant_from_text("plant: a\nurdf: {file: arm.urdf, base: turret_link, tip: wrist_link}\n",
+    plant = plant_from_text("plant: a\nurdf: {file: arm.urdf, base: base_link, tip: wrist_link}\n",
                             str(tmp_path / "a.yaml"))
-    assert plant.urdf.joints == ("shoulder", "elbow", "wrist") and plant.urdf.path == str(tmp_path / "arm.urdf")
+    assert plant.urdf.joints == ("turret", "shoulder", "elbow", "wrist")
+    assert plant.urdf.path == str(tmp_path / "arm.urdf")
+    with pytest.raises(PlantFileError, match=r"arm\.urdf: joint 'turret': a revolute joint between the base link "
+                                             r"'turret_link' and the root 'world'"):
+        plant_from_text("plant: a\nurdf: {file: arm.urdf, base: turret_link, tip: wrist_link}\n", str(tmp_path / "a.yaml"))
     assert plant.urdf.sha256 == __import__("hashlib").sha256(URDF.read_bytes()).hexdigest()
     with pytest.raises(PlantFileError, match=r"arm\.urdf: joint 'wrist': a continuous joint hangs off the chain at "
                                              r"link 'forearm'; only fixed joints may"):
@@ -252,6 +258,41 @@ def test_chain_mistakes_name_the_links(tmp_path):
     clash = PENDULUM.replace('<link name="bob">', '''<joint name="a.b" type="continuous"><parent link="bob"/>
       <child link="end"/></joint><link name="end"/><link name="bob">''').replace('name="hinge"', 'name="a-b"')
     _refused(tmp_path, clash, r"joint 'a[-.]b': its name and another's both become q_a_b", tip="end")
+
+
+def test_xacro_is_found_in_the_parsed_document_and_never_in_comments(tmp_path):
+    commented = PENDULUM.replace("<robot name=\"pendulum\">", "<robot name=\"pendulum\">\n  <!-- ${price} $(find arm) "
+                                 "<xacro:macro name='x'/> xmlns:xacro -->")
+    assert _plant(tmp_path, commented).state_names == ["q_hinge", "qd_hinge"]
+    for xacro in (PENDULUM.replace('<link name="support"/>', '<xacro:property name="m" value="2"/><link name="support"/>'),
+                  PENDULUM.replace('<robot name="pendulum">', '<robot name="pendulum" xmlns:x="http://www.ros.org/wiki/xacro">'),
+                  PENDULUM.replace('<axis xyz="0 1 0"/>', '<axis xyz="$(arg axis)"/>')):
+        _refused(tmp_path, xacro, r"arm\.urdf: holds xacro .*expand it first")
+
+
+def _mounted(kind: str, extra: str = "") -> str:
+    """The pendulum's support hung from a root link ``world`` by a joint of this kind (and more links)."""
+    mount = (f'<link name="world"/><joint name="mount" type="{kind}"><parent link="world"/><child link="support"/>'
+             '<axis xyz="0 0 1"/><limit lower="-1" upper="1" effort="1" velocity="1"/></joint>')
+    return PENDULUM.replace('<link name="support"/>', '<link name="support"/>' + mount + extra)
+
+
+def test_the_base_must_be_fixed_to_the_root_and_nothing_movable_hangs_off_the_ground(tmp_path):
+    # what MuJoCo would move but our plant holds still: a joint above the base, a joint hanging off it
+    assert _plant(tmp_path, _mounted("fixed")).state_names == ["q_hinge", "qd_hinge"]
+    _refused(tmp_path, _mounted("prismatic"), r"arm\.urdf: joint 'mount': a prismatic joint between the base link "
+                                             r"'support' and the root 'world'; the base must be fixed to the world")
+    _refused(tmp_path, _mounted("floating"), r"joint 'mount': a floating joint between the base link 'support'")
+    side = ('<link name="fan"/><joint name="spin" type="revolute"><parent link="{}"/><child link="fan"/>'
+            '<limit lower="-1" upper="1" effort="1" velocity="1"/></joint>')
+    for parent in ("support", "world"):
+        _refused(tmp_path, _mounted("fixed", side.format(parent)),
+                 rf"joint 'spin': a revolute joint hangs off the ground at link '{parent}' \(the base and the links "
+                 r"fixed to it\); only fixed joints may")
+    plate = '<link name="plate"/><joint name="bolt" type="fixed"><parent link="world"/><child link="plate"/></joint>'
+    _refused(tmp_path, _mounted("fixed", plate + side.format("plate")), r"joint 'spin': a revolute joint hangs off "
+                                                                        r"the ground at link 'plate'")
+    assert _plant(tmp_path, _mounted("fixed", plate)).state_names == ["q_hinge", "qd_hinge"]
 
 
 def test_plant_file_mistakes_name_the_section(tmp_path):

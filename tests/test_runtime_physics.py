@@ -16,6 +16,7 @@ import yaml
 
 from support import BUNDLED, REFERENCE, built_artifact, sampled_chain_error
 from linz_ros.errors import ConfigError
+from linz_ros.model._mechanics import STANDARD_GRAVITY
 from linz_ros.runtime import ControllerCore, SimSettings, fit_decay_rate, make_reference, simulate
 from linz_ros.runtime import physics
 from linz_ros.runtime.physics import EngineArm, MujocoPlant, make_physics_plant
@@ -237,6 +238,8 @@ def test_an_artifact_without_a_urdf_is_refused_for_mujoco():
 
 def test_mujoco_missing_is_one_line_naming_the_extra(pick, monkeypatch):
     monkeypatch.setitem(sys.modules, "mujoco", None)        # import mujoco raises ImportError
+    with pytest.raises(ConfigError, match=r"mujoco needs an arm described by a URDF; pick_arm has none"):
+        MujocoPlant(built_artifact(BUNDLED / "pick_arm.yaml"))   # the artifact's problem first, not the install
     with pytest.raises(ConfigError, match=r"physics: mujoco physics needs MuJoCo, which is not installed here: "
                                           r"pip install 'linz_ros\[physics\]'"):
         MujocoPlant(pick[0], pick[1])
@@ -245,25 +248,26 @@ def test_mujoco_missing_is_one_line_naming_the_extra(pick, monkeypatch):
 def test_joints_that_do_not_match_the_artifacts_are_refused(pick, tmp_path):
     artifact, arm, plant_file = pick
     with pytest.raises(ConfigError, match=r"joint\(s\) wrist of the artifact are not movable joints of the URDF"):
-        MujocoPlant(artifact, EngineArm(arm.urdf, ("shoulder", "wrist"), "base_link"))
+        MujocoPlant(artifact, EngineArm(arm.urdf, ("shoulder", "wrist"), "base_link", arm.gravity))
     extra = tmp_path / "extra.urdf"
     extra.write_text(dh_urdf(BUNDLED / "loader_arm.yaml", LOADER_JOINTS))
     with pytest.raises(ConfigError, match=r"the URDF's 6 joints .* do not match the artifact's 4 states"):
-        MujocoPlant(artifact, EngineArm(extra, LOADER_JOINTS, "base_link"))
+        MujocoPlant(artifact, EngineArm(extra, LOADER_JOINTS, "base_link", arm.gravity))
     with pytest.raises(ConfigError, match=r"the URDF has movable joint\(s\) elbow, wrist_roll, wrist_pitch, flange "
                                           r"the artifact does not know"):
-        MujocoPlant(artifact, EngineArm(extra, ("turret", "shoulder"), "base_link"))
+        MujocoPlant(artifact, EngineArm(extra, ("turret", "shoulder"), "base_link", arm.gravity))
     broken = tmp_path / "broken.urdf"
     broken.write_text("<robot name='x'><link name='a'>")
     with pytest.raises(ConfigError, match=r"physics: MuJoCo cannot load .*broken.urdf"):
-        MujocoPlant(artifact, EngineArm(broken, PICK_JOINTS, "base_link"))
+        MujocoPlant(artifact, EngineArm(broken, PICK_JOINTS, "base_link", arm.gravity))
 
 
 def test_mismatch_and_the_adaptive_integrator_are_model_physics_only(pick, engine):
     artifact, arm, _ = pick
     engine(arm)
     changed = [1.1 * v for v in artifact.nominal_parameters.tolist()]
-    with pytest.raises(ConfigError, match=r"--physics: mujoco simulates the URDF as written; a parameter mismatch"):
+    with pytest.raises(ConfigError, match=r"^--mismatch: applies to --physics model only: mujoco simulates the URDF "
+                                          r"as written \(edit the URDF, or the plant file, to make them differ\)$"):
         simulate(artifact, SimSettings(duration=0.1, physics="mujoco", plant_parameters=changed))
     with pytest.raises(ConfigError, match=r"--integrator: scipy integrates the model physics only"):
         simulate(artifact, SimSettings(duration=0.1, physics="mujoco", integrator="scipy"))
@@ -292,12 +296,17 @@ SORTING_URDF = BUNDLED.parent / "urdf" / "sorting_arm.urdf"
 SORTING_JOINTS = ("turret", "shoulder", "elbow", "wrist")
 
 
-def _sorting_artifact(folder, friction=True, gravity=""):
-    """The bundled sorting arm's URDF (optionally without its Coulomb friction) behind a plant file."""
+def _sorting_artifact(folder, friction=True, gravity="", meshes=False):
+    """The bundled sorting arm's URDF (optionally without its Coulomb friction, or with ROS-style
+    ``package://`` meshes on every link) behind a plant file."""
     from support import built_artifact_file
     from linz_ros.artifact import load_artifact
 
     text = SORTING_URDF.read_text()
+    if meshes:
+        shape = '<geometry><mesh filename="package://sorting_arm_description/meshes/part.stl"/></geometry>'
+        text = text.replace('<link name="upper_arm">', f'<link name="upper_arm"><visual>{shape}</visual>'
+                                                      f'<collision>{shape}</collision>')
     if not friction:
         import re
         text = re.sub(r'friction="[^"]*"', 'friction="0"', text)
@@ -320,7 +329,7 @@ def test_a_urdf_arms_mass_matrix_bias_damping_and_friction_equal_mujocos(tmp_pat
 
     artifact = _sorting_artifact(tmp_path)
     plant = MujocoPlant(artifact)
-    assert plant.arm.joints == SORTING_JOINTS and tuple(plant.model.opt.gravity) == (0.0, 0.0, -9.81)
+    assert plant.arm.joints == SORTING_JOINTS and tuple(plant.model.opt.gravity) == (0.0, 0.0, -STANDARD_GRAVITY)
     assert not plant.model.dof_armature.any()
     rng = np.random.default_rng(4)
     worst_m = worst_f = 0.0
@@ -361,10 +370,26 @@ def test_stiction_leaves_an_offset_under_mujoco_that_the_smoothed_model_does_not
 
 
 def test_the_engine_takes_a_urdf_plant_files_gravity(tmp_path):
-    # the artifact does not carry gravity: the engine reads urdf.gravity of the plant file it records
+    # the artifact records the plant file's urdf.gravity; the engine takes it from there, never from the file
     artifact = _sorting_artifact(tmp_path, gravity=", gravity: [1.5, 0, -9.7]")
+    assert artifact.urdf.gravity == (1.5, 0.0, -9.7)
+    for plant_file in tmp_path.glob("*.yaml"):
+        plant_file.write_text(plant_file.read_text().replace("gravity: [1.5, 0, -9.7]", "gravity: [0, 0, 9.7]"))
     plant = MujocoPlant(artifact)
     assert tuple(plant.model.opt.gravity) == (1.5, 0.0, -9.7)      # base_link is not turned against world
     x = [0.3, -0.5, 1.1, 0.2, 0.0, 0.0, 0.0, 0.0]
     bias, passive = plant.generalized_forces(x)
     np.testing.assert_allclose(passive - bias, _model_terms(artifact, x)[1], atol=1e-12)
+
+
+def test_a_urdf_with_package_meshes_loads_and_its_inertias_come_from_inertial_only(tmp_path):
+    # an ordinary ROS URDF: meshes the engine cannot open (package://) on a link; contacts are off, so the
+    # geometry is dropped before MuJoCo reads the file, and M is still the <inertial> one
+    (tmp_path / "plain").mkdir()
+    (tmp_path / "meshes").mkdir()
+    plain = MujocoPlant(_sorting_artifact(tmp_path / "plain"))
+    artifact = _sorting_artifact(tmp_path / "meshes", meshes=True)
+    plant = MujocoPlant(artifact)
+    q = [0.3, -0.5, 1.1, 0.2]
+    np.testing.assert_allclose(plant.mass_matrix(q), plain.mass_matrix(q), rtol=0, atol=1e-14)
+    np.testing.assert_allclose(plant.mass_matrix(q), _model_terms(artifact, q + [0.0] * 4)[0], atol=1e-10)

@@ -119,11 +119,13 @@ def test_a_trajectory_reference_holds_until_one_comes_then_follows_it_from_where
     x0, y0 = held[0], held[3]
     # one point 2 s after its stamp (1.5 s), names in another order than the outputs
     assert source.accept_trajectory(_trajectory(["y", "x"], [2.0], [[y0 + 0.1, x0 - 0.2]]), 1.5, now=1.6) is None
-    assert source.sample(X, now=1.5) == pytest.approx(held)                # from where the outputs were, at rest
-    c = quintic_coefficients(2.0, x0, 0.0, 0.0, x0 - 0.2, 0.0, 0.0)
-    assert source.sample(X, now=2.5)[:3] == pytest.approx([sum(c[i] * 1.0 ** i for i in range(6)),
-                                                          sum(i * c[i] for i in range(1, 6)),
-                                                          sum(i * (i - 1) * c[i] for i in range(2, 6))])
+    assert source.sample(X, now=1.6) == pytest.approx(held)                # from where the outputs were, at rest
+    # the move starts when it is taken (0.1 s after the stamp) and still ends at the stamp + 2 s
+    c = quintic_coefficients(1.9, x0, 0.0, 0.0, x0 - 0.2, 0.0, 0.0)
+    assert source.sample(X, now=2.5)[:3] == pytest.approx([sum(c[i] * 0.9 ** i for i in range(6)),
+                                                          sum(i * c[i] * 0.9 ** (i - 1) for i in range(1, 6)),
+                                                          sum(i * (i - 1) * c[i] * 0.9 ** (i - 2)
+                                                              for i in range(2, 6))])
     assert source.sample(X, now=9.0) == pytest.approx([x0 - 0.2, 0.0, 0.0, y0 + 0.1, 0.0, 0.0])   # held at its end
 
 
@@ -146,3 +148,61 @@ def test_trajectory_names_must_be_one_per_output(core):
     from linz_ros.runtime.reference_source import TRAJECTORY
     with pytest.raises(ConfigError, match="reference_joints: expected 2 names, one per output"):
         ReferenceSource(core, TRAJECTORY, 0.5, OUTPUTS, trajectory_names=["a"])
+
+
+PERIOD = 0.002
+
+
+def _moving(core):
+    """A trajectory source moving tool_x by 1 m over 10 s from where it was held, sampled up to 1.0 s;
+    and where tool_x was held."""
+    from linz_ros.runtime.reference_source import TRAJECTORY
+    source = ReferenceSource(core, TRAJECTORY, 0.5, OUTPUTS)
+    x0, y0 = source.sample(X, now=0.0)[0:4:3]
+    ramp = _trajectory(OUTPUTS, [0.0, 10.0], [[x0, y0], [x0 + 1.0, y0]], [[0.0, 0.0], [0.1, 0.0]])
+    assert source.accept_trajectory(ramp, 0.0, now=0.0) is None
+    for k in range(501):
+        source.sample(X, now=k * PERIOD)
+    return source, x0
+
+
+def test_a_trajectory_stamped_in_the_past_is_joined_where_the_reference_is_without_a_jump(core):
+    source, x0 = _moving(core)
+    before = source.sample(X, now=1.0)
+    # stamped 0.8 s ago: its first 0.8 s are over; the reference goes on from where it is
+    move = _trajectory(OUTPUTS, [0.5, 2.0], [[x0 + 0.2, 0.0], [x0 + 0.5, 0.0]])
+    assert source.accept_trajectory(move, 0.2, now=1.0) is None
+    previous = before
+    for k in range(1, 700):
+        ref = source.sample(X, now=1.0 + k * PERIOD)
+        # at most what 2 ms of a move of under 1 m/s (and 100 m/s^2) covers
+        assert abs(ref[0] - previous[0]) < 2e-3 and abs(ref[1] - previous[1]) < 0.2, k
+        previous = ref
+    assert source.sample(X, now=2.2 + PERIOD) == pytest.approx([x0 + 0.5, 0.0, 0.0, 0.0, 0.0, 0.0])   # on time
+
+
+def test_a_trajectory_stamped_in_the_future_waits_for_its_stamp_while_the_current_one_goes_on(core):
+    source, x0 = _moving(core)
+    twin, _ = _moving(core)                          # the same without the new trajectory
+    assert source.accept_trajectory(_trajectory(OUTPUTS, [1.0], [[x0 + 0.5, 0.0]]), 1.5, now=1.0) is None
+    for now in (1.0 + PERIOD, 1.2, 1.5 - PERIOD):
+        ref = source.sample(X, now=now)
+        assert ref == pytest.approx(twin.sample(X, now=now)) and ref[1] > 0.01    # the first one goes on
+    assert source.sample(X, now=1.5) == pytest.approx(twin.sample(X, now=1.5))    # joined at the stamp
+    assert source.sample(X, now=2.5)[:2] == pytest.approx([x0 + 0.5, 0.0])        # then the new one
+
+
+def test_a_trajectory_that_has_ended_before_it_came_is_refused_and_counted(core):
+    source, x0 = _moving(core)
+    twin, _ = _moving(core)
+    refusal = source.accept_trajectory(_trajectory(OUTPUTS, [0.2, 0.5], [[0.3, 0.0], [0.4, 0.0]]), 0.2, now=1.0)
+    assert refusal == ("trajectory: every point is in the past: the last is 0.5 s after the stamp, "
+                       "which was 0.8 s ago")
+    assert source.refused == 1
+    assert source.sample(X, now=1.0 + PERIOD) == pytest.approx(twin.sample(X, now=1.0 + PERIOD))
+
+
+def test_a_trajectory_without_a_stamp_is_never_in_the_past(core):
+    source, x0 = _moving(core)
+    assert source.accept_trajectory(_trajectory(OUTPUTS, [0.0], [[x0, 0.0]]), None, now=1.0) is None
+    assert source.refused == 0

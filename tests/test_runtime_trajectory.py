@@ -93,6 +93,10 @@ def test_a_degree_four_chain_sees_jerk_and_snap_that_jump_at_a_knot():
     (_points(["a", "b"], [0.0, 1.0, 1.0], [[0, 0], [1, 1], [2, 2]]),
      "time_from_start must increase from point to point: point 2 at 1 s follows 1 s"),
     (_points(["a", "b"], [-0.5, 1.0], [[0, 0], [1, 1]]), "time_from_start of point 0 is negative"),
+    (_points(["a", "b"], [0.0, 1e-300, 1.0], [[0, 0], [1, 1], [2, 2]]),
+     "points 0 and 1 are 1e-300 s apart: at least 0.001 s"),
+    (_points(["a", "b"], [0.0, 1.0, 1.0009], [[0, 0], [1, 1], [2, 2]]),
+     "points 1 and 2 are 0.0009 s apart: at least 0.001 s"),
     (_points(["a", "b"], [0.0, math.nan], [[0, 0], [1, 1]]), "a time_from_start is not finite"),
     (_points(["a", "b"], [0.0, 1.0], [[0, 0], [1, math.nan]]), "point 1 has positions that are not finite"),
     (_points(["a", "b"], [0.0, 1.0], [[0, 0], [1]]), "point 1 has 1 positions for 2 joint_names"),
@@ -105,3 +109,15 @@ def test_a_trajectory_that_does_not_fit_is_refused_in_one_line(points, words):
     with pytest.raises(ConfigError, match="^'?trajectory'?: " + words.replace("(", r"\(")) as err:
         check_points(points, ["a", "b"])
     assert "\n" not in str(err.value)
+
+
+def test_taken_up_late_the_points_already_over_are_dropped_and_the_move_goes_on_from_the_start_given():
+    knots = check_points(_points(["a"], [0.5, 1.0, 2.0], [[1.0], [2.0], [3.0]], [[0.0], [0.0], [0.0]]), ["a"])
+    trajectory = Trajectory(knots, start=([0.7], [0.3], [0.1]), start_time=0.8)
+    assert trajectory.times.tolist() == [0.8, 1.0, 2.0]
+    assert trajectory.sample(0.8, [2]) == pytest.approx([0.7, 0.3, 0.1])          # no jump where it is taken up
+    # accelerations not given: at the 1.0 s point (v[2] - v[start]) / (2.0 - 0.8) = (0 - 0.3) / 1.2
+    c = quintic_coefficients(0.2, 0.7, 0.3, 0.1, 2.0, 0.0, -0.25)
+    assert trajectory.sample(0.9, [2]) == pytest.approx([_poly(c, 0.1, d) for d in range(3)])
+    # taken up after its last point (it ended while waiting): that point is held
+    assert Trajectory(knots, start=([0.7], [0.3], [0.1]), start_time=2.5).sample(2.6, [1]) == [3.0, 0.0]

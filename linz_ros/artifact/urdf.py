@@ -1,9 +1,10 @@
 """The URDF a plant was built from, as an artifact records it (``plant.urdf``), and the names a URDF
 joint gives to the plant's states and inputs.
 
-Layout: ``plant.urdf = {file, sha256, base, tip, joints}``: the ``file`` as the plant file
-wrote it (relative to the plant file, or absolute), the SHA-256 of its bytes, the base and tip
-links of the chain and its movable joints in state order. A URDF plant's states are
+Layout: ``plant.urdf = {file, sha256, base, tip, joints, gravity}``: the ``file`` as the plant
+file wrote it (relative to the plant file, or absolute), the SHA-256 of its bytes, the base and tip
+links of the chain, its movable joints in state order and gravity [gx, gy, gz] (m/s^2) in the
+base link's frame, as the model was built with it. A URDF plant's states are
 ``q_<joint> ...`` then ``qd_<joint> ...`` and its inputs ``tau_<joint>`` (a torque, or a force
 for a prismatic joint), where ``<joint>`` is the URDF joint name with every character other
 than a letter, digit or ``_`` replaced by ``_`` (:func:`joint_identifier`). numpy-free.
@@ -11,6 +12,7 @@ than a letter, digit or ``_`` replaced by ``_`` (:func:`joint_identifier`). nump
 
 from __future__ import annotations
 
+import math
 import os
 import re
 from dataclasses import dataclass
@@ -22,7 +24,7 @@ from linz_ros.errors import ArtifactError
 
 __all__ = ["UrdfRecord", "joint_identifier", "urdf_names", "urdf_problem", "URDF_KEYS", "MAX_URDF_NAME"]
 
-URDF_KEYS = ("file", "sha256", "base", "tip", "joints")
+URDF_KEYS = ("file", "sha256", "base", "tip", "joints", "gravity")
 #: Longest link or joint name (characters) that a plant file, an artifact or a message carries.
 MAX_URDF_NAME = 100
 _NOT_IDENTIFIER = re.compile(r"[^A-Za-z0-9_]")
@@ -106,6 +108,10 @@ def urdf_problem(section: Any, states: list[str], inputs: list[str]) -> tuple[st
     if not (isinstance(joints, list) and joints and all(_is_name(j) for j in joints)
             and len(set(joints)) == len(joints)):
         return "joints", "expected a non-empty list of distinct joint names"
+    gravity = section["gravity"]
+    if not (isinstance(gravity, list) and len(gravity) == 3
+            and all(isinstance(g, (int, float)) and not isinstance(g, bool) and math.isfinite(g) for g in gravity)):
+        return "gravity", "expected [gx, gy, gz] (finite numbers, m/s^2)"
     q, qd, tau = urdf_names(joints)
     if states[:2 * len(joints)] != q + qd:
         return "joints", "the plant's states are not q_<joint> then qd_<joint> of these joints"
@@ -128,6 +134,8 @@ class UrdfRecord:
         The chain's links.
     joints : tuple of str
         Movable joints in state order (URDF names).
+    gravity : tuple of float
+        m/s^2 in the base link's frame, as the model was built with it.
     """
 
     file: str
@@ -135,6 +143,7 @@ class UrdfRecord:
     base: str
     tip: str
     joints: tuple[str, ...]
+    gravity: tuple[float, float, float]
 
     @classmethod
     def from_json(cls, section: dict[str, Any]) -> "UrdfRecord":
@@ -148,7 +157,8 @@ class UrdfRecord:
         -------
         UrdfRecord
         """
-        return cls(section["file"], section["sha256"], section["base"], section["tip"], tuple(section["joints"]))
+        return cls(section["file"], section["sha256"], section["base"], section["tip"], tuple(section["joints"]),
+                   tuple(float(g) for g in section["gravity"]))
 
     def path(self, artifact: Any) -> Path:
         """The URDF file, resolved relative to the plant file the artifact records, with its hash checked.

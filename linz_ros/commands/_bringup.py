@@ -201,10 +201,25 @@ def run_bringup(artifact_path: Path, params: Path, out: Path, seconds: float, lo
         raise ConfigError("bringup", f"no control steps were recorded; see the node logs in {out}")
     files = [result.write_csv(out / "run.csv")] + plot_run(result, out)
     summary = result.summary()
+    summary["physics"] = _simulator_physics(params)
     summary["files"] = [str(f) for f in files]
     summary["diagnostics"] = heard["diagnostics"]
     (out / "summary.json").write_text(json.dumps(summary, indent=2) + "\n")
     return BringupRun(summary, heard, simulator)
+
+
+def _simulator_physics(params: Path) -> str:
+    """The physics the bringup's simulator node ran (its ``physics`` parameter; ``model`` by default)."""
+    import yaml
+
+    from linz_ros.runtime.physics import PHYSICS
+
+    try:
+        nodes = yaml.safe_load(Path(params).read_text()) or {}
+        value = nodes.get("/linz_plant_sim", {}).get("ros__parameters", {}).get("physics", PHYSICS[0])
+    except (OSError, yaml.YAMLError, AttributeError):
+        return PHYSICS[0]          # the simulator refused the file itself; its own log says why
+    return value if value in PHYSICS else PHYSICS[0]
 
 
 def render_heard(run: BringupRun) -> str:

@@ -152,16 +152,14 @@ def _check_initial_inside_envelope(artifact: Any, x0: list[float]) -> None:
 def _settings(artifact: Any, request: SimRequest):
     from linz_ros.runtime import SimSettings, mismatched_parameters, parse_assignments
 
-    if request.physics == "mujoco" and request.mismatch:
-        raise ConfigError("--mismatch", "applies to --physics model only: mujoco simulates the URDF as written "
-                                        "(edit the URDF, or the plant file, to make them differ)")
     x0 = state_vector(artifact, request.initial, "--initial", artifact.operating_point)
     if not request.force_initial:
         _check_initial_inside_envelope(artifact, x0)
     return SimSettings(
         duration=request.duration, reference=_reference(artifact, request.reference, x0, bool(request.initial)),
         initial=x0,
-        plant_parameters=mismatched_parameters(artifact, parse_assignments(request.mismatch, "--mismatch")),
+        plant_parameters=(mismatched_parameters(artifact, parse_assignments(request.mismatch, "--mismatch"))
+                          if request.mismatch else None),
         noise=noise_levels(artifact, request.noise), delay=request.delay, substeps=request.substeps,
         integrator=request.integrator, seed=request.seed, config=watchdog_overrides(artifact, request.watchdog),
         backend=request.backend, physics=request.physics)

@@ -80,8 +80,8 @@ def default_bringup_path(source: str | Path) -> Path:
     return path.with_name(name + BRINGUP_SUFFIX)
 
 
-def _joints(artifact: Any) -> tuple[list[str], list[str]] | None:
-    """(state fields, command fields) of an arm's JointState, or None when the plant is no arm with joints."""
+def _joints(artifact: Any) -> list[str] | None:
+    """The state fields of an arm's JointState, or None when the plant is no arm with joints."""
     mechanics = artifact.document["design"].get("mechanics") or {}
     nq = artifact.mechanical_coordinates
     urdf = getattr(artifact, "urdf", None)
@@ -94,8 +94,7 @@ def _joints(artifact: Any) -> tuple[list[str], list[str]] | None:
         bodies.append(states[2 * nq:3 * nq])
     if len(states) != 2 * nq * len(bodies) or len(inputs) != nq:
         return None
-    fields = [f"{head}.{joint}" for names in bodies for head in ("position", "velocity") for joint in names]
-    return fields, [f"effort.{joint}" for joint in bodies[-1]]
+    return [f"{head}.{joint}" for names in bodies for head in ("position", "velocity") for joint in names]
 
 
 def topics_of(artifact: Any) -> dict[str, str]:
@@ -111,7 +110,7 @@ def topics_of(artifact: Any) -> dict[str, str]:
     """
     name = artifact.name
     if _joints(artifact) is not None:
-        return {"state": f"/{name}/joint_states", "command": f"/{name}/joint_efforts",
+        return {"state": f"/{name}/joint_states", "command": f"/{name}/effort_controller/commands",
                 "reference": f"/{name}/reference"}
     return {"state": f"/{name}/state", "command": f"/{name}/command", "reference": f"/{name}/reference"}
 
@@ -136,13 +135,15 @@ def bringup_text(artifact: Any, source: str) -> str:
     """
     name, rate = artifact.name, artifact.rate
     joints = _joints(artifact)
-    kind = "sensor_msgs/msg/JointState" if joints is not None else "std_msgs/msg/Float64MultiArray"
-    state_fields, command_fields = joints if joints is not None else ([], [])
+    # an arm: the ros2_control layout (a joint_state_broadcaster's JointState in, an effort forward command
+    # controller's Float64MultiArray out, in the artifact's input order); any other plant: arrays both ways
+    state_kind = "sensor_msgs/msg/JointState" if joints is not None else "std_msgs/msg/Float64MultiArray"
+    state_fields = joints if joints is not None else []
     topics = topics_of(artifact)
     reference = artifact.design_reference or "hold"
-    wiring = [f"    state_topic: {_yaml(topics['state'])}", f"    state_type: {kind}",
+    wiring = [f"    state_topic: {_yaml(topics['state'])}", f"    state_type: {state_kind}",
               f"    state_fields: {_yaml(state_fields)}", f"    command_topic: {_yaml(topics['command'])}",
-              f"    command_type: {kind}", f"    command_fields: {_yaml(command_fields)}"]
+              "    command_type: std_msgs/msg/Float64MultiArray", "    command_fields: []"]
     order = ("states " + ", ".join(artifact.plant_states) + "; inputs " + ", ".join(artifact.plant_inputs))
     lines = [
         f"# Simulation bringup of {name}, written by `linz wire {source}`.",
@@ -150,7 +151,7 @@ def bringup_text(artifact: Any, source: str) -> str:
         "/linz_controller:", "  ros__parameters:", *wiring,
         "    reference: topic", f"    reference_topic: {_yaml(topics['reference'])}", "    reference_timeout: 0.5",
         f"    stale_after: {STALE_PERIODS / rate:.6g}     # {STALE_PERIODS} control periods in simulation; on the "
-        "robot, the artifact's",
+        "robot, delete it to use the artifact's",
         "    autostart: true", "    diagnostics_period: 1.0",
         "/linz_plant_sim:", "  ros__parameters:", f"    rate: {float(rate)!r}", "    substeps: 4", *wiring,
         "/linz_reference:", "  ros__parameters:", f"    topic: {_yaml(topics['reference'])}",

@@ -28,7 +28,8 @@ MECHANICAL_FORMS = {"mass_matrix": "mass_matrix", "kinetic_energy": "energy", "s
                     URDF_KEY: "urdf"}
 #: Names under which a serial arm's (or a URDF chain's) tool point can be used in ``outputs``.
 TOOL_NAMES = ("tip_x", "tip_y", "tip_z")
-#: Standard gravity, m/s^2 (CGPM 1901), the serial arm's default along -z.
+#: Standard gravity, m/s^2 (CGPM 1901): the one default of the serial arm (along -z) and of the URDF form
+#: (along -z of the base link).
 STANDARD_GRAVITY = 9.80665
 #: Joints of a serial arm at most: the symbolic mass matrix of 8 joints takes ~10 s, and the
 #: time grows about threefold with every further two joints.

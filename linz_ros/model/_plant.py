@@ -26,6 +26,8 @@ class UrdfSource:
         The links that end the chain.
     joints : tuple of str
         The chain's movable joints (URDF names), in state order.
+    gravity : tuple of float
+        m/s^2 in the base link's frame (the plant file's ``urdf.gravity`` or its default).
     """
 
     file: str
@@ -34,6 +36,7 @@ class UrdfSource:
     base: str
     tip: str
     joints: tuple[str, ...]
+    gravity: tuple[float, float, float]
 
     def to_json(self) -> dict[str, Any]:
         """The artifact's ``plant.urdf`` section.
@@ -41,10 +44,10 @@ class UrdfSource:
         Returns
         -------
         dict
-            ``file``, ``sha256``, ``base``, ``tip``, ``joints``.
+            ``file``, ``sha256``, ``base``, ``tip``, ``joints``, ``gravity``.
         """
         return {"file": self.file, "sha256": self.sha256, "base": self.base, "tip": self.tip,
-                "joints": list(self.joints)}
+                "joints": list(self.joints), "gravity": [float(g) for g in self.gravity]}
 
 
 @dataclass(frozen=True)

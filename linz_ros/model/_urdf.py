@@ -45,7 +45,6 @@ _SECTION_KEYS = ("file", "base", "tip", "joints", "tool", "gravity", "friction_v
 #: 96 % at 2 v_s. Slow enough a rate that the smoothing hides only a crawl, fast enough that the
 #: slope f / v_s near rest does not make the plant stiff at control rates.
 FRICTION_VELOCITY = 0.05
-_STANDARD_GRAVITY = 9.81
 #: Entries of constant rotations and axes closer than this to 0 or +-1 are taken as exact (cos(pi/2) ~ 6e-17).
 _SNAP = 1e-15
 
@@ -168,10 +167,13 @@ def read_urdf(reader: Any, doc: Mapping) -> UrdfChain:
     velocity = reader.number(f"{URDF_KEY}.friction_velocity", velocity)
     if not velocity > 0:
         raise reader.fail(f"{URDF_KEY}.friction_velocity", f"must be positive, got {velocity:g}")
+    from linz_ros.model._mechanics import STANDARD_GRAVITY     # here: _mechanics imports this module
+
+    gravity = _triple(reader, section, "gravity", [0, 0, -STANDARD_GRAVITY])
     source = UrdfSource(written, str(path.resolve()), hashlib.sha256(raw).hexdigest(), base, tip,
-                        tuple(j.name for j in joints))
+                        tuple(j.name for j in joints), tuple(float(g) for g in gravity))
     return UrdfChain(source, joints, bodies, rotation, offset, _triple(reader, section, "tool", [0, 0, 0]),
-                     _triple(reader, section, "gravity", [0, 0, -_STANDARD_GRAVITY]), velocity)
+                     gravity, velocity)
 
 
 def _constant(value: float) -> sp.Expr:

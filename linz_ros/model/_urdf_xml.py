@@ -27,7 +27,10 @@ _MOVABLE = {"revolute": "revolute", "continuous": "revolute", "prismatic": "pris
 _REFUSED = {"floating": "a floating joint has six degrees of freedom (a mobile base), not one; start the chain "
                         "at the link after it",
             "planar": "a planar joint has three degrees of freedom, not one; start the chain at the link after it"}
-_XACRO = re.compile(r"xmlns:xacro|<\s*xacro:|\$\{|\$\(")
+_XACRO_TAG = re.compile(r"<\s*xacro:")
+_XACRO_EXPRESSION = re.compile(r"\$\{|\$\(")
+_XACRO_MESSAGE = ("holds xacro (xacro: elements or ${...}/$(...) expressions); expand it first: "
+                  "xacro file.urdf.xacro > file.urdf (with a ROS distribution)")
 _DECLARATION = re.compile(r"<!\s*(DOCTYPE|ENTITY)", re.IGNORECASE)
 
 
@@ -245,17 +248,47 @@ def _movable(doc: _Urdf, joint: _Joint) -> tuple[UrdfJoint, np.ndarray]:
     return record, joint.axis / norm
 
 
+def _read_xml(text: str) -> tuple[Any, list[tuple[str, str]]]:
+    """The root element and the namespace declarations (prefix, uri) of the document."""
+    parser = ET.XMLPullParser(events=("start-ns", "end"))
+    parser.feed(text)
+    parser.close()
+    prefixes, root = [], None
+    for event, item in parser.read_events():
+        if event == "start-ns":
+            prefixes.append(item)
+        else:
+            root = item
+    if root is None:
+        raise ET.ParseError("no element found")
+    return root, prefixes
+
+
+def _is_xacro(root: Any, prefixes: list[tuple[str, str]]) -> bool:
+    """xacro in the parsed document (comments and text aside): its namespace, its elements or attributes,
+    or ``${...}``/``$(...)`` in an attribute value."""
+    if any(prefix == "xacro" or "xacro" in uri for prefix, uri in prefixes):
+        return True
+    for element in root.iter():
+        if isinstance(element.tag, str) and "xacro" in element.tag:
+            return True
+        if any("xacro" in key or _XACRO_EXPRESSION.search(value) for key, value in element.attrib.items()):
+            return True
+    return False
+
+
 def _parse(text: str, source: str) -> tuple[_Urdf, dict[str, Any], dict[str, _Joint]]:
     doc = _Urdf(source)
     if _DECLARATION.search(text):
         raise doc.fail("", "declares a DOCTYPE or ENTITY; refused (entity expansion); plain URDF needs neither")
-    if _XACRO.search(text):
-        raise doc.fail("", "holds xacro (xacro: elements or ${...}/$(...) expressions); expand it first: "
-                           "xacro file.urdf.xacro > file.urdf (with a ROS distribution)")
     try:
-        root = ET.fromstring(text)
+        root, prefixes = _read_xml(text)
     except ET.ParseError as err:
+        if _XACRO_TAG.search(text):             # an undeclared xacro: prefix is what made it unreadable
+            raise doc.fail("", _XACRO_MESSAGE) from None
         raise doc.fail("", f"not well-formed XML: {err}") from None
+    if _is_xacro(root, prefixes):
+        raise doc.fail("", _XACRO_MESSAGE)
     if root.tag != "robot":
         raise doc.fail(f"<{str(root.tag)[:40]}>", "expected <robot> as the root element of a URDF")
     links: dict[str, Any] = {}
@@ -307,6 +340,36 @@ def _path(doc: _Urdf, joints: dict[str, _Joint], base: str, tip: str) -> list[_J
         path.append(joint)
         link = joint.parent
     return path[::-1]
+
+
+def _check_ground(doc: _Urdf, joints: dict[str, _Joint], base: str, path: list[_Joint]) -> None:
+    """Refuse what the plant would not hold still: a joint other than fixed between the base and the root,
+    and a movable joint hanging off the ground (the base, the links above it and those fixed to it)."""
+    parent_joint = _parents(doc, joints)
+    above, link = [], base
+    while link in parent_joint:
+        above.append(parent_joint[link])
+        link = parent_joint[link].parent
+    for joint in above:
+        if joint.kind != "fixed":
+            raise doc.fail(f"joint {joint.name!r}", f"a {joint.kind} joint between the base link {base!r} and the "
+                                                    f"root {link!r}; the base must be fixed to the world (make it "
+                                                    "fixed, or choose a base above it)")
+    ground = {base} | {j.parent for j in above}
+    for joint in path:
+        if joint.kind != "fixed":
+            break
+        ground.add(joint.child)
+    known = {j.name for j in above} | {j.name for j in path}
+    stack = [j for j in joints.values() if j.parent in ground and j.name not in known]
+    while stack:
+        joint = stack.pop()
+        if joint.kind != "fixed":
+            raise doc.fail(f"joint {joint.name!r}", f"a {joint.kind} joint hangs off the ground at link "
+                                                    f"{joint.parent!r} (the base and the links fixed to it); only "
+                                                    "fixed joints may (make it fixed, or choose a base and tip "
+                                                    "that include it)")
+        stack.extend(j for j in joints.values() if j.parent == joint.child)
 
 
 def _hanging(doc: _Urdf, children: Mapping[str, list[_Joint]], inertials: dict[str, _Inertial], link: str,
@@ -393,6 +456,7 @@ def read_urdf_text(raw: bytes, source: str, base: str, tip: str, path_names: lis
         raise doc.fail("", f"base and tip are the same link {base!r}; the chain needs a joint")
     path = _path(doc, joints, base, tip)
     path_names.extend(j.name for j in path)
+    _check_ground(doc, joints, base, path)
     inertials = {name: _inertial(doc, element, name) for name, element in links.items()}
     bodies, rotation, offset = _bodies(doc, joints, inertials, path)
     if len({joint_identifier(b.joint.name) for b in bodies}) != len(bodies):

@@ -70,10 +70,10 @@ class PlantSimulatorNode(Node):
         # the plant's own states and inputs (with a dynamic extension the compensator is the controller's)
         states, inputs = artifact.plant_states, artifact.plant_inputs
         n, m = len(states), len(inputs)
-        if p["physics"] == "mujoco" and any(p["mismatch"]):
-            raise ConfigError("mismatch", "applies to physics model only: mujoco simulates the URDF as written")
-        params = mismatched_parameters(artifact, parse_assignments([s for s in p["mismatch"] if s], "mismatch"))
-        self.plant, note = make_physics_plant(artifact, p["physics"], params, backend=p["backend"], field="physics")
+        mismatch = [s for s in p["mismatch"] if s]
+        params = mismatched_parameters(artifact, parse_assignments(mismatch, "mismatch")) if mismatch else None
+        self.plant, note = make_physics_plant(artifact, p["physics"], params, backend=p["backend"], field="physics",
+                                              mismatch_field="mismatch")
         if note is not None:
             self.get_logger().warning(note)
         initial = [v for v in p["initial_state"]]

@@ -325,7 +325,7 @@ def simulate(artifact: Artifact, settings: SimSettings | None = None,
     _check_settings(artifact, settings)
     core, core_note = make_core(artifact, settings.config, backend=settings.backend)
     plant, plant_note = make_physics_plant(artifact, settings.physics, settings.plant_parameters, settings.backend,
-                                           field="--physics")
+                                           field="--physics", mismatch_field="--mismatch")
     start = [float(v) for v in (settings.initial if settings.initial is not None else artifact.operating_point)]
     x, compensator = start[:plant.n], start[plant.n:] or None   # a dynamic extension's compensator starts here
     if compensator is not None:

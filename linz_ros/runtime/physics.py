@@ -27,6 +27,7 @@ import math
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Sequence
+from xml.etree import ElementTree
 
 import numpy as np
 
@@ -43,9 +44,6 @@ PHYSICS = ("model", "mujoco")
 
 #: What to install for ``mujoco`` physics (4.x on PyPI is a stub without the engine).
 INSTALL_HINT = "pip install 'linz_ros[physics]' (or pip install 'mujoco>=3.2,<4')"
-
-#: The URDF form's gravity when its plant file names none (m/s^2, along -z of the base link).
-DEFAULT_GRAVITY = (0.0, 0.0, -9.81)
 
 #: How closely the artifact's input map B must be the identity for joint torques to be its inputs.
 _IDENTITY_TOLERANCE = 1e-12
@@ -95,7 +93,7 @@ class EngineArm:
     urdf: Path
     joints: tuple[str, ...]
     base: str
-    gravity: tuple[float, float, float] = DEFAULT_GRAVITY
+    gravity: tuple[float, float, float]
 
 
 def engine_arm(artifact: Artifact, field: str = "physics") -> EngineArm:
@@ -122,33 +120,8 @@ def engine_arm(artifact: Artifact, field: str = "physics") -> EngineArm:
     if record is None:
         raise ConfigError(field, f"mujoco needs an arm described by a URDF; {artifact.name} has none (its plant "
                                  "file has no urdf: section): use model")
-    urdf = record.path(artifact)
-    gravity = getattr(record, "gravity", None)
-    return EngineArm(urdf=urdf, joints=tuple(record.joints), base=record.base,
-                     gravity=tuple(float(g) for g in gravity) if gravity is not None
-                     else _plant_file_gravity(artifact, field))
-
-
-def _plant_file_gravity(artifact: Artifact, field: str) -> tuple[float, float, float]:
-    """``urdf.gravity`` of the plant file the artifact records (the artifact itself carries none).
-
-    The URDF was found beside that same plant file (:meth:`UrdfRecord.path`), so it is there.
-    """
-    import yaml     # PyYAML: a dependency of the package; imported only for MuJoCo physics
-
-    built_from = [Path(artifact.plant_source)] if artifact.plant_source else []    # built in memory: as given
-    for path in artifact.recorded_plant_files() + built_from:
-        if path.is_file():
-            try:
-                section = (yaml.safe_load(read_bounded(path, str(path))) or {}).get("urdf") or {}
-                gravity = section.get("gravity", DEFAULT_GRAVITY)
-                values = tuple(float(g) for g in gravity)
-            except (ValueError, TypeError, AttributeError, yaml.YAMLError):
-                raise ConfigError(field, f"{path}: urdf.gravity: expected [x, y, z] (numbers)") from None
-            if len(values) != 3 or not all(math.isfinite(v) for v in values):
-                raise ConfigError(field, f"{path}: urdf.gravity: expected [x, y, z] (numbers)")
-            return values
-    raise ConfigError(field, f"{artifact.name}: its plant file is not found, so its gravity is not known")
+    return EngineArm(urdf=record.path(artifact), joints=tuple(record.joints), base=record.base,
+                     gravity=record.gravity)
 
 
 class MujocoPlant:
@@ -179,9 +152,9 @@ class MujocoPlant:
     backend = "mujoco"
 
     def __init__(self, artifact: Artifact, arm: EngineArm | None = None, field: str = "physics") -> None:
+        self.arm = arm = arm if arm is not None else engine_arm(artifact, field)    # no URDF: say so, not "install"
         self.mujoco = mujoco = import_mujoco(field)
         self.artifact = artifact
-        self.arm = arm = arm if arm is not None else engine_arm(artifact, field)
         self.n, self.m = len(artifact.plant_states), len(artifact.plant_inputs)
         #: Not used by the engine (the URDF is its truth); kept for the plant interface.
         self.parameters = list(artifact.nominal_parameters.tolist())
@@ -302,12 +275,25 @@ def _check_identity_input_map(artifact: Artifact, field: str) -> None:
                                  "reach the joints through an input map B that is not the identity")
 
 
+def _dynamics_only(text: bytes) -> str:
+    """The URDF without ``<visual>`` and ``<collision>``: their meshes (``package://``) are not needed with
+    contacts off, and inertias come from ``<inertial>`` only."""
+    root = ElementTree.fromstring(text)
+    for link in root.iter("link"):
+        for child in [c for c in link if c.tag in ("visual", "collision")]:
+            link.remove(child)
+    return ElementTree.tostring(root, encoding="unicode")
+
+
 def _compile(mujoco: Any, arm: EngineArm, field: str) -> Any:
-    """The URDF as MuJoCo reads it, fixed links kept as bodies (so the base's frame stays known)."""
+    """The URDF as MuJoCo reads it, geometry stripped, fixed links kept as bodies (the base's frame stays known)."""
     try:
-        spec = mujoco.MjSpec.from_file(str(arm.urdf))
+        spec = mujoco.MjSpec.from_string(_dynamics_only(read_bounded(arm.urdf, str(arm.urdf))))
         spec.compiler.fusestatic = False       # welded bodies: the same dynamics, the base link still named
+        spec.compiler.inertiafromgeom = mujoco.mjtInertiaFromGeom.mjINERTIAFROMGEOM_FALSE
         return spec.compile()
+    except ElementTree.ParseError as err:
+        raise ConfigError(field, f"MuJoCo cannot load {arm.urdf}: not well-formed XML ({err})") from None
     except (ValueError, RuntimeError) as err:   # MuJoCo's parse and compile errors
         first = (str(err).strip().splitlines() or ["unknown error"])[0]
         raise ConfigError(field, f"MuJoCo cannot load {arm.urdf}: {first}") from None
@@ -344,7 +330,8 @@ def _world_gravity(mujoco: Any, model: Any, arm: EngineArm, field: str) -> np.nd
 
 
 def make_physics_plant(artifact: Artifact, physics: str = "model", parameters: Sequence[float] | None = None,
-                       backend: str = "native", field: str = "physics") -> tuple[Any, str | None]:
+                       backend: str = "native", field: str = "physics", mismatch_field: str = "mismatch"
+                       ) -> tuple[Any, str | None]:
     """The plant of the chosen physics (and, for ``model``, of the chosen backend).
 
     Parameters
@@ -352,11 +339,14 @@ def make_physics_plant(artifact: Artifact, physics: str = "model", parameters: S
     artifact : Artifact
     physics : {"model", "mujoco"}
     parameters : sequence of float, optional
-        Of ``model`` physics; for ``mujoco`` they must be the nominal ones (the URDF is the truth).
+        A parameter mismatch of ``model`` physics (None: the nominal ones); refused for ``mujoco`` (the
+        URDF is the truth), even when it changes nothing (a URDF arm has no parameters to change).
     backend : {"native", "python"}
         Of ``model`` physics.
     field : str
         Named in refusals (``--physics`` or ``physics``).
+    mismatch_field : str
+        Where the parameters came from, named when a mismatch meets ``mujoco`` (``--mismatch`` or ``mismatch``).
 
     Returns
     -------
@@ -372,10 +362,9 @@ def make_physics_plant(artifact: Artifact, physics: str = "model", parameters: S
         raise ConfigError(field, f"expected one of {', '.join(PHYSICS)}, got {physics!r}")
     if physics == "model":
         return make_plant(artifact, parameters, backend=backend)
-    nominal = artifact.nominal_parameters.tolist()
-    if parameters is not None and list(parameters) != nominal:
-        raise ConfigError(field, "mujoco simulates the URDF as written; a parameter mismatch applies to model "
-                                 "physics only (edit the URDF, or the plant file, to make them differ)")
+    if parameters is not None:
+        raise ConfigError(mismatch_field, f"applies to {field} model only: mujoco simulates the URDF as written "
+                                          "(edit the URDF, or the plant file, to make them differ)")
     plant = MujocoPlant(artifact, field=field)
     return plant, None
 

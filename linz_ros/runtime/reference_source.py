@@ -7,8 +7,11 @@ interval between messages, and once the latest message is older than the timeout
 outputs are held where they were. A built-in reference (a spec such as
 ``smooth:tool_x=0.05,duration=2``) starts from the outputs at the first good state. A
 trajectory reference (:data:`TRAJECTORY`) follows the latest accepted planned trajectory
-(:mod:`linz_ros.runtime.trajectory`), from where the reference was when it came, and holds
-its last point after its end; before the first one the outputs are held where they are.
+(:mod:`linz_ros.runtime.trajectory`) and holds its last point after its end; before the first one
+the outputs are held where they are. A trajectory is taken up at its stamp (one stamped in the
+future waits, the one followed so far goes on): the points already over are dropped and the
+move goes on from the reference in force (position, velocity, acceleration), so the reference
+never jumps; one that is entirely over when it comes is refused.
 """
 
 from __future__ import annotations
@@ -22,7 +25,7 @@ from linz_ros.errors import ConfigError, LinzError
 from linz_ros.runtime.closed_loop import initial_outputs
 from linz_ros.runtime.core import ControllerCore
 from linz_ros.runtime.reference import Reference, extrapolate_reference, parse_reference
-from linz_ros.runtime.trajectory import Knots, Trajectory, TrajectoryPoints, check_points
+from linz_ros.runtime.trajectory import Knots, Trajectory, TrajectoryPoints, check_not_over, check_points
 
 __all__ = ["ReferenceSource", "TOPIC", "TRAJECTORY"]
 
@@ -78,7 +81,7 @@ class ReferenceSource:
                                                   f"({', '.join(outputs)}), got {len(self.trajectory_names)}")
         self.trajectory: Trajectory | None = None
         self.trajectory_origin = 0.0          # the clock's reading at the trajectory's time 0
-        self._pending: tuple[Knots, float] | None = None    # accepted, started at the next sample
+        self._pending: tuple[Knots, float] | None = None    # accepted, taken up at a sample at or after its stamp
         self.refused = 0                      # trajectories refused so far
         if spec not in (TOPIC, TRAJECTORY):
             # checked now so that configure fails on a bad spec
@@ -182,7 +185,9 @@ class ReferenceSource:
         return self.generator.sample(now - (self.origin if self.origin is not None else now))
 
     def accept_trajectory(self, points: TrajectoryPoints, start: float | None, now: float) -> str | None:
-        """Take a planned trajectory (it replaces the one followed so far at its start).
+        """Take a planned trajectory (it replaces the one followed so far at its stamp, or the next sample).
+
+        A later one replaces one still waiting for its stamp.
 
         Parameters
         ----------
@@ -199,20 +204,24 @@ class ReferenceSource:
         """
         try:
             knots = check_points(points, self.trajectory_names)
+            origin = now if start is None else start
+            check_not_over(knots, now - origin)
         except LinzError as err:
             self.refused += 1
             return str(err)
-        self._pending = (knots, now if start is None else start)
+        self._pending = (knots, origin)
         return None
 
     def _planned(self, x: Sequence[float], now: float) -> list[float]:
         self.stale = False               # no trajectory, or after its end: held on purpose, not stalled
         if self.trajectory is None and self.latched is None:
             self.latched = self._held(x)
-        if self._pending is not None and (self.trajectory is not None or self.latched is not None):
+        if (self._pending is not None and now >= self._pending[1]
+                and (self.trajectory is not None or self.latched is not None)):
             knots, origin = self._pending
             self._pending = None
-            self.trajectory = Trajectory(knots, self._start_of_move(now))
+            # taken up now, at its time now - origin: the points before are over
+            self.trajectory = Trajectory(knots, self._start_of_move(now), now - origin)
             self.trajectory_origin = origin
         if self.trajectory is None:
             return self.latched if self.latched is not None else [math.nan] * self.core.reference_size

@@ -9,6 +9,9 @@ velocity and acceleration at both ends, so the reference is continuous up to its
 derivative; its third to fifth derivatives are those of the quintic (the jerk and snap that a
 chain of relative degree 4, an elastic joint, follows jump at the knots), higher ones are zero.
 
+Points closer than :data:`MIN_INTERVAL` are refused: a segment's k-th derivative grows as
+1 / length^k, and points a hair apart would give references out of all proportion (or not finite).
+
 Missing derivatives (given for no point): velocities are zero at the first and last knot and
 the central difference ``(p[k+1] - p[k-1]) / (t[k+1] - t[k-1])`` inside (Catmull-Rom);
 accelerations likewise from the velocities. Before its first knot the trajectory is held at
@@ -26,13 +29,16 @@ import numpy as np
 
 from linz_ros.errors import ConfigError
 
-__all__ = ["TrajectoryPoints", "Knots", "Trajectory", "check_points", "quintic_coefficients", "MAX_POINTS",
-           "HIGHEST_DERIVATIVE"]
+__all__ = ["TrajectoryPoints", "Knots", "Trajectory", "check_points", "check_not_over", "quintic_coefficients",
+           "MAX_POINTS", "HIGHEST_DERIVATIVE", "MIN_INTERVAL"]
 
 #: Most points a trajectory may carry (the sampler keeps six coefficients per output and segment).
 MAX_POINTS = 100_000
 #: Derivatives above this are zero (the segments are quintics).
 HIGHEST_DERIVATIVE = 5
+#: Shortest time between two points, seconds (a segment's fifth derivative grows as 1 / length^5); a
+#: point taken up less than this after the start of the move is skipped.
+MIN_INTERVAL = 1e-3
 #: Named in every refusal.
 _FIELD = "trajectory"
 
@@ -131,7 +137,7 @@ def check_points(points: TrajectoryPoints, outputs: Sequence[str]) -> Knots:
     ConfigError
         Named ``trajectory``, one line: no points, too many, unknown, missing or repeated
         names, rows of the wrong length, values or times not finite, times negative or not
-        increasing, derivatives given for some points only.
+        increasing or closer than :data:`MIN_INTERVAL`, derivatives given for some points only.
     """
     count = len(points.times)
     if count == 0:
@@ -152,11 +158,35 @@ def check_points(points: TrajectoryPoints, outputs: Sequence[str]) -> Knots:
         k = int(np.flatnonzero(steps <= 0.0)[0]) + 1
         raise _refuse(f"time_from_start must increase from point to point: point {k} at {times[k]:g} s "
                       f"follows {times[k - 1]:g} s")
+    if np.any(steps < MIN_INTERVAL):
+        k = int(np.flatnonzero(steps < MIN_INTERVAL)[0]) + 1
+        raise _refuse(f"points {k - 1} and {k} are {steps[k - 1]:g} s apart: at least {MIN_INTERVAL:g} s "
+                      "is needed (the reference's derivatives grow as 1 / interval^5)")
     positions = _block(points.positions, width, "positions")[:, order]
     velocities = _optional_block(points.velocities, width, "velocities")
     accelerations = _optional_block(points.accelerations, width, "accelerations")
     return Knots(times, positions, None if velocities is None else velocities[:, order],
                  None if accelerations is None else accelerations[:, order])
+
+
+def check_not_over(knots: Knots, elapsed: float) -> None:
+    """Refuse a trajectory whose every point is over ``elapsed`` seconds after its stamp.
+
+    Parameters
+    ----------
+    knots : Knots
+    elapsed : float
+        Seconds since the trajectory's time 0 (its stamp); at or below zero nothing is over.
+
+    Raises
+    ------
+    ConfigError
+        Named ``trajectory``, one line, when ``elapsed > 0`` and the last point's time is at most ``elapsed``.
+    """
+    last = float(knots.times[-1])
+    if elapsed > 0.0 and last <= elapsed:
+        raise _refuse(f"every point is in the past: the last is {last:g} s after the stamp, "
+                      f"which was {elapsed:g} s ago")
 
 
 def _central_differences(times: np.ndarray, values: np.ndarray) -> np.ndarray:
@@ -213,9 +243,13 @@ class Trajectory:
     ----------
     knots : Knots
     start : tuple of three sequences of float, optional
-        Position, velocity and acceleration of the outputs where the trajectory starts (time 0);
-        used as a first knot when the first point comes later (the move from there to it is a
-        quintic too). Without it a first point after time 0 is held until its time.
+        Position, velocity and acceleration of the outputs where the trajectory is taken up (at
+        ``start_time``); a first knot in place of the points up to :data:`MIN_INTERVAL` after
+        ``start_time`` (they are over; the move from the start to the next point is a quintic too).
+        When no point is left it is dropped and the last point is held. Without it a first point
+        after time 0 is held until its time.
+    start_time : float
+        Time of ``start`` from the trajectory's time 0 (its stamp), seconds.
 
     Examples
     --------
@@ -224,13 +258,22 @@ class Trajectory:
     [0.5, 1.875, 0.0]
     """
 
-    def __init__(self, knots: Knots, start: tuple[Sequence[float], Sequence[float], Sequence[float]] | None = None
-                 ) -> None:
+    def __init__(self, knots: Knots, start: tuple[Sequence[float], Sequence[float], Sequence[float]] | None = None,
+                 start_time: float = 0.0) -> None:
         times, positions = knots.times, knots.positions
         velocities, accelerations = knots.velocities, knots.accelerations
-        if start is not None and times[0] > 0.0:
+        if start is not None:
+            # the points the move is past (or too close to its start for a segment) are dropped
+            ahead = times >= start_time + MIN_INTERVAL
+            if not ahead.any():
+                ahead[-1] = True           # nothing left to follow: its last point is held
+                start = None
+            times, positions = times[ahead], positions[ahead]
+            velocities = None if velocities is None else velocities[ahead]
+            accelerations = None if accelerations is None else accelerations[ahead]
+        if start is not None:
             first = [np.asarray(v, dtype=float).reshape(1, -1) for v in start]
-            times = np.r_[0.0, times]
+            times = np.r_[start_time, times]
             positions = np.vstack([first[0], positions])
             # derivatives the points do not give come from the rule over every knot, the start's included
             velocities = None if velocities is None else np.vstack([first[1], velocities])

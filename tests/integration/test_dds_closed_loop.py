@@ -39,7 +39,7 @@ BRINGUPS = {
     # dynamically extended laws, lockstep with built-in references. The cart (Odometry in, Twist on /cmd_vel
     # out) on its design's figure eight: its odometry says it stands still at the start, so the compensator
     # starts at its 0.1 m/s floor, not at the eight's 0.44 m/s. `linz sim <cart artifact> --reference <this
-    # spec> --initial v_i1=0.1 --watchdog compensator_floor=0.1,0 --duration 40` gives a largest error of
+    # spec> --initial v_i1=0.1 --duration 40` (the plant file's floor, 0.1 m/s) gives a largest error of
     # 0.057 m (at 0.58 s, while it catches up; 5 mm after 3 s, 0.13 mm after 10 s), plus up to 9 mm per period
     # the built-in reference may start before the first state (0.44 m/s for 20 ms). A path has no end point:
     # the amplitudes are the eight's extents, 2 m along x and 1 m along y (checked as the outputs' reach)
@@ -244,7 +244,7 @@ def _check_diagnostics(probe, log, artifact, controller, sim_time: bool) -> None
 
 def test_a_cart_holding_a_point_runs_near_its_singular_set_and_linz_logs_shows_the_episodes(bringup, built, tmp_path):
     """The extended cart's law is singular where it stands still (det A = v_i1): told to hold the point it
-    starts on, it keeps slowing towards v = 0, and config/delivery_cart.yaml's compensator_floor (0.1 m/s)
+    starts on, it keeps slowing towards v = 0, and the plant file's compensator_floor (0.1 m/s, in the artifact)
     keeps it circling at that speed instead. The controller's field log, read by `linz logs`, shows it."""
     import json
     import subprocess
@@ -252,14 +252,14 @@ def test_a_cart_holding_a_point_runs_near_its_singular_set_and_linz_logs_shows_t
 
     path, artifact = built["delivery_cart"]
     params = CONFIG / "delivery_cart.yaml"
-    floor = float(node_parameters(params, "linz_controller")["compensator_floor"][0])
+    floor = float(artifact.watchdog["compensator_floor"][0])
     probe = Probe(artifact, _topics("delivery_cart"), states=False)
     try:
         bringup.start("linz_plant_sim", params, {"artifact": str(path), "publish_clock": True, "lockstep": True})
         bringup.start("linz_controller", params, {"artifact": str(path), "use_sim_time": True, "stale_after": 1.0,
                                                   "reference": "hold", "field_log_folder": str(tmp_path / "log")})
         assert bringup.wait_for_log("linz_controller", "active: commanding", timeout=60)
-        # 8 s of simulated time: the heading winds up as it circles, and leaves its envelope after about 13 s
+        # 8 s of simulated time: enough circles about the point to read the episodes back
         assert wait_until(lambda: len(probe.recording.conditioning) > 400, timeout=120, node=probe)
     finally:
         probe.destroy_node()
