@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -96,3 +97,29 @@ def c_words_not_ours(source: str) -> set:
                          r"cosh|tanh|exp|log|sqrt|fabs|pow|e)")
     without_numbers = re.sub(r"\b\d+(\.\d*)?(e[-+]?\d+)?\b", " ", source)
     return {word for word in re.findall(r"[A-Za-z_][A-Za-z0-9_]*", without_numbers) if not allowed.fullmatch(word)}
+
+
+@contextlib.contextmanager
+def node_factory(node_class, params_file: Path, artifact: Path, **fixed):
+    """Make ROS nodes of ``node_class`` from a bringup parameter file and an artifact, each in a context of its
+    own (``fixed`` parameters first, then each call's), and destroy them all on leaving."""
+    import rclpy
+
+    made = []
+
+    def make(**parameters):
+        context = rclpy.Context()
+        args = ["--ros-args", "--params-file", str(params_file), "-p", f"artifact:={artifact}"]
+        for key, value in {**fixed, **parameters}.items():
+            args += ["-p", f"{key}:={value}"]
+        rclpy.init(args=args, context=context)
+        node = node_class(context=context)
+        made.append((node, context))
+        return node
+
+    try:
+        yield make
+    finally:
+        for node, context in made:
+            node.destroy_node()
+            context.try_shutdown()

@@ -324,34 +324,17 @@ def test_the_backend_parameter_chooses_the_step_and_a_wrong_one_is_refused_at_co
 # -- a dynamically extended artifact: the delivery cart (states x, y, th; compensator v_i1; inputs v, omega) --
 @pytest.fixture(scope="module")
 def cart_artifact(tmp_path_factory):
-    from linz_ros.codegen import artifact_path, build_document, write_artifact
-    from linz_ros.model import load_plant
-    from linz_ros.synthesis import synthesise
-    design = synthesise(load_plant(BUNDLED / "delivery_cart.yaml"))
-    return write_artifact(build_document(design, points=8)[0],
-                          artifact_path(tmp_path_factory.mktemp("cart"), "delivery_cart"))
+    from support import built_artifact_file
+    return built_artifact_file(BUNDLED / "delivery_cart.yaml", tmp_path_factory.mktemp("cart"))
 
 
 @pytest.fixture
 def make_cart(cart_artifact):
     from linz_ros.nodes.controller import ControllerNode
-    made = []
-
-    def _make(**parameters):
-        context = rclpy.Context()
-        args = ["--ros-args", "--params-file", str(ROOT / "config" / "delivery_cart.yaml"), "-p",
-                f"artifact:={cart_artifact}", "-p", "autostart:=false"]
-        for key, value in parameters.items():
-            args += ["-p", f"{key}:={value}"]
-        rclpy.init(args=args, context=context)
-        node = ControllerNode(context=context)
-        made.append((node, context))
-        return node
-
-    yield _make
-    for node, context in made:
-        node.destroy_node()
-        context.try_shutdown()
+    from support import node_factory
+    with node_factory(ControllerNode, ROOT / "config" / "delivery_cart.yaml", cart_artifact,
+                      autostart="false") as make:
+        yield make
 
 
 def _odometry(stamp, x=0.0, y=0.0, th=0.7854, speed=0.0, turn=0.0):

@@ -242,35 +242,17 @@ def test_the_summary_counts_states_sent_and_dropped(make):
 # -- a dynamically extended artifact: the delivery cart's plant (states x, y, th; inputs v, omega) -----------
 @pytest.fixture(scope="module")
 def cart_artifact(tmp_path_factory):
-    from linz_ros.codegen import artifact_path, build_document, write_artifact
-    from linz_ros.model import load_plant
-    from linz_ros.synthesis import synthesise
-    design = synthesise(load_plant(BUNDLED / "delivery_cart.yaml"))
-    return write_artifact(build_document(design, points=8)[0],
-                          artifact_path(tmp_path_factory.mktemp("cart"), "delivery_cart"))
+    from support import built_artifact_file
+    return built_artifact_file(BUNDLED / "delivery_cart.yaml", tmp_path_factory.mktemp("cart"))
 
 
 @pytest.fixture
 def make_cart(cart_artifact):
     from linz_ros.nodes.simulator import PlantSimulatorNode
-    from support import ROOT
-    made = []
-
-    def _make(**parameters):
-        context = rclpy.Context()
-        args = ["--ros-args", "--params-file", str(ROOT / "config" / "delivery_cart.yaml"), "-p",
-                f"artifact:={cart_artifact}", "-p", "publish_clock:=true"]
-        for key, value in parameters.items():
-            args += ["-p", f"{key}:={value}"]
-        rclpy.init(args=args, context=context)
-        node = PlantSimulatorNode(context=context)
-        made.append((node, context))
-        return node
-
-    yield _make
-    for node, context in made:
-        node.destroy_node()
-        context.try_shutdown()
+    from support import ROOT, node_factory
+    with node_factory(PlantSimulatorNode, ROOT / "config" / "delivery_cart.yaml", cart_artifact,
+                      publish_clock="true") as make:
+        yield make
 
 
 def test_the_carts_odometry_carries_its_own_states_and_echoes_the_inputs_it_holds(make_cart):
