@@ -185,7 +185,7 @@ class ExtendedCore(AroundExtension):
         delayed = [k > 0 for k in self.extension.integrators]
         # no floor (inf in the settings) is a floor of 0 here: |xi_1| < 0 never holds
         floors = [0.0 if f == math.inf else f for f in config.compensator_floor or (math.inf,) * self.m]
-        limits = [self.extension.plant_input_limits[j] if d else config.input_limits[j] for j, d in enumerate(delayed)]
+        limits = command_limits(self.artifact, config)
         sides = [_floor_side(f, lo, hi, self.extension.start[at] if at is not None else 1.0)
                  for f, (lo, hi), at in zip(floors, limits, self._offsets)]
         for j, side in enumerate(sides):
