@@ -18,6 +18,8 @@ setup(
         ("share/" + package_name + "/launch", glob("launch/*.py")),
         ("share/" + package_name + "/config", glob("config/*.yaml")),
         ("share/" + package_name + "/config/plants", glob("config/plants/*.yaml")),
+        ("share/" + package_name + "/config/urdf", glob("config/urdf/*.urdf")),
+        ("share/" + package_name + "/config/campaigns", glob("config/campaigns/*.yaml")),
     ],
     python_requires=">=3.10",
     # rclpy and the message packages come from the ROS 2 distribution; never pin them here.
@@ -32,7 +34,7 @@ setup(
             "ros-kilted-trajectory-msgs",
         ],
         "test": ["pytest>=7", "hypothesis>=6", "control>=0.10", "colcon-common-extensions", "pin>=2.7",
-                 "cryptography>=41", "symengine>=0.11", "cffi>=1.15", "mujoco>=3.2,<4"],
+                 "cryptography>=41", "symengine>=0.11", "cffi>=1.15", "mujoco>=3.2,<4", "distributed>=2024.1"],
         # the native control step and plant (compiled C at load, called through cffi; the Python core
         # is used, with a one-line note, where it is missing)
         "native": ["cffi>=1.15"],
@@ -45,6 +47,9 @@ setup(
         # 4.x on PyPI is a stub without the engine, and MjSpec (the URDF compiled with its fixed links kept)
         # needs 3.2
         "physics": ["mujoco>=3.2,<4"],
+        # linz campaign / linz logs on a Dask cluster (--scheduler, LINZ_DASK_SCHEDULER); local worker
+        # processes need nothing extra
+        "cluster": ["distributed>=2024.1"],
     },
     zip_safe=True,
     maintainer="linz_ros developers",

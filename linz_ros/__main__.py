@@ -4,4 +4,5 @@ import sys
 
 from linz_ros.cli import main
 
-sys.exit(main())
+if __name__ == "__main__":         # worker processes (spawn) import this module without running it
+    sys.exit(main())

@@ -133,6 +133,48 @@ def _verb(verbs, run, name: str, **texts: str) -> argparse.ArgumentParser:
     return parser
 
 
+def _add_executor_options(parser: argparse.ArgumentParser) -> None:
+    """Where many runs go: local worker processes, or a Dask scheduler."""
+    from linz_ros.executor import DEFAULT_ATTEMPTS, SCHEDULER_ENV
+
+    parser.add_argument("--workers", type=_positive_int, default=None, metavar="N",
+                        help="local worker processes (default: one per core)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help=f"a Dask scheduler (tcp://host:8786) to run on instead of local processes; default "
+                             f"the environment variable {SCHEDULER_ENV} when set (needs the 'cluster' extra)")
+    parser.add_argument("--attempts", type=_positive_int, default=DEFAULT_ATTEMPTS, metavar="N",
+                        help=f"runs of one task at most when its worker dies (default {DEFAULT_ATTEMPTS}); "
+                             "then it is reported lost")
+
+
+def _add_campaign(verbs) -> None:
+    campaign = _verb(verbs, _run_campaign, "campaign", help="many closed-loop runs: envelope, mismatch, noise, delay",
+                     description="Run the closed loop from initial states drawn over the envelope (scrambled "
+                                 "Sobol), with parameter mismatch, noise, delay and references from a campaign "
+                                 "section; report the success rate with its confidence interval, the worst cases "
+                                 "with the command that reruns each, what drives failure and the region of "
+                                 "attraction. Exit 0: every run succeeded; 1: failures or lost runs; 130: "
+                                 "interrupted (what finished is reported).")
+    campaign.add_argument("source", metavar="PLANT_OR_ARTIFACT",
+                          help="a plant file (built here; its campaign: section is read) or an artifact (*.json)")
+    campaign.add_argument("--campaign", metavar="FILE", help="a campaign file (a campaign: section, or its keys)")
+    campaign.add_argument("-o", "--out", metavar="DIR", help=f"output folder (default {DEFAULT_OUT}/<plant>-campaign)")
+    campaign.add_argument("--runs", type=_positive_int, default=None, help="number of runs (overrides the section)")
+    campaign.add_argument("--seed", type=_nonnegative_int, default=None, help="campaign seed (overrides the section)")
+    campaign.add_argument("--worst", type=_nonnegative_int, default=5, help="worst cases listed (default 5)")
+    _add_executor_options(campaign)
+    campaign.add_argument("--integrator", choices=("rk4", "scipy"), default="rk4", help="as linz sim")
+    campaign.add_argument("--substeps", type=_positive_int, default=4, help="RK4 steps per control period (default 4)")
+    _add_backend(campaign, "the control step and the plant of every run")
+    campaign.add_argument("--physics", default="model", metavar="NAME", help="model (default) or mujoco, as linz sim")
+    campaign.add_argument("--no-plots", action="store_true", help="skip the CSV, PNG and HTML files")
+    campaign.add_argument("--progress", action="store_true", default=None,
+                          help="show a progress bar even when stderr is not a terminal")
+    campaign.add_argument("--json", action="store_true", help="print the summary as one JSON object")
+    _add_artifact_checks(campaign)
+    _add_design_options(campaign)
+
+
 def _build_parser() -> argparse.ArgumentParser:
     parser = _OneLineParser(prog="linz", description="Feedback linearization, from plant file to ROS 2 node.")
     parser.add_argument("--version", action="version", version=f"linz_ros {__version__}")
@@ -212,6 +254,8 @@ def _build_parser() -> argparse.ArgumentParser:
     _add_artifact_checks(sim)
     _add_design_options(sim)
 
+    _add_campaign(verbs)
+
     bench = _verb(verbs, _run_bench, "bench", help="time the controller step against references",
                   description="Time ControllerCore.step and, on the same expressions, a naive "
                               "numpy pipeline and a compiled-C evaluation; print the ratios.")
@@ -236,6 +280,12 @@ def _build_parser() -> argparse.ArgumentParser:
     logs.add_argument("--csv", metavar="FILE", help="write every record as CSV")
     logs.add_argument("--plots", metavar="DIR", help="write the PNG plots in DIR")
     logs.add_argument("--html", metavar="FILE", help="write one self-contained HTML report")
+    logs.add_argument("--fleet", metavar="DIR", help="each recording (the files of one field-log writer) on its own, "
+                      "summed per day and machine: DIR/fleet.json, .csv, .html and DIR/<recording>/ reports")
+    _add_executor_options(logs)
+    logs.add_argument("--no-plots", action="store_true", help="with --fleet: no PNG plots per recording")
+    logs.add_argument("--no-csv", action="store_true", help="with --fleet: no records.csv per recording")
+    logs.add_argument("--progress", action="store_true", default=None, help="with --fleet: a progress bar always")
 
     demo = _verb(verbs, _run_demo, "demo", help="the whole job on the bundled example",
                  description="Check, build and simulate the bundled pick arm: a nominal move, and a "
@@ -296,20 +346,62 @@ def _run_build(args: argparse.Namespace) -> int:
     return 0
 
 
-def _run_sim(args: argparse.Namespace) -> int:
-    from linz_ros.commands.sim import SimRequest, render_sim, simulate_run
+def sim_request(args: argparse.Namespace):
+    """The ``linz sim`` request of parsed options.
 
-    request = SimRequest(
+    Parameters
+    ----------
+    args : argparse.Namespace
+
+    Returns
+    -------
+    SimRequest
+    """
+    from linz_ros.commands.sim import SimRequest
+
+    return SimRequest(
         source=args.source, out=args.out, duration=args.duration, reference=args.reference, mismatch=args.mismatch,
         noise=args.noise, delay=args.delay, initial=args.initial, force_initial=args.force_initial,
         watchdog=args.watchdog, integrator=args.integrator, substeps=args.substeps, seed=args.seed,
         backend=args.backend, physics=args.physics, plots=not args.no_plots, progress=bool(args.progress if args.progress is not None else sys.stderr.isatty()),
         allow_plant_change=args.allow_plant_change, field_log=args.field_log, trusted_keys=args.trusted_key,
         design=_design(args))
-    run = simulate_run(request)
+
+
+def parse(argv: Sequence[str]) -> argparse.Namespace:
+    """Parse a ``linz`` command line (without the program name).
+
+    Parameters
+    ----------
+    argv : sequence of str
+
+    Returns
+    -------
+    argparse.Namespace
+    """
+    return _build_parser().parse_args(list(argv))
+
+
+def _run_sim(args: argparse.Namespace) -> int:
+    from linz_ros.commands.sim import render_sim, simulate_run
+
+    run = simulate_run(sim_request(args))
     print(render_sim(run.summary, as_json=args.json))
     _warn(run.warnings)
     return 0
+
+
+def _run_campaign(args: argparse.Namespace) -> int:
+    from linz_ros.commands.campaign import CampaignRequest, render_campaign_run, run_campaign
+
+    run = run_campaign(CampaignRequest(
+        source=args.source, campaign=args.campaign, out=args.out, runs=args.runs, seed=args.seed, worst=args.worst,
+        workers=args.workers, scheduler=args.scheduler, attempts=args.attempts, integrator=args.integrator,
+        backend=args.backend, physics=args.physics, substeps=args.substeps, plots=not args.no_plots,
+        progress=bool(args.progress if args.progress is not None else sys.stderr.isatty()),
+        allow_plant_change=args.allow_plant_change, trusted_keys=args.trusted_key, design=_design(args)))
+    print(render_campaign_run(run, as_json=args.json))
+    return run.exit_code
 
 
 def _run_bench(args: argparse.Namespace) -> int:
@@ -322,12 +414,11 @@ def _run_bench(args: argparse.Namespace) -> int:
 
 
 def _run_logs(args: argparse.Namespace) -> int:
-    from linz_ros.commands.logs import LogsRequest, read_and_report, render_logs
+    from linz_ros.commands.logs import run_logs_options
 
-    report = read_and_report(LogsRequest(args.paths, artifact=args.artifact, csv=args.csv, plots=args.plots,
-                                         html=args.html))
-    print(render_logs(report, as_json=args.json))
-    return 0
+    text, code = run_logs_options(vars(args), terminal=sys.stderr.isatty())
+    print(text)
+    return code
 
 
 def _run_keygen(args: argparse.Namespace) -> int:
@@ -354,6 +445,7 @@ def _run_wire(args: argparse.Namespace) -> int:
 
 #: Options naming a file or folder: an empty name would silently mean the current folder, or nothing.
 _PATH_OPTIONS = (("out", "--out"), ("bringup", "--bringup"), ("field_log", "--field-log"), ("folder", "keygen"),
+                 ("campaign", "--campaign"), ("fleet", "--fleet"),
                  ("sign_key", "--sign-key"),
                  ("trusted_key", "--trusted-key"))
 
@@ -362,7 +454,7 @@ _PATH_OPTIONS = (("out", "--out"), ("bringup", "--bringup"), ("field_log", "--fi
 #: fall back to a default.
 _TEXT_OPTIONS = (("reference", "--reference"), ("linearizing_output", "--linearizing-output"),
                  ("lqr_q", "--lqr-q"), ("lqr_r", "--lqr-r"), ("poles", "--poles"), ("mismatch", "--mismatch"),
-                 ("noise", "--noise"), ("initial", "--initial"), ("watchdog", "--watchdog"))
+                 ("noise", "--noise"), ("initial", "--initial"), ("watchdog", "--watchdog"), ("scheduler", "--scheduler"))
 
 
 def _refuse_empty_paths(args: argparse.Namespace) -> None:

@@ -123,3 +123,33 @@ def node_factory(node_class, params_file: Path, artifact: Path, **fixed):
         for node, context in made:
             node.destroy_node()
             context.try_shutdown()
+
+
+# ---------------------------------------------------------------- tasks for the executor's tests (module level:
+# spawned workers and Dask workers import them by name)
+
+def executor_prepare(text: str) -> str:
+    """The prepared context of the executor's test tasks: the shipped text, upper case."""
+    return text.upper()
+
+
+def executor_task(prepared: str, item: object) -> tuple:
+    """Echo the item with the context; -1 raises a user error, -2 kills the worker, ('wait', path) waits
+    until the file at path exists (so a test can kill the worker while it holds the task)."""
+    import os
+    import time
+
+    from linz_ros.errors import ConfigError
+
+    if item == -1:
+        raise ConfigError("item", "refused for its input")
+    if item == -2:
+        os._exit(7)
+    if isinstance(item, tuple) and item[0] == "wait":
+        with open(item[1] + f".{os.getpid()}.pid", "w"):      # who holds the task (a test kills it)
+            pass
+        deadline = time.monotonic() + 60
+        while not os.path.exists(item[1]) and time.monotonic() < deadline:
+            time.sleep(0.01)
+        return prepared, item[1], os.getpid()
+    return prepared, item

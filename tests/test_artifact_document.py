@@ -65,6 +65,7 @@ def test_the_typed_view_reads_what_the_file_stores(built):
     assert artifact.has_program("singular_set") and not artifact.has_program("no_such_program")
     assert artifact.sha256 == json.loads(path.read_text())["sha256"] and len(artifact.sha256) == 64
     assert artifact.created == document["created"] and artifact.built_by == document["linz_ros_version"]
+    assert artifact.mechanics_form is None                   # an explicit plant has no mechanical form
 
 
 def test_signal_units_are_read_and_older_artifacts_without_them_read_as_none(built, tmp_path):
@@ -345,6 +346,7 @@ def test_a_mechanical_artifact_carries_its_structure_not_a_and_b(mechanical):
     path, document = mechanical
     artifact = load_artifact(path)
     assert artifact.mechanical_coordinates == 6 and artifact.computed_torque
+    assert artifact.mechanics_form == "serial_arm"
     law = {out[0]: out[1] for out in document["programs"]["law"]["outputs"]}
     assert law == {"M": [6, 6], "F": [6], "B": [6, 6], "J": [6, 6], "c": [6], "chain": [12]}
     dynamics = {out[0]: out[1] for out in document["programs"]["dynamics"]["outputs"]}

@@ -940,3 +940,64 @@ def test_a_count_of_5000_digits_is_one_short_line(capsys, built, option):
     verb = {"--samples": "check", "--substeps": "sim", "--calls": "bench", "--seed": "sim"}[option]
     code, _, err = _run(capsys, verb, built[0] if verb == "check" else built[1], option, "9" * 5000)
     _assert_refused(code, err, option)
+
+
+# -- campaign files (linz campaign --campaign) ---------------------------------------------------------
+CAMPAIGN_TEXTS = {
+    "deep flow list": "campaign: " + "[" * 10_000 + "]" * 10_000 + "\n",
+    "deep mapping": "{a: " * 10_000 + "1" + "}" * 10_000 + "\n",
+    "alias bomb as the section": "campaign: " + _BOMB + "\n",
+    "alias bomb as a range": "campaign: {initial: {x1: " + _BOMB + "}}\n",
+    "alias bomb as references": "campaign: {references: " + _BOMB + "}\n",
+    "a list": "[1, 2]\n",
+    "empty mapping key": "campaign: {'': 1}\n",
+    "unicode key": "campaign: {rüns: 3}\n",
+    "bidi in a key": "campaign: {\"r\u202euns\": 3}\n",
+    "runs too many": "campaign: {runs: 100000000}\n",
+    "runs as text": "campaign: {runs: many}\n",
+    "runs true": "campaign: {runs: true}\n",
+    "seed negative": "campaign: {seed: -1}\n",
+    "duration zero": "campaign: {duration: 0}\n",
+    "a reference that is no reference": "campaign: {references: ['spin:fast']}\n",
+    "a 1 MB reference": "campaign: {references: ['" + "s" * 1_000_000 + "']}\n",
+    "noise for no state": "campaign: {noise: {x9: 0.1}}\n",
+    "negative noise": "campaign: {noise: -0.1}\n",
+    "watchdog that is none": "campaign: {watchdog: {sigma_none: 1}}\n",
+    "a region of one state": "campaign: {region: [x1]}\n",
+    "duplicate keys": "campaign: {runs: 3, runs: 4}\n",
+}
+for _text in NON_FINITE:
+    CAMPAIGN_TEXTS[f"{_text} as a range bound"] = f"campaign: {{initial: {{x1: [-1, {_text}]}}}}\n"
+    CAMPAIGN_TEXTS[f"{_text} as a delay"] = f"campaign: {{delay: {_text}}}\n"
+
+
+@pytest.mark.parametrize("case", sorted(CAMPAIGN_TEXTS))
+def test_bad_campaign_files_are_one_line_and_run_nothing(capsys, tmp_path, built, case):
+    path = tmp_path / "campaign.yaml"
+    path.write_text(CAMPAIGN_TEXTS[case], errors="surrogatepass")
+    code, _, err = _run(capsys, "campaign", built[1], "--campaign", path, "-o", tmp_path / "out", "--workers", "1")
+    _assert_refused(code, err, "campaign", str(path))
+    assert not (tmp_path / "out" / "summary.json").exists()
+
+
+@pytest.mark.parametrize("garbage", [b"\x00\xff" * 100, b"\x89PNG\r\n\x1a\n" + bytes(range(256)), b"\xef\xbb\xbf\xff"])
+def test_binary_garbage_as_a_campaign_file_is_one_line(capsys, tmp_path, built, garbage):
+    path = tmp_path / "campaign.yaml"
+    path.write_bytes(garbage)
+    code, _, err = _run(capsys, "campaign", built[1], "--campaign", path, "-o", tmp_path / "out")
+    _assert_refused(code, err, str(path))
+
+
+def test_campaign_paths_that_are_not_files_are_one_line(capsys, tmp_path, built):
+    for case, path in _paths(tmp_path).items():
+        code, _, err = _run(capsys, "campaign", built[1], "--campaign", path, "-o", tmp_path / "out")
+        try:
+            _assert_refused(code, err, str(path)[:60] if path else "--campaign")
+        except AssertionError as failure:
+            raise AssertionError(f"{case}: {failure}") from None
+
+
+def test_a_campaign_fifo_does_not_block(tmp_path, built):
+    path = _fifo(tmp_path / "campaign.yaml")
+    code, _, err = _run_process("campaign", built[1], "--campaign", path, "-o", tmp_path / "out")
+    _assert_refused(code, err, str(path))

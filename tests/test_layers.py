@@ -28,9 +28,12 @@ ALLOWED = {
     "bringup": {"errors"},
     "logs": RUNTIME | {"logs", "plotting"},      # the log's plots are drawn by the one plotting module
     "crosscheck": {"errors", "artifact", "model"},
+    "executor": {"errors"},                        # generic: runs any module-level task anywhere
+    "campaign": RUNTIME | {"plotting", "campaign"},
     "bench": OFFLINE | RUNTIME | {"crosscheck"},
-    "commands": OFFLINE | RUNTIME | {"plotting", "bench", "bringup", "nodes", "logs", "commands"},
-    "cli": OFFLINE | RUNTIME | {"plotting", "bench", "bringup", "nodes", "logs", "commands"},
+    "commands": OFFLINE | RUNTIME | {"plotting", "bench", "bringup", "nodes", "logs", "commands", "executor",
+                                     "campaign"},
+    "cli": OFFLINE | RUNTIME | {"plotting", "bench", "bringup", "nodes", "logs", "commands", "executor", "campaign"},
 }
 # heavy or ROS modules each layer may import at module level (lazy imports inside functions are
 # checked by the subprocess tests below)
@@ -170,3 +173,25 @@ def test_no_module_passes_the_line_limit_without_a_reason_at_its_top():
         if lines > MODULE_LINE_LIMIT and not docstring.startswith("Over 500 lines because"):
             long.append(f"{path.relative_to(PACKAGE)}: {lines} lines")
     assert not long, long
+
+
+#: Underscore names imported from another module, not yet made public (their owners' files):
+#: (importing module, imported module, name). Do not add to this list: make the name public.
+PRIVATE_IMPORTS_TO_FIX = {
+    ("analysis/_input_state_numeric.py", "linz_ros.analysis._input_state", "_decide_involutivity"),
+    ("analysis/_input_state_numeric.py", "linz_ros.analysis._input_state", "_generator_name"),
+    ("analysis/_input_state_numeric.py", "linz_ros.analysis._input_state", "_verdict"),
+    ("artifact/_c_backend.py", "linz_ros.artifact._jet2", "_Value"),
+    ("nodes/_ros2_control.py", "linz_ros.nodes.adapters", "_JOINT_ARRAYS"),
+    ("nodes/_ros2_control.py", "linz_ros.nodes.adapters", "_listed"),
+}
+
+
+def test_no_module_imports_an_underscore_name_of_another_module():
+    found = set()
+    for path in sorted(PACKAGE.rglob("*.py")):
+        for node in ast.walk(ast.parse(path.read_text())):
+            if isinstance(node, ast.ImportFrom) and node.module and node.module.startswith("linz_ros"):
+                found |= {(str(path.relative_to(PACKAGE)), node.module, a.name) for a in node.names
+                          if a.name.startswith("_") and not a.name.startswith("__")}
+    assert found <= PRIVATE_IMPORTS_TO_FIX, sorted(found - PRIVATE_IMPORTS_TO_FIX)

@@ -311,3 +311,18 @@ def _flipped_copy(path, folder, mask: int):
     damaged = folder / "flipped.mcap"
     damaged.write_bytes(bytes(data))
     return damaged
+
+
+def test_two_writers_started_in_the_same_second_on_one_folder_each_keep_their_own_files(tmp_path):
+    """File names carry the recording id beside the start second: two controllers (or a controller and
+    a linz sim run) logging into one folder never collide."""
+    clock = lambda: 1_764_900_000.0              # noqa: E731 - one second for both
+    first = FieldLogWriter(FieldLogSettings(tmp_path, prefix="cell"), LABELS, {}, wall_clock=clock)
+    second = FieldLogWriter(FieldLogSettings(tmp_path, prefix="cell"), LABELS, {}, wall_clock=clock)
+    for writer in (first, second):
+        writer.put([0.0] * len(LABELS))
+    done = [first.close(), second.close()]
+    assert [s.state for s in done] == ["closed", "closed"]
+    names = sorted(p.name for p in tmp_path.glob("*.mcap"))
+    assert len(names) == 2 and names[0] != names[1]
+    assert {n.split("_")[2] for n in names} == {first.identity["recording"][:8], second.identity["recording"][:8]}

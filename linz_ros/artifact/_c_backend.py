@@ -22,7 +22,7 @@ from linz_ros.artifact._jet2 import Jet2Emitter, _Value
 from linz_ros.artifact._tokens import MAX_NESTING, integer_exponent, leaf_text
 from linz_ros.artifact.grammar import Node, fold
 
-__all__ = ["CEmitter", "CJet2Emitter", "C_PRELUDE"]
+__all__ = ["LineEmitter", "CEmitter", "CJet2Emitter", "C_PRELUDE"]
 
 _C_FUNCTIONS = {
     "sin": "sin", "cos": "cos", "tan": "tan", "asin": "asin", "acos": "acos", "atan": "atan",
@@ -43,19 +43,43 @@ static inline double linz_sign(double v) {
 """
 
 
-class CEmitter:
-    """Collects the C statements of one program (the compiler's emitter protocol)."""
+class LineEmitter:
+    """The statements of one straight-line program, one assignment a line, shared by this C emitter
+    and the compiler's Python one: a subclass gives its assignment's spelling and ``_text``."""
+
+    #: One assignment, ``str.format``-ed with ``slot`` and ``text``.
+    ASSIGNMENT = "    {slot} = {text}"
 
     def __init__(self, local: dict[str, str]) -> None:
         self._local = local
         self._lines: list[str] = []
         self._hoisted = 0
 
-    def bind(self, index: int, argument: str, slots: Sequence[str]) -> None:
-        self._lines.extend(f"    const double {s} = {argument}[{k}];" for k, s in enumerate(slots))
-
     def temporary(self, slot: str, tree: Node, where: str) -> None:
-        self._lines.append(f"    const double {slot} = {self._text(tree, where)};")
+        self._assign(slot, self._text(tree, where))
+
+    def _text(self, tree: Node, where: str) -> str:
+        raise NotImplementedError
+
+    def _assign(self, slot: str, text: str) -> None:
+        self._lines.append(self.ASSIGNMENT.format(slot=slot, text=text))
+
+    def _hoist(self, text: str) -> str:
+        """A local of its own for ``text`` (too deep or too long for one expression); returns its name."""
+        self._hoisted += 1
+        slot = f"h{self._hoisted}"
+        self._assign(slot, text)
+        return slot
+
+
+class CEmitter(LineEmitter):
+    """Collects the C statements of one program (the compiler's emitter protocol)."""
+
+    ASSIGNMENT = "    const double {slot} = {text};"
+
+    def bind(self, index: int, argument: str, slots: Sequence[str]) -> None:
+        for k, s in enumerate(slots):
+            self._assign(s, f"{argument}[{k}]")
 
     def output(self, tree: Node, where: str) -> str:
         return self._text(tree, where)
@@ -66,12 +90,6 @@ class CEmitter:
         stores = [f"    out[{i}] = {text};" for i, text in enumerate(results)]
         body = "\n".join(self._lines + stores)
         return f"{C_PRELUDE}\nvoid {symbol}({parameters}) {{\n{body}\n}}\n"
-
-    def _hoist(self, text: str) -> str:
-        self._hoisted += 1
-        slot = f"h{self._hoisted}"
-        self._lines.append(f"    const double {slot} = {text};")
-        return slot
 
     def _text(self, tree: Node, where: str) -> str:
         """C text of one tree; subtrees nested deeper than MAX_NESTING get their own local."""

@@ -131,6 +131,14 @@ class Artifact:
         return None if mechanics is None else int(mechanics["coordinates"])
 
     @property
+    def mechanics_form(self) -> str | None:
+        """The mechanical model's form (``mass_matrix``, ``kinetic_energy``, ``serial_arm``, ``urdf``),
+        None for an explicit plant or an artifact that does not record it."""
+        mechanics = self.document["design"].get("mechanics")
+        form = mechanics.get("form") if mechanics else None
+        return None if form is None else str(form)
+
+    @property
     def elastic(self) -> bool:
         """True for an elastic-joint arm: the law is assembled by :meth:`elastic_law` (relative degree 4)."""
         mechanics = self.document["design"].get("mechanics")

@@ -36,7 +36,7 @@ from typing import Any, Callable, Sequence
 import numpy as np
 
 from linz_ros.artifact import taylor
-from linz_ros.artifact._c_backend import CEmitter, CJet2Emitter
+from linz_ros.artifact._c_backend import CEmitter, CJet2Emitter, LineEmitter
 from linz_ros.artifact._jet2 import Jet2Emitter, run_phases
 from linz_ros.artifact._taylor_backend import TaylorEmitter
 from linz_ros.artifact._tokens import MATH_FUNCTIONS, MAX_NESTING, integer_exponent, leaf_text, sign
@@ -182,14 +182,13 @@ def _emit(node: Node, local: dict[str, str], functions: dict[str, str], backend:
     return fold(node, leaf, combine)[0]
 
 
-class _PlainEmitter:
+class _PlainEmitter(LineEmitter):
     """The ``math`` and ``numpy`` backends: one function returning every output entry."""
 
     def __init__(self, local: dict[str, str], backend: str) -> None:
-        self._local, self._backend = local, backend
+        super().__init__(local)
+        self._backend = backend
         self._functions = MATH_FUNCTIONS if backend == "math" else _NUMPY_FUNCTIONS
-        self._lines: list[str] = []
-        self._hoisted = 0
 
     def bind(self, index: int, argument: str, slots: Sequence[str]) -> None:
         if self._backend == "numpy":
@@ -199,17 +198,8 @@ class _PlainEmitter:
         elif slots:
             self._lines.append(f"    {', '.join(slots)} = {argument}")
 
-    def _hoist(self, text: str) -> str:
-        self._hoisted += 1
-        slot = f"h{self._hoisted}"
-        self._lines.append(f"    {slot} = {text}")
-        return slot
-
     def _text(self, tree: Node, where: str) -> str:
         return _emit(tree, self._local, self._functions, self._backend, where, self._hoist)
-
-    def temporary(self, slot: str, tree: Node, where: str) -> None:
-        self._lines.append(f"    {slot} = {self._text(tree, where)}")
 
     def output(self, tree: Node, where: str) -> str:
         source = self._text(tree, where)

@@ -75,6 +75,21 @@ def bundled_plant(name: str) -> Path:
                                f"{', '.join(str(p.parent) for p in candidates)})")
 
 
+def bundled_campaign(name: str) -> Path | None:
+    """A bundled campaign file (``config/campaigns/<name>.yaml``), when there is one.
+
+    Parameters
+    ----------
+    name : str
+
+    Returns
+    -------
+    pathlib.Path or None
+    """
+    return next((p for p in (folder / "campaigns" / f"{name}.yaml" for folder in _data_folders()) if p.is_file()),
+                None)
+
+
 def bundled_params(name: str) -> Path | None:
     """The parameter file of a bundled plant's bringup, when there is one.
 

@@ -1,8 +1,9 @@
 """``linz demo``: the whole job on the bundled example, by calling the verbs' functions.
 
 Check, build, a nominal simulation and (for the bundled pick arm) a reach past the
-workspace stopped by the envelope watchdog and the same reach with that watchdog only
-warning; then the nodes over DDS and the field logs read back. The nodes' parameter file
+workspace stopped by the envelope watchdog, the same reach with that watchdog only
+warning, and a short robustness campaign over the arm's working region; then the nodes over
+DDS, the field logs read back one by one and as a fleet. The nodes' parameter file
 is, in this order, the one named by ``--bringup``, the package's ``config/<plant>.yaml`` for a
 bundled plant file, ``<plant stem>.bringup.yaml`` beside the plant file, or one written by
 ``linz wire`` into the demo's folder (:func:`choose_bringup`).
@@ -15,7 +16,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
-from linz_ros.commands._common import DEFAULT_OUT, bundled_params, bundled_plant
+from linz_ros.commands._common import DEFAULT_OUT, bundled_campaign, bundled_params, bundled_plant
 from linz_ros.errors import ConfigError, LinzError
 from linz_ros.commands.build import build, render_build
 from linz_ros.commands.check import check
@@ -27,6 +28,8 @@ __all__ = ["DEMO_PLANT", "DEMO_REACH", "DemoRequest", "choose_bringup", "run_dem
 #: The bundled example and the reach that takes it through its singular set (sin q2 = 0).
 DEMO_PLANT = "pick_arm"
 DEMO_REACH = "smooth:tool_x=0.12,tool_y=0.16,duration=2,at=0.2"
+#: The bundled campaign the demo runs (a part of its runs: the whole is ``linz campaign``'s job).
+DEMO_CAMPAIGN, DEMO_CAMPAIGN_RUNS = "pick_arm_cell", 128
 
 
 @dataclass
@@ -76,6 +79,19 @@ class _Steps:
         self.say(render_sim(run.summary))
         for warning in run.warnings:
             self.warn(warning)
+
+    def campaign(self, artifact: Path, out: Path) -> None:
+        from linz_ros.commands.campaign import CampaignRequest, render_campaign_run, run_campaign
+
+        run = run_campaign(CampaignRequest(str(artifact), campaign=str(bundled_campaign(DEMO_CAMPAIGN)), out=str(out),
+                                           runs=DEMO_CAMPAIGN_RUNS, worst=2, progress=self.request.progress))
+        self.say(render_campaign_run(run))
+
+    def fleet(self, folders: list[Path], out: Path) -> None:
+        from linz_ros.commands.logs import FleetRequest, fleet_report
+
+        self.say(render_logs(fleet_report(FleetRequest([str(f) for f in folders], str(out), plots=False,
+                                                        progress=self.request.progress))))
 
     def logs(self, folder: Path) -> None:
         report = read_and_report(LogsRequest([str(folder)], plots=str(folder / "plots"),
@@ -210,6 +226,10 @@ def run_demo(request: DemoRequest, say: Callable[[str], None] = print,
             "(the singularity watchdog at work; never do this on a machine)")
         steps.sim(artifact, out / "reach", reference=DEMO_REACH, watchdog=["envelope_action=warn"],
                   field_log=str(out / "reach" / "field_log"))
+        if bundled_campaign(DEMO_CAMPAIGN) is not None:
+            say(f"\n== 4c. campaign: {DEMO_CAMPAIGN_RUNS} runs over the arm's working region, with encoder noise "
+                f"and input delay ({DEMO_CAMPAIGN}.yaml; linz campaign runs all 1000)")
+            steps.campaign(artifact, out / "campaign")
     else:
         say(f"\n== 4. (skipped: the reach past the workspace is written for the bundled plant file "
             f"{DEMO_PLANT}.yaml, and {plant_file} is another file)")
@@ -221,5 +241,8 @@ def run_demo(request: DemoRequest, say: Callable[[str], None] = print,
     for step, folder in enumerate(logs, start=6):
         say(f"\n== {step}. logs: what the field log of {folder.parent.name} says")
         steps.logs(folder)
+    if logs:
+        say(f"\n== {6 + len(logs)}. logs --fleet: every field log of the demo, per recording, day and machine")
+        steps.fleet(logs, out / "fleet")
     say(f"\nall results in {out}")
     return out

@@ -1,15 +1,23 @@
-"""``linz logs``: read field logs (or bags) and summarise them; CSV, PNG plots and an HTML report."""
+"""``linz logs``: read field logs (or bags) and summarise them; CSV, PNG plots and an HTML report.
+
+With ``--fleet DIR`` every recording under the paths is analysed on its own, on local
+worker processes or a Dask cluster (:func:`linz_ros.executor.run_tasks`), and summed up
+per day and per machine (:mod:`linz_ros.logs.fleet`): ``fleet.json``, ``fleet.csv``,
+``fleet.html`` and each recording's own reports in ``DIR/<recording>/``.
+"""
 
 from __future__ import annotations
 
 import json
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any, Mapping, Sequence
 
-from linz_ros.errors import ConfigError, LinzError
+from linz_ros.errors import ConfigError
+from linz_ros.executor import DEFAULT_ATTEMPTS
 
-__all__ = ["LogsReport", "LogsRequest", "read_and_report", "render_logs"]
+__all__ = ["LogsReport", "LogsRequest", "read_and_report", "render_logs", "FleetRequest", "FleetReport", "fleet_report",
+           "run_logs_options"]
 
 
 @dataclass
@@ -57,17 +65,10 @@ def _refuse_writing_over_logs(request: LogsRequest) -> None:
 
 def _log_artifact(log: Any, path: str | None):
     """The artifact to read a log against: the one given, else the one attached to the log."""
-    from linz_ros.artifact import artifact_from_text, load_artifact
+    from linz_ros.artifact import load_artifact
+    from linz_ros.logs.fleet import attached_artifact
 
-    if path:
-        return load_artifact(path, check_plant=False)
-    if log.artifact_text is None:
-        return None
-    try:
-        return artifact_from_text(log.artifact_text, source=f"{log.files[0]} (attached artifact)")
-    except LinzError as err:
-        log.problems.append(f"the attached artifact is not usable ({err}); plots without the singular set")
-        return None
+    return attached_artifact(log, load_artifact(path, check_plant=False) if path else None)
 
 
 def _write_outputs(log: Any, artifact: Any, summary: dict[str, Any], text: str, request: LogsRequest) -> list[Path]:
@@ -123,12 +124,12 @@ def read_and_report(request: LogsRequest) -> LogsReport:
     return LogsReport(summary, text, files)
 
 
-def render_logs(report: LogsReport, as_json: bool = False) -> str:
-    """What ``linz logs`` prints: the summary's text and the files written.
+def render_logs(report: LogsReport | FleetReport, as_json: bool = False) -> str:
+    """What ``linz logs`` prints: the summary's text (one log's, or the fleet's) and the files written.
 
     Parameters
     ----------
-    report : LogsReport
+    report : LogsReport or FleetReport
     as_json : bool
 
     Returns
@@ -137,4 +138,208 @@ def render_logs(report: LogsReport, as_json: bool = False) -> str:
     """
     if as_json:
         return json.dumps(report.summary, indent=2)
+    if isinstance(report, FleetReport):
+        where = report.summary["execution"]["where"]
+        from linz_ros.commands._common import terminal_safe
+
+        return report.text + "\n" + terminal_safe(f"ran on {where}; wrote " + ", ".join(map(str, report.files)))
     return report.text + ("\nwrote " + ", ".join(map(str, report.files)) if report.files else "")
+
+
+# ------------------------------------------------------------------------------ fleet mode
+
+@dataclass
+class FleetRequest:
+    """What ``linz logs --fleet`` reads and where it writes.
+
+    Attributes
+    ----------
+    paths : list of str
+        Field-log files, bags or folders holding them; grouped into recordings.
+    out : str
+        The fleet folder: ``fleet.json``, ``fleet.csv``, ``fleet.html``, ``<recording>/``.
+    artifact : str, optional
+        For bags of the conditioning topic (shipped to the workers by content).
+    workers : int, optional
+        Local worker processes (default: one per core).
+    scheduler : str, optional
+        A Dask scheduler address (default: ``LINZ_DASK_SCHEDULER``, else local processes).
+    attempts : int
+        Runs of one recording at most when its worker dies.
+    plots, csv : bool
+        Each recording's PNG plots and records CSV.
+    progress : bool
+        Draw a progress bar on stderr.
+    """
+
+    paths: Sequence[str]
+    out: str
+    artifact: str | None = None
+    workers: int | None = None
+    scheduler: str | None = None
+    attempts: int = DEFAULT_ATTEMPTS
+    plots: bool = True
+    csv: bool = True
+    progress: bool = False
+
+
+@dataclass
+class FleetReport:
+    """The fleet summary (``linz logs --fleet --json``), its text, the files written, whether interrupted."""
+
+    summary: dict[str, Any]
+    text: str
+    files: list[Path] = field(default_factory=list)
+    interrupted: bool = False
+
+    @property
+    def exit_code(self) -> int:
+        """130: interrupted; 1: a recording failed or was lost (or an entry was no regular file); else 0."""
+        return 130 if self.interrupted else (1 if self.summary["problems"] else 0)
+
+
+def _fleet_outcomes(recordings: list[Any], execution: Any) -> tuple[list[Any], list[dict[str, Any]], list[dict]]:
+    """Digests, problems (refused or lost recordings) and the recordings never started."""
+    from linz_ros.logs.fleet import not_run_entry, recording_problem
+
+    digests, problems, not_run = [], [], []
+    for index, recording in enumerate(recordings):
+        outcome = execution.outcomes.get(index)
+        if outcome is None:
+            not_run.append(not_run_entry(recording))
+        elif outcome.refused is not None:
+            problems.append(recording_problem(recording, outcome.refused))
+        elif outcome.lost is not None:
+            problems.append(recording_problem(recording, f"lost: {outcome.lost}"))
+        else:
+            digests.append(outcome.value)
+    return digests, problems, not_run
+
+
+def _write_fleet(out: Path, summary: dict[str, Any]) -> list[Path]:
+    from linz_ros.logs.fleet_report import FLEET_JSON, write_fleet_csv, write_fleet_html
+
+    (out / FLEET_JSON).write_text(json.dumps(summary, indent=2))
+    return [out / FLEET_JSON, write_fleet_csv(summary, out / "fleet.csv"), write_fleet_html(summary, out / "fleet.html")]
+
+
+def _fleet_artifact(path: str | None) -> str | None:
+    """The ``--artifact`` file's text, checked here once before any worker (None: not given)."""
+    if path is None:
+        return None
+    if not path.strip():
+        raise ConfigError("--artifact", "expected a file name, got an empty one")
+    from linz_ros.artifact import load_artifact
+
+    load_artifact(path, check_plant=False)
+    return Path(path).read_text()
+
+
+def fleet_report(request: FleetRequest) -> FleetReport:
+    """Analyse every recording under the paths on its own, through the executor, and sum them up.
+
+    The fleet folder is checked and made ready first (:func:`~linz_ros.logs.fleet_report.prepare_fleet_folder`);
+    each recording's reports are written as it finishes. A recording that cannot be read
+    is one line of the summary's problems, never the end of the run; Ctrl-C keeps and
+    writes what finished (``interrupted``) and names what did not run.
+
+    Parameters
+    ----------
+    request : FleetRequest
+
+    Returns
+    -------
+    FleetReport
+
+    Raises
+    ------
+    LinzError
+        Paths that do not exist, an unusable output folder or artifact, a Dask
+        scheduler that cannot be reached.
+    """
+    import time
+
+    from linz_ros.commands._common import terminal_safe
+    from linz_ros.commands.sim import ProgressBar
+    from linz_ros.executor import ExecutorSettings, Shipment, run_tasks
+    from linz_ros.logs._paths import irregular_entries
+    from linz_ros.logs.fleet import (analyse_recording, fleet_options_text, fleet_summary, fleet_text,
+                                     group_recordings, prepare_fleet)
+    from linz_ros.logs.fleet_report import ReportWriter, prepare_fleet_folder
+    from linz_ros.logs.fleet_summary import entry_problem
+
+    if not request.out.strip():
+        raise ConfigError("--fleet", "expected an output folder, got an empty one")
+    out = Path(request.out)
+    if out.exists() and not out.is_dir():
+        raise ConfigError("--fleet", f"{out} is a file, not a folder")
+    settings = ExecutorSettings(request.workers, request.scheduler, request.attempts)
+    artifact_text = _fleet_artifact(request.artifact)
+    recordings = group_recordings(request.paths)
+    prepare_fleet_folder(out, [r.name for r in recordings])
+    bar = ProgressBar(request.progress, "logs")
+    started = time.monotonic()
+    execution = run_tasks(prepare_fleet, analyse_recording,
+                          Shipment.of(fleet_options_text(request.plots, request.csv, artifact_text, request.artifact)),
+                          recordings, settings, lambda done, total: bar(done / total, f"{done}/{total} recordings "),
+                          keep=ReportWriter(out))
+    digests, problems, not_run = _fleet_outcomes(recordings, execution)
+    problems += [entry_problem(path, what) for path, what in irregular_entries(request.paths)]
+    summary = fleet_summary(digests, problems, not_run)
+    summary["execution"] = {"where": execution.where, "workers": execution.workers,
+                            "interrupted": execution.interrupted, "seconds": time.monotonic() - started}
+    try:
+        files = _write_fleet(out, summary)
+    except OSError as err:
+        raise ConfigError("--fleet", f"cannot write {err.filename or out}: {err.strerror}") from None
+    return FleetReport(summary, fleet_text(summary, safe=terminal_safe), files, execution.interrupted)
+
+
+#: Options of the fleet mode only, and whether each was given (parsed options by name).
+_FLEET_ONLY = {"--workers": lambda o: o.get("workers") is not None,
+               "--scheduler": lambda o: o.get("scheduler") is not None,
+               "--attempts": lambda o: o.get("attempts") not in (None, DEFAULT_ATTEMPTS),
+               "--no-plots": lambda o: bool(o.get("no_plots")), "--no-csv": lambda o: bool(o.get("no_csv")),
+               "--progress": lambda o: bool(o.get("progress"))}
+
+
+def run_logs_options(options: Mapping[str, Any], terminal: bool = False) -> tuple[str, int]:
+    """``linz logs`` from its parsed options by name: one reading, or the fleet mode with ``fleet``.
+
+    Parameters
+    ----------
+    options : mapping
+        ``paths``, ``artifact``, ``json``, ``csv``, ``plots``, ``html``; for the fleet mode
+        ``fleet``, ``workers``, ``scheduler``, ``attempts``, ``no_plots``, ``no_csv``, ``progress``.
+    terminal : bool
+        Whether stderr is a terminal (the progress bar's default).
+
+    Returns
+    -------
+    tuple of (str, int)
+        The text to print and the exit code (fleet mode: 1 when a recording failed or was
+        lost, 130 when interrupted by Ctrl-C).
+
+    Raises
+    ------
+    LinzError
+        Options of one mode given in the other, and whatever the reading refuses.
+    """
+    o = dict(options)
+    if o.get("fleet") is None:
+        for option, given in _FLEET_ONLY.items():
+            if given(o):
+                raise ConfigError(option, "only with --fleet DIR (one log reading runs in this process)")
+        report = read_and_report(LogsRequest(o["paths"], artifact=o.get("artifact"), csv=o.get("csv"),
+                                             plots=o.get("plots"), html=o.get("html")))
+        return render_logs(report, as_json=bool(o.get("json"))), 0
+    for option in ("csv", "plots", "html"):
+        if o.get(option) is not None:
+            raise ConfigError(f"--{option}", "not with --fleet: each recording's reports go into the fleet folder "
+                                             "(--no-plots, --no-csv to leave some out)")
+    progress = o.get("progress")
+    fleet = fleet_report(FleetRequest(
+        o["paths"], o["fleet"], artifact=o.get("artifact"), workers=o.get("workers"), scheduler=o.get("scheduler"),
+        attempts=o.get("attempts") or DEFAULT_ATTEMPTS, plots=not o.get("no_plots"), csv=not o.get("no_csv"),
+        progress=bool(terminal if progress is None else progress)))
+    return render_logs(fleet, as_json=bool(o.get("json"))), fleet.exit_code

@@ -15,7 +15,7 @@ from linz_ros.commands._options import DesignChoices, noise_levels, state_vector
 from linz_ros.errors import ConfigError
 from linz_ros.logs.report import tracking_line
 
-__all__ = ["ProgressBar", "SimRequest", "SimRun", "render_sim", "simulate_run"]
+__all__ = ["ProgressBar", "SimRequest", "SimRun", "render_sim", "run_settings", "simulate_run"]
 
 
 @dataclass
@@ -90,7 +90,10 @@ class SimRun:
 
 
 class ProgressBar:
-    """A one-line progress bar on stderr, redrawn at most ten times a second.
+    """A one-line progress bar on stderr with the time spent and an estimate of the time left.
+
+    Redrawn at most ten times a second; the estimate is the time spent per fraction done,
+    times the fraction left (said once a twentieth is done).
 
     Parameters
     ----------
@@ -104,7 +107,7 @@ class ProgressBar:
         self.last = 0.0
         self.started = time.monotonic()
 
-    def __call__(self, fraction: float) -> None:
+    def __call__(self, fraction: float, detail: str = "") -> None:
         if not self.enabled:
             return
         now = time.monotonic()
@@ -112,11 +115,21 @@ class ProgressBar:
             return
         self.last = now
         filled = int(round(30 * fraction))
+        spent = now - self.started
+        left = f", about {spent * (1.0 - fraction) / fraction:5.0f} s left" if 0.05 <= fraction < 1.0 else ""
         sys.stderr.write(f"\r{self.label} [{'#' * filled}{'.' * (30 - filled)}] {100 * fraction:5.1f}% "
-                         f"{now - self.started:5.1f} s")
+                         f"{detail}{spent:5.1f} s{left}   ")
         if fraction >= 1.0:
             sys.stderr.write("\n")
+        self.drawn = fraction < 1.0
         sys.stderr.flush()
+
+    def close(self) -> None:
+        """End a bar left unfinished (an interrupted run), so what follows starts on a line of its own."""
+        if self.enabled and getattr(self, "drawn", False):
+            sys.stderr.write("\n")
+            sys.stderr.flush()
+            self.drawn = False
 
 
 def _reference(artifact: Any, text: str | None, x0: list[float], given_initial: bool):
@@ -149,7 +162,22 @@ def _check_initial_inside_envelope(artifact: Any, x0: list[float]) -> None:
                                            "add --force-initial to run it anyway")
 
 
-def _settings(artifact: Any, request: SimRequest):
+def run_settings(artifact: Any, request: SimRequest):
+    """The closed loop's settings for a request, every item checked against the artifact.
+
+    Parameters
+    ----------
+    artifact : Artifact
+    request : SimRequest
+
+    Returns
+    -------
+    SimSettings
+
+    Raises
+    ------
+    ConfigError
+    """
     from linz_ros.runtime import SimSettings, mismatched_parameters, parse_assignments
 
     x0 = state_vector(artifact, request.initial, "--initial", artifact.operating_point)
@@ -205,7 +233,7 @@ def simulate_run(request: SimRequest) -> SimRun:
     loaded = load_source(request.source, request.design, request.allow_plant_change, request.trusted_keys)
     artifact = loaded.artifact
     progress = ProgressBar(request.progress, f"sim {artifact.name}")
-    result, status = _simulate(artifact, _settings(artifact, request), request, progress)
+    result, status = _simulate(artifact, run_settings(artifact, request), request, progress)
     out = Path(request.out or Path(DEFAULT_OUT) / f"{artifact.name}-sim")
     try:
         out.mkdir(parents=True, exist_ok=True)

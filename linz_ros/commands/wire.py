@@ -82,10 +82,9 @@ def default_bringup_path(source: str | Path) -> Path:
 
 def _joints(artifact: Any) -> list[str] | None:
     """The state fields of an arm's JointState, or None when the plant is no arm with joints."""
-    mechanics = artifact.document["design"].get("mechanics") or {}
     nq = artifact.mechanical_coordinates
     urdf = getattr(artifact, "urdf", None)
-    if nq is None or not (mechanics.get("form") in ("serial_arm", "urdf") or artifact.elastic or urdf is not None):
+    if nq is None or not (artifact.mechanics_form in ("serial_arm", "urdf") or artifact.elastic or urdf is not None):
         return None
     states, inputs = artifact.plant_states, artifact.plant_inputs
     joints = list(urdf.joints) if urdf is not None else states[:nq]

@@ -24,7 +24,7 @@ from linz_ros.runtime.steprecord import ACTED_MODES, codes, saturation_bits
 from linz_ros.runtime.verdict import Verdict, error_statistics, run_verdict
 
 __all__ = ["Episode", "Thresholds", "as_sim_result", "control_gaps", "episodes", "gap_ends", "summarise",
-           "thresholds_of", "log_verdict", "tracking"]
+           "thresholds_of", "log_verdict", "tracking", "near_singular_masks"]
 
 _REFUSED = ("wrong_length", "non_finite_state", "bad_reference", "bad_time", "out_of_order", "stale",
             "future_stamp", "model_not_finite", "non_finite_command", "no_state", "bad_message")
@@ -405,6 +405,27 @@ def tracking(log: StepLog, artifact: Artifact | None = None) -> dict[str, dict[s
 
 
 @_quiet_nonfinite
+def near_singular_masks(log: StepLog, levels: Thresholds | None) -> tuple[np.ndarray, np.ndarray]:
+    """Records under the warn level and under the act level (the near-singular episodes).
+
+    Parameters
+    ----------
+    log : StepLog
+    levels : Thresholds or None
+        None (a bag): the controller's own flags (warn bit; damped or singular steps).
+    Returns
+    -------
+    tuple of numpy.ndarray of bool
+    """
+    if levels is not None:
+        sigma = log.column("sigma_min")
+        return sigma < levels.sigma_warn, sigma < levels.sigma_act
+    mode = codes(log.column("mode"), len(MODES))
+    reason = codes(log.column("reason"), len(REASONS))
+    return log.column("warn") > 0.5, (mode == MODES.index("damped")) | (reason == REASONS.index("singular"))
+
+
+@_quiet_nonfinite
 def summarise(log: StepLog, artifact: Artifact | None = None) -> dict[str, Any]:
     """The summary of a log (JSON-ready: nan and inf become None).
 
@@ -424,11 +445,7 @@ def summarise(log: StepLog, artifact: Artifact | None = None) -> dict[str, Any]:
     mode = codes(log.column("mode"), len(MODES))
     reason = codes(log.column("reason"), len(REASONS))
     levels = thresholds_of(log, artifact)
-    if levels is not None:
-        under_warn, under_act = sigma < levels.sigma_warn, sigma < levels.sigma_act
-    else:      # a bag without levels: the controller's own flags (warn bit; damped or singular steps)
-        under_warn = log.column("warn") > 0.5
-        under_act = (mode == MODES.index("damped")) | (reason == REASONS.index("singular"))
+    under_warn, under_act = near_singular_masks(log, levels)
     period = _period(t)
     time_in_mode = {m: float(np.sum(mode == i) * period) for i, m in enumerate(MODES)}
     switches = mode_switches(log)

@@ -36,7 +36,7 @@ from linz_ros.logs._paths import LogError, log_files
 from linz_ros.runtime.fieldlog import FIELD_LOG_TOPIC, FLOAT64_MULTIARRAY_DEFINITION
 from linz_ros.runtime.steprecord import FIELDS, StepColumns, decode
 
-__all__ = ["LogError", "StepLog", "read_logs", "log_files"]
+__all__ = ["LogError", "StepLog", "read_logs", "log_files", "first_metadata"]
 
 #: A labelled array is a step record when its labels start with these (every layout so far has).
 _RECORD_HEAD = FIELDS[:5]
@@ -386,6 +386,41 @@ def _read_file(path: Path) -> _FileRecords:
     if magic != _MCAP_MAGIC:
         raise LogError(str(path), "not an MCAP file (no MCAP magic at its start) nor a .db3 bag")
     return _read_mcap(path)
+
+
+def first_metadata(path: str | Path, name: str, scan: int = 32) -> dict[str, str] | None:
+    """The metadata record ``name`` among the first ``scan`` records of an MCAP file.
+
+    Only the file's start is read (a field-log writer puts its identity before any
+    message), with the same length checks as :func:`read_logs`.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        A regular file (a FIFO would block: callers list files with :func:`log_files`).
+    name : str
+        The metadata record's name.
+    scan : int
+        Records read at most.
+
+    Returns
+    -------
+    dict of str to str or None
+        None: not found, not MCAP, damaged before it or unreadable.
+    """
+    try:
+        with open(path, "rb") as stream:
+            if stream.read(len(_MCAP_MAGIC)) != _MCAP_MAGIC:
+                return None
+            size = os.fstat(stream.fileno()).st_size
+            for count, (_, record) in enumerate(_framed_records(stream, size, _FileRecords())):
+                if isinstance(record, Metadata) and record.name == name:
+                    return dict(record.metadata)
+                if count >= scan:
+                    return None
+    except (_Damage, OSError):
+        return None
+    return None
 
 
 def read_logs(paths: Iterable[str | Path]) -> StepLog:

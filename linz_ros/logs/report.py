@@ -12,7 +12,6 @@ over the run's own range.
 
 from __future__ import annotations
 
-import base64
 import html
 import math
 from dataclasses import dataclass
@@ -24,8 +23,9 @@ import numpy as np
 from linz_ros.artifact import Artifact
 from linz_ros.logs.analysis import log_verdict, thresholds_of
 from linz_ros.logs.reader import StepLog, metadata_json
-from linz_ros.plotting import (NO_UNIT, RunView, pyplot, save_figure, sigma_label, title_figure, unit_label,
-                               write_plots)
+from linz_ros.plotting import (NO_UNIT, RunView, draw_singular_set, pyplot, save_figure, sigma_label, title_figure,
+                               unit_label, write_plots)
+from linz_ros.plotting.page import embedded_image, html_table, page
 from linz_ros.runtime import WatchdogConfig
 from linz_ros.runtime.extension import command_limits
 from linz_ros.runtime.steprecord import write_csv as write_run_csv
@@ -355,17 +355,7 @@ def singular_scatter_figure(view: RunView, artifact: Artifact | None, near: np.n
 
 def _draw_singular_set(ax: Any, artifact: Artifact, x: np.ndarray, where: SingularSlice) -> None:
     i, j = where.i, where.j
-    lo_i, hi_i = _span(x[:, i], artifact, i)
-    lo_j, hi_j = _span(x[:, j], artifact, j)
-    gi, gj = np.meshgrid(np.linspace(lo_i, hi_i, 241), np.linspace(lo_j, hi_j, 241))
-    grid = [np.full(gi.shape, v) for v in where.base]
-    grid[i], grid[j] = gi, gj
-    with np.errstate(all="ignore"):
-        s = artifact.numpy_program("singular_set").evaluate(grid, list(artifact.nominal_parameters))["s"][0]
-    s = np.broadcast_to(np.asarray(s, dtype=float), gi.shape)
-    if np.nanmin(s) < 0 < np.nanmax(s) or np.any(s == 0):
-        ax.contour(gi, gj, s, levels=[0.0], colors="tab:red", linewidths=1.5, zorder=2)
-        ax.plot([], [], color="tab:red", label="singular set s(x) = 0")
+    draw_singular_set(ax, artifact, where.base, (i, j), (_span(x[:, i], artifact, i), _span(x[:, j], artifact, j)))
     ax.plot([], [], color="tab:red", ls="--", lw=0.8, label="envelope")
 
 
@@ -407,13 +397,6 @@ def plot_log(log: StepLog, out_dir: str | Path, artifact: Artifact | None = None
     return files
 
 
-_PAGE_STYLE = ("body{font-family:sans-serif;max-width:1000px;margin:1em auto;padding:0 1em}"
-               "table{border-collapse:collapse;font-size:0.9em;display:block;max-width:100%;overflow-x:auto}"
-               "td,th{border:1px solid #ccc;padding:2px 6px;overflow-wrap:anywhere}"
-               "pre{background:#f6f6f6;padding:1em;white-space:pre-wrap;overflow-wrap:anywhere}"
-               "img{max-width:100%;height:auto}")
-
-
 def write_html(summary: dict[str, Any], text: str, images: list[Path], path: str | Path) -> Path:
     """One self-contained HTML page that fits the width of any screen: the summary text, the
     tracking and episode tables and the plots inline.
@@ -433,43 +416,27 @@ def write_html(summary: dict[str, Any], text: str, images: list[Path], path: str
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    parts = ["<!DOCTYPE html>", "<html><head><meta charset='utf-8'>",
-             "<meta name='viewport' content='width=device-width, initial-scale=1'>",
-             f"<title>field log: {html.escape(str(summary['plant']))}</title>",
-             f"<style>{_PAGE_STYLE}</style></head><body>",
-             f"<h1>Field log: {html.escape(str(summary['plant']))}</h1>",
-             f"<pre>{html.escape(text)}</pre>", _tracking_table(summary.get("tracking", {}))]
+    parts = [f"<pre>{html.escape(text)}</pre>", _tracking_table(summary.get("tracking", {}))]
     for key, title in (("under_warn", "Episodes under the warn level"), ("under_act", "Episodes under the act level")):
         parts.append(_episode_table(title, summary["near_singular"][key]["episodes"]))
     for name, group in summary["saturation"].items():
         if group["episodes"]:
             parts.append(_episode_table(f"Saturation of {name}", group["episodes"]))
-    for image in images:
-        data = base64.b64encode(Path(image).read_bytes()).decode()
-        parts.append(f"<h2>{html.escape(Path(image).stem.replace('_', ' '))}</h2>"
-                     f"<img alt='{html.escape(Path(image).stem)}' src='data:image/png;base64,{data}'>")
-    parts.append("</body></html>")
-    path.write_text("\n".join(parts) + "\n")
+    parts.extend(embedded_image(image) for image in images)
+    plant = str(summary["plant"])
+    path.write_text(page(f"field log: {plant}", f"Field log: {plant}", parts))
     return path
-
-
-def _table(title: str, head: list[str], rows: list[list[str]]) -> str:
-    if not rows:
-        return f"<h2>{html.escape(title)}</h2><p>none</p>"
-    cells = "".join(f"<th>{html.escape(h)}</th>" for h in head)
-    body = "".join("<tr>" + "".join(f"<td>{html.escape(c)}</td>" for c in row) + "</tr>" for row in rows)
-    return f"<h2>{html.escape(title)}</h2><table><tr>{cells}</tr>{body}</table>"
 
 
 def _tracking_table(tracking: dict[str, dict[str, Any]]) -> str:
     rows = [[name, _fmt(o["rms_error"]), _fmt(o["final_error"]), _fmt(o["max_error"]), o["unit"] or NO_UNIT]
             for name, o in tracking.items()]
-    return _table("Tracking error (y - ref)", ["output", "rms", "final", "max", "unit"], rows)
+    return html_table("Tracking error (y - ref)", ["output", "rms", "final", "max", "unit"], rows)
 
 
 def _episode_table(title: str, rows: list[dict[str, Any]]) -> str:
     head = ["start [s]", "duration [s]", "records", "min sigma", "state at worst", "modes"]
-    return _table(title, head, [[f"{e['start']:.3f}", f"{e['duration']:.3f}", str(e["records"]),
+    return html_table(title, head, [[f"{e['start']:.3f}", f"{e['duration']:.3f}", str(e["records"]),
                                  _fmt(e["min_sigma"]), *_episode_words(e)] for e in rows])
 
 

@@ -26,12 +26,12 @@ from linz_ros.model._reader import (IDENTIFIER, Reader, StrictLoader, describe, 
 from linz_ros.model._units import read_signal_units
 from linz_ros.model._urdf import URDF_KEY, read_urdf
 
-__all__ = ["load_plant", "plant_from_text", "expression_in"]
+__all__ = ["load_plant", "plant_from_text", "expression_in", "read_yaml_file"]
 
 _TOP_LEVEL = ("plant", "description", "states", "coordinates", "velocities", "inputs", "parameters",
               "definitions", "dynamics", "mass_matrix", "kinetic_energy", "potential_energy", "serial_arm",
               "forces", "input_map", "kinematics", "outputs", "input_limits", "envelope", "operating_point", "design",
-              "units", "elastic_joints", URDF_KEY)
+              "units", "elastic_joints", URDF_KEY, "campaign")
 _REQUIRED = ("plant", "inputs")
 #: Keys that only a mechanical form may carry, and the one key of each model form.
 _MECHANICAL_ONLY = ("coordinates", "velocities", "forces", "input_map", "kinematics", ELASTIC_KEY)
@@ -305,13 +305,48 @@ def plant_from_text(text: str, source: str = "<string>") -> Plant:
     (Matrix([[-x]]), Matrix([[1]]))
     """
     digest = hashlib.sha256(text.encode("utf-8", "surrogatepass")).hexdigest()
+    return _read_document(_parsed_yaml(text, source), source, digest)
+
+
+def _parsed_yaml(text: str, source: str) -> Any:
     try:
-        doc = yaml.load(text, Loader=StrictLoader)  # noqa: S506 - a SafeLoader subclass
+        return yaml.load(text, Loader=StrictLoader)  # noqa: S506 - a SafeLoader subclass
     except yaml.YAMLError as err:
         raise PlantFileError(source, "", printable(yaml_problem(err, text))) from None
     except RecursionError:
         raise PlantFileError(source, "", "not valid YAML: nested too deeply") from None
-    return _read_document(doc, source, digest)
+
+
+def _file_text(path: str | Path, what: str) -> str:
+    source = str(path)
+    if not source.strip():          # Path("") would read as the current folder
+        raise PlantFileError(repr(source), "", f"expected {what} name, got an empty one")
+    raw = read_bounded(Path(path), source)
+    try:
+        return raw.decode("utf-8")
+    except UnicodeDecodeError as err:
+        raise PlantFileError(source, "", f"not UTF-8 text (byte {err.start})") from None
+
+
+def read_yaml_file(path: str | Path) -> Any:
+    """A YAML file as plain data, read under the plant file's rules (bounded, no aliases or duplicate keys).
+
+    For the sections other verbs read (a campaign file, a plant file's ``campaign:``).
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+
+    Returns
+    -------
+    Any
+
+    Raises
+    ------
+    PlantFileError
+        One line naming the file and the problem.
+    """
+    return _parsed_yaml(_file_text(path, "a YAML file"), str(path))
 
 
 def load_plant(path: str | Path) -> Plant:
@@ -333,16 +368,7 @@ def load_plant(path: str | Path) -> Plant:
         For a missing, unreadable or invalid file; one line naming the file, the field
         and the problem.
     """
-    source = str(path)
-    if not source.strip():          # Path("") would read as the current folder
-        raise PlantFileError(repr(source), "", "expected a plant file name, got an empty one")
-    raw = read_bounded(Path(path), source)
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError as err:
-        raise PlantFileError(source, "", f"not UTF-8 text (byte {err.start})") from None
-    plant = plant_from_text(text, source)
-    return plant
+    return plant_from_text(_file_text(path, "a plant file"), str(path))
 
 
 def expression_in(plant: Plant, text: Any, source: str, field: str) -> sp.Expr:

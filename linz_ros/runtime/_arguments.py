@@ -6,23 +6,65 @@ from __future__ import annotations
 import math
 from typing import Any, Sequence
 
-__all__ = ["stamps", "refusal_stamps", "float_list"]
+__all__ = ["state_arguments", "sized_floats", "refusal_stamps", "float_list"]
 
 _isfinite = math.isfinite
 
 
-def stamps(t: Any, now: Any) -> tuple[float, float] | None:
-    """The state's stamp and the current time as finite floats (``now`` defaults to ``t``), or None.
+def state_arguments(x: Any, size: int, t: Any, now: Any) -> tuple[str | None, list[float] | None, Any, Any]:
+    """The step's state and times converted, or the reason the step is refused.
 
-    The one conversion of a step's times, for both backends: None means the step is refused
-    as ``bad_time``.
+    The one conversion of a step's stamps and state, for both backends; a step refused here
+    records ``refusal_stamps`` of the ``t`` and ``now`` returned.
+
+    Parameters
+    ----------
+    x : Any
+        The state as given.
+    size : int
+        How many entries the state has.
+    t, now : Any
+        The state's stamp and the current time as given (``now`` defaults to ``t``).
+
+    Returns
+    -------
+    reason : str or None
+        None when accepted; ``bad_time`` (a stamp or time that is no finite number) or
+        ``wrong_length`` (a state not of ``size`` numbers).
+    x : list of float or None
+        The state as floats, None when refused.
+    t, now : float, or as given
+        Finite floats (``now`` is ``t`` when not given); for ``bad_time`` as given.
     """
     try:
-        t = float(t)
-        now = t if now is None else float(now)
+        stamp = float(t)
+        current = stamp if now is None else float(now)
+    except (TypeError, ValueError, OverflowError):
+        return "bad_time", None, t, now
+    if not (_isfinite(stamp) and _isfinite(current)):
+        return "bad_time", None, t, now
+    x = sized_floats(x, size)
+    return (None if x is not None else "wrong_length"), x, stamp, current
+
+
+def sized_floats(values: Any, size: int) -> list[float] | None:
+    """``values`` as a list of floats (:func:`float_list`) when it has ``size`` entries that convert, else None.
+
+    Parameters
+    ----------
+    values : Any
+    size : int
+
+    Returns
+    -------
+    list of float or None
+    """
+    try:
+        if len(values) != size:
+            return None
+        return float_list(values)
     except (TypeError, ValueError, OverflowError):
         return None
-    return (t, now) if _isfinite(t) and _isfinite(now) else None
 
 
 def refusal_stamps(t: Any, now: Any) -> tuple[float, float | None]:

@@ -128,6 +128,8 @@ def controller_parameters(state_types: Sequence[str], command_types: Sequence[st
         P("field_log_flush_period", 0.5, "close and flush a chunk at least this often (s; a crash loses at most "
           "this much)", minimum=0.01, maximum=1.0),
         P("field_log_queue", 20000, "records that may wait for the disk; more are dropped and counted", minimum=1),
+        P("field_log_machine", "", "this machine's name in the field log ('': the LINZ_MACHINE environment "
+          "variable, else the host name)"),
         P("safe_command", "artifact", f"{watchdog_setting('safe_command').help}: artifact (the artifact's), zero, "
           "hold or fixed (with safe_value)"),
         P("safe_value", [], "the fixed safe command, per input", array_of=float),
@@ -282,4 +284,5 @@ def field_log_settings(values: dict[str, Any], prefix: str) -> FieldLogSettings:
     return FieldLogSettings(Path(values["field_log_folder"]), prefix=prefix,
                             max_bytes=int(values["field_log_max_mb"] * 2**20),
                             max_seconds=60.0 * values["field_log_max_minutes"],
-                            flush_period=values["field_log_flush_period"], queue_size=values["field_log_queue"])
+                            flush_period=values["field_log_flush_period"], queue_size=values["field_log_queue"],
+                            **({"machine": values["field_log_machine"]} if values.get("field_log_machine") else {}))

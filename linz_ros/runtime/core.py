@@ -35,11 +35,11 @@ from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime._linalg import (computed_torque, damped_solve, inverse_mass_singular_values, singular_values,
                                       solve, task_space_terms)
-from linz_ros.runtime._arguments import float_list, refusal_stamps, stamps
+from linz_ros.runtime._arguments import refusal_stamps, sized_floats, state_arguments
 from linz_ros.runtime.steprecord import ALARMS, StepRecord
 from linz_ros.runtime.watchdogs import DivergenceWatch, WatchdogConfig, outside_check
 
-__all__ = ["ControllerCore", "StepRecord", "WatchdogConfig"]
+__all__ = ["ControllerCore", "StepRecord", "WatchdogConfig", "settings_property"]
 
 _isfinite = math.isfinite
 
@@ -74,6 +74,28 @@ def _straight_line_outer_loop(layout: list[tuple], b_offset: int | None = None) 
     scope: dict = {}
     exec(compile(source, "<outer loop>", "exec"), {"__builtins__": {}}, scope)   # noqa: S102
     return scope["outer"]
+
+
+def settings_property(load: Callable[[Any, WatchdogConfig], None], doc: str) -> property:
+    """A core's ``config``: reading gives the watchdog settings in force; assigning has ``load(core, config)``
+    check and load new ones (raising for settings that do not fit), then keeps them.
+
+    Parameters
+    ----------
+    load : callable
+        ``load(core, config)``, the core's own checks and set-up.
+    doc : str
+        The property's docstring.
+
+    Returns
+    -------
+    property
+    """
+    def assign(core: Any, config: WatchdogConfig) -> None:
+        load(core, config)
+        core._config = config
+
+    return property(operator.attrgetter("_config"), assign, doc=doc)
 
 
 def _slot_slice(slots: dict, name: str) -> slice:
@@ -172,19 +194,16 @@ class ControllerCore:
         self.config = config or WatchdogConfig.from_artifact(artifact)
         self.reset()
 
-    @property
-    def config(self) -> WatchdogConfig:
-        """The watchdog settings in force; assigning new ones checks them against this artifact."""
-        return self._config
-
-    @config.setter
-    def config(self, config: WatchdogConfig) -> None:
+    def _load_config(self, config: WatchdogConfig) -> None:
+        """Check ``config`` against this artifact and set the watchdogs up from it."""
         config.validate()
         config.check_counts(self.n, self.m, len(self.orders))
-        self._config = config
         self._outside_widened = outside_check(config.widened_envelope())
         self._outside_plain = outside_check(config.widened_envelope(0.0))
         self._divergence.configure(config.divergence_error or (math.inf,) * len(self.orders), config.divergence_time)
+
+    config = settings_property(_load_config, "The watchdog settings in force; assigning new ones checks them "
+                                             "against this artifact.")
 
     # -- state ------------------------------------------------------------------------
     def reset(self) -> None:
@@ -272,16 +291,9 @@ class ControllerCore:
         """
         start = time.perf_counter()
         config = self.config
-        times = stamps(t, now)
-        if times is None:
-            return self._refuse("bad_time", t, start, now)
-        t, now = times
-        try:
-            if len(x) != self.n:
-                return self._refuse("wrong_length", t, start, now)
-            x = float_list(x)
-        except (TypeError, ValueError, OverflowError):
-            return self._refuse("wrong_length", t, start, now)
+        refused, x, t, now = state_arguments(x, self.n, t, now)
+        if refused is not None:
+            return self._refuse(refused, t, start, now)
         if not _all_finite(x):
             return self._refuse("non_finite_state", t, start, now)
         last_t = self.last_t
@@ -292,13 +304,8 @@ class ControllerCore:
         if t - now > (config.stale_after if config.future_tolerance is None else config.future_tolerance):
             # a stamp from the future would be kept as the newest and block every real state
             return self._refuse("future_stamp", t, start, now)
-        try:
-            if len(ref) != self.reference_size:
-                return self._refuse("bad_reference", t, start, now)
-            ref = float_list(ref)
-        except (TypeError, ValueError, OverflowError):
-            return self._refuse("bad_reference", t, start, now)
-        if not _all_finite(ref):
+        ref = sized_floats(ref, self.reference_size)
+        if ref is None or not _all_finite(ref):
             return self._refuse("bad_reference", t, start, now)
         try:
             values = self._law(x, self.parameters)

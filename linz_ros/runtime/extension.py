@@ -46,6 +46,7 @@ from typing import Any, Sequence
 
 from linz_ros.artifact.extension import Extension
 from linz_ros.errors import ConfigError
+from linz_ros.runtime.core import settings_property
 from linz_ros.runtime.steprecord import StepRecord
 from linz_ros.runtime.watchdogs import WatchdogConfig
 
@@ -175,13 +176,8 @@ class ExtendedCore(AroundExtension):
         self.reset()
 
     # -- settings --------------------------------------------------------------------------
-    @property
-    def config(self) -> WatchdogConfig:
-        """The watchdog settings in force, in the plant's inputs (rate limits bound the plant's inputs)."""
-        return self._config
-
-    @config.setter
-    def config(self, config: WatchdogConfig) -> None:
+    def _load_config(self, config: WatchdogConfig) -> None:
+        """Check ``config`` against the compensator and give the inner core its share of it."""
         delayed = [k > 0 for k in self.extension.integrators]
         # no floor (inf in the settings) is a floor of 0 here: |xi_1| < 0 never holds
         floors = [0.0 if f == math.inf else f for f in config.compensator_floor or (math.inf,) * self.m]
@@ -196,11 +192,13 @@ class ExtendedCore(AroundExtension):
         # the core's own rate limits would bound the change of w: the compensator applies them instead
         inner_rates = tuple(math.inf if d else r for d, r in zip(delayed, config.rate_limits))
         self.inner.config = replace(config, rate_limits=inner_rates)
-        self._config = config
         self._limits = limits
         # per delayed input: (input, offset, integrators, limits, rate limit, floor, the floor's side)
         self._plan = [(j, at, self.extension.integrators[j], limits[j], config.rate_limits[j], floors[j], sides[j])
                       for j, at in enumerate(self._offsets) if at is not None]
+
+    config = settings_property(_load_config, "The watchdog settings in force, in the plant's inputs (rate limits "
+                                             "bound the plant's inputs).")
 
     # -- state -----------------------------------------------------------------------------
     def reset(self, compensator: Sequence[float] | None = None) -> None:

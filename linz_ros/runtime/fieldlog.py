@@ -7,7 +7,10 @@ plus the state), so the
 ROS 2 bag tools and common MCAP viewers open the file without our code. Each file also
 holds, as MCAP metadata, the artifact's metadata, the node's parameters and, when it is
 closed cleanly, the counts of records written and dropped; the artifact itself is
-attached, so the log analysis can compute the singular set offline.
+attached, so the log analysis can compute the singular set offline. Every file starts
+with the recording's identity (:mod:`linz_ros.runtime.recording_identity`: one id for
+all the files a writer rotates through, the machine's name, the UTC start), by which a
+fleet of logs is grouped.
 
 The writer runs on a thread of its own behind a bounded queue: the control loop never
 waits for the disk. A full queue drops the record and counts it (the message sequence
@@ -34,6 +37,7 @@ from typing import IO, TYPE_CHECKING, Any, Callable, Mapping, Sequence
 
 from linz_ros.artifact import Artifact
 from linz_ros.errors import ConfigError
+from linz_ros.runtime.recording_identity import IDENTITY_RECORD, check_machine, default_machine, new_identity
 from linz_ros.runtime.steprecord import record_labels
 
 if TYPE_CHECKING:
@@ -102,7 +106,8 @@ class FieldLogSettings:
     folder : Path
         Created when missing.
     prefix : str
-        File names are ``<prefix>_<UTC start>_<index>.mcap``.
+        File names are ``<prefix>_<UTC start>_<recording id, 8 characters>_<index>.mcap`` (the id
+        keeps two writers started in the same second apart).
     max_bytes : int
         Start a new file when the current one reaches this size (0: never).
     max_seconds : float
@@ -111,6 +116,8 @@ class FieldLogSettings:
         Close the open chunk and flush at least this often (s, at most 1).
     queue_size : int
         Records that may wait for the writer thread; more are dropped and counted.
+    machine : str
+        The machine's name recorded in every file (default: :func:`default_machine`).
     """
 
     folder: Path
@@ -119,6 +126,7 @@ class FieldLogSettings:
     max_seconds: float = 3600.0
     flush_period: float = 0.5
     queue_size: int = 20000
+    machine: str = field(default_factory=default_machine)
 
     def __post_init__(self) -> None:
         if not 0.0 < self.flush_period <= 1.0:
@@ -129,6 +137,7 @@ class FieldLogSettings:
             raise ConfigError("field_log_queue", f"{self.queue_size}: expected at least 1")
         if not self.prefix or any(c in self.prefix for c in "/\\\x00"):
             raise ConfigError("field_log_prefix", f"{self.prefix!r}: expected a plain file-name prefix")
+        check_machine(self.machine, "field_log_machine")
 
 
 @dataclass
@@ -206,6 +215,7 @@ class FieldLogWriter:
         self._opened_at = 0.0
         self._file_written = 0
         self._new_writer = _mcap_writer()
+        self.identity = new_identity(settings.machine, wall_clock())
         try:
             self._open_next()
         except OSError as err:
@@ -321,7 +331,7 @@ class FieldLogWriter:
         folder = Path(self.settings.folder).expanduser()
         folder.mkdir(parents=True, exist_ok=True)
         started = time.strftime("%Y%m%d-%H%M%S", time.gmtime(self._wall_clock()))
-        path = folder / f"{self.settings.prefix}_{started}_{self._file_index:03d}.mcap"
+        path = folder / f"{self.settings.prefix}_{started}_{self.identity['recording'][:8]}_{self._file_index:03d}.mcap"
         self._file_index += 1
         stream = self._opener(path)               # "xb": never overwrite an earlier log
         writer = self._new_writer(stream)
@@ -329,6 +339,7 @@ class FieldLogWriter:
         schema = writer.register_schema(FIELD_LOG_SCHEMA, "ros2msg", FLOAT64_MULTIARRAY_DEFINITION.encode())
         self._channel = writer.register_channel(FIELD_LOG_TOPIC, "cdr", schema,
                                                 {"labels": self._label, "file_index": str(self._file_index - 1)})
+        writer.add_metadata(IDENTITY_RECORD, {**self.identity, "file_index": str(self._file_index - 1)})
         for name, data in self._metadata.items():
             writer.add_metadata(name, data)
         stamp = time.time_ns()

@@ -17,7 +17,7 @@ from functools import partial
 from typing import Any, Sequence
 
 from linz_ros.artifact.document import Artifact
-from linz_ros.runtime._arguments import float_list, refusal_stamps, stamps
+from linz_ros.runtime._arguments import refusal_stamps, sized_floats, state_arguments
 from linz_ros.runtime.core import ControllerCore
 from linz_ros.runtime.native._build import REPORT_FIELDS, codes, compiled_step, load_ffi, open_library
 from linz_ros.runtime.steprecord import MODES, REASONS, StepRecord
@@ -274,24 +274,13 @@ class NativeCore:
         anything but lists of floats and finite float stamps.
         """
         start = time.perf_counter()
-        times = stamps(t, now)
-        if times is None:
-            return self._refuse("bad_time", t, start, now)
-        t, now = times
-        try:
-            if len(x) != self.n:
-                return self._refuse("wrong_length", t, start, now)
-            x = float_list(x)
-        except (TypeError, ValueError, OverflowError):
-            return self._refuse("wrong_length", t, start, now)
+        refused, x, t, now = state_arguments(x, self.n, t, now)
+        if refused is not None:
+            return self._refuse(refused, t, start, now)
+        ref = sized_floats(ref, self.reference_size)
         reference_ok = 1
-        try:
-            if len(ref) != self.reference_size:
-                reference_ok, ref = 0, self._ref
-            else:
-                ref = float_list(ref)
-        except (TypeError, ValueError, OverflowError):
-            reference_ok, ref = 0, self._ref
+        if ref is None:
+            reference_ok, ref = 0, self._ref     # the C step refuses it as bad_reference
         self._step(self._ctx, x, ref, t, now, reference_ok)
         return self._result(t, start)
 

@@ -15,6 +15,8 @@ where the plant file gave none). Every title carries the run's verdict (a word o
 shaded and named by mode and reason, records a machine watchdog flagged are marked by its
 word (the words of ``MODES``, ``REASONS`` and ``ALARMS``, as in the text summaries).
 matplotlib is imported when drawing, with the Agg backend (no screen needed).
+The singular set s(x) = 0 on a grid is drawn by :mod:`linz_ros.plotting.singular` (field logs and
+campaigns alike); the HTML report pages are put together by :mod:`linz_ros.plotting.page`.
 """
 
 from __future__ import annotations
@@ -29,10 +31,12 @@ import numpy as np
 from linz_ros.runtime import ALARMS, MODES, SimResult, Verdict, WatchdogConfig, run_verdict
 from linz_ros.runtime.extension import command_limits
 from linz_ros.runtime.steprecord import ACTED_MODES
+from linz_ros.plotting.singular import draw_singular_set
 
 __all__ = ["RunView", "run_view", "plot_run", "write_plots", "unit_label", "title_figure", "save_figure",
            "pyplot", "outputs_figure", "tracking_error_figure", "states_figure", "inputs_figure",
-           "conditioning_figure", "sigma_label", "NO_UNIT", "LEVEL_NAMES"]
+           "conditioning_figure", "sigma_label", "draw_singular_set", "NO_UNIT",
+           "LEVEL_NAMES"]
 
 #: What an axis says of a signal whose unit the plant file does not state.
 NO_UNIT = "unit not stated"
