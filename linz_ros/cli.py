@@ -7,12 +7,15 @@ build   synthesise the law and write a verified controller artifact
 sim     run the sampled closed loop offline; CSV, plots and a summary
 bench   time the controller step against reference implementations
 logs    summarise field logs: near-singular episodes, mode switches, saturation
+campaign  many closed-loop runs over the envelope, mismatch, noise, delay; the success rate and what drives failure
 keygen  make a key pair for signing artifacts (linz build --sign-key, trusted keys on the robot)
 demo    the whole job on the bundled example (check, build, two simulations)
 wire    write the bringup parameter file (the nodes' topics and rates) of a plant or an artifact
 
-Exit codes: 0 when the work ran (whatever the verdict), 2 for bad input (one line on
-stderr naming the file, the field and the problem), 1 for an internal error.
+Exit codes, every verb: 0 the work ran and all it judged succeeded (``sim``, one-log ``logs``: 0 whatever the
+verdict); 3 it ran and found runs or recordings that did not succeed, or lost some (``campaign``: failed, refused,
+errored or lost cases; ``logs --fleet``: not read, lost or not ``tracked``); 2 bad input (one line naming the file,
+field, problem); 130 interrupted (what finished is reported); 1 only an internal error (a fault of linz_ros).
 The work of each verb is in :mod:`linz_ros.commands`; this module parses, calls, prints.
 """
 
@@ -28,6 +31,7 @@ from linz_ros import __version__
 from linz_ros.commands._common import DEFAULT_OUT, terminal_safe
 from linz_ros.commands._options import DesignChoices
 from linz_ros.errors import ConfigError, LinzError, quoted
+from linz_ros.executor import DEFAULT_ATTEMPTS, SCHEDULER_ENV
 
 __all__ = ["main"]
 
@@ -135,14 +139,13 @@ def _verb(verbs, run, name: str, **texts: str) -> argparse.ArgumentParser:
 
 def _add_executor_options(parser: argparse.ArgumentParser) -> None:
     """Where many runs go: local worker processes, or a Dask scheduler."""
-    from linz_ros.executor import DEFAULT_ATTEMPTS, SCHEDULER_ENV
 
     parser.add_argument("--workers", type=_positive_int, default=None, metavar="N",
                         help="local worker processes (default: one per core)")
     parser.add_argument("--scheduler", metavar="ADDRESS",
                         help=f"a Dask scheduler (tcp://host:8786) to run on instead of local processes; default "
                              f"the environment variable {SCHEDULER_ENV} when set (needs the 'cluster' extra)")
-    parser.add_argument("--attempts", type=_positive_int, default=DEFAULT_ATTEMPTS, metavar="N",
+    parser.add_argument("--attempts", type=_positive_int, default=None, metavar="N",
                         help=f"runs of one task at most when its worker dies (default {DEFAULT_ATTEMPTS}); "
                              "then it is reported lost")
 
@@ -153,7 +156,7 @@ def _add_campaign(verbs) -> None:
                                  "Sobol), with parameter mismatch, noise, delay and references from a campaign "
                                  "section; report the success rate with its confidence interval, the worst cases "
                                  "with the command that reruns each, what drives failure and the region of "
-                                 "attraction. Exit 0: every run succeeded; 1: failures or lost runs; 130: "
+                                 "attraction. Exit 0: every run succeeded; 3: failures or lost runs; 130: "
                                  "interrupted (what finished is reported).")
     campaign.add_argument("source", metavar="PLANT_OR_ARTIFACT",
                           help="a plant file (built here; its campaign: section is read) or an artifact (*.json)")
@@ -328,11 +331,14 @@ def _warn(warnings: list[str]) -> None:
         print(f"linz: warning: {warning}", file=sys.stderr)
 
 
+def _progress(args: argparse.Namespace) -> bool:
+    return bool(args.progress if args.progress is not None else sys.stderr.isatty())
+
+
 def _run_check(args: argparse.Namespace) -> int:
     from linz_ros.commands.check import check, render_check
 
-    progress = bool(args.progress if args.progress is not None else sys.stderr.isatty())
-    print(render_check(check(args.plant, samples=args.samples, budget=args.budget, progress=progress),
+    print(render_check(check(args.plant, samples=args.samples, budget=args.budget, progress=_progress(args)),
                        as_json=args.json))
     return 0
 
@@ -363,7 +369,7 @@ def sim_request(args: argparse.Namespace):
         source=args.source, out=args.out, duration=args.duration, reference=args.reference, mismatch=args.mismatch,
         noise=args.noise, delay=args.delay, initial=args.initial, force_initial=args.force_initial,
         watchdog=args.watchdog, integrator=args.integrator, substeps=args.substeps, seed=args.seed,
-        backend=args.backend, physics=args.physics, plots=not args.no_plots, progress=bool(args.progress if args.progress is not None else sys.stderr.isatty()),
+        backend=args.backend, physics=args.physics, plots=not args.no_plots, progress=_progress(args),
         allow_plant_change=args.allow_plant_change, field_log=args.field_log, trusted_keys=args.trusted_key,
         design=_design(args))
 
@@ -395,11 +401,9 @@ def _run_campaign(args: argparse.Namespace) -> int:
     from linz_ros.commands.campaign import CampaignRequest, render_campaign_run, run_campaign
 
     run = run_campaign(CampaignRequest(
-        source=args.source, campaign=args.campaign, out=args.out, runs=args.runs, seed=args.seed, worst=args.worst,
-        workers=args.workers, scheduler=args.scheduler, attempts=args.attempts, integrator=args.integrator,
-        backend=args.backend, physics=args.physics, substeps=args.substeps, plots=not args.no_plots,
-        progress=bool(args.progress if args.progress is not None else sys.stderr.isatty()),
-        allow_plant_change=args.allow_plant_change, trusted_keys=args.trusted_key, design=_design(args)))
+        args.source, args.campaign, args.out, args.runs, args.seed, args.worst, args.workers, args.scheduler,
+        DEFAULT_ATTEMPTS if args.attempts is None else args.attempts, args.integrator, args.backend, args.physics,
+        args.substeps, not args.no_plots, _progress(args), args.allow_plant_change, args.trusted_key, _design(args)))
     print(render_campaign_run(run, as_json=args.json))
     return run.exit_code
 

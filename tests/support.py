@@ -152,4 +152,6 @@ def executor_task(prepared: str, item: object) -> tuple:
         while not os.path.exists(item[1]) and time.monotonic() < deadline:
             time.sleep(0.01)
         return prepared, item[1], os.getpid()
+    if item == "boom":
+        return prepared, item + 1          # a fault of the task itself (TypeError), not of its input
     return prepared, item

@@ -63,6 +63,14 @@ def test_the_summary_rates_the_finished_cases_and_is_json_without_nan(arm):
     json.dumps(summary, allow_nan=False)
 
 
+def test_an_errored_case_is_a_failure_said_as_a_fault_of_the_tool(arm):
+    spec = _spec(runs=2)
+    cases = draw_cases(spec)
+    summary = campaign_summary(_outcome(spec, cases, [_result(0), _result(1, "errored", None)]), arm)
+    assert summary["status"] == "failures found" and summary["verdicts"]["errored"] == 1
+    assert "  ERRORS: 1 case(s) raised an unexpected error, a fault of linz_ros" in render_campaign(summary)
+
+
 def test_the_worst_cases_come_in_verdict_order_then_severity_then_index(arm):
     spec = _spec(runs=8)
     cases = draw_cases(spec)

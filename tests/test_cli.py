@@ -289,6 +289,12 @@ def test_demo_runs_the_whole_job_and_shows_the_watchdog(capsys, tmp_path):
     assert 0 in {d["level"] for d in bringup["diagnostics"]}
     for name in ("linz_controller.log", "linz_plant_sim.log", "run.csv", "outputs.png"):
         assert (tmp_path / "bringup" / name).stat().st_size > 0
+    # a short campaign over the working region, every run succeeded; then the field logs as a fleet
+    campaign_step = out[out.index("== 4c. campaign"):out.index("== 5. ")]
+    assert "all succeeded" in campaign_step
+    assert json.loads((tmp_path / "campaign" / "summary.json").read_text())["status"] == "all succeeded"
+    assert "logs --fleet: every field log of the demo" in out
+    assert json.loads((tmp_path / "fleet" / "fleet.json").read_text())["totals"]["recordings"] >= 1
 
 
 @pytest.fixture(scope="module")

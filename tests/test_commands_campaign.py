@@ -35,7 +35,7 @@ def arm_file(tmp_path_factory):
 
 
 def _campaign_file(tmp_path: Path, text: str) -> str:
-    path = tmp_path / "campaign.yaml"
+    path = tmp_path / f"campaign_{len(list(tmp_path.glob('campaign*.yaml')))}.yaml"
     path.write_text(text)
     return str(path)
 
@@ -88,7 +88,7 @@ def test_a_model_error_campaign_finds_failures_and_a_rerun_reproduces_the_worst_
                                        out=str(tmp_path / "out"), workers=2))
     summary = run.summary
     failed = [r for r in run.outcome.results.values() if r.verdict != "tracked"]
-    assert failed and run.exit_code == 1
+    assert failed and run.exit_code == 3
     worst = summary["worst"][0]
     case = run.outcome.results[worst["index"]]
     assert case.verdict != "tracked" and worst["verdict"] == case.verdict
@@ -195,20 +195,24 @@ def test_a_dask_worker_killed_mid_campaign_loses_no_case(arm_file, tmp_path, clu
 
     text = _campaign_file(tmp_path, MODEL_ERROR)
     reference = run_campaign(CampaignRequest(str(arm_file), campaign=text, out=str(tmp_path / "ref"), workers=2))
+    killed: list[tuple[int, tuple]] = []
+
     with Client(cluster.scheduler_address) as client:
-        pids = sorted(client.run(os.getpid).values())
-    killed: list[int] = []
+        class Bar(_QuietBar):
+            def __call__(self, fraction, detail=""):
+                if fraction > 0.1 and not killed:
+                    busy = {address: keys for address, keys in client.processing().items() if keys}
+                    if busy:       # a worker running a case of this campaign, killed mid-case
+                        address, keys = sorted(busy.items())[0]
+                        pid = client.run(os.getpid, workers=[address])[address]
+                        os.kill(pid, signal.SIGKILL)
+                        killed.append((pid, tuple(keys)))
 
-    class Bar(_QuietBar):
-        def __call__(self, fraction, detail=""):
-            if fraction > 0.1 and not killed:
-                os.kill(pids[0], signal.SIGKILL)
-                killed.append(pids[0])
-
-    monkeypatch.setattr(campaign_command, "ProgressBar", Bar)
-    run = run_campaign(CampaignRequest(str(arm_file), campaign=text, out=str(tmp_path / "k"),
-                                       scheduler=cluster.scheduler_address))
-    assert killed and not run.outcome.lost and not run.outcome.interrupted
+        monkeypatch.setattr(campaign_command, "ProgressBar", Bar)
+        run = run_campaign(CampaignRequest(str(arm_file), campaign=text, out=str(tmp_path / "k"),
+                                           scheduler=cluster.scheduler_address))
+    assert killed and all(str(key).startswith("linz-task-") for key in killed[0][1])
+    assert not run.outcome.lost and not run.outcome.interrupted
     assert run.outcome.results == reference.outcome.results
 
 
@@ -218,6 +222,11 @@ def test_the_command_line_says_mistakes_in_one_line(arm_file, tmp_path):
             ([str(arm_file), "--campaign", bad], "campaign.mismatch.m9: not a parameter of pick_arm"),
             ([str(arm_file), "--campaign", str(tmp_path / "none.yaml")], "no such file"),
             ([str(arm_file), "--workers", "0"], "--workers"),
+            ([str(arm_file), "--runs", "200000"], "--runs: expected a whole number from 1 to 100,000"),
+            ([str(arm_file), "--campaign", _campaign_file(tmp_path, "campaign: {duration: 1.0e+9}")],
+             "campaign.duration: 1e+09 s at 500 Hz is more than 10,000,000 control steps"),
+            ([str(arm_file), "--campaign", _campaign_file(tmp_path, "campaign: {delay: [0, 1.0e+6]}")],
+             "campaign.delay: 1e+06 s is longer than the run (5 s)"),
             ([str(arm_file), "--physics", "foo"], "--physics: expected one of model, mujoco, got 'foo'"),
             ([str(arm_file), "--substeps", "1000000"], "--substeps: expected a whole number from 1 to 1000"),
             ([str(arm_file), "--physics", "mujoco", "--scheduler", "tcp://127.0.0.1:9"],
@@ -259,3 +268,47 @@ def test_a_plant_file_carries_its_own_campaign_section_and_the_artifact_is_writt
     assert run.outcome.artifact_path == str(written) and written.is_file()
     assert all(f" {written} " in command for command in run.outcome.rerun.values())
     assert run.summary["files"][0] == str(written)
+
+
+def test_ctrl_c_on_the_process_group_keeps_what_finished_and_leaves_no_worker(arm_file, tmp_path):
+    """A real SIGINT to the campaign's process group (what a terminal's Ctrl-C sends), mid-run."""
+    import re
+
+    text = _campaign_file(tmp_path, MODEL_ERROR.replace("runs: 12", "runs: 400"))
+    out = tmp_path / "out"
+    process = subprocess.Popen([sys.executable, "-m", "linz_ros", "campaign", str(arm_file), "--campaign", text,
+                                "-o", str(out), "--workers", "2", "--progress"], stdout=subprocess.PIPE,
+                               stderr=subprocess.PIPE, text=True, start_new_session=True)
+    seen = []
+
+    def read_progress() -> None:
+        while True:
+            chunk = process.stderr.read(64)
+            if not chunk:
+                return
+            seen.append(chunk)
+
+    reader = threading.Thread(target=read_progress, daemon=True)
+    reader.start()
+    deadline = time.monotonic() + 240
+    while time.monotonic() < deadline:
+        done = [int(n) for n in re.findall(r"(\d+)/400 runs", "".join(seen))]
+        if done and max(done) >= 4:
+            break
+        assert process.poll() is None, "".join(seen)
+        time.sleep(0.05)
+    os.killpg(process.pid, signal.SIGINT)
+    stdout, _ = process.communicate(timeout=120)
+    assert process.returncode == 130
+    first = stdout.splitlines()[0]
+    assert first.startswith("!! campaign of pick_arm") and "incomplete: interrupted" in first, stdout[:500]
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["interrupted"] is True and 4 <= summary["finished"] < 400
+    assert summary["never_run"] == 400 - summary["finished"] - summary["lost"]
+    # no worker of the group outlives the campaign (multiprocessing's resource tracker leaves on its own)
+    left = subprocess.run(["ps", "-o", "pid=,args=", "-g", str(process.pid)], capture_output=True, text=True).stdout
+    deadline = time.monotonic() + 10
+    while left.strip() and time.monotonic() < deadline:
+        time.sleep(0.2)
+        left = subprocess.run(["ps", "-o", "pid=,args=", "-g", str(process.pid)], capture_output=True, text=True).stdout
+    assert not left.strip(), left

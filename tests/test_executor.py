@@ -76,6 +76,13 @@ def test_each_result_is_handed_over_as_it_arrives_and_what_is_kept_replaces_it()
     assert execution.outcomes[0].value == 3 and execution.outcomes[1].refused and execution.outcomes[2].value == 3
 
 
+def test_an_unexpected_error_of_a_task_is_an_error_not_a_refusal():
+    execution = run_tasks(executor_prepare, executor_task, Shipment.of("x"), [1, "boom"], ExecutorSettings(workers=1))
+    boom = execution.outcomes[1]
+    assert boom.refused is None and boom.value is None and boom.error.startswith("TypeError: ")
+    assert execution.outcomes[0].value == ("X", 1)
+
+
 def test_changed_content_is_refused_by_its_hash():
     forged = Shipment("the text", Shipment.of("another text").sha256)
     with pytest.raises(ShipmentError, match="arrived with SHA-256"):
@@ -106,6 +113,21 @@ def test_an_unreachable_scheduler_is_one_line():
     try:
         with pytest.raises(ConfigError, match="cannot reach the Dask scheduler at tcp://127.0.0.1:9: Connection refused"):
             run_tasks(executor_prepare, executor_task, Shipment.of("x"), [1], ExecutorSettings(scheduler="tcp://127.0.0.1:9"))
+    finally:
+        _dask.CONNECT_SECONDS = previous
+
+
+def test_a_scheduler_without_workers_is_one_line():
+    distributed = pytest.importorskip("distributed")
+    from linz_ros.executor import _dask
+
+    previous, _dask.CONNECT_SECONDS = _dask.CONNECT_SECONDS, 1.0
+    try:
+        with distributed.LocalCluster(n_workers=0, processes=False, dashboard_address=None,
+                                      silence_logs=50) as empty:
+            with pytest.raises(ConfigError, match="has no workers"):
+                run_tasks(executor_prepare, executor_task, Shipment.of("x"), [1],
+                          ExecutorSettings(scheduler=empty.scheduler_address))
     finally:
         _dask.CONNECT_SECONDS = previous
 

@@ -11,7 +11,7 @@ from support import BUNDLED, built_artifact_file
 from linz_ros.cli import main
 from linz_ros.commands.logs import FleetRequest, fleet_report, read_and_report, LogsRequest
 from linz_ros.errors import ConfigError
-from linz_ros.executor import Execution, TaskOutcome
+from linz_ros.executor import DEFAULT_ATTEMPTS, Execution, TaskOutcome
 from linz_ros.logs import read_logs, summarise
 from linz_ros.logs.fleet import (FleetOptions, analyse_recording, fleet_summary, fleet_text, group_recordings,
                                  read_identity, recording_problem)
@@ -180,9 +180,9 @@ def test_the_cli_fleet_mode_writes_its_files_and_prints_json(capsys, fleet, tmp_
     code = main(["logs", str(fleet / "alpha"), str(fleet / "old"), "--fleet", str(tmp_path / "f"), "--workers", "1",
                  "--no-plots", "--no-csv", "--json"])
     out, err = capsys.readouterr()
-    assert code == 0, err
     summary = json.loads(out)
     assert summary["complete"] is True and summary["totals"]["recordings"] == 3
+    assert code == 3 and summary["totals"]["not_tracked"], err           # every run read, but not all tracked
     assert summary["execution"]["where"] == "1 local process"
     assert {p.name for p in (tmp_path / "f").iterdir()} >= {"fleet.json", "fleet.csv", "fleet.html"}
     assert not list((tmp_path / "f").rglob("records.csv"))
@@ -193,6 +193,7 @@ def test_the_cli_fleet_mode_writes_its_files_and_prints_json(capsys, fleet, tmp_
     (["--scheduler", "tcp://127.0.0.1:1"], "--scheduler"),
     (["--no-plots"], "--no-plots"),
     (["--attempts", "5"], "--attempts"),
+    (["--attempts", str(DEFAULT_ATTEMPTS)], "--attempts"),                 # even the default, given
     (["--fleet", "OUT", "--csv", "x.csv"], "--csv"),
     (["--fleet", ""], "--fleet"),
 ])
@@ -357,16 +358,16 @@ def test_a_recording_across_midnight_is_split_per_utc_day(fleet, monkeypatch):
     assert all(e["day"] == second for e in summary["by_day"][second]["worst"])
 
 
-def test_a_failed_fleet_exits_1_and_says_so_first(capsys, fleet, tmp_path):
+def test_a_failed_fleet_exits_3_and_says_so_first(capsys, fleet, tmp_path):
     (tmp_path / "bad").mkdir()
     (tmp_path / "bad" / "x.mcap").write_text("not a log")
     code = main(["logs", str(tmp_path / "bad"), "--fleet", str(tmp_path / "o1"), "--workers", "1"])
     out, _ = capsys.readouterr()
-    assert code == 1 and out.startswith("nothing analysed; 1 of 1 recording(s) FAILED; fleet: 0 of 1")
+    assert code == 3 and out.startswith("nothing analysed; 1 of 1 recording(s) FAILED; fleet: 0 of 1")
     code = main(["logs", str(fleet / "alpha"), str(tmp_path / "bad"), "--fleet", str(tmp_path / "o2"), "--workers",
                  "1", "--no-plots", "--no-csv"])
     out, _ = capsys.readouterr()
-    assert code == 1 and out.startswith("1 of 3 recording(s) FAILED; 2 recordings left their envelope; fleet: 2 of 3")
+    assert code == 3 and out.startswith("1 of 3 recording(s) FAILED; 2 recordings left their envelope; fleet: 2 of 3")
     assert out.splitlines()[-1].startswith("ran on 1 local process; wrote ")
 
 
@@ -390,7 +391,7 @@ def test_entries_that_are_no_regular_files_are_listed_as_problems(fleet, tmp_pat
     problems = {p["name"]: p["problem"] for p in report.summary["problems"]}
     assert problems == {"gone.mcap": f"{folder / 'gone.mcap'}: a broken symbolic link, not a regular file: not read",
                         "pipe.mcap": f"{folder / 'pipe.mcap'}: a named pipe (FIFO), not a regular file: not read"}
-    assert report.summary["totals"]["recordings"] == 1 and report.exit_code == 1
+    assert report.summary["totals"]["recordings"] == 1 and report.exit_code == 3
 
 
 def test_recordings_not_run_are_named_in_csv_and_html(fleet, tmp_path):
@@ -468,3 +469,58 @@ def test_fleet_options_are_checked_and_durations_read_well(capsys, fleet, tmp_pa
     assert code == 2 and err.strip() == "linz: --artifact: expected a file name, got an empty one"
     assert [duration_text(s) for s in (0.0, 1.234, 125.0, 360000.0, 3599.6)] == \
         ["0 s", "1.23 s", "2 min 5 s", "100 h 0 min", "1 h 0 min"]
+
+
+def _fleet_exit(problems=(), not_tracked=None, interrupted=False) -> int:
+    from linz_ros.commands.logs import FleetReport
+
+    summary = {"problems": list(problems), "totals": {"not_tracked": not_tracked or {}}}
+    return FleetReport(summary, "", interrupted=interrupted).exit_code
+
+
+def test_the_fleet_exits_0_only_when_every_recording_was_read_and_tracked():
+    assert _fleet_exit() == 0
+    assert _fleet_exit(not_tracked={"diverged": 1}) == 3
+    assert _fleet_exit(problems=[{"name": "lost one"}]) == 3
+    assert _fleet_exit(problems=[{"name": "lost one"}], interrupted=True) == 130
+
+
+def test_ctrl_c_while_the_tables_are_written_keeps_fleet_json_and_prints_the_summary(capsys, fleet, tmp_path,
+                                                                                     monkeypatch):
+    import linz_ros.logs.fleet_report as fleet_report_module
+
+    def interrupted(summary, path):
+        Path(path).write_text("half a page")
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(fleet_report_module, "write_fleet_html", interrupted)
+    out_folder = tmp_path / "f"
+    code = main(["logs", str(fleet / "alpha"), "--fleet", str(out_folder), "--workers", "1", "--no-plots", "--no-csv"])
+    out, _ = capsys.readouterr()
+    assert code == 130
+    summary = json.loads((out_folder / "fleet.json").read_text())
+    assert summary["totals"]["recordings"] == 2 and out.startswith(summary["headline"])
+    assert "INTERRUPTED while writing the fleet's tables: fleet.json is whole" in out
+    assert (out_folder / "fleet.csv").is_file() and not (out_folder / "fleet.html").exists()
+
+
+def test_per_day_durations_sum_to_the_summary_duration_across_bad_and_backward_times(fleet, monkeypatch):
+    import numpy as np
+
+    import linz_ros.logs.fleet as fleet_module
+    from linz_ros.logs.analysis import record_durations
+
+    (recording,) = [r for r in group_recordings([fleet / "alpha"]) if r.files[0] == str(_alpha_files(fleet)[0])]
+    log = read_logs(recording.files)
+    t = log.values[:, log.labels.index("t")]
+    t[40] = np.nan                                          # a refused bad stamp
+    t[80:] -= 0.5                                           # a step back in time (a writer restarted)
+    log.log_time = 20_000 * 86400.0 - 0.1 + (log.log_time - log.log_time[0])     # across a UTC midnight
+    monkeypatch.setattr(fleet_module, "read_logs", lambda files: log)
+    digest = analyse_recording(FleetOptions(plots=False, csv=False), recording)
+    assert len(digest.days) == 2
+    assert sum(d["duration"] for d in digest.days.values()) == pytest.approx(digest.duration)
+    assert digest.duration == pytest.approx(summarise(log)["duration"])
+    steps = record_durations(t)
+    assert np.all(np.isfinite(steps)) and np.all(steps >= 0) and steps[79] == 0.0
+    assert digest.duration == pytest.approx(t[-1] - t[0] + 0.5)      # the step back counts zero, the last one period

@@ -32,7 +32,7 @@ from typing import Any, Sequence
 import numpy as np
 
 from linz_ros.artifact import Artifact
-from linz_ros.campaign.spec import OUTCOMES, REFUSED, CampaignOutcome, Case, CaseResult, factor_matrix
+from linz_ros.campaign.spec import ERRORED, OUTCOMES, REFUSED, CampaignOutcome, Case, CaseResult, factor_matrix
 
 __all__ = ["CONFIDENCE", "CI_METHOD", "WORST_ORDER", "SENSITIVITY_MEASURES", "REGION_MEASURE", "success_rate",
            "worst_key", "worst_results", "sensitivity", "region_estimate", "case_point"]
@@ -139,7 +139,7 @@ def _spearman(x: np.ndarray, y: np.ndarray) -> tuple[float | None, float | None]
 
 def _severities(results: Sequence[CaseResult]) -> np.ndarray:
     """Severity per case; an unknown one above every known (it blew up); nan for refused starts."""
-    values = np.array([np.nan if r.verdict == REFUSED else math.inf if r.severity is None else r.severity
+    values = np.array([np.nan if r.verdict in (REFUSED, ERRORED) else math.inf if r.severity is None else r.severity
                        for r in results], dtype=float)
     finite = values[np.isfinite(values)]
     values[np.isinf(values)] = (finite.max() + 1.0) if finite.size else 1.0       # same ranks, no inf

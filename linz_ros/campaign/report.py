@@ -24,7 +24,7 @@ from typing import Any
 from linz_ros.artifact import Artifact
 from linz_ros.campaign.measures import (WORST_ORDER, region_estimate, sensitivity, success_rate,
                                         worst_results)
-from linz_ros.campaign.spec import OUTCOMES, REFUSED, CampaignOutcome, Case, CaseResult
+from linz_ros.campaign.spec import ERRORED, OUTCOMES, REFUSED, CampaignOutcome, Case, CaseResult
 from linz_ros.plotting.page import embedded_image, html_table, page
 
 __all__ = ["campaign_summary", "render_campaign", "write_campaign_files", "write_cases_csv", "case_outcome",
@@ -268,6 +268,9 @@ def render_campaign(summary: dict[str, Any]) -> str:
                      if s["interrupted"] else f"  NEVER RUN: {s['never_run']} case(s)")
     if s["refused"]:
         lines.append(f"  REFUSED: {s['refused']} case(s) could not start (counted as failures)")
+    if s["verdicts"].get(ERRORED):
+        lines.append(f"  ERRORS: {s['verdicts'][ERRORED]} case(s) raised an unexpected error, a fault of linz_ros "
+                     "and not of the controller (counted as failures; please report it with the rerun command)")
     if s["worst"]:
         lines.append(f"  the {len(s['worst'])} worst case(s), worst first (failures before successes):")
         lines.extend(line for e in s["worst"] for line in _case_lines(e))

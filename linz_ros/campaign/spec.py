@@ -19,10 +19,12 @@ import numpy as np
 
 from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError, quoted
+from linz_ros.runtime.closed_loop import SimSettings
+from linz_ros.runtime.plant import mismatch_problem
 from linz_ros.runtime.verdict import VERDICTS
 
 __all__ = ["CAMPAIGN_KEY", "CAMPAIGN_KEYS", "Factor", "CampaignSpec", "Case", "CaseResult", "CampaignOutcome",
-           "read_campaign", "draw_cases", "case_seed", "REFUSED", "OUTCOMES", "MAX_RUNS", "DEFAULT_RUNS"]
+           "read_campaign", "draw_cases", "case_seed", "REFUSED", "ERRORED", "OUTCOMES", "MAX_RUNS", "DEFAULT_RUNS"]
 
 #: The key of the section in a plant file (a campaign file may hold the section under it or alone).
 CAMPAIGN_KEY = "campaign"
@@ -30,13 +32,15 @@ CAMPAIGN_KEYS = ("runs", "seed", "duration", "initial", "mismatch", "delay", "no
                  "success", "watchdog")
 #: A case whose run could not start (its state or reference refused, one line says why).
 REFUSED = "refused"
-#: Every word a case may end with: the run verdicts, worst first, then a refused start.
-OUTCOMES = VERDICTS + (REFUSED,)
+#: A case whose run raised an unexpected error (a fault of linz_ros, not of the case: please report it).
+ERRORED = "errored"
+#: Every word a case may end with: the run verdicts, worst first, then a refused start, then an error.
+OUTCOMES = VERDICTS + (REFUSED, ERRORED)
 MAX_RUNS = 100_000
 DEFAULT_RUNS = 256
-DEFAULT_DURATION = 5.0
-#: Widest mismatch range in percent (a change of -100 % or less zeroes a parameter or flips its sign).
-MISMATCH_FLOOR = -100.0
+DEFAULT_DURATION = SimSettings.duration         # as linz sim
+#: Verdicts that count as a success unless the section says otherwise.
+DEFAULT_SUCCESS = ("tracked",)
 
 
 @dataclass(frozen=True)
@@ -96,7 +100,7 @@ class CampaignSpec:
     noise: tuple[str, ...] = ()
     references: tuple[str, ...] = ()
     region: tuple[str, ...] = ()
-    success: tuple[str, ...] = ("tracked",)
+    success: tuple[str, ...] = DEFAULT_SUCCESS
     watchdog: tuple[str, ...] = ()
 
     def factor(self, kind: str, name: str) -> Factor | None:
@@ -311,9 +315,8 @@ def _mismatch_factors(source: str, section: Mapping[str, Any], artifact: Artifac
     for name in names:
         if name in given:
             low, high = _range(source, f"mismatch.{name}", given[name])
-            if not low > MISMATCH_FLOOR:
-                raise _fail(source, f"mismatch.{name}", f"{low:g} %: a change of -100 % or less zeroes the "
-                                                       "parameter or flips its sign; expected more than -100")
+            if mismatch_problem(low):
+                raise _fail(source, f"mismatch.{name}", f"{low:g} %: {mismatch_problem(low)}")
             factors.append(Factor("mismatch", name, low, high, "%"))
     return factors
 
@@ -360,10 +363,12 @@ def read_campaign(section: Mapping[str, Any] | None, artifact: Artifact, source:
     duration = _number(source, "duration", section.get("duration", DEFAULT_DURATION))
     if not duration > 0:
         raise _fail(source, "duration", f"expected a positive number of seconds, got {duration:g}")
+
     factors = _initial_factors(source, section, artifact) + _mismatch_factors(source, section, artifact)
     low, high = _range(source, "delay", section.get("delay", 0.0))
     if low < 0:
         raise _fail(source, "delay", f"expected seconds >= 0, got {low:g}")
+
     if high > low:
         factors.append(Factor("delay", "delay", low, high, "s"))
     noise = section.get("noise")
@@ -374,7 +379,7 @@ def read_campaign(section: Mapping[str, Any] | None, artifact: Artifact, source:
     else:
         noise_items = (repr(_number(source, "noise", noise)),)
     references = _strings(source, "references", section["references"]) if "references" in section else ()
-    success = _strings(source, "success", section.get("success", ["tracked"]))
+    success = _strings(source, "success", section.get("success", list(DEFAULT_SUCCESS)))
     wrong = [s for s in success if s not in VERDICTS]
     if wrong:
         raise _fail(source, "success", f"{quoted(wrong[0], 40)} is not a run verdict ({', '.join(VERDICTS)})")

@@ -16,6 +16,10 @@ __all__ = ["DEFAULT_OUT", "Loaded", "bundled_params", "bundled_plant", "is_artif
 #: Where the verbs write when no folder is given.
 DEFAULT_OUT = "linz_out"
 
+#: Exit code of a verb that ran and found runs or recordings that did not succeed, or lost some
+#: (0: all succeeded, 2: bad input, 130: interrupted, 1: an internal fault).
+EXIT_FINDINGS = 3
+
 
 def terminal_safe(text: str) -> str:
     """The text with what a terminal would act on escaped.

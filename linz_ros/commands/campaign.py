@@ -18,13 +18,13 @@ from typing import Any
 
 import numpy as np
 
-from linz_ros.campaign.spec import (CAMPAIGN_KEY, REFUSED, Case, CampaignOutcome, CampaignSpec, CaseResult,
+from linz_ros.campaign.spec import (CAMPAIGN_KEY, ERRORED, REFUSED, Case, CampaignOutcome, CampaignSpec, CaseResult,
                                     draw_cases, read_campaign)
-from linz_ros.commands._common import DEFAULT_OUT, load_source
+from linz_ros.commands._common import DEFAULT_OUT, EXIT_FINDINGS, load_source
 from linz_ros.commands._options import DesignChoices
 from linz_ros.commands.sim import ProgressBar, SimRequest, run_settings
 from linz_ros.errors import ConfigError
-from linz_ros.executor import ExecutorSettings, Shipment, run_tasks, scheduler_address
+from linz_ros.executor import DEFAULT_ATTEMPTS, ExecutorSettings, Shipment, run_tasks, scheduler_address
 
 __all__ = ["CampaignRequest", "CampaignRun", "run_campaign", "render_campaign_run", "case_request", "rerun_command",
            "prepare_case_context", "run_case", "case_result"]
@@ -63,11 +63,11 @@ class CampaignRequest:
     worst: int = 5
     workers: int | None = None
     scheduler: str | None = None
-    attempts: int = 3
-    integrator: str = "rk4"
-    backend: str = "native"
-    physics: str = "model"
-    substeps: int = 4
+    attempts: int = DEFAULT_ATTEMPTS
+    integrator: str = SimRequest.integrator
+    backend: str = SimRequest.backend
+    physics: str = SimRequest.physics
+    substeps: int = SimRequest.substeps
     plots: bool = True
     progress: bool = False
     allow_plant_change: bool = False
@@ -85,11 +85,11 @@ class CampaignRun:
 
     @property
     def exit_code(self) -> int:
-        """0: every finished case succeeded and none was lost; 1: failures, refusals or lost cases; 130: interrupted."""
+        """0: every case succeeded; 3: failed, refused, errored or lost cases; 130: interrupted."""
         if self.outcome.interrupted:
             return 130
         good = all(self.outcome.succeeded(r) for r in self.outcome.results.values())
-        return 0 if good and not self.outcome.lost else 1
+        return 0 if good and not self.outcome.lost else EXIT_FINDINGS
 
 
 # ---------------------------------------------------------------- one case
@@ -99,10 +99,10 @@ class RunOptions:
     """What every case's run shares (besides the artifact): the ``linz sim`` options not drawn."""
 
     source: str
-    integrator: str = "rk4"
-    backend: str = "native"
-    physics: str = "model"
-    substeps: int = 4
+    integrator: str = SimRequest.integrator
+    backend: str = SimRequest.backend
+    physics: str = SimRequest.physics
+    substeps: int = SimRequest.substeps
     force_initial: bool = False
     allow_plant_change: bool = False
     trusted_keys: tuple[str, ...] = ()
@@ -304,6 +304,14 @@ def _check_first_cases(artifact: Any, spec: CampaignSpec, cases: list[Case], opt
 
     from linz_ros.runtime import simulate
 
+    class Checked(Exception):
+        """Raised at the run's first step: every setting was checked by then."""
+
+    def stop(fraction: float) -> None:
+        raise Checked
+
+    factor = spec.factor("delay", "delay")
+    longest = spec.delay if factor is None else factor.high        # the range, not only the cases drawn
     seen: set[str] = set()
     for case in cases:
         if case.reference in seen:
@@ -312,8 +320,11 @@ def _check_first_cases(artifact: Any, spec: CampaignSpec, cases: list[Case], opt
         request.initial, request.force_initial = [], True
         try:
             settings = run_settings(artifact, request)
-            if not seen:      # the first case for two periods: the plant, physics and integration settings
-                simulate(artifact, dataclasses.replace(settings, duration=2.0 / artifact.rate, delay=0.0))
+            if not seen:      # linz sim's own checks of the run (length, delay, plant, physics, integration)
+                try:
+                    simulate(artifact, dataclasses.replace(settings, delay=longest), progress=stop)
+                except Checked:
+                    pass
         except ConfigError as err:
             key = _SECTION_KEYS.get(err.field)
             if key is None:
@@ -349,13 +360,18 @@ def run_campaign(request: CampaignRequest) -> CampaignRun:
     spec = read_campaign(section, artifact, where)
     overrides = {k: v for k, v in (("runs", request.runs), ("seed", request.seed)) if v is not None}
     if overrides:
-        spec = read_campaign({**(section or {}), **overrides}, artifact, where)
+        try:
+            spec = read_campaign({**(section or {}), **overrides}, artifact, where)
+        except ConfigError as err:        # the section passed above: the option is what is wrong
+            key = err.field.rpartition(".")[2]
+            raise (ConfigError(f"--{key}", err.problem) if key in overrides else err) from None
     out = Path(request.out or Path(DEFAULT_OUT) / f"{artifact.name}-campaign")
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as err:
         raise ConfigError("--out", f"cannot write to {out}: {err.strerror}") from None
-    artifact_path = _artifact_file(request, loaded, out)
+    artifact_path = _artifact_file(request, loaded, out).resolve()      # a rerun works from any folder
+    shipped, artifact = _shipped(artifact_path, artifact, built=loaded.document is not None)
     options = RunOptions(source=str(artifact_path), integrator=request.integrator, backend=request.backend,
                          physics=request.physics, substeps=request.substeps,
                          force_initial=_outside_envelope(spec, artifact),
@@ -368,7 +384,7 @@ def run_campaign(request: CampaignRequest) -> CampaignRun:
     bar = ProgressBar(request.progress, f"campaign {artifact.name}")
     started = time.perf_counter()
     try:
-        execution = run_tasks(prepare_case_context, run_case, Shipment.of(artifact_path.read_text()),
+        execution = run_tasks(prepare_case_context, run_case, Shipment.of(shipped),
                               [CaseItem(spec, c, options) for c in cases], settings,
                               lambda done, total: bar(done / total, f"{done}/{total} runs "))
     finally:
@@ -377,15 +393,34 @@ def run_campaign(request: CampaignRequest) -> CampaignRun:
     if options.force_initial:
         outcome.notes.append("initial ranges reach outside the envelope: every run was started with --force-initial")
     summary = campaign_summary(outcome, artifact, request.worst)
+    summary["files"] = [str(artifact_path)] * (loaded.document is not None) + [str(out / "summary.json")]
     try:
-        files = write_campaign_files(outcome, artifact, summary, out) if request.plots else []
-        files = [p for p in files if p.name != "summary.json"]
-        summary["files"] = [str(artifact_path)] * (loaded.document is not None) + [str(f) for f in files] \
-            + [str(out / "summary.json")]
+        # the summary first: a Ctrl-C while the plots are drawn keeps it (and says the files stopped)
         (out / "summary.json").write_text(json.dumps(summary, indent=2) + "\n")
+        if request.plots:
+            files = write_campaign_files(outcome, artifact, summary, out)
+            summary["files"][-1:-1] = [str(f) for f in files if f.name != "summary.json"]
+            (out / "summary.json").write_text(json.dumps(summary, indent=2) + "\n")
+    except KeyboardInterrupt:
+        outcome.interrupted = True
+        summary["notes"] = list(summary.get("notes", [])) + ["interrupted while writing the report files: "
+                                                             "summary.json holds every result"]
     except OSError as err:
         raise ConfigError("--out", f"cannot write to {out}: {err.strerror}") from None
     return CampaignRun(summary, outcome, out)
+
+
+def _shipped(path: Path, artifact: Any, built: bool) -> tuple[str, Any]:
+    """The text shipped to the workers and the artifact it holds: the very file the reruns name.
+
+    A loaded artifact must still be the one checked here (hash, signature); one built here is the
+    file just written (which records where its plant file is, so it has a hash of its own).
+    """
+    text = path.read_text()
+    shipped = prepare_case_context(text)
+    if not built and shipped.sha256 != artifact.sha256:
+        raise ConfigError(str(path), "changed while the campaign was being set up; run it again")
+    return text, shipped
 
 
 def _outcome(spec: CampaignSpec, cases: list[Case], execution: Any, options: RunOptions, artifact_path: str,
@@ -397,6 +432,8 @@ def _outcome(spec: CampaignSpec, cases: list[Case], execution: Any, options: Run
             lost[index] = task.lost
         elif task.refused is not None:
             results[index] = CaseResult(index, REFUSED, None, task.refused, None)
+        elif task.error is not None:
+            results[index] = CaseResult(index, ERRORED, None, task.error, None)
         else:
             results[index] = task.value
     rerun = {c.index: rerun_command(case_request(spec, c, options)) for c in cases}

@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
+from linz_ros.commands._common import EXIT_FINDINGS
 from linz_ros.errors import ConfigError
 from linz_ros.executor import DEFAULT_ATTEMPTS
 
@@ -194,8 +195,11 @@ class FleetReport:
 
     @property
     def exit_code(self) -> int:
-        """130: interrupted; 1: a recording failed or was lost (or an entry was no regular file); else 0."""
-        return 130 if self.interrupted else (1 if self.summary["problems"] else 0)
+        """130: interrupted; 3: a recording failed, was lost or ended other than ``tracked`` (or an
+        entry was no regular file); else 0."""
+        if self.interrupted:
+            return 130
+        return EXIT_FINDINGS if self.summary["problems"] or self.summary["totals"]["not_tracked"] else 0
 
 
 def _fleet_outcomes(recordings: list[Any], execution: Any) -> tuple[list[Any], list[dict[str, Any]], list[dict]]:
@@ -209,6 +213,8 @@ def _fleet_outcomes(recordings: list[Any], execution: Any) -> tuple[list[Any], l
             not_run.append(not_run_entry(recording))
         elif outcome.refused is not None:
             problems.append(recording_problem(recording, outcome.refused))
+        elif outcome.error is not None:            # a fault of linz_ros while reading it: said, never hidden
+            problems.append(recording_problem(recording, f"unexpected error: {outcome.error}"))
         elif outcome.lost is not None:
             problems.append(recording_problem(recording, f"lost: {outcome.lost}"))
         else:
@@ -216,11 +222,28 @@ def _fleet_outcomes(recordings: list[Any], execution: Any) -> tuple[list[Any], l
     return digests, problems, not_run
 
 
-def _write_fleet(out: Path, summary: dict[str, Any]) -> list[Path]:
+def _write_fleet(out: Path, summary: dict[str, Any]) -> tuple[list[Path], bool]:
+    """``fleet.json`` first, then the CSV and HTML; Ctrl-C while those are written leaves
+    ``fleet.json`` whole and removes the half-written tables.
+
+    Returns the files written and whether Ctrl-C came while the tables were written.
+    """
     from linz_ros.logs.fleet_report import FLEET_JSON, write_fleet_csv, write_fleet_html
 
-    (out / FLEET_JSON).write_text(json.dumps(summary, indent=2))
-    return [out / FLEET_JSON, write_fleet_csv(summary, out / "fleet.csv"), write_fleet_html(summary, out / "fleet.html")]
+    try:
+        (out / FLEET_JSON).write_text(json.dumps(summary, indent=2))
+        files = [out / FLEET_JSON]
+        try:
+            for write, name in ((write_fleet_csv, "fleet.csv"), (write_fleet_html, "fleet.html")):
+                files.append(write(summary, out / name))
+        except KeyboardInterrupt:
+            for name in ("fleet.csv", "fleet.html"):
+                if out / name not in files:
+                    (out / name).unlink(missing_ok=True)
+            return files, True
+    except OSError as err:
+        raise ConfigError("--fleet", f"cannot write {err.filename or out}: {err.strerror}") from None
+    return files, False
 
 
 def _fleet_artifact(path: str | None) -> str | None:
@@ -241,7 +264,8 @@ def fleet_report(request: FleetRequest) -> FleetReport:
     The fleet folder is checked and made ready first (:func:`~linz_ros.logs.fleet_report.prepare_fleet_folder`);
     each recording's reports are written as it finishes. A recording that cannot be read
     is one line of the summary's problems, never the end of the run; Ctrl-C keeps and
-    writes what finished (``interrupted``) and names what did not run.
+    writes what finished (``interrupted``) and names what did not run. ``fleet.json`` is
+    written first: Ctrl-C while the CSV and HTML are written leaves it (``interrupted``).
 
     Parameters
     ----------
@@ -288,17 +312,18 @@ def fleet_report(request: FleetRequest) -> FleetReport:
     summary = fleet_summary(digests, problems, not_run)
     summary["execution"] = {"where": execution.where, "workers": execution.workers,
                             "interrupted": execution.interrupted, "seconds": time.monotonic() - started}
-    try:
-        files = _write_fleet(out, summary)
-    except OSError as err:
-        raise ConfigError("--fleet", f"cannot write {err.filename or out}: {err.strerror}") from None
-    return FleetReport(summary, fleet_text(summary, safe=terminal_safe), files, execution.interrupted)
+    text = fleet_text(summary, safe=terminal_safe)
+    files, cut = _write_fleet(out, summary)
+    if cut:
+        text += ("\nINTERRUPTED while writing the fleet's tables: fleet.json is whole, fleet.csv or fleet.html "
+                 "not written")
+    return FleetReport(summary, text, files, execution.interrupted or cut)
 
 
 #: Options of the fleet mode only, and whether each was given (parsed options by name).
 _FLEET_ONLY = {"--workers": lambda o: o.get("workers") is not None,
                "--scheduler": lambda o: o.get("scheduler") is not None,
-               "--attempts": lambda o: o.get("attempts") not in (None, DEFAULT_ATTEMPTS),
+               "--attempts": lambda o: o.get("attempts") is not None,
                "--no-plots": lambda o: bool(o.get("no_plots")), "--no-csv": lambda o: bool(o.get("no_csv")),
                "--progress": lambda o: bool(o.get("progress"))}
 
@@ -317,8 +342,9 @@ def run_logs_options(options: Mapping[str, Any], terminal: bool = False) -> tupl
     Returns
     -------
     tuple of (str, int)
-        The text to print and the exit code (fleet mode: 1 when a recording failed or was
-        lost, 130 when interrupted by Ctrl-C).
+        The text to print and the exit code: 0 for one reading whatever its verdict; in the
+        fleet mode 3 when a recording failed, was lost or ended other than ``tracked``, 130
+        when interrupted by Ctrl-C (what finished is reported), else 0.
 
     Raises
     ------
@@ -340,6 +366,7 @@ def run_logs_options(options: Mapping[str, Any], terminal: bool = False) -> tupl
     progress = o.get("progress")
     fleet = fleet_report(FleetRequest(
         o["paths"], o["fleet"], artifact=o.get("artifact"), workers=o.get("workers"), scheduler=o.get("scheduler"),
-        attempts=o.get("attempts") or DEFAULT_ATTEMPTS, plots=not o.get("no_plots"), csv=not o.get("no_csv"),
+        attempts=DEFAULT_ATTEMPTS if o.get("attempts") is None else o["attempts"],
+        plots=not o.get("no_plots"), csv=not o.get("no_csv"),
         progress=bool(terminal if progress is None else progress)))
     return render_logs(fleet, as_json=bool(o.get("json"))), fleet.exit_code

@@ -129,7 +129,9 @@ class TaskOutcome:
     value : Any
         The task's result (None unless it finished).
     refused : str, optional
-        The one line of the error the task raised for its input (or of an unexpected error).
+        The one line of the ``LinzError`` the task raised for its input.
+    error : str, optional
+        An unexpected exception of the task (a fault, not the input's): its type and message.
     lost : str, optional
         Why the task was given up after its worker died on every attempt.
     attempts : int
@@ -140,6 +142,28 @@ class TaskOutcome:
     refused: str | None = None
     lost: str | None = None
     attempts: int = 1
+    error: str | None = None
+
+    @classmethod
+    def of(cls, index: int, status: str, value: Any, attempts: int) -> "TaskOutcome":
+        """The outcome of a task that came back with ``call_task``'s status and value.
+
+        Parameters
+        ----------
+        index : int
+        status : {"ok", "refused", "error"}
+        value : Any
+        attempts : int
+
+        Returns
+        -------
+        TaskOutcome
+        """
+        if status == "ok":
+            return cls(index, value=value, attempts=attempts)
+        if status == "refused":
+            return cls(index, refused=value, attempts=attempts)
+        return cls(index, error=value, attempts=attempts)
 
 
 @dataclass
@@ -230,7 +254,7 @@ class _Book:
         self.progress, self.keep, self.total = progress, keep, total
 
     def enter(self, execution: Execution, outcome: TaskOutcome) -> None:
-        if self.keep is not None and outcome.lost is None and outcome.refused is None:
+        if self.keep is not None and outcome.lost is None and outcome.refused is None and outcome.error is None:
             outcome.value = self.keep(outcome)
         execution.outcomes[outcome.index] = outcome
         if self.progress is not None:

@@ -86,9 +86,9 @@ def dask_task(prepare: Callable[[str], Any], task: Callable[[Any, Any], Any], sh
 
 def _workers(client: Any) -> int:
     try:
-        return max(1, len(client.scheduler_info().get("workers", {})))
+        return len(client.scheduler_info().get("workers", {}))
     except Exception:  # noqa: BLE001 - only said in the report
-        return 1
+        return 0
 
 
 def run_on_dask(address: str, prepare: Callable[[str], Any], task: Callable[[Any, Any], Any], shipment: Shipment,
@@ -121,6 +121,12 @@ def run_on_dask(address: str, prepare: Callable[[str], Any], task: Callable[[Any
     import uuid
 
     client = _client(address)
+    try:
+        client.wait_for_workers(1, timeout=CONNECT_SECONDS)
+    except Exception:  # noqa: BLE001 - a timeout, whatever dask names it
+        client.close()
+        raise ConfigError("--scheduler", f"the Dask scheduler at {address[:120]} has no workers "
+                                         f"(none joined within {CONNECT_SECONDS:g} s)") from None
     execution = Execution(where=f"dask scheduler {address}", workers=_workers(client))
     run = uuid.uuid4().hex[:12]       # keys of this run only: another run on the scheduler never shares them
     attempts = [0] * len(items)
@@ -131,7 +137,10 @@ def run_on_dask(address: str, prepare: Callable[[str], Any], task: Callable[[Any
         # every worker holds a copy; when the workers holding it all died the scheduler forgets it
         # (and cancels the tasks that needed it): send it again before the next submission
         if not shared or shared[0].status != "finished":
-            shared[:] = [client.scatter(shipment, broadcast=True, hash=False)]
+            try:
+                shared[:] = [client.scatter(shipment, broadcast=True, hash=False, timeout=CONNECT_SECONDS)]
+            except Exception as err:  # noqa: BLE001 - no worker left to hold it
+                raise _NoWorkers(f"{type(err).__name__}: {str(err)[:160]}") from None
         return shared[0]
 
     try:
@@ -157,12 +166,20 @@ def run_on_dask(address: str, prepare: Callable[[str], Any], task: Callable[[Any
             else:
                 if status == "shipment":
                     raise ShipmentError(value)
-                book.enter(execution, TaskOutcome(index, value=value, attempts=attempts[index]) if status == "ok"
-                           else TaskOutcome(index, refused=value, attempts=attempts[index]))
+                book.enter(execution, TaskOutcome.of(index, status, value, attempts[index]))
     except KeyboardInterrupt:
         execution.interrupted = True
+    except _NoWorkers as why:          # every task not finished is lost, and said so; the finished ones are kept
+        for index in range(len(items)):
+            if index not in execution.outcomes:
+                book.enter(execution, TaskOutcome(index, lost=f"the cluster had no worker left to run it ({why})",
+                                                  attempts=attempts[index]))
     finally:
         if futures:
             client.cancel(list(futures))
         client.close()
     return execution
+
+
+class _NoWorkers(Exception):
+    """The shipment could not be placed on any worker."""

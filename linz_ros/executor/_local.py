@@ -95,9 +95,7 @@ class _Run:
         worker.index = None
         if status == "shipment":
             raise ShipmentError(value)
-        attempts = self.attempts[index]
-        self.finish(TaskOutcome(index, value=value, attempts=attempts) if status == "ok"
-                    else TaskOutcome(index, refused=value, attempts=attempts))
+        self.finish(TaskOutcome.of(index, status, value, self.attempts[index]))
 
     def worker_died(self, worker: _Worker) -> None:
         index, worker.index = worker.index, None

@@ -1,4 +1,6 @@
-"""What a field log says: near-singular and saturation episodes, mode switches, refused
+"""Over 500 lines because every part of one log's summary shares the episode and time rules here.
+
+What a field log says: near-singular and saturation episodes, mode switches, refused
 states, dropped records and compute-time percentiles.
 
 An episode is a maximal run of consecutive records that meet a condition (sigma_min under
@@ -24,7 +26,7 @@ from linz_ros.runtime.steprecord import ACTED_MODES, codes, saturation_bits
 from linz_ros.runtime.verdict import Verdict, error_statistics, run_verdict
 
 __all__ = ["Episode", "Thresholds", "as_sim_result", "control_gaps", "episodes", "gap_ends", "summarise",
-           "thresholds_of", "log_verdict", "tracking", "near_singular_masks"]
+           "thresholds_of", "log_verdict", "tracking", "near_singular_masks", "record_durations"]
 
 _REFUSED = ("wrong_length", "non_finite_state", "bad_reference", "bad_time", "out_of_order", "stale",
             "future_stamp", "model_not_finite", "non_finite_command", "no_state", "bad_message")
@@ -154,6 +156,26 @@ def _period(t: np.ndarray) -> float:
         steps = np.diff(t)
     steps = steps[np.isfinite(steps) & (steps > 0)]
     return float(np.median(steps)) if len(steps) else 0.0
+
+
+@_quiet_nonfinite
+def record_durations(t: np.ndarray) -> np.ndarray:
+    """Each record's time up to the next (the last: one median period); a summary's ``duration`` is their sum.
+
+    A non-finite time counts as the one before it (as in :func:`episodes`), a step back as zero.
+
+    Parameters
+    ----------
+    t : numpy.ndarray
+        Step times.
+
+    Returns
+    -------
+    numpy.ndarray
+    """
+    times = _finite_times(np.asarray(t, dtype=float))
+    steps = np.diff(times, append=times[-1:] + _period(np.asarray(t, dtype=float)))
+    return np.where(np.isfinite(steps) & (steps > 0), steps, 0.0)
 
 
 @_quiet_nonfinite
@@ -469,7 +491,7 @@ def summarise(log: StepLog, artifact: Artifact | None = None) -> dict[str, Any]:
         "records": len(log),
         "start": float(t[0]) if len(t) else None,
         "end": float(t[-1]) if len(t) else None,
-        "duration": float(t[-1] - t[0] + period) if len(t) else 0.0,
+        "duration": float(record_durations(t).sum()),
         "rate_hz": 1.0 / period if period > 0 else None,
         "plant": log.metadata.get("linz_artifact", {}).get("plant"),
         "states_recorded": bool(log.names("x")),

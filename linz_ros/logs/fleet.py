@@ -27,7 +27,7 @@ import numpy as np
 
 from linz_ros.artifact import Artifact, artifact_from_text
 from linz_ros.errors import LinzError
-from linz_ros.logs.analysis import episodes, near_singular_masks, runs, summarise, thresholds_of
+from linz_ros.logs.analysis import episodes, near_singular_masks, record_durations, runs, summarise, thresholds_of
 from linz_ros.logs.fleet_group import UNKNOWN_DAY, Recording, group_recordings, read_identity
 from linz_ros.logs.fleet_report import fleet_text
 from linz_ros.logs.fleet_summary import WORST, fleet_summary, not_run_entry, recording_problem, worst_key
@@ -232,16 +232,6 @@ def _record_days(log: StepLog, fallback: str) -> tuple[list[str], np.ndarray]:
     return merged, np.array([merged.index(n) for n in names], dtype=np.int64)[inverse]
 
 
-def _weights(log: StepLog, period: float) -> np.ndarray:
-    """Each record's time up to the next (the last: one period), as ``summarise`` sums durations."""
-    t = log.column("t")
-    if not len(t):
-        return np.zeros(0)
-    with np.errstate(invalid="ignore", over="ignore"):
-        step = np.diff(t, append=t[-1] + period)
-        return np.where(np.isfinite(step) & (step > 0), step, 0.0)
-
-
 def _worst_episodes(log: StepLog, mask: np.ndarray, under_act: np.ndarray, recording: Recording,
                     day_of: Callable[[int], str]) -> list[dict[str, Any]]:
     """Every episode under the warn level, lowest sigma_min first, each with its UTC time and day."""
@@ -256,12 +246,12 @@ def _worst_episodes(log: StepLog, mask: np.ndarray, under_act: np.ndarray, recor
     return sorted(found, key=worst_key)
 
 
-def _split_by_day(log: StepLog, artifact: Artifact | None, recording: Recording,
-                  period: float) -> tuple[str, dict[str, dict[str, Any]], list[dict[str, Any]]]:
+def _split_by_day(log: StepLog, artifact: Artifact | None,
+                  recording: Recording) -> tuple[str, dict[str, dict[str, Any]], list[dict[str, Any]]]:
     """The recording's day, its per-UTC-day numbers and its worst episodes."""
     under_warn, under_act = near_singular_masks(log, thresholds_of(log, artifact))
     names, index = _record_days(log, recording.day)
-    weights = _weights(log, period)
+    weights = record_durations(log.column("t"))
     size = len(names)
 
     def starts(mask: np.ndarray) -> np.ndarray:
@@ -308,8 +298,7 @@ def analyse_recording(options: FleetOptions, recording: Recording) -> RecordingD
     near = summary["near_singular"]
     problems = (list(recording.problems) + list(summary["problems"])
                 + [f"{f}: not closed cleanly (cut by a crash?)" for f in summary["cut_files"]])
-    period = 1.0 / summary["rate_hz"] if summary["rate_hz"] else 0.0
-    day, days, worst = _split_by_day(log, artifact, recording, period)
+    day, days, worst = _split_by_day(log, artifact, recording)
     return RecordingDigest(
         name=recording.name, recording=recording.recording, machine=recording.machine, files=list(recording.files),
         day=day, plant=summary["plant"], records=summary["records"],

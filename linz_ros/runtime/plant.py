@@ -15,7 +15,7 @@ from linz_ros.artifact.document import Artifact
 from linz_ros.errors import ConfigError
 from linz_ros.runtime._linalg import spd_solve
 
-__all__ = ["NumericPlant", "mismatched_parameters", "parse_assignments", "IntegrationBudgetError",
+__all__ = ["NumericPlant", "mismatched_parameters", "mismatch_problem", "parse_assignments", "IntegrationBudgetError",
            "MAX_ADAPTIVE_EVALUATIONS"]
 
 
@@ -60,6 +60,22 @@ def parse_assignments(items: Sequence[str], option: str) -> dict[str, float]:
     return result
 
 
+def mismatch_problem(percent: float) -> str | None:
+    """What is wrong with a parameter change of ``percent`` (None: a mismatched machine, not another one).
+
+    Parameters
+    ----------
+    percent : float
+
+    Returns
+    -------
+    str or None
+    """
+    if percent > -100.0:
+        return None
+    return "a change of -100 % or less zeroes the parameter or flips its sign; expected more than -100"
+
+
 def mismatched_parameters(artifact: Artifact, percent: Mapping[str, float]) -> list[float]:
     """Nominal parameters changed by the given percentages (``all`` applies to every one).
 
@@ -87,10 +103,9 @@ def mismatched_parameters(artifact: Artifact, percent: Mapping[str, float]) -> l
     for name, value in percent.items():
         if not math.isfinite(value):
             raise ConfigError("--mismatch", f"{name}: expected a finite percentage, got {value}")
-    too_low = [k for k, v in percent.items() if not v > -100.0]
+    too_low = [k for k, v in percent.items() if mismatch_problem(v)]
     if too_low:
-        raise ConfigError("--mismatch", f"{too_low[0]}={percent[too_low[0]]:g}: a change of -100 % or less zeroes "
-                                        "the parameter or flips its sign; expected more than -100")
+        raise ConfigError("--mismatch", f"{too_low[0]}={percent[too_low[0]]:g}: {mismatch_problem(percent[too_low[0]])}")
     common = percent.get("all", 0.0)
     return [value * (1.0 + percent.get(name, common) / 100.0)
             for name, value in zip(names, artifact.nominal_parameters.tolist())]
