@@ -114,6 +114,17 @@ def _add_design_options(parser: argparse.ArgumentParser) -> None:
     group.add_argument("--linearizing-output", metavar="EXPR", help="T1 for input-state linearization")
 
 
+def _add_run_options(parser: argparse.ArgumentParser) -> None:
+    """How a closed-loop run integrates and what runs it (linz sim, and every run of linz campaign)."""
+    parser.add_argument("--integrator", choices=("rk4", "scipy"), default="rk4",
+                        help="rk4: fixed-step RK4 sub-steps (default); scipy: adaptive RK45")
+    parser.add_argument("--substeps", type=_positive_int, default=4, help="RK4 steps per control period (default 4)")
+    _add_backend(parser, "the control step and the plant")
+    parser.add_argument("--physics", default="model", metavar="NAME",
+                        help="the plant: model (our integrator of the artifact's dynamics, the default) or mujoco "
+                             "(MuJoCo on the arm's URDF: joint limits, damping and friction by the engine)")
+
+
 def _add_backend(parser: argparse.ArgumentParser, what: str) -> None:
     # the names are checked where they live (linz_ros.runtime.native.BACKENDS), not here: importing the
     # runtime would slow every command's start
@@ -166,10 +177,7 @@ def _add_campaign(verbs) -> None:
     campaign.add_argument("--seed", type=_nonnegative_int, default=None, help="campaign seed (overrides the section)")
     campaign.add_argument("--worst", type=_nonnegative_int, default=5, help="worst cases listed (default 5)")
     _add_executor_options(campaign)
-    campaign.add_argument("--integrator", choices=("rk4", "scipy"), default="rk4", help="as linz sim")
-    campaign.add_argument("--substeps", type=_positive_int, default=4, help="RK4 steps per control period (default 4)")
-    _add_backend(campaign, "the control step and the plant of every run")
-    campaign.add_argument("--physics", default="model", metavar="NAME", help="model (default) or mujoco, as linz sim")
+    _add_run_options(campaign)
     campaign.add_argument("--no-plots", action="store_true", help="skip the CSV, PNG and HTML files")
     campaign.add_argument("--progress", action="store_true", default=None,
                           help="show a progress bar even when stderr is not a terminal")
@@ -240,13 +248,7 @@ def _build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--watchdog", action="append", default=[], metavar="SETTING=VALUE",
                      help="override a watchdog setting for this run (e.g. envelope_action=warn, "
                           "divergence_time=1; lists as comma-separated values)")
-    sim.add_argument("--integrator", choices=("rk4", "scipy"), default="rk4",
-                     help="rk4: fixed-step RK4 sub-steps (default); scipy: adaptive RK45")
-    sim.add_argument("--substeps", type=_positive_int, default=4, help="RK4 steps per control period (default 4)")
-    _add_backend(sim, "the control step and the plant")
-    sim.add_argument("--physics", default="model", metavar="NAME",
-                     help="the plant: model (our integrator of the artifact's dynamics, the default) or mujoco "
-                          "(MuJoCo on the arm's URDF: joint limits, damping and friction by the engine)")
+    _add_run_options(sim)
     sim.add_argument("--seed", type=_nonnegative_int, default=1, help="noise seed (a whole number >= 0)")
     sim.add_argument("--no-plots", action="store_true", help="skip the PNG plots")
     sim.add_argument("--progress", action="store_true", default=None,
@@ -449,8 +451,7 @@ def _run_wire(args: argparse.Namespace) -> int:
 
 #: Options naming a file or folder: an empty name would silently mean the current folder, or nothing.
 _PATH_OPTIONS = (("out", "--out"), ("bringup", "--bringup"), ("field_log", "--field-log"), ("folder", "keygen"),
-                 ("campaign", "--campaign"), ("fleet", "--fleet"),
-                 ("sign_key", "--sign-key"),
+                 ("campaign", "--campaign"), ("fleet", "--fleet"), ("sign_key", "--sign-key"),
                  ("trusted_key", "--trusted-key"))
 
 
