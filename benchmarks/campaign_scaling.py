@@ -30,7 +30,8 @@ from pathlib import Path
 
 from linz_ros.artifact import load_artifact
 from linz_ros.campaign.spec import draw_cases, read_campaign
-from linz_ros.commands.campaign import CaseItem, RunOptions, prepare_case_context, run_case
+from linz_ros.commands.campaign import CaseItem, prepare_case_context, run_case
+from linz_ros.commands.sim import SimRequest
 from linz_ros.executor import ExecutorSettings, Shipment, run_tasks
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -40,8 +41,8 @@ def _items(artifact_path: Path, runs: int, duration: float) -> list[CaseItem]:
     artifact = load_artifact(artifact_path)
     spec = read_campaign({"runs": runs, "seed": 5, "duration": duration, "mismatch": {"m2": [-15, 15]}},
                          artifact, "benchmark")
-    options = RunOptions(source=str(artifact_path))
-    return [CaseItem(spec, case, options) for case in draw_cases(spec)]
+    base = SimRequest(str(artifact_path))
+    return [CaseItem(spec, case, base) for case in draw_cases(spec)]
 
 
 def _plain_loop(artifact_path: Path, items: list[CaseItem]) -> tuple[float, list]:

@@ -19,8 +19,9 @@ from linz_ros.artifact import load_artifact
 from linz_ros.campaign.spec import draw_cases, read_campaign
 from linz_ros.cli import parse, sim_request
 from linz_ros.commands import campaign as campaign_command
-from linz_ros.commands.campaign import (CampaignRequest, CaseItem, RunOptions, case_request, rerun_command,
+from linz_ros.commands.campaign import (CampaignRequest, CaseItem, case_request, rerun_command,
                                         run_campaign, run_case)
+from linz_ros.commands.sim import SimRequest
 from linz_ros.errors import ConfigError
 from support import BUNDLED, built_artifact_file
 
@@ -73,7 +74,7 @@ def test_a_rerun_command_parses_back_to_the_request_of_its_case(arm_file):
                           "references": ["step:tool_x=0.01,at=0.3"], "watchdog": {"envelope_action": "warn",
                                                                                     "divergence_time": 1}},
                          artifact, "c")
-    options = RunOptions(source=str(arm_file), backend="python", substeps=6, force_initial=True)
+    options = SimRequest(str(arm_file), backend="python", substeps=6, force_initial=True)
     for case in draw_cases(spec):
         request = case_request(spec, case, options)
         words = shlex.split(rerun_command(request))
@@ -240,7 +241,7 @@ def test_the_command_line_says_mistakes_in_one_line(arm_file, tmp_path):
 def test_a_start_on_the_singular_set_is_held_safe_and_a_run_that_cannot_start_is_refused(arm_file):
     """Straight elbow (q2 = 0): det A = 0 (sin q2 = 0), the singularity watchdog holds from the first step."""
     artifact = load_artifact(arm_file)
-    options = RunOptions(source=str(arm_file), force_initial=True)
+    options = SimRequest(str(arm_file), force_initial=True)
     spec = read_campaign({"runs": 1, "initial": {"q2": 0.0}, "duration": 0.5}, artifact, "c")
     result = run_case(artifact, CaseItem(spec, draw_cases(spec)[0], options))
     assert (result.verdict, result.verdict_at) == ("held_safe", 0.0) and result.min_sigma < 1e-12

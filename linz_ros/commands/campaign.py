@@ -8,6 +8,7 @@ or a Dask cluster (:mod:`linz_ros.executor`), which receive the artifact by cont
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 import shlex
@@ -94,33 +95,21 @@ class CampaignRun:
 
 # ---------------------------------------------------------------- one case
 
-@dataclass(frozen=True)
-class RunOptions:
-    """What every case's run shares (besides the artifact): the ``linz sim`` options not drawn."""
-
-    source: str
-    integrator: str = SimRequest.integrator
-    backend: str = SimRequest.backend
-    physics: str = SimRequest.physics
-    substeps: int = SimRequest.substeps
-    force_initial: bool = False
-    allow_plant_change: bool = False
-    trusted_keys: tuple[str, ...] = ()
-
-
 def _number_text(value: float) -> str:
     """A float as text that reads back to the same float (Python's shortest round-trip repr)."""
     return repr(float(value))
 
 
-def case_request(spec: CampaignSpec, case: Case, options: RunOptions) -> SimRequest:
-    """The ``linz sim`` request of one case.
+def case_request(spec: CampaignSpec, case: Case, base: SimRequest) -> SimRequest:
+    """The ``linz sim`` request of one case: the campaign's shared request with the case's own values.
 
     Parameters
     ----------
     spec : CampaignSpec
     case : Case
-    options : RunOptions
+    base : SimRequest
+        What every case shares (artifact, integrator, backend, physics, sub-steps, forced start,
+        plant-change and key options); the rest is the case's.
 
     Returns
     -------
@@ -128,12 +117,9 @@ def case_request(spec: CampaignSpec, case: Case, options: RunOptions) -> SimRequ
     """
     initial = [f"{k}={_number_text(v)}" for k, v in case.of_kind(spec, "initial").items()]
     mismatch = [f"{k}={_number_text(v)}" for k, v in case.of_kind(spec, "mismatch").items()]
-    return SimRequest(source=options.source, duration=spec.duration, reference=case.reference or None,
-                      mismatch=mismatch, noise=list(spec.noise), delay=float(case.delay(spec)), initial=initial,
-                      force_initial=options.force_initial, watchdog=list(spec.watchdog),
-                      integrator=options.integrator, backend=options.backend, physics=options.physics,
-                      substeps=options.substeps, seed=case.seed, plots=False,
-                      allow_plant_change=options.allow_plant_change, trusted_keys=list(options.trusted_keys))
+    return dataclasses.replace(base, duration=spec.duration, reference=case.reference or None, mismatch=mismatch,
+                               noise=list(spec.noise), delay=float(case.delay(spec)), initial=initial,
+                               watchdog=list(spec.watchdog), seed=case.seed, plots=False)
 
 
 def rerun_command(request: SimRequest) -> str:
@@ -172,11 +158,11 @@ def rerun_command(request: SimRequest) -> str:
 
 @dataclass(frozen=True)
 class CaseItem:
-    """What a worker receives for one case: the case and the run options it needs."""
+    """What a worker receives for one case: the case and the request every case shares."""
 
     spec: CampaignSpec
     case: Case
-    options: RunOptions
+    base: SimRequest
 
 
 def prepare_case_context(text: str) -> Any:
@@ -212,7 +198,7 @@ def run_case(artifact: Any, item: CaseItem) -> CaseResult:
     from linz_ros.errors import LinzError
     from linz_ros.runtime import simulate
 
-    request = case_request(item.spec, item.case, item.options)
+    request = case_request(item.spec, item.case, item.base)
     try:
         settings = run_settings(artifact, request)
         result = simulate(artifact, settings)
@@ -293,15 +279,13 @@ _SECTION_KEYS = {"--reference": "references", "--noise": "noise", "--watchdog": 
                  "--duration": "duration", "--initial": "initial", "--mismatch": "mismatch"}
 
 
-def _check_first_cases(artifact: Any, spec: CampaignSpec, cases: list[Case], options: RunOptions) -> None:
+def _check_first_cases(artifact: Any, spec: CampaignSpec, cases: list[Case], base: SimRequest) -> None:
     """Settings every case shares (noise, watchdog, references) checked once here: a mistake is one line
     naming the section's key.
 
     Each reference is tried from the operating point; a case whose own state refuses it is
     reported as refused instead.
     """
-    import dataclasses
-
     from linz_ros.runtime import simulate
 
     class Checked(Exception):
@@ -316,7 +300,7 @@ def _check_first_cases(artifact: Any, spec: CampaignSpec, cases: list[Case], opt
     for case in cases:
         if case.reference in seen:
             continue
-        request = case_request(spec, case, options)
+        request = case_request(spec, case, base)
         request.initial, request.force_initial = [], True
         try:
             settings = run_settings(artifact, request)
@@ -372,25 +356,25 @@ def run_campaign(request: CampaignRequest) -> CampaignRun:
         raise ConfigError("--out", f"cannot write to {out}: {err.strerror}") from None
     artifact_path = _artifact_file(request, loaded, out).resolve()      # a rerun works from any folder
     shipped, artifact = _shipped(artifact_path, artifact, built=loaded.document is not None)
-    options = RunOptions(source=str(artifact_path), integrator=request.integrator, backend=request.backend,
-                         physics=request.physics, substeps=request.substeps,
-                         force_initial=_outside_envelope(spec, artifact),
-                         allow_plant_change=request.allow_plant_change, trusted_keys=tuple(request.trusted_keys))
+    base = SimRequest(str(artifact_path), integrator=request.integrator, backend=request.backend,
+                      physics=request.physics, substeps=request.substeps,
+                      force_initial=_outside_envelope(spec, artifact),
+                      allow_plant_change=request.allow_plant_change, trusted_keys=list(request.trusted_keys))
     if request.physics == "mujoco" and scheduler_address(settings) is not None:
         raise ConfigError("--physics", "mujoco reads the arm's URDF beside the recorded plant file, which Dask "
                                        "workers need not see; run it on local workers (without --scheduler)")
     cases = draw_cases(spec)
-    _check_first_cases(artifact, spec, cases, options)
+    _check_first_cases(artifact, spec, cases, base)
     bar = ProgressBar(request.progress, f"campaign {artifact.name}")
     started = time.perf_counter()
     try:
         execution = run_tasks(prepare_case_context, run_case, Shipment.of(shipped),
-                              [CaseItem(spec, c, options) for c in cases], settings,
+                              [CaseItem(spec, c, base) for c in cases], settings,
                               lambda done, total: bar(done / total, f"{done}/{total} runs "))
     finally:
         bar.close()
-    outcome = _outcome(spec, cases, execution, options, str(artifact_path), time.perf_counter() - started)
-    if options.force_initial:
+    outcome = _outcome(spec, cases, execution, base, str(artifact_path), time.perf_counter() - started)
+    if base.force_initial:
         outcome.notes.append("initial ranges reach outside the envelope: every run was started with --force-initial")
     summary = campaign_summary(outcome, artifact, request.worst)
     summary["files"] = [str(artifact_path)] * (loaded.document is not None) + [str(out / "summary.json")]
@@ -423,7 +407,7 @@ def _shipped(path: Path, artifact: Any, built: bool) -> tuple[str, Any]:
     return text, shipped
 
 
-def _outcome(spec: CampaignSpec, cases: list[Case], execution: Any, options: RunOptions, artifact_path: str,
+def _outcome(spec: CampaignSpec, cases: list[Case], execution: Any, base: SimRequest, artifact_path: str,
              wall_seconds: float) -> CampaignOutcome:
     results: dict[int, CaseResult] = {}
     lost: dict[int, str] = {}
@@ -436,7 +420,7 @@ def _outcome(spec: CampaignSpec, cases: list[Case], execution: Any, options: Run
             results[index] = CaseResult(index, ERRORED, None, task.error, None)
         else:
             results[index] = task.value
-    rerun = {c.index: rerun_command(case_request(spec, c, options)) for c in cases}
+    rerun = {c.index: rerun_command(case_request(spec, c, base)) for c in cases}
     attempts = {k: task.attempts for k, task in sorted(execution.outcomes.items())}
     return CampaignOutcome(spec, cases, results, lost, execution.interrupted, execution.where, execution.workers,
                            wall_seconds, rerun, artifact_path, attempts)
