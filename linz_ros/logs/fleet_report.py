@@ -17,7 +17,7 @@ from typing import Any, Callable
 from linz_ros.errors import ConfigError
 from linz_ros.plotting.page import html_table, page
 
-__all__ = ["fleet_text", "write_fleet_csv", "write_fleet_html", "CSV_COLUMNS", "duration_text", "ReportWriter",
+__all__ = ["fleet_text", "write_fleet_csv", "write_fleet_html", "CSV_COLUMNS", "duration_text", "fraction", "ReportWriter",
            "prepare_fleet_folder", "FLEET_JSON"]
 
 #: The fleet folder's summary; a folder holding one is a fleet folder (re-used, emptied first).
@@ -124,8 +124,18 @@ def fleet_text(summary: dict[str, Any], listed: int = 50, safe: Callable[[str], 
     return "\n".join(safe(line) for line in lines)
 
 
-def _ratio(part: float, whole: float) -> float:
-    return part / whole if whole else 0.0
+def fraction(part: float, whole: float) -> float:
+    """``part`` of ``whole`` (0 for a whole of no time): the one rule of the fleet's fractions.
+
+    Parameters
+    ----------
+    part, whole : float
+
+    Returns
+    -------
+    float
+    """
+    return part / whole if whole > 0 else 0.0
 
 
 def _csv_rows(summary: dict[str, Any]) -> list[dict[str, Any]]:
@@ -135,9 +145,9 @@ def _csv_rows(summary: dict[str, Any]) -> list[dict[str, Any]]:
         rows.append({"name": r["name"], "status": "analysed", "machine": r["machine"], "day": r["day"],
                      "plant": r["plant"], "files": len(r["files"]), "records": r["records"],
                      "duration": r["duration"], "under_warn_time": r["under_warn_time"],
-                     "under_warn_fraction": _ratio(r["under_warn_time"], r["duration"]),
+                     "under_warn_fraction": fraction(r["under_warn_time"], r["duration"]),
                      "under_act_time": r["under_act_time"],
-                     "under_act_fraction": _ratio(r["under_act_time"], r["duration"]),
+                     "under_act_fraction": fraction(r["under_act_time"], r["duration"]),
                      "under_warn_episodes": r["under_warn_count"], "under_act_episodes": r["under_act_count"],
                      "min_sigma": r["min_sigma"], "verdict": r["verdict"], "worst_min_sigma": worst.get("min_sigma"),
                      "worst_utc": worst.get("utc"), "problems": len(r["problems"]),

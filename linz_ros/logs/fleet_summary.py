@@ -13,7 +13,7 @@ from pathlib import Path
 from typing import Any, Sequence
 
 from linz_ros.logs.fleet_group import UNKNOWN_DAY, Recording
-from linz_ros.logs.fleet_report import duration_text
+from linz_ros.logs.fleet_report import duration_text, fraction
 from linz_ros.runtime.recording_identity import UNKNOWN_MACHINE
 
 __all__ = ["WORST", "worst_key", "recording_problem", "not_run_entry", "entry_problem", "fleet_summary"]
@@ -98,10 +98,6 @@ def not_run_entry(recording: Recording) -> dict[str, Any]:
             "files": list(recording.files)}
 
 
-def _fraction(part: float, whole: float) -> float:
-    return part / whole if whole > 0 else 0.0
-
-
 def _group(parts: list[dict[str, Any]], failed: int, not_run: int) -> dict[str, Any]:
     """One group's numbers from its parts (each: the _SUMMED numbers, files, problems, verdict, worst)."""
     sums = {key: sum(p[key] for p in parts) for key in _SUMMED}
@@ -112,8 +108,8 @@ def _group(parts: list[dict[str, Any]], failed: int, not_run: int) -> dict[str, 
             verdicts[p["verdict"]] = verdicts.get(p["verdict"], 0) + 1
     return {"recordings": len(parts), "failed": failed, "not_run": not_run, "files": sum(p["files"] for p in parts),
             "records": sums["records"], "duration": duration,
-            "under_warn_time": warn, "under_warn_fraction": _fraction(warn, duration),
-            "under_act_time": act, "under_act_fraction": _fraction(act, duration),
+            "under_warn_time": warn, "under_warn_fraction": fraction(warn, duration),
+            "under_act_time": act, "under_act_fraction": fraction(act, duration),
             "under_warn_episodes": sums["under_warn_count"], "under_act_episodes": sums["under_act_count"],
             "with_problems": sum(1 for p in parts if p["problems"]), "not_tracked": dict(sorted(verdicts.items())),
             "worst": sorted((e for p in parts for e in p["worst"]), key=worst_key)[:WORST]}
