@@ -106,6 +106,7 @@ class ProgressBar:
         self.label = label
         self.last = 0.0
         self.started = time.monotonic()
+        self.drawn = False            # a bar is on the line, not yet ended
 
     def __call__(self, fraction: float, detail: str = "") -> None:
         if not self.enabled:
@@ -126,7 +127,7 @@ class ProgressBar:
 
     def close(self) -> None:
         """End a bar left unfinished (an interrupted run), so what follows starts on a line of its own."""
-        if self.enabled and getattr(self, "drawn", False):
+        if self.drawn:
             sys.stderr.write("\n")
             sys.stderr.flush()
             self.drawn = False
