@@ -303,10 +303,14 @@ def fleet_report(request: FleetRequest) -> FleetReport:
     prepare_fleet_folder(out, [r.name for r in recordings])
     bar = ProgressBar(request.progress, "logs")
     started = time.monotonic()
-    execution = run_tasks(prepare_fleet, analyse_recording,
-                          Shipment.of(fleet_options_text(request.plots, request.csv, artifact_text, request.artifact)),
-                          recordings, settings, lambda done, total: bar(done / total, f"{done}/{total} recordings "),
-                          keep=ReportWriter(out))
+    try:
+        execution = run_tasks(prepare_fleet, analyse_recording,
+                              Shipment.of(fleet_options_text(request.plots, request.csv, artifact_text,
+                                                             request.artifact)),
+                              recordings, settings, lambda done, total: bar(done / total, f"{done}/{total} recordings "),
+                              keep=ReportWriter(out))
+    finally:
+        bar.close()          # an interrupted bar ends its line, as the campaign's does
     digests, problems, not_run = _fleet_outcomes(recordings, execution)
     problems += [entry_problem(path, what) for path, what in irregular_entries(request.paths)]
     summary = fleet_summary(digests, problems, not_run)
