@@ -209,15 +209,14 @@ def run_bringup(artifact_path: Path, params: Path, out: Path, seconds: float, lo
 
 
 def _simulator_physics(params: Path) -> str:
-    """The physics the bringup's simulator node ran (its ``physics`` parameter; ``model`` by default)."""
-    import yaml
-
+    """The physics the bringup's simulator node ran (its ``physics`` parameter; ``model`` by default),
+    read as the node reads its parameter file (``/**`` and the node's own section)."""
+    from linz_ros.bringup import node_parameters
     from linz_ros.runtime.physics import PHYSICS
 
     try:
-        nodes = yaml.safe_load(Path(params).read_text()) or {}
-        value = nodes.get("/linz_plant_sim", {}).get("ros__parameters", {}).get("physics", PHYSICS[0])
-    except (OSError, yaml.YAMLError, AttributeError):
+        value = node_parameters(params, "linz_plant_sim").get("physics", PHYSICS[0])
+    except ConfigError:
         return PHYSICS[0]          # the simulator refused the file itself; its own log says why
     return value if value in PHYSICS else PHYSICS[0]
 
