@@ -11,7 +11,7 @@ from __future__ import annotations
 from typing import Any, Sequence
 
 from linz_ros.artifact.extension import Extension
-from linz_ros.runtime.extension import AroundExtension
+from linz_ros.runtime._around import AroundExtension
 
 __all__ = ["ExtendedPlant"]
 
@@ -29,18 +29,11 @@ class ExtendedPlant(AroundExtension):
     def __init__(self, inner: Any, extension: Extension) -> None:
         super().__init__(inner, extension)
         self.parameters = inner.parameters
-        self._offsets = extension.offsets
 
     def _extended(self, x: Sequence[float], u: Sequence[float]) -> tuple[list[float], list[float]]:
-        xi = [0.0] * len(self.extension.compensator_states)
-        w = []
-        for j, at in enumerate(self._offsets):
-            if at is None:
-                w.append(float(u[j]))
-            else:
-                xi[at] = float(u[j])          # xi_1 = u held; its rates and w zero keep it there
-                w.append(0.0)
-        return list(x) + xi, w
+        # a compensated input is held in xi_1 (its rates and w zero keep it there); the others are w
+        w = [float(u[j]) if at is None else 0.0 for j, at in enumerate(self._offsets)]
+        return list(x) + self.held_compensator(u), w
 
     def derivative(self, x: Sequence[float], u: Sequence[float]) -> list[float]:
         """dx/dt of the plant's own states under its inputs u.

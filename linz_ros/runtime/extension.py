@@ -46,6 +46,7 @@ from typing import Any, Sequence
 
 from linz_ros.artifact.extension import Extension
 from linz_ros.errors import ConfigError
+from linz_ros.runtime._around import AroundExtension
 from linz_ros.runtime.core import settings_property
 from linz_ros.runtime.steprecord import StepRecord
 from linz_ros.runtime.watchdogs import WatchdogConfig
@@ -134,26 +135,6 @@ def command_limits(artifact: Any, config: WatchdogConfig) -> list[tuple[float, f
             for j, k in enumerate(extension.integrators)]
 
 
-class AroundExtension:
-    """What a wrapper of an extended artifact's core or plant keeps: the inner object and the plant's
-    own sizes.
-
-    Parameters
-    ----------
-    inner : Any
-        The extended artifact's core or plant.
-    extension : Extension
-    """
-
-    def __init__(self, inner: Any, extension: Extension) -> None:
-        self.inner = inner
-        self.extension = extension
-        self.artifact = inner.artifact
-        self.backend = inner.backend
-        self.n = len(extension.plant_states)
-        self.m = len(extension.plant_inputs)
-
-
 class ExtendedCore(AroundExtension):
     """A core of an extended law (:class:`ControllerCore` or ``NativeCore``) driving the plant's inputs.
 
@@ -171,7 +152,6 @@ class ExtendedCore(AroundExtension):
         self.orders = inner.orders
         self.reference_size = inner.reference_size
         self.period = 1.0 / self.artifact.rate
-        self._offsets = extension.offsets
         self.config = inner.config
         self.reset()
 
@@ -395,11 +375,8 @@ class ExtendedCore(AroundExtension):
         self._sent = True
         self._restart_next = True
         if x:                                     # the record's x: what the plant has, its inputs held
-            held = [0.0] * len(self.extension.compensator_states)
-            for j, at, *_ in self._plan:
-                held[at] = u[j]
             try:
-                self.last_extended_state = list(x) + held
+                self.last_extended_state = list(x) + self.held_compensator(u)
             except TypeError:
                 pass
         record.command = tuple(u)
