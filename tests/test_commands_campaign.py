@@ -299,7 +299,9 @@ def test_ctrl_c_on_the_process_group_keeps_what_finished_and_leaves_no_worker(ar
         assert process.poll() is None, "".join(seen)
         time.sleep(0.05)
     os.killpg(process.pid, signal.SIGINT)
-    stdout, _ = process.communicate(timeout=120)
+    process.wait(timeout=120)
+    reader.join(10)                  # the reader owns stderr up to its end (communicate() would close it)
+    stdout = process.stdout.read()
     assert process.returncode == 130
     first = stdout.splitlines()[0]
     assert first.startswith("!! campaign of pick_arm") and "incomplete: interrupted" in first, stdout[:500]
